@@ -1,0 +1,1 @@
+"""The budgeted, cross-validated search built on the tinyconv engine."""

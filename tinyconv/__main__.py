@@ -1,0 +1,3 @@
+from tinyconv.cli import main
+
+raise SystemExit(main())

@@ -1,0 +1,83 @@
+"""The ``tinyconv`` command line.
+
+Each command lives in its own module under :mod:`tinyconv.commands` with two
+functions, ``configure(parser)`` and ``run(args) -> int``; the table below is
+the only list of them, so ``tinyconv --help`` imports nothing heavy.
+
+Exit codes (the one place they are decided):
+
+* 0 — done;
+* 1 — the command ran and its check failed (e.g. a gradient check);
+* 2 — bad input: a wrong option, text, file or value; the message says
+  ``error: <what>`` and how to fix it;
+* 130 — interrupted (Ctrl-C); whatever was finished is kept.
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+from typing import Sequence
+
+from tinyconv import __version__
+from tinyconv.errors import InputError
+
+# name -> (module under tinyconv.commands, one-line help)
+COMMANDS: dict[str, tuple[str, str]] = {
+    "demo": ("demo", "the whole job on the built-in tile images: search, report, export"),
+    "inspect": ("inspect", "what is in a data set: classes, counts, sizes, duplicates, folds"),
+    "cost": ("cost", "per-layer parameters, MACs, activation memory and flash of a network"),
+    "check-grads": ("check_grads", "finite-difference check of every gradient of a network"),
+    "search": ("search", "budgeted cross-validated search over a space of networks"),
+    "report": ("report", "write the HTML report of a run folder"),
+    "export": ("export", "retrain the pick on all data; write int8 weights and C code"),
+}
+
+
+class _Parser(argparse.ArgumentParser):
+    """argparse with our error format and exit code 2."""
+
+    def error(self, message: str) -> None:  # type: ignore[override]
+        self.print_usage(sys.stderr)
+        print(f"error: {message}", file=sys.stderr)
+        raise SystemExit(2)
+
+
+def build_parser(only: str | None = None) -> argparse.ArgumentParser:
+    """The parser; with ``only``, just that command's module is imported."""
+    parser = _Parser(prog="tinyconv", description="Choose a small image classifier that "
+                     "fits a device budget, with cross-validated evidence.")
+    parser.add_argument("--version", action="version", version=f"tinyconv {__version__}")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND", parser_class=_Parser)
+    for name, (module, help_text) in COMMANDS.items():
+        cmd = sub.add_parser(name, help=help_text, description=help_text)
+        if name == only:
+            importlib.import_module(f"tinyconv.commands.{module}").configure(cmd)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run one command; returns the exit code (see the module docstring)."""
+    argv = list(sys.argv[1:] if argv is None else argv)
+    name = next((a for a in argv if not a.startswith("-")), None)
+    parser = build_parser(only=name if name in COMMANDS else None)
+    try:
+        args = parser.parse_args(argv)
+    except SystemExit as exc:
+        return int(exc.code or 0)
+    if args.command is None:
+        parser.print_help()
+        return 2
+    module = importlib.import_module(f"tinyconv.commands.{COMMANDS[args.command][0]}")
+    try:
+        return int(module.run(args) or 0)
+    except InputError as exc:
+        print(f"error: {exc}", file=sys.stderr)
+        return 2
+    except FileNotFoundError as exc:
+        print(f"error: no such file or folder: {exc.filename}; check the path", file=sys.stderr)
+        return 2
+    except KeyboardInterrupt:
+        print("interrupted; finished work is kept", file=sys.stderr)
+        return 130

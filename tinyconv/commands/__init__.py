@@ -1,0 +1,1 @@
+"""One module per command: ``configure(parser)`` adds options, ``run(args)`` does it."""

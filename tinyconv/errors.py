@@ -1,0 +1,31 @@
+"""The exception types a user sees.
+
+Every problem with what a user gave (a text, a file, a value) is an
+:class:`InputError`, a ``ValueError``; the command line turns these into
+``error: <what>: <where>`` and exit code 2 (see :mod:`tinyconv.cli`). Anything
+else that escapes is a bug and keeps its traceback.
+"""
+
+
+class InputError(ValueError):
+    """Something the user gave is wrong; the message says what and how to fix it."""
+
+
+class DataError(InputError):
+    """A data set, file or array that cannot be used as it is."""
+
+
+class BudgetError(InputError):
+    """No candidate survives the budgets, or a budget value is unusable."""
+
+
+class RunError(InputError):
+    """A run folder that cannot be used for the requested run (e.g. other data)."""
+
+
+class DivergedError(ArithmeticError):
+    """Training produced a non-finite loss; ``epoch`` says when (1-based)."""
+
+    def __init__(self, message: str, epoch: int):
+        super().__init__(message)
+        self.epoch = epoch
