@@ -1,0 +1,312 @@
+"""A network: the layers built from an architecture, in order, and its files.
+
+:class:`Network` builds one layer per :class:`~tinyconv.arch.Op` of
+:func:`tinyconv.arch.expand` and chains their forward and backward passes.
+Parameters and state are listed under stable names
+``"{index}:{op.name}/{key}"`` (e.g. ``"0:1:c8k3/w"``, ``"5:head:dense/b"``),
+the order the optimiser and the files use.
+
+File format (``.npz`` written by :func:`numpy.savez`, read with
+``allow_pickle=False``; every entry is a plain array, strings as 0-d unicode
+arrays):
+
+=====================  =======================================================
+``format``             int, 1
+``arch``               the architecture text
+``n_classes``          int
+``meta``               JSON text of the ``meta`` dict (``{}`` when none)
+``param_names``        unicode array of parameter names, in order
+``state_names``        unicode array of state names, in order
+``param/{name}``       each parameter array
+``state/{name}``       each state array (batch-norm running mean and variance)
+``extra/{key}``        each extra array (e.g. normalisation mean and std)
+=====================  =======================================================
+"""
+
+from __future__ import annotations
+
+import json
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+from tinyconv import arch as arch_mod
+from tinyconv import layers as layers_mod
+from tinyconv.errors import DataError
+
+FORMAT = 1
+
+
+@dataclass(frozen=True)
+class Saved:
+    """What :meth:`Network.load` returns: the network, its meta dict and extra arrays."""
+
+    network: "Network"
+    meta: dict[str, Any] = field(default_factory=dict)
+    arrays: dict[str, np.ndarray] = field(default_factory=dict)
+
+
+class Network:
+    """Layers built from an architecture, one per expanded op.
+
+    Attributes
+    ----------
+    arch : Arch
+    n_classes : int
+    ops : tuple of Op
+    layers : list of Layer, one per op
+    dtype : numpy dtype (float32, or float64 for checks)
+    """
+
+    def __init__(self, arch: arch_mod.Arch, n_classes: int, ops: tuple[arch_mod.Op, ...],
+                 layers: list, dtype) -> None:
+        self.arch = arch
+        self.n_classes = n_classes
+        self.ops = ops
+        self.layers = layers
+        self.dtype = np.dtype(dtype)
+
+    @classmethod
+    def from_arch(cls, arch: arch_mod.Arch | str, n_classes: int, seed: int = 0,
+                  dtype=np.float32) -> "Network":
+        """Build a network with fresh (He-initialised) weights.
+
+        Parameters
+        ----------
+        arch : Arch or str
+            The architecture or its text form.
+        n_classes : int
+            Number of classes K (>= 2).
+        seed : int
+            Seed of the generator every layer draws from (weights, dropout).
+        dtype : float32 or float64
+        """
+        if isinstance(arch, str):
+            arch = arch_mod.parse(arch)
+        ops = arch_mod.expand(arch, n_classes)
+        rng = np.random.default_rng(seed)
+        layers = [layers_mod.build(op, rng, np.dtype(dtype)) for op in ops]
+        return cls(arch, n_classes, ops, layers, dtype)
+
+    def __repr__(self) -> str:
+        n = sum(a.size for _, a in self.param_list())
+        return f"Network({str(self.arch)!r}, n_classes={self.n_classes}, params={n}, dtype={self.dtype})"
+
+    # ------------------------------------------------------------ passes
+
+    def forward(self, x: np.ndarray, training: bool = False) -> np.ndarray:
+        """Logits of a batch.
+
+        Parameters
+        ----------
+        x : ndarray, shape (n, h, w, c)
+            Images of the network's input shape (cast to its dtype).
+        training : bool
+            Training mode: dropout on, batch statistics, and every layer keeps
+            what ``backward`` needs.
+
+        Returns
+        -------
+        ndarray, shape (n, K)
+        """
+        want = tuple(self.arch.input.shape)
+        if x.ndim != 4 or tuple(x.shape[1:]) != want:
+            raise DataError(f"images have shape {x.shape}, but the network {self.arch} reads "
+                            f"(n, {', '.join(map(str, want))}); prepare the images to its "
+                            "input size and colour mode")
+        out = np.asarray(x, dtype=self.dtype)
+        for layer in self.layers:
+            out = layer.forward(out, training)
+        return out
+
+    def backward(self, grad_logits: np.ndarray) -> np.ndarray:
+        """Back-propagate ``grad_logits`` (n, K) after a training forward.
+
+        Sets every layer's gradients (see :meth:`grad_list`) and returns the
+        gradient with respect to the input images, shape (n, h, w, c).
+        """
+        grad = np.asarray(grad_logits, dtype=self.dtype)
+        for layer in reversed(self.layers):
+            grad = layer.backward(grad)
+        return grad
+
+    # ------------------------------------------------------------ arrays
+
+    def _names(self, i: int, key: str) -> str:
+        return f"{i}:{self.ops[i].name}/{key}"
+
+    def param_list(self) -> list[tuple[str, np.ndarray]]:
+        """``(name, array)`` of every trained parameter, in layer order (the arrays themselves)."""
+        return [(self._names(i, k), a) for i, layer in enumerate(self.layers)
+                for k, a in layer.params.items()]
+
+    def grad_list(self) -> list[tuple[str, np.ndarray]]:
+        """``(name, gradient)`` in the order of :meth:`param_list`, after a backward."""
+        out = []
+        for i, layer in enumerate(self.layers):
+            for k in layer.params:
+                if k not in layer.grads:
+                    raise RuntimeError(f"no gradient for {self._names(i, k)}: call backward() "
+                                       "after a training forward first")
+                out.append((self._names(i, k), layer.grads[k]))
+        return out
+
+    def state_list(self) -> list[tuple[str, np.ndarray]]:
+        """``(name, array)`` of saved-but-not-trained arrays (batch-norm running statistics)."""
+        return [(self._names(i, k), a) for i, layer in enumerate(self.layers)
+                for k, a in layer.state.items()]
+
+    def astype(self, dtype) -> "Network":
+        """Cast every parameter and state array to ``dtype`` in place; returns ``self``.
+
+        An optimiser made before the cast holds the old arrays: make a new one.
+        """
+        for layer in self.layers:
+            layer.astype(dtype)
+        self.dtype = np.dtype(dtype)
+        return self
+
+    # ------------------------------------------------------------ files
+
+    def save(self, path: str | os.PathLike, meta: dict | None = None,
+             arrays: dict[str, np.ndarray] | None = None) -> Path:
+        """Write architecture, weights, state, ``meta`` and extra ``arrays`` to ``path``.
+
+        The file is written under a temporary name and then renamed, so a
+        crash never leaves half a file. ``meta`` must be JSON-serialisable.
+
+        Returns
+        -------
+        Path of the written file (exactly ``path``; no suffix is added).
+        """
+        path = Path(path)
+        try:
+            meta_text = json.dumps(meta or {}, sort_keys=True)
+        except TypeError as exc:
+            raise DataError(f"meta for {path} is not JSON-serialisable: {exc}; "
+                            "use plain numbers, strings, lists and dicts") from None
+        params, state = self.param_list(), self.state_list()
+        entries: dict[str, np.ndarray] = {
+            "format": np.array(FORMAT),
+            "arch": np.array(str(self.arch)),
+            "n_classes": np.array(self.n_classes),
+            "meta": np.array(meta_text),
+            "param_names": np.array([n for n, _ in params]),
+            "state_names": np.array([n for n, _ in state], dtype=str),
+        }
+        entries.update({f"param/{n}": a for n, a in params})
+        entries.update({f"state/{n}": a for n, a in state})
+        for key, value in (arrays or {}).items():
+            value = np.asarray(value)
+            if value.dtype == object:
+                raise DataError(f"extra array {key!r} for {path} has dtype object, which "
+                                "cannot be saved without pickle; give a numeric array")
+            entries[f"extra/{key}"] = value
+        tmp = path.with_name(path.name + ".tmp")
+        with open(tmp, "wb") as fh:
+            np.savez(fh, **entries)
+        os.replace(tmp, path)
+        return path
+
+    @staticmethod
+    def load(path: str | os.PathLike) -> Saved:
+        """Read a file written by :meth:`save`.
+
+        Returns
+        -------
+        Saved
+            The rebuilt network (dtype of the saved parameters), its meta dict
+            and extra arrays.
+
+        Raises
+        ------
+        DataError
+            When the file is not a tinyconv network file or is damaged.
+        """
+        entries = _read(path)
+        text, n_classes = str(entries["arch"]), int(entries["n_classes"])
+        try:
+            arch = arch_mod.parse(text)
+        except arch_mod.ArchError as exc:
+            raise DataError(f"{path}: the saved architecture is not valid: {exc}") from None
+        names = [str(n) for n in entries["param_names"]]
+        dtype = entries[f"param/{names[0]}"].dtype if names else np.float32
+        net = Network.from_arch(arch, n_classes, dtype=dtype)
+        net._assign(entries, path)
+        meta = json.loads(str(entries["meta"]))
+        extra = {k[len("extra/"):]: v for k, v in entries.items() if k.startswith("extra/")}
+        return Saved(net, meta, extra)
+
+    def load_weights(self, path: str | os.PathLike) -> None:
+        """Copy the parameters and state saved in ``path`` into this network.
+
+        Raises
+        ------
+        DataError
+            Naming the first layer whose tensors do not match (kind or shape),
+            with both shapes, when the file holds another architecture.
+        """
+        self._assign(_read(path), path)
+
+    def _assign(self, entries: dict[str, np.ndarray], path) -> None:
+        """Check every saved tensor against ours, in order, then copy them in."""
+        saved_arch = str(entries["arch"])
+        pairs = []
+        for group, mine in (("param", self.param_list()), ("state", self.state_list())):
+            theirs = [str(n) for n in entries[f"{group}_names"]]
+            for j in range(max(len(mine), len(theirs))):
+                name, here = mine[j] if j < len(mine) else (None, None)
+                other = theirs[j] if j < len(theirs) else None
+                there = entries.get(f"{group}/{other}") if other is not None else None
+                if other is not None and there is None:
+                    raise DataError(f"{path}: damaged file: {group} {other!r} is listed but "
+                                    "missing; save the network again")
+                same = (name is not None and other is not None
+                        and name.rsplit("/", 1)[1] == other.rsplit("/", 1)[1]
+                        and here.shape == there.shape)
+                if not same:
+                    raise DataError(_mismatch(path, saved_arch, self, group, name, here,
+                                              other, there))
+                pairs.append((here, there))
+        for here, there in pairs:
+            here[...] = there
+
+
+def _mismatch(path, saved_arch: str, net: Network, group: str, name, here, other,
+              there) -> str:
+    """The message for the first tensor that does not fit."""
+    def describe(n, a):
+        if n is None:
+            return "nothing"
+        layer, key = n.split(":", 1)[1].rsplit("/", 1)
+        kind = "parameter" if group == "param" else "state"
+        return f"layer {layer} {kind} {key!r} of shape {tuple(a.shape)}"
+
+    return (f"cannot load weights from {path} (architecture {saved_arch!r}) into "
+            f"{str(net.arch)!r}: the first mismatch is {describe(name, here)} in this "
+            f"network against {describe(other, there)} in the file; build the network "
+            "from the saved architecture (Network.load) or load a file of this architecture")
+
+
+def _read(path) -> dict[str, np.ndarray]:
+    """Every entry of a network file, checked for the required keys."""
+    try:
+        with np.load(path, allow_pickle=False) as data:
+            entries = {k: data[k] for k in data.files}
+    except (ValueError, OSError) as exc:
+        if isinstance(exc, FileNotFoundError):
+            raise
+        raise DataError(f"{path} is not a readable .npz network file ({exc}); "
+                        "give a file written by Network.save") from None
+    need = ("format", "arch", "n_classes", "meta", "param_names", "state_names")
+    missing = [k for k in need if k not in entries]
+    if missing:
+        raise DataError(f"{path} is not a tinyconv network file: it lacks "
+                        f"{', '.join(missing)}; give a file written by Network.save")
+    if int(entries["format"]) != FORMAT:
+        raise DataError(f"{path} has network file format {int(entries['format'])}, "
+                        f"but this version reads format {FORMAT}; save it again")
+    return entries

@@ -1,0 +1,352 @@
+"""The training loop: epochs of shuffled mini-batches, early stopping, divergence.
+
+:func:`fit` trains a :class:`~tinyconv.network.Network` in place and returns a
+:class:`History`. Everything random comes from ``config.seed`` (the batch
+order) and from the network's own seed (initial weights, dropout masks), so
+one seed gives bit-identical weights when run single-threaded.
+
+Decisions, stated once:
+
+* **Batches.** Each epoch draws a permutation of the images from a
+  ``numpy.random.Generator`` seeded with ``config.seed`` (one generator for
+  the whole run) and splits it into ``ceil(n / batch_size)`` batches whose
+  sizes differ by at most one, so no tiny last batch upsets batch norm.
+* **Reported training figures** are the means over the epoch's mini-batches
+  of the data loss and accuracy in training mode (dropout on, batch
+  statistics), weighted by batch size: free to compute, and common practice.
+  The weight-decay penalty is not part of the reported loss.
+* **Early stopping** (``patience`` set, needs held-out data): training stops
+  when the held-out loss has not improved for ``patience`` epochs in a row
+  (status ``"stopped"``). Whenever ``patience`` is set the network is left
+  with the weights (and batch-norm statistics) of the epoch with the lowest
+  held-out loss, ``History.best_epoch``; the held-out figures of that epoch
+  are then an optimistic estimate, because they chose it.
+* **Divergence.** A non-finite batch loss stops training at once:
+  ``status = "diverged"``, ``diverged_epoch`` (1-based) says when, no further
+  epoch runs, and the network is put back to its weights at the start of that
+  epoch (the last finite ones), so no garbage weights are left behind. The
+  epoch that diverged is not in the per-epoch tuples.
+* ``on_epoch(epoch, stats)`` is called after every finished epoch with the
+  1-based epoch and a dict of that epoch's figures; returning ``True`` stops
+  training (status ``"stopped"``), e.g. for a time budget.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+from typing import Callable
+
+import numpy as np
+
+from tinyconv.errors import DataError, InputError
+from tinyconv.losses import check_smoothing, log_softmax, softmax, softmax_cross_entropy
+from tinyconv.optim import DECAY_KINDS, SCHEDULES, SGD, Adam, learning_rate
+
+OPTIMISERS = ("adam", "sgd")
+
+
+@dataclass(frozen=True)
+class TrainConfig:
+    """How to train one network.
+
+    Attributes
+    ----------
+    epochs : int
+        Passes over the training images (>= 1).
+    batch_size : int
+        Images per mini-batch (>= 1); batches are balanced in size.
+    optimizer : {"adam", "sgd"}
+        Adam, or SGD with heavy-ball momentum.
+    lr : float
+        Base learning rate (Adam's default 1e-3).
+    momentum : float
+        SGD momentum in [0, 1); ignored by Adam.
+    weight_decay : float
+        Decay of weight tensors (not biases or batch-norm parameters).
+    decay : {"decoupled", "l2"}
+        Decoupled decay, or an L2 penalty ``weight_decay / 2 * ||w||^2``.
+    schedule : {"constant", "step", "cosine"}
+        Learning-rate schedule over the epochs (see ``optim.learning_rate``).
+    label_smoothing : float
+        Label smoothing in [0, 1).
+    patience : int or None
+        Early-stopping patience in epochs (needs held-out data).
+    seed : int
+        Seed of the batch order.
+    """
+
+    epochs: int
+    batch_size: int = 64
+    optimizer: str = "adam"
+    lr: float = 1e-3
+    momentum: float = 0.9
+    weight_decay: float = 0.0
+    decay: str = "decoupled"
+    schedule: str = "constant"
+    label_smoothing: float = 0.0
+    patience: int | None = None
+    seed: int = 0
+
+    def __post_init__(self) -> None:
+        def need(ok: bool, message: str) -> None:
+            if not ok:
+                raise InputError(message)
+
+        need(isinstance(self.epochs, int) and self.epochs >= 1,
+             f"epochs must be an integer >= 1, got {self.epochs!r}")
+        need(isinstance(self.batch_size, int) and self.batch_size >= 1,
+             f"batch size must be an integer >= 1, got {self.batch_size!r}")
+        need(self.optimizer in OPTIMISERS,
+             f"optimizer {self.optimizer!r} is unknown; expected one of {', '.join(OPTIMISERS)}")
+        need(isinstance(self.lr, (int, float)) and math.isfinite(self.lr) and self.lr > 0,
+             f"learning rate must be a finite number > 0, got {self.lr!r}; try 1e-3 for "
+             "adam or 0.05 for sgd")
+        need(0.0 <= self.momentum < 1.0, f"momentum must be in [0, 1), got {self.momentum!r}")
+        need(math.isfinite(self.weight_decay) and self.weight_decay >= 0,
+             f"weight decay must be a finite number >= 0, got {self.weight_decay!r}")
+        need(self.decay in DECAY_KINDS,
+             f"weight decay kind {self.decay!r} is unknown; expected one of "
+             f"{', '.join(DECAY_KINDS)}")
+        need(self.schedule in SCHEDULES,
+             f"learning-rate schedule {self.schedule!r} is unknown; expected one of "
+             f"{', '.join(SCHEDULES)}")
+        check_smoothing(self.label_smoothing)
+        need(self.patience is None or (isinstance(self.patience, int) and self.patience >= 1),
+             f"patience must be None or an integer >= 1, got {self.patience!r}")
+        need(isinstance(self.seed, int), f"seed must be an integer, got {self.seed!r}")
+
+
+@dataclass(frozen=True)
+class History:
+    """What happened during :func:`fit`, one entry per finished epoch.
+
+    Attributes
+    ----------
+    train_loss, train_acc : tuple of float
+        Mean mini-batch data loss and accuracy (training mode).
+    val_loss, val_acc : tuple of float
+        Held-out loss and accuracy (evaluation mode); empty without held-out data.
+    status : {"done", "stopped", "diverged"}
+    diverged_epoch : int or None
+        1-based epoch whose loss was not finite.
+    best_epoch : int or None
+        1-based epoch of the lowest held-out loss (None without held-out data).
+    """
+
+    train_loss: tuple[float, ...]
+    train_acc: tuple[float, ...]
+    val_loss: tuple[float, ...]
+    val_acc: tuple[float, ...]
+    status: str
+    diverged_epoch: int | None = None
+    best_epoch: int | None = None
+
+    @property
+    def epochs(self) -> int:
+        """Number of finished epochs."""
+        return len(self.train_loss)
+
+
+def make_optimiser(net, config: TrainConfig) -> SGD | Adam:
+    """The optimiser ``config`` asks for, over ``net.param_list()``."""
+    params = net.param_list()
+    if config.optimizer == "sgd":
+        return SGD(params, momentum=config.momentum, weight_decay=config.weight_decay,
+                   decay=config.decay)
+    return Adam(params, weight_decay=config.weight_decay, decay=config.decay)
+
+
+def check_arrays(net, x: np.ndarray, y: np.ndarray, what: str = "training") -> tuple[np.ndarray, np.ndarray]:
+    """Return ``x`` in the network's dtype and ``y`` as int64, after checking them.
+
+    Raises
+    ------
+    DataError
+        When shapes do not match the network's input, the counts differ, or a
+        label is outside ``0..K-1``.
+    """
+    x = np.asarray(x)
+    y = np.asarray(y)
+    want = tuple(net.arch.input.shape)
+    if x.ndim != 4 or tuple(x.shape[1:]) != want:
+        raise DataError(f"{what} images have shape {x.shape}, but the network "
+                        f"{net.arch} reads (n, {', '.join(map(str, want))}); prepare the "
+                        "images to the network's input size and colour mode")
+    if y.shape != (x.shape[0],):
+        raise DataError(f"{what} labels have shape {y.shape} for {x.shape[0]} images; "
+                        "give one integer label per image")
+    if x.shape[0] == 0:
+        raise DataError(f"{what} data is empty; give at least one image")
+    if y.dtype.kind not in "iu":
+        raise DataError(f"{what} labels must be integers, got dtype {y.dtype}")
+    if y.min() < 0 or y.max() >= net.n_classes:
+        raise DataError(f"{what} labels must be in 0..{net.n_classes - 1} for a network "
+                        f"of {net.n_classes} classes, got values {y.min()}..{y.max()}")
+    if not np.isfinite(x).all():
+        raise DataError(f"{what} images contain NaN or infinite values; clean the data")
+    return np.asarray(x, dtype=net.dtype), y.astype(np.int64, copy=False)
+
+
+def _snapshot(net) -> list[np.ndarray]:
+    """Copies of every parameter and state array, in a fixed order."""
+    return [a.copy() for _, a in net.param_list()] + [a.copy() for _, a in net.state_list()]
+
+
+def _restore(net, saved: list[np.ndarray]) -> None:
+    """Write a snapshot back in place (the optimiser keeps its references)."""
+    arrays = [a for _, a in net.param_list()] + [a for _, a in net.state_list()]
+    for target, value in zip(arrays, saved):
+        target[...] = value
+
+
+def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
+        x_val: np.ndarray | None = None, y_val: np.ndarray | None = None,
+        on_epoch: Callable[[int, dict], bool | None] | None = None) -> History:
+    """Train ``net`` in place on ``(x, y)``.
+
+    Parameters
+    ----------
+    net : Network
+    x : ndarray, shape (n, h, w, c)
+        Prepared, normalised images (cast to the network's dtype).
+    y : ndarray, shape (n,), int in ``0..K-1``
+    config : TrainConfig
+    x_val, y_val : ndarray, optional
+        Held-out images and labels, evaluated after every epoch.
+    on_epoch : callable, optional
+        ``on_epoch(epoch, stats) -> bool | None``; see the module notes.
+
+    Returns
+    -------
+    History
+    """
+    x, y = check_arrays(net, x, y, "training")
+    have_val = x_val is not None or y_val is not None
+    if have_val:
+        if x_val is None or y_val is None:
+            raise InputError("give both held-out images and labels (x_val and y_val), or neither")
+        x_val, y_val = check_arrays(net, x_val, y_val, "held-out")
+    if config.patience is not None and not have_val:
+        raise InputError(f"early stopping (patience={config.patience}) needs held-out data; "
+                         "pass x_val and y_val, or set patience to None")
+
+    rng = np.random.default_rng(config.seed)
+    opt = make_optimiser(net, config)
+    n = x.shape[0]
+    n_batches = -(-n // config.batch_size)
+    logs: dict[str, list[float]] = {"train_loss": [], "train_acc": [], "val_loss": [],
+                                    "val_acc": []}
+    status, diverged_epoch = "done", None
+    best_loss, best_epoch, best_weights, waited = math.inf, None, None, 0
+
+    for epoch in range(config.epochs):
+        lr = learning_rate(config.lr, epoch, config.epochs, config.schedule)
+        start = _snapshot(net)
+        batches = np.array_split(rng.permutation(n), n_batches)
+        loss_sum, correct, finite = _train_epoch(net, x, y, batches, opt, lr,
+                                                 config.label_smoothing)
+        if not finite:
+            _restore(net, start)
+            status, diverged_epoch = "diverged", epoch + 1
+            break
+        logs["train_loss"].append(loss_sum / n)
+        logs["train_acc"].append(correct / n)
+        stats = {"lr": lr, "train_loss": loss_sum / n, "train_acc": correct / n}
+        stop = False
+        if have_val:
+            val_loss, val_acc = evaluate(net, x_val, y_val)
+            if not math.isfinite(val_loss):
+                # Finite on the training batches but not on held-out data: the
+                # weights have blown up all the same.
+                _restore(net, start)
+                logs["train_loss"].pop()
+                logs["train_acc"].pop()
+                status, diverged_epoch = "diverged", epoch + 1
+                break
+            logs["val_loss"].append(val_loss)
+            logs["val_acc"].append(val_acc)
+            stats.update(val_loss=val_loss, val_acc=val_acc)
+            if val_loss < best_loss:
+                best_loss, best_epoch, waited = val_loss, epoch + 1, 0
+                if config.patience is not None:
+                    best_weights = _snapshot(net)
+            else:
+                waited += 1
+                if config.patience is not None and waited >= config.patience:
+                    status, stop = "stopped", True
+        if on_epoch is not None and on_epoch(epoch + 1, stats) is True:
+            status, stop = "stopped", True
+        if stop:
+            break
+
+    if config.patience is not None and best_weights is not None and status != "diverged":
+        _restore(net, best_weights)
+    return History(tuple(logs["train_loss"]), tuple(logs["train_acc"]),
+                   tuple(logs["val_loss"]), tuple(logs["val_acc"]), status,
+                   diverged_epoch, best_epoch)
+
+
+def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], opt,
+                 lr: float, smoothing: float) -> tuple[float, int, bool]:
+    """One pass over ``batches`` (index arrays); returns (loss sum, correct, finite)."""
+    loss_sum, correct = 0.0, 0
+    # Overflow on the way to a non-finite loss is detected here and reported as
+    # divergence, so NumPy's warnings about it would only add noise.
+    with np.errstate(over="ignore", invalid="ignore"):
+        for idx in batches:
+            logits = net.forward(x[idx], training=True)          # (b, K)
+            loss, grad = softmax_cross_entropy(logits, y[idx], smoothing)
+            if not math.isfinite(loss):
+                return loss_sum, correct, False
+            net.backward(grad)
+            opt.update([g for _, g in net.grad_list()], lr)
+            loss_sum += loss * len(idx)
+            correct += int((logits.argmax(axis=1) == y[idx]).sum())
+    return loss_sum, correct, True
+
+
+def predict_proba(net, x: np.ndarray, batch: int = 256) -> np.ndarray:
+    """Class probabilities in evaluation mode, ``batch`` images at a time.
+
+    Parameters
+    ----------
+    net : Network
+    x : ndarray, shape (n, h, w, c)
+    batch : int
+
+    Returns
+    -------
+    ndarray, shape (n, K), rows summing to 1.
+    """
+    x = np.asarray(x, dtype=net.dtype)
+    out = np.empty((x.shape[0], net.n_classes), dtype=net.dtype)
+    for i in range(0, x.shape[0], batch):
+        out[i:i + batch] = softmax(net.forward(x[i:i + batch], training=False))
+    return out
+
+
+def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int = 256) -> tuple[float, float]:
+    """Mean cross-entropy (no smoothing) and accuracy in evaluation mode.
+
+    Parameters
+    ----------
+    net : Network
+    x : ndarray, shape (n, h, w, c)
+    y : ndarray, shape (n,), int
+    batch : int
+
+    Returns
+    -------
+    (loss, accuracy) : tuple of float
+    """
+    x = np.asarray(x, dtype=net.dtype)
+    y = np.asarray(y)
+    n = x.shape[0]
+    loss_sum, correct = 0.0, 0
+    for i in range(0, n, batch):
+        logits = net.forward(x[i:i + batch], training=False)
+        logp = log_softmax(logits)                             # (b, K)
+        loss_sum -= float(logp[np.arange(logits.shape[0]), y[i:i + batch]].sum())
+        correct += int((logits.argmax(axis=1) == y[i:i + batch]).sum())
+    return loss_sum / n, correct / n
