@@ -1,0 +1,286 @@
+"""Ranking the candidates of a run from their per-fold held-out accuracies.
+
+One row per candidate, at its highest rung whose units finished on every
+fold. The statistics (all over the ``k`` folds of that rung):
+
+* ``acc_mean`` and its standard error ``acc_se = sd(ddof=1) / sqrt(k)``;
+  ``train_acc_mean`` and the over-fitting ``gap = train_acc_mean - acc_mean``;
+* ``acc_per_kparam = (acc_mean - 1/K) / (params / 1000)``: accuracy gained
+  over chance (``K`` classes) per thousand parameters, so a network at chance
+  scores zero;
+* ``t_vs_best`` / ``p_vs_best``: the corrected resampled t-test of the best
+  candidate against this one, paired by fold (Nadeau & Bengio, "Inference for
+  the generalization error", Machine Learning 52, 2003):
+  ``t = dbar / sqrt((1/J + n_test/n_train) s^2)`` with ``J - 1`` degrees of
+  freedom, two-sided; for k-fold ``n_test/n_train = 1/(k-1)``;
+* ``pareto_params`` / ``pareto_macs``: not dominated in (higher accuracy,
+  fewer parameters) or (higher accuracy, fewer MACs);
+* ``within_1se``: mean within one standard error of the best;
+  ``pick``: the fewest parameters among those (the one-standard-error rule,
+  Breiman et al., CART, 1984; Hastie, Tibshirani & Friedman, ESL §7.10).
+
+The *finalists* are the rows at the highest rung in the table (with
+``--full``, every row). A candidate dropped at an earlier rung was measured
+after fewer epochs, so it is listed (with its epochs) but takes no part in
+the best, the fronts, the one-SE set or the pick, and is ordered after the
+finalists. Within that, rows are ordered by ``acc_per_kparam``
+(``by="per_param"``) or by ``acc_mean`` (``by="accuracy"``); both ranks are
+columns. Ties go to fewer parameters, then the text, so the table is the
+same whatever order the units finished in.
+"""
+
+from __future__ import annotations
+
+import math
+from pathlib import Path
+from typing import Sequence
+
+import numpy as np
+import pandas as pd
+
+ORDERS = ("per_param", "accuracy")
+COLUMNS = ("candidate", "params", "macs", "peak_kb", "flash_kb", "rung", "epochs", "folds",
+           "acc_mean", "acc_se", "acc_min", "acc_max", "train_acc_mean", "gap",
+           "acc_per_kparam", "t_vs_best", "p_vs_best", "finalist", "pareto_params",
+           "pareto_macs", "within_1se", "pick", "rank_per_param", "rank_accuracy")
+# Means of k accuracies that should tie can differ in the last bit.
+_TOL = 1e-12
+
+
+# ---------------------------------------------------------------- Student t
+
+
+def _beta_fraction(a: float, b: float, x: float) -> float:
+    """Continued fraction of the incomplete beta function (modified Lentz).
+
+    The even and odd terms are ``d_2m = m(b-m)x / ((a+2m-1)(a+2m))`` and
+    ``d_2m+1 = -(a+m)(a+b+m)x / ((a+2m)(a+2m+1))`` (Abramowitz & Stegun 26.5.8).
+    """
+    tiny = 1e-300
+    c, d = 1.0, 1.0 - (a + b) * x / (a + 1.0)
+    d = 1.0 / (d if abs(d) > tiny else tiny)
+    h = d
+    for m in range(1, 10_000):
+        for num in (m * (b - m) * x / ((a + 2 * m - 1) * (a + 2 * m)),
+                    -(a + m) * (a + b + m) * x / ((a + 2 * m) * (a + 2 * m + 1))):
+            d = 1.0 + num * d
+            d = 1.0 / (d if abs(d) > tiny else tiny)
+            c = 1.0 + num / c
+            c = c if abs(c) > tiny else tiny
+            h *= d * c
+        if abs(d * c - 1.0) < 1e-15:
+            return h
+    raise ArithmeticError(f"incomplete beta fraction did not converge (a={a}, b={b}, x={x})")
+
+
+def betainc(a: float, b: float, x: float) -> float:
+    """The regularised incomplete beta function ``I_x(a, b)`` for a, b > 0.
+
+    Uses the continued fraction where it converges fast
+    (``x < (a+1)/(a+b+2)``) and the symmetry ``I_x(a,b) = 1 - I_{1-x}(b,a)``
+    elsewhere, so a small result is computed directly, not as a difference.
+    """
+    if not (a > 0 and b > 0):
+        raise ValueError(f"betainc needs a, b > 0, got a={a}, b={b}")
+    if x <= 0.0:
+        return 0.0
+    if x >= 1.0:
+        return 1.0
+    log_front = (math.lgamma(a + b) - math.lgamma(a) - math.lgamma(b)
+                 + a * math.log(x) + b * math.log1p(-x))
+    if x < (a + 1.0) / (a + b + 2.0):
+        return math.exp(log_front) * _beta_fraction(a, b, x) / a
+    return 1.0 - math.exp(log_front) * _beta_fraction(b, a, 1.0 - x) / b
+
+
+def t_sf(t: float, df: float) -> float:
+    """Upper tail ``P(T > t)`` of Student's t with ``df`` degrees of freedom.
+
+    ``P(|T| > |t|) = I_{df/(df+t^2)}(df/2, 1/2)``, half of it on each side.
+    """
+    if not df > 0:
+        raise ValueError(f"degrees of freedom must be positive, got {df}")
+    if math.isnan(t):
+        return math.nan
+    if math.isinf(t):
+        return 0.0 if t > 0 else 1.0
+    tail = 0.5 * betainc(0.5 * df, 0.5, df / (df + t * t))
+    return tail if t >= 0 else 1.0 - tail
+
+
+def t_two_sided(t: float, df: float) -> float:
+    """Two-sided p-value ``P(|T| >= |t|)``."""
+    if math.isnan(t):
+        return math.nan
+    if math.isinf(t):
+        return 0.0
+    return betainc(0.5 * df, 0.5, df / (df + t * t))
+
+
+def corrected_ttest(diffs: Sequence[float], test_train_ratio: float) -> tuple[float, float]:
+    """Corrected resampled paired t-test (Nadeau & Bengio 2003).
+
+    Parameters
+    ----------
+    diffs : sequence of float, length J >= 2
+        Per-fold differences of a score between two models.
+    test_train_ratio : float
+        ``n_test / n_train``; ``1/(k-1)`` for k-fold, ``0`` for the plain
+        (uncorrected) paired t-test.
+
+    Returns
+    -------
+    (t, p) : the statistic and its two-sided p-value with ``J - 1`` dof.
+        All differences equal: ``t = 0, p = 1`` if they are zero, else
+        ``t = +-inf, p = 0``.
+    """
+    d = np.asarray(diffs, dtype=np.float64)
+    if d.ndim != 1 or d.size < 2:
+        raise ValueError(f"need at least 2 paired differences, got {d.size}")
+    if test_train_ratio < 0:
+        raise ValueError(f"test_train_ratio must be >= 0, got {test_train_ratio}")
+    j = d.size
+    mean = float(d.mean())
+    var = float(d.var(ddof=1))
+    scale = math.sqrt((1.0 / j + test_train_ratio) * var)
+    if scale == 0.0 or scale < 1e-15 * max(abs(mean), 1e-300):
+        if mean == 0.0:
+            return 0.0, 1.0
+        return math.copysign(math.inf, mean), 0.0
+    t = mean / scale
+    return t, t_two_sided(t, j - 1)
+
+
+# ---------------------------------------------------------------- fronts and picks
+
+
+def pareto_mask(acc: Sequence[float], cost: Sequence[float]) -> np.ndarray:
+    """True where no other point has accuracy >= and cost <=, one strictly.
+
+    Equal points do not dominate each other (both stay on the front).
+    """
+    a = np.asarray(acc, dtype=np.float64)
+    c = np.asarray(cost, dtype=np.float64)
+    ge = a[None, :] >= a[:, None]          # [i, j]: j at least as accurate as i
+    le = c[None, :] <= c[:, None]
+    strict = (a[None, :] > a[:, None]) | (c[None, :] < c[:, None])
+    return ~np.any(ge & le & strict, axis=1)
+
+
+def one_se_pick(acc_mean: Sequence[float], acc_se: Sequence[float],
+                params: Sequence[int], names: Sequence[str]) -> tuple[int, int, np.ndarray]:
+    """The one-standard-error rule.
+
+    Returns
+    -------
+    (best, pick, within) : index of the best mean (ties: fewer parameters,
+        then name), index of the pick (fewest parameters within one SE of the
+        best; ties: higher mean, then name) and the boolean mask of the set.
+    """
+    m = np.asarray(acc_mean, dtype=np.float64)
+    s = np.asarray(acc_se, dtype=np.float64)
+    order = sorted(range(len(m)), key=lambda i: (-m[i], params[i], names[i]))
+    best = order[0]
+    within = m >= m[best] - s[best] - _TOL
+    pick = min(np.flatnonzero(within), key=lambda i: (params[i], -m[i], names[i]))
+    return best, int(pick), within
+
+
+# ---------------------------------------------------------------- the table
+
+
+def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, folds: int,
+               by: str = "per_param") -> pd.DataFrame:
+    """The ranking table from a store's units and candidates (see the module notes).
+
+    Parameters
+    ----------
+    units : DataFrame with candidate, fold, rung, epochs, status, val_acc, train_acc
+    candidates : DataFrame with candidate, params, macs, peak_int8_bytes, flash_bytes
+    n_classes : int, the ``K`` of chance accuracy ``1/K``
+    folds : int, the ``k`` of the cross-validation (a rung counts when all k finished)
+    by : ``"per_param"`` or ``"accuracy"``, the order of the rows
+    """
+    if by not in ORDERS:
+        raise ValueError(f"rank by {by!r}: expected one of {', '.join(ORDERS)}")
+    done = units[units["status"] == "done"]
+    counts = done.groupby(["candidate", "rung"])["fold"].nunique()
+    complete = counts[counts >= folds].reset_index()
+    if complete.empty:
+        return pd.DataFrame({c: [] for c in COLUMNS})
+    top = complete.groupby("candidate")["rung"].max()
+    cost = candidates.set_index("candidate")
+    rows, fold_acc = [], {}
+    for cand, rung in sorted(top.items()):
+        sel = done[(done["candidate"] == cand) & (done["rung"] == rung)].sort_values("fold")
+        acc = sel["val_acc"].to_numpy(np.float64)
+        fold_acc[cand] = acc
+        params = int(cost.at[cand, "params"])
+        mean = float(acc.mean())
+        train = float(sel["train_acc"].to_numpy(np.float64).mean())
+        rows.append({
+            "candidate": cand, "params": params, "macs": int(cost.at[cand, "macs"]),
+            "peak_kb": cost.at[cand, "peak_int8_bytes"] / 1024.0,
+            "flash_kb": cost.at[cand, "flash_bytes"] / 1024.0,
+            "rung": int(rung), "epochs": int(sel["epochs"].iloc[0]), "folds": int(acc.size),
+            "acc_mean": mean, "acc_se": float(acc.std(ddof=1) / math.sqrt(acc.size)),
+            "acc_min": float(acc.min()), "acc_max": float(acc.max()),
+            "train_acc_mean": train, "gap": train - mean,
+            "acc_per_kparam": (mean - 1.0 / n_classes) / (params / 1000.0),
+        })
+    table = pd.DataFrame(rows)
+    final = table["rung"] == table["rung"].max()
+    table["finalist"] = final
+    fin = table[final]
+    best, pick, within = one_se_pick(fin["acc_mean"].to_numpy(), fin["acc_se"].to_numpy(),
+                                     fin["params"].tolist(), fin["candidate"].tolist())
+    best_name = fin["candidate"].iloc[best]
+    ratio = 1.0 / (folds - 1)
+    t_col, p_col = [], []
+    for cand in table["candidate"]:
+        if cand == best_name:
+            t_col.append(math.nan)
+            p_col.append(math.nan)
+            continue
+        t, p = corrected_ttest(fold_acc[best_name] - fold_acc[cand], ratio)
+        t_col.append(t)
+        p_col.append(p)
+    table["t_vs_best"] = t_col
+    table["p_vs_best"] = p_col
+    for col, cost_col in (("pareto_params", "params"), ("pareto_macs", "macs")):
+        mask = np.zeros(len(table), dtype=bool)
+        mask[np.flatnonzero(final)] = pareto_mask(fin["acc_mean"], fin[cost_col])
+        table[col] = mask
+    table["within_1se"] = False
+    table.loc[fin.index[within], "within_1se"] = True
+    table["pick"] = False
+    table.loc[fin.index[pick], "pick"] = True
+    table["rank_per_param"] = _ranks(table, "acc_per_kparam")
+    table["rank_accuracy"] = _ranks(table, "acc_mean")
+    key = "rank_per_param" if by == "per_param" else "rank_accuracy"
+    table = table.sort_values(key).reset_index(drop=True)
+    return table[list(COLUMNS)]
+
+
+def _ranks(table: pd.DataFrame, score: str) -> np.ndarray:
+    """1-based positions: finalists first, then by score, params, text."""
+    order = sorted(range(len(table)), key=lambda i: (
+        -table["rung"].iat[i], -table[score].iat[i], -table["acc_mean"].iat[i],
+        table["params"].iat[i], table["candidate"].iat[i]))
+    ranks = np.empty(len(table), dtype=np.int64)
+    ranks[order] = np.arange(1, len(table) + 1)
+    return ranks
+
+
+def rank_run(store, by: str = "per_param") -> pd.DataFrame:
+    """The ranking table of a run store (``search.store.RunStore``)."""
+    cfg = store.config()
+    return rank_units(store.units(), store.candidates(), len(cfg["classes"]),
+                      int(cfg["folds"]), by=by)
+
+
+def save_ranking(table: pd.DataFrame, run_dir: str | Path) -> Path:
+    """Write the table as ``ranking.csv`` in the run folder; returns its path."""
+    path = Path(run_dir) / "ranking.csv"
+    table.to_csv(path, index=False)
+    return path
