@@ -1,0 +1,176 @@
+"""Loading an image folder: one sub-folder per class.
+
+``root/<class>/<image>``: the class names are the sub-folder names in sorted
+order. PNG, JPEG, BMP and GIF files are read (see :mod:`.images`); hidden
+entries (names starting with ``.``) and files of other types are ignored with
+a note; sub-folders inside a class folder are ignored with a note.
+
+Problems are reported all at once: every unreadable file in one error (or,
+with ``skip_bad=True``, skipped and counted), every empty class folder in one
+error. Images of different sizes are resized to the most common size (area
+averaging or bilinear, :mod:`.resize`), with a warning when sizes lie far
+apart. When every image is grey the data set keeps one channel; otherwise
+grey images are repeated to RGB.
+"""
+
+from __future__ import annotations
+
+from collections import Counter
+from pathlib import Path
+
+import numpy as np
+
+from tinyconv.errors import DataError
+
+from .dataset import Dataset, Intake, WarningLog
+from .images import EXTENSIONS, UnreadableImage, read_image
+from .resize import resize_uint8
+from .validate import check_classes, listing, warn_duplicates
+
+FAR_APART = 2.0  # a side more than this factor from the common size draws a warning
+
+
+def _scan(root: Path, log: WarningLog) -> dict[str, list[Path]]:
+    """Class name -> image files, noting what is ignored."""
+    hidden: list[str] = []
+    other: list[str] = []
+    nested: list[str] = []
+    loose: list[str] = []
+    classes: dict[str, list[Path]] = {}
+    for entry in sorted(root.iterdir()):
+        if entry.name.startswith("."):
+            hidden.append(entry.name)
+        elif entry.is_dir():
+            files: list[Path] = []
+            for f in sorted(entry.iterdir()):
+                rel = f"{entry.name}/{f.name}"
+                if f.name.startswith("."):
+                    hidden.append(rel)
+                elif f.is_dir():
+                    nested.append(rel + "/")
+                elif f.suffix.lower() in EXTENSIONS:
+                    files.append(f)
+                else:
+                    other.append(rel)
+            classes[entry.name] = files
+        else:
+            loose.append(entry.name)
+    if not classes:
+        found = (f"{len(loose)} files but no sub-folders" if loose else "nothing")
+        raise DataError(f"{root}: found {found}; an image folder needs one sub-folder per "
+                        "class, e.g. root/ring/img1.png and root/cross/img2.png")
+    if hidden:
+        log.note(f"ignored {len(hidden)} hidden "
+                 f"{'entry' if len(hidden) == 1 else 'entries'}: {listing(hidden)}")
+    if other:
+        log.note(f"ignored {len(other)} non-image "
+                 f"{'file' if len(other) == 1 else 'files'} (not "
+                 f"{'/'.join(e[1:].upper() for e in EXTENSIONS)}): {listing(other)}")
+    if nested:
+        log.note(f"ignored {len(nested)} folders inside class folders (only files "
+                 f"directly in a class folder are read): {listing(nested)}")
+    if loose:
+        log.note(f"ignored {len(loose)} files directly in {root} (images belong in a "
+                 f"class sub-folder): {listing(loose)}")
+    return classes
+
+
+def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, Intake]:
+    """Read an image folder into a :class:`Dataset`.
+
+    Parameters
+    ----------
+    root : str or Path
+        Folder with one sub-folder per class.
+    skip_bad : bool
+        Skip unreadable images (listed in ``Dataset.skipped`` and warned
+        about) instead of refusing the folder.
+
+    Returns
+    -------
+    Dataset, Intake
+
+    Raises
+    ------
+    DataError
+        Unreadable images (all listed, unless ``skip_bad``), empty class
+        folders (all listed), fewer than two classes, no sub-folders.
+    """
+    root = Path(root)
+    log = WarningLog()
+    scanned = _scan(root, log)
+    pixels: list[np.ndarray] = []
+    labels: list[int] = []
+    paths: list[str] = []
+    kinds: Counter[str] = Counter()
+    bad: list[str] = []
+    names = list(scanned)
+    for c, name in enumerate(names):
+        for f in scanned[name]:
+            try:
+                im, kind = read_image(f)
+            except UnreadableImage as exc:
+                bad.append(f"{f} ({exc})")
+                continue
+            pixels.append(im)
+            labels.append(c)
+            paths.append(str(f))
+            kinds[kind] += 1
+    skipped: tuple[str, ...] = ()
+    if bad:
+        if not skip_bad:
+            raise DataError(f"{root}: {len(bad)} unreadable image "
+                            f"{'file' if len(bad) == 1 else 'files'}: {listing(bad, 20)}; "
+                            "fix or remove them, or pass skip_bad (--skip-bad) to leave "
+                            "them out")
+        skipped = tuple(b.split(" (", 1)[0] for b in bad)
+        log.warn(f"skipped {len(bad)} unreadable image "
+                 f"{'file' if len(bad) == 1 else 'files'}: {listing(bad)}")
+    counts = np.bincount(np.array(labels, dtype=np.int64), minlength=len(names))
+    empty = [names[i] for i in range(len(names)) if counts[i] == 0]
+    if empty:
+        raise DataError(f"{root}: {len(empty)} class "
+                        f"{'folder has' if len(empty) == 1 else 'folders have'} no readable "
+                        f"images: {listing(repr(e) for e in empty)}; add PNG, JPEG, BMP or "
+                        "GIF images to it, or remove the folder")
+    check_classes(names, counts, str(root))
+    images, sizes = _stack(pixels, paths, log)
+    label_arr = np.array(labels, dtype=np.int64)
+    within, across = warn_duplicates(images, label_arr, names, paths, log)
+    ds = Dataset(images, label_arr, tuple(names), tuple(paths), str(root), skipped,
+                 tuple(log.messages))
+    intake = Intake(tuple(sizes.most_common()), tuple(kinds.most_common()),
+                    tuple(within), tuple(across))
+    return ds, intake
+
+
+def _stack(pixels: list[np.ndarray], paths: list[str], log: WarningLog
+           ) -> tuple[np.ndarray, Counter[str]]:
+    """One (n, h, w, c) uint8 array at the most common size; sizes seen."""
+    shapes = [p.shape[:2] for p in pixels]
+    sizes = Counter(f"{h}x{w}" for h, w in shapes)
+    (h, w), _ = Counter(shapes).most_common(1)[0]
+    grey = all(p.shape[2] == 1 or (np.array_equal(p[..., 0], p[..., 1])
+                                   and np.array_equal(p[..., 0], p[..., 2])) for p in pixels)
+    c = 1 if grey else 3
+    out = np.empty((len(pixels), h, w, c), dtype=np.uint8)
+    far: list[str] = []
+    n_resized = 0
+    for i, p in enumerate(pixels):
+        p = p[..., :1] if grey else (np.repeat(p, 3, axis=2) if p.shape[2] == 1 else p)
+        ph, pw = p.shape[:2]
+        if (ph, pw) != (h, w):
+            n_resized += 1
+            if max(ph / h, h / ph, pw / w, w / pw) > FAR_APART:
+                far.append(f"{paths[i]} ({ph}x{pw})")
+            p = resize_uint8(p[None], h, w)[0]
+        out[i] = p
+    if far:
+        log.warn(f"image sizes lie far apart: {len(far)} of {len(pixels)} images differ "
+                 f"from the most common size {h}x{w} by more than {FAR_APART:g}x: "
+                 f"{listing(far)}; they are resized to {h}x{w} (and again to the "
+                 "network's input size), which distorts them; crop or resize them "
+                 "consistently before loading")
+    elif n_resized:
+        log.note(f"{n_resized} images resized to the most common size {h}x{w}")
+    return out, sizes

@@ -1,0 +1,219 @@
+"""The demo data set: glazed workshop tiles sorted by the maker's mark.
+
+A ceramics workshop stamps one of eight marks on each tile: ring, cross, bar,
+chevron, dot pair, triangle, square, star. :func:`make_tiles` draws such tiles
+as a camera over the conveyor would see them:
+
+* the mark, anti-aliased, at a random position, rotation, scale and stroke
+  width, drawn from a signed distance to its strokes (one pixel of coverage
+  ramp: ``coverage = clip(0.5 - distance_px, 0, 1)``);
+* on a random glaze colour, the mark darker (glaze pooled in the stamp) or
+  lighter (a bare rim) than the glaze;
+* a lighting gradient in a random direction, glaze speckle, lens blur of
+  random strength and sensor noise.
+
+Every image of a batch is computed at once over the pixel grid (NumPy, no
+per-pixel loops), deterministically from the seed. A mark can sit anywhere
+in a band around the centre, so a classifier that looks at fixed pixels
+(a dense network) does poorly, while a small convolutional one, which finds
+the same stroke pattern anywhere, does well.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from .dataset import Dataset
+
+CLASSES = ("ring", "cross", "bar", "chevron", "dot-pair", "triangle", "square", "star")
+SPEC = "builtin:tiles"
+_CHUNK = 512  # images computed together (bounds memory; results do not depend on it)
+
+
+def _polygon(radii: np.ndarray, start_deg: float) -> np.ndarray:
+    """Closed polygon as segments (m, 4) with vertices at the given radii."""
+    m = radii.size
+    ang = np.deg2rad(start_deg + 360.0 * np.arange(m) / m)
+    pts = np.stack([radii * np.cos(ang), radii * np.sin(ang)], axis=1)
+    return np.concatenate([pts, np.roll(pts, -1, axis=0)], axis=1)
+
+
+# stroke segments (x0, y0, x1, y1) of each mark in its own frame, radius about 1
+_SEGMENTS: dict[str, np.ndarray] = {
+    "cross": np.array([[-1.0, 0.0, 1.0, 0.0], [0.0, -1.0, 0.0, 1.0]]),
+    "bar": np.array([[-1.0, 0.0, 1.0, 0.0]]),
+    "chevron": np.array([[-0.75, 0.55, 0.0, -0.55], [0.0, -0.55, 0.75, 0.55]]),
+    "triangle": _polygon(np.ones(3), 90.0),
+    "square": _polygon(np.full(4, 0.95), 45.0),
+    "star": _polygon(np.tile([1.0, 0.45], 5), 90.0),
+}
+_RING_RADIUS = 0.75
+_DOT_CENTRES = np.array([[-0.5, 0.0], [0.5, 0.0]])
+_DOT_RADIUS = 0.26
+
+
+def _segment_distance(qx: np.ndarray, qy: np.ndarray, seg: np.ndarray) -> np.ndarray:
+    """Distance from points (any shape) to the nearest of segments (m, 4)."""
+    best = np.full(qx.shape, np.inf, dtype=qx.dtype)
+    for x0, y0, x1, y1 in seg:
+        dx, dy = x1 - x0, y1 - y0
+        t = np.clip(((qx - x0) * dx + (qy - y0) * dy) / (dx * dx + dy * dy), 0.0, 1.0)
+        ex, ey = qx - x0 - t * dx, qy - y0 - t * dy
+        np.minimum(best, ex * ex + ey * ey, out=best)   # squared, root taken once
+    return np.sqrt(best)
+
+
+def mark_distance(name: str, qx: np.ndarray, qy: np.ndarray) -> tuple[np.ndarray, bool]:
+    """Distance (mark units) to a mark's strokes, and whether it is filled.
+
+    For stroked marks the distance is to the centre line (the stroke width is
+    subtracted by the caller); for the filled dot pair it is signed, negative
+    inside the dots.
+    """
+    if name == "ring":
+        return np.abs(np.hypot(qx, qy) - _RING_RADIUS), False
+    if name == "dot-pair":
+        d = np.minimum(np.hypot(qx - _DOT_CENTRES[0, 0], qy - _DOT_CENTRES[0, 1]),
+                       np.hypot(qx - _DOT_CENTRES[1, 0], qy - _DOT_CENTRES[1, 1]))
+        return d - _DOT_RADIUS, True
+    return _segment_distance(qx, qy, _SEGMENTS[name]), False
+
+
+def _hsv_to_rgb(h: np.ndarray, s: np.ndarray, v: np.ndarray) -> np.ndarray:
+    """Vectorised HSV -> RGB for arrays of shape (n,); returns (n, 3)."""
+    i = np.floor(h * 6.0).astype(np.int64) % 6
+    f = h * 6.0 - np.floor(h * 6.0)
+    p, q, t = v * (1 - s), v * (1 - s * f), v * (1 - s * (1 - f))
+    table = np.stack([np.stack([v, t, p], 1), np.stack([q, v, p], 1),
+                      np.stack([p, v, t], 1), np.stack([p, q, v], 1),
+                      np.stack([t, p, v], 1), np.stack([v, p, q], 1)], 0)  # (6, n, 3)
+    return table[i, np.arange(h.size)]
+
+
+def _draw_params(rng: np.random.Generator, n: int, size: int) -> dict[str, np.ndarray]:
+    """Every per-image random choice, drawn up front (shapes (n,) or (n, 3))."""
+    half = size / 2.0
+    glaze = _hsv_to_rgb(rng.random(n), rng.uniform(0.2, 0.85, n), rng.uniform(0.45, 0.92, n))
+    darker = rng.random(n) < 0.75
+    dark = glaze * rng.uniform(0.2, 0.55, (n, 1))
+    light = glaze + (1.0 - glaze) * rng.uniform(0.4, 0.8, (n, 1))
+    tint = rng.random((n, 3))
+    mark = np.where(darker[:, None], dark, light)
+    mark = 0.85 * mark + 0.15 * tint
+    return {
+        "cx": rng.uniform(-0.32, 0.32, n) * half,        # mark centre, pixels from middle
+        "cy": rng.uniform(-0.32, 0.32, n) * half,
+        "angle": rng.uniform(0.0, 2.0 * np.pi, n),
+        "radius": rng.uniform(0.30, 0.55, n) * half,     # mark radius, pixels
+        "stroke": rng.uniform(0.55, 1.5, n) * (size / 32.0),  # half stroke width, pixels
+        "glaze": glaze,
+        "mark": mark,
+        "light_gain": rng.uniform(0.0, 0.35, n),
+        "light_angle": rng.uniform(0.0, 2.0 * np.pi, n),
+        "speckle": rng.uniform(0.005, 0.05, n),
+        "blur": rng.uniform(0.0, 1.0, n),
+        "noise": rng.uniform(0.005, 0.035, n),
+    }
+
+
+def _blur(x: np.ndarray) -> np.ndarray:
+    """Separable [1, 2, 1] / 4 blur over axes 1 and 2, edges repeated."""
+    for axis in (1, 2):
+        out = 0.5 * x
+        lo = [slice(None)] * 4
+        hi = [slice(None)] * 4
+        lo[axis], hi[axis] = slice(None, -1), slice(1, None)
+        out[tuple(hi)] += 0.25 * x[tuple(lo)]   # neighbour before
+        out[tuple(lo)] += 0.25 * x[tuple(hi)]   # neighbour after
+        first = [slice(None)] * 4
+        last = [slice(None)] * 4
+        first[axis], last[axis] = slice(0, 1), slice(-1, None)
+        out[tuple(first)] += 0.25 * x[tuple(first)]  # edge pixel repeats itself
+        out[tuple(last)] += 0.25 * x[tuple(last)]
+        x = out
+    return x
+
+
+def _render(labels: np.ndarray, prm: dict[str, np.ndarray], size: int,
+            rng: np.random.Generator) -> np.ndarray:
+    """Images of one chunk, shape (n, size, size, 3), float32 in [0, 1]."""
+    f32 = np.float32
+    n = labels.size
+    p = {k: v.astype(f32) for k, v in prm.items()}
+    coords = (np.arange(size) + 0.5 - size / 2.0).astype(f32)  # pixel centres from the middle
+    px = coords[None, None, :]                          # (1, 1, w)
+    py = coords[None, :, None]                          # (1, h, 1)
+    # into each mark's frame: rotate by -angle about its centre, divide by radius
+    cos = np.cos(p["angle"])[:, None, None]
+    sin = np.sin(p["angle"])[:, None, None]
+    dx = px - p["cx"][:, None, None]
+    dy = py - p["cy"][:, None, None]
+    r = p["radius"][:, None, None]
+    qx = (cos * dx + sin * dy) / r                      # (n, h, w)
+    qy = (-sin * dx + cos * dy) / r
+    dist_px = np.empty((n, size, size), dtype=f32)
+    for c, name in enumerate(CLASSES):
+        sel = labels == c
+        if not sel.any():
+            continue
+        d, filled = mark_distance(name, qx[sel], qy[sel])
+        stroke = p["stroke"][sel][:, None, None]
+        dist_px[sel] = d * r[sel] - (0.5 * stroke if filled else stroke)
+    cover = np.clip(0.5 - dist_px, 0.0, 1.0)[..., None]  # (n, h, w, 1) anti-aliased
+    glaze = p["glaze"][:, None, None, :]
+    img = glaze + (p["mark"][:, None, None, :] - glaze) * cover
+    # glaze speckle: sparse flecks; u < rate marks a fleck and u / rate sets its shade
+    u = rng.random((n, size, size), dtype=f32)
+    rate = p["speckle"][:, None, None]
+    fleck = np.where(u < rate, u / rate * f32(0.7) - f32(0.4), f32(0.0))
+    img += fleck[..., None]
+    # lighting gradient across the tile
+    la = p["light_angle"][:, None, None]
+    ramp = (np.cos(la) * px + np.sin(la) * py) * f32(2.0 / size)
+    img *= (f32(1.0) + p["light_gain"][:, None, None] * ramp)[..., None]
+    b = p["blur"][:, None, None, None]
+    img = img + b * (_blur(img) - img)
+    img += rng.standard_normal(img.shape, dtype=f32) * p["noise"][:, None, None, None]
+    return np.clip(img, 0.0, 1.0, out=img)
+
+
+def make_tiles(n_per_class: int, size: int = 32, seed: int = 0) -> Dataset:
+    """The workshop tiles: ``n_per_class`` images of each of the eight marks.
+
+    Parameters
+    ----------
+    n_per_class : int
+        Images of each mark (at least 1).
+    size : int
+        Side of the square images in pixels (8 to 512).
+    seed : int
+        The same seed gives the same images, bit for bit.
+
+    Returns
+    -------
+    Dataset
+        ``images`` (8 n_per_class, size, size, 3) uint8, labels in shuffled
+        order, ``classes`` = :data:`CLASSES`, ``source`` the full spec.
+    """
+    for name, value, lo, hi in (("n_per_class", n_per_class, 1, 1_000_000),
+                                ("size", size, 8, 512), ("seed", seed, 0, 2**63 - 1)):
+        if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
+            raise TypeError(f"{name} must be an int, got {type(value).__name__}")
+        if not lo <= value <= hi:
+            from tinyconv.errors import DataError
+            raise DataError(f"tiles: {name} must be between {lo} and {hi}, got {value}")
+    n_per_class, size, seed = int(n_per_class), int(size), int(seed)
+    seq = np.random.SeedSequence(seed)
+    param_seq, pixel_seq = seq.spawn(2)
+    prng = np.random.default_rng(param_seq)
+    n = n_per_class * len(CLASSES)
+    labels = prng.permutation(np.repeat(np.arange(len(CLASSES), dtype=np.int64), n_per_class))
+    prm = _draw_params(prng, n, size)
+    images = np.empty((n, size, size, 3), dtype=np.uint8)
+    for start, chunk_seq in zip(range(0, n, _CHUNK), pixel_seq.spawn(-(-n // _CHUNK))):
+        sl = slice(start, min(start + _CHUNK, n))
+        part = {k: v[sl] for k, v in prm.items()}
+        img = _render(labels[sl], part, size, np.random.default_rng(chunk_seq))
+        images[sl] = np.rint(img * np.float32(255.0)).astype(np.uint8)
+    source = f"{SPEC}?n={n_per_class}&size={size}&seed={seed}"
+    return Dataset(images, labels, CLASSES, None, source, (), ())
