@@ -1,0 +1,47 @@
+"""Shared test helpers: Ops with computed shapes, seeded inputs."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from tinyconv.arch import Op, conv_output
+
+
+def conv_op(h: int, w: int, c: int, filters: int, kernel: int, stride: int = 1,
+            valid: bool = False, kind: str = "conv", position: int = 1) -> Op:
+    """An Op for a conv (or ``kind='dwconv'``) on an ``h x w x c`` map, pads as in arch.expand."""
+    oh, pt, pb = conv_output(h, kernel, stride, valid)
+    ow, pl, pr = conv_output(w, kernel, stride, valid)
+    f = filters if kind == "conv" else c
+    token = (f"c{f}k{kernel}" if kind == "conv" else f"dw{kernel}") + \
+        ("s2" if stride == 2 else "") + ("v" if valid else "")
+    return Op(kind, (h, w, c), (oh, ow, f), position, token, filters=f, kernel=kernel,
+              stride=stride, padding="valid" if valid else "same", pads=(pt, pb, pl, pr))
+
+
+def pool_op(h: int, w: int, c: int, size: int, kind: str = "maxpool") -> Op:
+    """An Op for max or average pooling of size = stride ``size``."""
+    token = ("p" if kind == "maxpool" else "a") + str(size)
+    return Op(kind, (h, w, c), (h // size, w // size, c), 1, token, size=size, stride=size)
+
+
+def simple_op(kind: str, in_shape: tuple[int, ...], out_shape: tuple[int, ...] | None = None,
+              **fields) -> Op:
+    """An Op of any other kind (shapes as given; ``out_shape`` defaults to ``in_shape``)."""
+    return Op(kind, tuple(in_shape), tuple(out_shape or in_shape), 1, kind, **fields)
+
+
+def randn(shape: tuple[int, ...], seed: int = 0, dtype=np.float64) -> np.ndarray:
+    """Seeded standard-normal array."""
+    return np.random.default_rng(seed).standard_normal(shape).astype(dtype)
+
+
+def distinct(shape: tuple[int, ...], seed: int = 0, gap: float = 1e-2) -> np.ndarray:
+    """Seeded float64 array whose values differ pairwise by at least ``gap`` (no ties, no zeros).
+
+    Used where kinks matter (max pooling, ReLU): a shuffled arithmetic sequence
+    centred away from zero.
+    """
+    size = int(np.prod(shape))
+    values = (np.arange(size) - size / 2 + 0.5) * gap
+    return np.random.default_rng(seed).permutation(values).reshape(shape)

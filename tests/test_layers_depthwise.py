@@ -1,0 +1,84 @@
+"""Tests of the depthwise convolution layer and its kernels."""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from helpers import conv_op, randn
+from tinyconv.gradients import check_layer
+from tinyconv.layers import build, reference
+
+# (h, w, c, kernel, stride, valid)
+SHAPES = [
+    (5, 5, 3, 3, 1, False),
+    (6, 7, 2, 3, 2, False),
+    (7, 6, 2, 3, 2, True),
+    (7, 7, 2, 5, 1, False),
+    (8, 9, 2, 5, 2, True),
+    (5, 4, 3, 1, 2, False),
+]
+
+
+def _layer(shape, seed=0):
+    h, w, c, k, s, valid = shape
+    op = conv_op(h, w, c, c, k, s, valid, kind="dwconv")
+    layer = build(op, np.random.default_rng(seed), np.float64)
+    layer.params["b"][...] = randn((c,), seed + 11)
+    return op, layer
+
+
+@pytest.mark.parametrize("shape", SHAPES)
+def test_forward_matches_scipy_per_channel(shape):
+    """Depthwise forward equals scipy.signal.correlate2d ('valid', padded input) channel by channel."""
+    op, layer = _layer(shape)
+    x = randn((2,) + op.in_shape, 1)
+    y = layer.forward(x)
+    assert y.shape == (2,) + op.out_shape
+    t, b, left, r = op.pads
+    xp = np.pad(x, ((0, 0), (t, b), (left, r), (0, 0)))
+    w, bias = layer.params["w"], layer.params["b"]
+    for i in range(x.shape[0]):
+        for ch in range(x.shape[3]):
+            # Reference: SciPy 2-D cross-correlation of one channel with its own filter.
+            ref = signal.correlate2d(xp[i, :, :, ch], w[:, :, ch], mode="valid")
+            ref = ref[::op.stride, ::op.stride] + bias[ch]
+            np.testing.assert_allclose(y[i, :, :, ch], ref, rtol=1e-10, atol=1e-12)
+
+
+@pytest.mark.parametrize("shape", SHAPES)
+def test_gradients_match_central_differences(shape):
+    """Depthwise input, weight and bias gradients agree with central differences (< 1e-6)."""
+    op, layer = _layer(shape)
+    rows = check_layer(layer, randn((2,) + op.in_shape, 2), seed=1, max_coords=None)
+    assert [r.tensor for r in rows] == ["x", "w", "b"]
+    for row in rows:
+        assert row.passed and row.max_rel_error < 1e-6, row
+
+
+@pytest.mark.parametrize("shape", SHAPES)
+def test_kernels_match_loop_reference(shape):
+    """Fast depthwise forward and backward equal the loop references."""
+    op, layer = _layer(shape, seed=3)
+    x = randn((2,) + op.in_shape, 4)
+    y = layer.forward(x, training=True)
+    w, b = layer.params["w"], layer.params["b"]
+    np.testing.assert_allclose(y, reference.depthwise_forward(x, w, b, op.stride, op.pads),
+                               rtol=1e-10, atol=1e-12)
+    g = randn(y.shape, 5)
+    gx = layer.backward(g)
+    rgx, rgw, rgb = reference.depthwise_backward(g, x, w, op.stride, op.pads)
+    np.testing.assert_allclose(gx, rgx, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["w"], rgw, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["b"], rgb, rtol=1e-10, atol=1e-12)
+
+
+def test_float32_stays_float32():
+    """A float32 depthwise layer returns float32 outputs and gradients."""
+    op = conv_op(6, 6, 3, 3, 3, 1, False, kind="dwconv")
+    layer = build(op, np.random.default_rng(0), np.float32)
+    x = randn((2,) + op.in_shape, 1, np.float32)
+    y = layer.forward(x, training=True)
+    gx = layer.backward(np.ones_like(y))
+    assert y.dtype == gx.dtype == layer.grads["w"].dtype == layer.grads["b"].dtype == np.float32

@@ -1,0 +1,76 @@
+"""The layers of the engine, and :func:`build`, which makes one from an Op.
+
+One module per layer family; the contract every layer keeps is in
+:mod:`tinyconv.layers.base`. Fast kernels are module-level functions in the
+``kernels_*`` modules; their slow loop references are in
+:mod:`tinyconv.layers.reference`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from tinyconv.arch import Op
+from tinyconv.layers.activation import ReLU
+from tinyconv.layers.base import Layer
+from tinyconv.layers.conv import Conv
+from tinyconv.layers.dense import Dense
+from tinyconv.layers.depthwise import Depthwise
+from tinyconv.layers.dropout import Dropout
+from tinyconv.layers.norm import BatchNorm
+from tinyconv.layers.pool import AvgPool, GlobalAvgPool, MaxPool
+from tinyconv.layers.reshape import Flatten
+
+__all__ = ["Layer", "Conv", "Depthwise", "MaxPool", "AvgPool", "GlobalAvgPool", "Dense",
+           "ReLU", "Flatten", "Dropout", "BatchNorm", "build", "KINDS"]
+
+KINDS = ("conv", "dwconv", "maxpool", "avgpool", "gap", "flatten", "dense", "relu", "bn",
+         "dropout")
+
+
+def build(op: Op, rng: np.random.Generator, dtype=np.float32) -> Layer:
+    """Make the layer for one Op of :func:`tinyconv.arch.expand`.
+
+    Parameters
+    ----------
+    op : Op
+    rng : numpy.random.Generator
+        Draws the initial weights, and later the dropout masks (the layer keeps it).
+    dtype : numpy dtype
+        ``np.float32`` (training) or ``np.float64`` (checks).
+
+    Returns
+    -------
+    Layer
+        With ``name == op.name``.
+    """
+    dtype = np.dtype(dtype)
+    if dtype not in (np.float32, np.float64):
+        raise ValueError(f"layer dtype must be float32 or float64, got {dtype}")
+    kind = op.kind
+    if kind == "conv":
+        layer: Layer = Conv(op.in_shape[2], op.filters, op.kernel, op.stride, op.pads,
+                            rng=rng, dtype=dtype)
+    elif kind == "dwconv":
+        layer = Depthwise(op.in_shape[2], op.kernel, op.stride, op.pads, rng=rng, dtype=dtype)
+    elif kind == "maxpool":
+        layer = MaxPool(op.size)
+    elif kind == "avgpool":
+        layer = AvgPool(op.size)
+    elif kind == "gap":
+        layer = GlobalAvgPool()
+    elif kind == "flatten":
+        layer = Flatten()
+    elif kind == "dense":
+        layer = Dense(op.in_shape[0], op.units, rng=rng, dtype=dtype)
+    elif kind == "relu":
+        layer = ReLU()
+    elif kind == "bn":
+        layer = BatchNorm(op.in_shape[-1], dtype=dtype)
+    elif kind == "dropout":
+        layer = Dropout(op.rate, rng=rng)
+    else:
+        raise ValueError(f"op {op.name!r}: unknown kind {kind!r}; expected one of "
+                         f"{', '.join(KINDS)}")
+    layer.name = op.name
+    return layer

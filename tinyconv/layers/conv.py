@@ -1,0 +1,94 @@
+"""Standard convolution layer (im2col + one BLAS matrix product)."""
+
+from __future__ import annotations
+
+import numpy as np
+
+from tinyconv.layers.base import Layer
+from tinyconv.layers.init import he_normal
+from tinyconv.layers.kernels_act import add_bias_, bias_relu_, relu_backward
+from tinyconv.layers.kernels_conv import col2im, conv_out_size, crop_nhwc, im2col, pad_nhwc
+
+
+class Conv(Layer):
+    """``k x k`` cross-correlation with ``f`` filters, stride 1 or 2, explicit pads.
+
+    Parameters
+    ----------
+    c_in, filters, kernel, stride : int
+    pads : (top, bottom, left, right)
+        Zero padding; ``(0, 0, 0, 0)`` is valid padding.
+    rng : numpy.random.Generator
+        Draws the He-initialised weights ``w (kh, kw, c_in, f)``; ``b (f,)`` is zero.
+    dtype : numpy dtype
+    relu : bool
+        Apply ReLU to the output in the same pass as the bias (fused); off when
+        built from an Op, where ReLU is its own layer.
+
+    Notes
+    -----
+    Output size per axis ``(size + before + after - k) // s + 1``. Forward keeps
+    the column matrix ``(n * oh * ow, k * k * c_in)`` for the weight gradient.
+    """
+
+    kind = "conv"
+
+    def __init__(self, c_in: int, filters: int, kernel: int, stride: int = 1,
+                 pads: tuple[int, int, int, int] = (0, 0, 0, 0), *,
+                 rng: np.random.Generator, dtype=np.float32, relu: bool = False):
+        super().__init__()
+        self.c_in, self.filters, self.kernel, self.stride = c_in, filters, kernel, stride
+        self.pads = tuple(pads)
+        self.relu = relu
+        self.params["w"] = he_normal(rng, (kernel, kernel, c_in, filters),
+                                     kernel * kernel * c_in, dtype)
+        self.params["b"] = np.zeros(filters, dtype=dtype)
+        self._cols: np.ndarray | None = None
+        self._x_shape: tuple[int, ...] | None = None
+        self._y: np.ndarray | None = None
+        self._buffers: dict[str, np.ndarray] = {}
+
+    def forward(self, x: np.ndarray, training: bool = False) -> np.ndarray:
+        w, b = self.params["w"], self.params["b"]
+        if x.ndim != 4 or x.shape[3] != self.c_in:
+            raise ValueError(f"{self.name}: expected input (n, h, w, {self.c_in}), "
+                             f"got shape {x.shape}")
+        n, h, wd, _ = x.shape
+        k, s, f = self.kernel, self.stride, self.filters
+        # Scratch buffers are reused only in training (inference keeps nothing).
+        buf = self._buffers if training else {}
+        xp = pad_nhwc(x, self.pads, buf.get("xp"))
+        oh, ow = conv_out_size(xp.shape[1], k, s), conv_out_size(xp.shape[2], k, s)
+        cols = im2col(xp, k, k, s, buf.get("cols"))  # (n*oh*ow, k*k*c_in)
+        if training:
+            if xp is not x:
+                buf["xp"] = xp
+            if not (k == 1 and s == 1):  # else cols is a view of xp, not a buffer
+                buf["cols"] = cols.base
+        y = cols @ w.reshape(k * k * self.c_in, f)  # (n*oh*ow, f)
+        if self.relu:
+            bias_relu_(y, b)
+        else:
+            add_bias_(y, b)
+        y = y.reshape(n, oh, ow, f)
+        if training:
+            self._cols, self._x_shape, self._xp_shape = cols, x.shape, xp.shape
+            self._y = y if self.relu else None
+        return y
+
+    def backward(self, grad_out: np.ndarray) -> np.ndarray:
+        w = self.params["w"]
+        k, s, f, c = self.kernel, self.stride, self.filters, self.c_in
+        if self.relu:
+            grad_out = relu_backward(grad_out, self._y)
+        g = np.ascontiguousarray(grad_out).reshape(-1, f)  # (n*oh*ow, f)
+        self.grads["w"] = (self._cols.T @ g).reshape(w.shape)
+        self.grads["b"] = g.sum(axis=0)
+        gcols = g @ w.reshape(k * k * c, f).T  # (n*oh*ow, k*k*c_in)
+        gxp = col2im(gcols, self._xp_shape, k, k, s)
+        n, h, wd, _ = self._x_shape
+        return crop_nhwc(gxp, self.pads, h, wd)
+
+    def kink_state(self) -> np.ndarray | None:
+        """With the fused ReLU, where the last training output was positive (for gradient checks)."""
+        return None if not self.relu or self._y is None else self._y > 0

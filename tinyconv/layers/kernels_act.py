@@ -1,0 +1,74 @@
+"""Element-wise kernels: bias add, ReLU, and the fused bias + ReLU.
+
+Each works on a 2-D view ``(rows, channels)`` of any NHWC or (n, features)
+array, so one compiled kernel serves maps and vectors.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+def _rows(a: np.ndarray) -> np.ndarray:
+    """A ``(rows, channels)`` view of a C-contiguous array."""
+    return a.reshape(-1, a.shape[-1])
+
+
+def relu_forward(x: np.ndarray) -> np.ndarray:
+    """``max(x, 0)`` into a new array of the same shape."""
+    x = np.ascontiguousarray(x)
+    out = np.empty_like(x)
+    _relu_kernel(x.reshape(-1), out.reshape(-1))
+    return out
+
+
+def relu_backward(grad_out: np.ndarray, y: np.ndarray) -> np.ndarray:
+    """``grad_out`` where the output ``y`` is positive, else 0 (gradient 0 at the kink)."""
+    grad_out = np.ascontiguousarray(grad_out)
+    out = np.empty_like(grad_out)
+    _relu_backward_kernel(grad_out.reshape(-1), np.ascontiguousarray(y).reshape(-1),
+                          out.reshape(-1))
+    return out
+
+
+def add_bias_(y: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``y += b`` over the last axis, in place; returns ``y``."""
+    _add_bias_kernel(_rows(y), b)
+    return y
+
+
+def bias_relu_(y: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``y = max(y + b, 0)`` over the last axis, in place, in one pass; returns ``y``."""
+    _bias_relu_kernel(_rows(y), b)
+    return y
+
+
+@njit(cache=True)
+def _relu_kernel(x, out):
+    for i in range(x.shape[0]):
+        v = x[i]
+        out[i] = v if v > 0 else 0
+
+
+@njit(cache=True)
+def _relu_backward_kernel(g, y, out):
+    for i in range(g.shape[0]):
+        out[i] = g[i] if y[i] > 0 else 0
+
+
+@njit(cache=True)
+def _add_bias_kernel(y, b):
+    rows, c = y.shape
+    for r in range(rows):
+        for ch in range(c):
+            y[r, ch] += b[ch]
+
+
+@njit(cache=True)
+def _bias_relu_kernel(y, b):
+    rows, c = y.shape
+    for r in range(rows):
+        for ch in range(c):
+            v = y[r, ch] + b[ch]
+            y[r, ch] = v if v > 0 else 0

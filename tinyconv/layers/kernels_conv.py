@@ -1,0 +1,150 @@
+"""Kernels of the standard convolution: padding, im2col, col2im.
+
+The convolution is a matrix product: every output pixel's receptive field is
+copied into one row of a column matrix (im2col), the rows are multiplied by the
+weights reshaped to ``(kh * kw * c_in, f)`` (one BLAS GEMM), and the backward
+pass scatters the column gradients back onto the padded input (col2im).
+
+Slow loop references of each function live in :mod:`tinyconv.layers.reference`.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+def padded_shape(shape: tuple[int, int, int, int],
+                 pads: tuple[int, int, int, int]) -> tuple[int, int, int, int]:
+    """Shape ``(n, h + top + bottom, w + left + right, c)`` of a padded map."""
+    n, h, w, c = shape
+    top, bottom, left, right = pads
+    return (n, h + top + bottom, w + left + right, c)
+
+
+def pad_nhwc(x: np.ndarray, pads: tuple[int, int, int, int],
+             out: np.ndarray | None = None) -> np.ndarray:
+    """Zero-pad the two spatial axes of ``x``.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, h, w, c)
+    pads : (top, bottom, left, right)
+    out : ndarray, shape (n, h + top + bottom, w + left + right, c), optional
+        A buffer to reuse. Its border must be zero (as left by an earlier call:
+        only the interior is ever written).
+
+    Returns
+    -------
+    ndarray
+        ``x`` itself when all pads are zero, else the padded map.
+    """
+    top, bottom, left, right = pads
+    if top == bottom == left == right == 0:
+        return x
+    n, h, w, c = x.shape
+    shape = padded_shape(x.shape, pads)
+    if out is None or out.shape != shape or out.dtype != x.dtype:
+        out = np.zeros(shape, dtype=x.dtype)
+    out[:, top:top + h, left:left + w, :] = x
+    return out
+
+
+def conv_out_size(size: int, kernel: int, stride: int) -> int:
+    """Output size of a padded axis: ``(size - k) // s + 1`` (common practice)."""
+    return (size - kernel) // stride + 1
+
+
+def im2col(xp: np.ndarray, kh: int, kw: int, stride: int,
+           out: np.ndarray | None = None) -> np.ndarray:
+    """Copy receptive fields into rows.
+
+    Parameters
+    ----------
+    xp : ndarray, shape (n, hp, wp, c)
+        The padded input.
+    kh, kw, stride : int
+    out : ndarray, shape (n, oh, ow, kh, kw, c), optional
+        Buffer to fill (reused when the shape and dtype match).
+
+    Returns
+    -------
+    ndarray, shape (n * oh * ow, kh * kw * c)
+        Row ``(b, y, x)`` holds ``xp[b, y*s : y*s+kh, x*s : x*s+kw, :]`` in C
+        order, matching ``w.reshape(kh * kw * c, f)``. A 1 x 1 kernel of stride
+        1 needs no copy and returns a view of ``xp``.
+    """
+    n, hp, wp, c = xp.shape
+    oh, ow = conv_out_size(hp, kh, stride), conv_out_size(wp, kw, stride)
+    if kh == kw == 1 and stride == 1:
+        return np.ascontiguousarray(xp).reshape(n * hp * wp, c)
+    shape = (n, oh, ow, kh, kw, c)
+    if out is None or out.shape != shape or out.dtype != xp.dtype:
+        out = np.empty(shape, dtype=xp.dtype)
+    _im2col_kernel(np.ascontiguousarray(xp), stride, out)
+    return out.reshape(n * oh * ow, kh * kw * c)
+
+
+@njit(cache=True)
+def _im2col_kernel(xp, stride, out):
+    """Fill ``out (n, oh, ow, kh, kw, c)`` from ``xp (n, hp, wp, c)``."""
+    n, oh, ow, kh, kw, c = out.shape
+    for b in range(n):
+        for y in range(oh):
+            for x in range(ow):
+                for i in range(kh):
+                    row = y * stride + i
+                    for j in range(kw):
+                        col = x * stride + j
+                        for ch in range(c):
+                            out[b, y, x, i, j, ch] = xp[b, row, col, ch]
+
+
+def col2im(cols: np.ndarray, xp_shape: tuple[int, int, int, int], kh: int, kw: int,
+           stride: int, out: np.ndarray | None = None) -> np.ndarray:
+    """Scatter-add column gradients back onto the padded input (im2col's adjoint).
+
+    Parameters
+    ----------
+    cols : ndarray, shape (n * oh * ow, kh * kw * c)
+    xp_shape : (n, hp, wp, c)
+        Shape of the padded input.
+    out : ndarray, shape xp_shape, optional
+        Buffer to overwrite.
+
+    Returns
+    -------
+    ndarray, shape (n, hp, wp, c)
+    """
+    n, hp, wp, c = xp_shape
+    oh, ow = conv_out_size(hp, kh, stride), conv_out_size(wp, kw, stride)
+    if kh == kw == 1 and stride == 1:
+        return cols.reshape(xp_shape)
+    if out is None or out.shape != tuple(xp_shape) or out.dtype != cols.dtype:
+        out = np.empty(xp_shape, dtype=cols.dtype)
+    _col2im_kernel(np.ascontiguousarray(cols).reshape(n, oh, ow, kh, kw, c), stride, out)
+    return out
+
+
+@njit(cache=True)
+def _col2im_kernel(cols, stride, out):
+    """``out (n, hp, wp, c)`` = sum of ``cols (n, oh, ow, kh, kw, c)`` at their pixels."""
+    out[...] = 0
+    n, oh, ow, kh, kw, c = cols.shape
+    for b in range(n):
+        for y in range(oh):
+            for x in range(ow):
+                for i in range(kh):
+                    row = y * stride + i
+                    for j in range(kw):
+                        col = x * stride + j
+                        for ch in range(c):
+                            out[b, row, col, ch] += cols[b, y, x, i, j, ch]
+
+
+def crop_nhwc(xp: np.ndarray, pads: tuple[int, int, int, int], h: int, w: int) -> np.ndarray:
+    """The interior ``(n, h, w, c)`` of a padded map (a contiguous copy if cropped)."""
+    top, _, left, _ = pads
+    if xp.shape[1] == h and xp.shape[2] == w:
+        return xp
+    return np.ascontiguousarray(xp[:, top:top + h, left:left + w, :])

@@ -1,0 +1,121 @@
+"""Pooling kernels: max pooling with argmax bookkeeping, average pooling.
+
+Windows are ``s x s`` with stride ``s``; rows and columns past the last whole
+window are dropped (floor), and get zero gradient.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+from numba import njit
+
+
+def maxpool_forward(x: np.ndarray, s: int) -> tuple[np.ndarray, np.ndarray]:
+    """Max over ``s x s`` windows.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, h, w, c)
+    s : int
+
+    Returns
+    -------
+    y : ndarray, shape (n, h // s, w // s, c)
+    arg : ndarray of int32, shape (n, h // s, w // s, c)
+        Index ``i * s + j`` of the maximum inside each window (the first one on ties).
+    """
+    n, h, w, c = x.shape
+    y = np.empty((n, h // s, w // s, c), dtype=x.dtype)
+    arg = np.empty(y.shape, dtype=np.int32)
+    _maxpool_forward_kernel(np.ascontiguousarray(x), s, y, arg)
+    return y, arg
+
+
+def maxpool_backward(grad_out: np.ndarray, arg: np.ndarray, s: int,
+                     x_shape: tuple[int, int, int, int]) -> np.ndarray:
+    """Route each output gradient to the input pixel that held the maximum.
+
+    Returns
+    -------
+    ndarray, shape x_shape
+    """
+    gx = np.empty(x_shape, dtype=grad_out.dtype)
+    _maxpool_backward_kernel(np.ascontiguousarray(grad_out), arg, s, gx)
+    return gx
+
+
+def avgpool_forward(x: np.ndarray, s: int) -> np.ndarray:
+    """Mean over ``s x s`` windows: ``(n, h, w, c) -> (n, h // s, w // s, c)``."""
+    n, h, w, c = x.shape
+    y = np.empty((n, h // s, w // s, c), dtype=x.dtype)
+    _avgpool_forward_kernel(np.ascontiguousarray(x), s, y)
+    return y
+
+
+def avgpool_backward(grad_out: np.ndarray, s: int,
+                     x_shape: tuple[int, int, int, int]) -> np.ndarray:
+    """Spread each output gradient evenly, ``1 / s**2``, over its window."""
+    gx = np.empty(x_shape, dtype=grad_out.dtype)
+    _avgpool_backward_kernel(np.ascontiguousarray(grad_out), s, gx)
+    return gx
+
+
+@njit(cache=True)
+def _maxpool_forward_kernel(x, s, y, arg):
+    n, oh, ow, c = y.shape
+    for b in range(n):
+        for oy in range(oh):
+            for ox in range(ow):
+                for ch in range(c):
+                    best = x[b, oy * s, ox * s, ch]
+                    at = 0
+                    for i in range(s):
+                        for j in range(s):
+                            v = x[b, oy * s + i, ox * s + j, ch]
+                            if v > best:
+                                best = v
+                                at = i * s + j
+                    y[b, oy, ox, ch] = best
+                    arg[b, oy, ox, ch] = at
+
+
+@njit(cache=True)
+def _maxpool_backward_kernel(g, arg, s, gx):
+    gx[...] = 0
+    n, oh, ow, c = g.shape
+    for b in range(n):
+        for oy in range(oh):
+            for ox in range(ow):
+                for ch in range(c):
+                    at = arg[b, oy, ox, ch]
+                    gx[b, oy * s + at // s, ox * s + at % s, ch] += g[b, oy, ox, ch]
+
+
+@njit(cache=True)
+def _avgpool_forward_kernel(x, s, y):
+    n, oh, ow, c = y.shape
+    scale = 1.0 / (s * s)
+    for b in range(n):
+        for oy in range(oh):
+            for ox in range(ow):
+                for ch in range(c):
+                    acc = 0.0
+                    for i in range(s):
+                        for j in range(s):
+                            acc += x[b, oy * s + i, ox * s + j, ch]
+                    y[b, oy, ox, ch] = acc * scale
+
+
+@njit(cache=True)
+def _avgpool_backward_kernel(g, s, gx):
+    gx[...] = 0
+    n, oh, ow, c = g.shape
+    scale = 1.0 / (s * s)
+    for b in range(n):
+        for oy in range(oh):
+            for ox in range(ow):
+                for ch in range(c):
+                    v = g[b, oy, ox, ch] * scale
+                    for i in range(s):
+                        for j in range(s):
+                            gx[b, oy * s + i, ox * s + j, ch] = v
