@@ -194,7 +194,13 @@ class Arch:
 
     @staticmethod
     def from_json(text: str) -> "Arch":
-        return from_dict(json.loads(text))
+        """Inverse of :meth:`to_json`; bad JSON or content raises :class:`ArchError`."""
+        try:
+            data = json.loads(text)
+        except json.JSONDecodeError as exc:
+            raise ArchError(f"architecture JSON does not parse: {exc}; expected "
+                            f"{_SHAPE_HINT}") from None
+        return from_dict(data)
 
 
 _TYPES = {"conv": Conv, "depthwise": Depthwise, "pool": Pool, "gap": GlobalPool,
@@ -213,34 +219,85 @@ def to_dict(arch: Arch) -> dict:
             "layers": layers}
 
 
+_TYPE_WORDS = {int: "an integer", bool: "true or false", str: "a string"}
+_SHAPE_HINT = '{"input": {"h": 32, "w": 32, "mode": "rgb"}, "layers": [{"type": "conv", ...}]}'
+
+
 def from_dict(data: dict) -> Arch:
-    """Inverse of :func:`to_dict`; the result is validated like a parsed text."""
-    try:
-        spec = InputSpec(int(data["input"]["h"]), int(data["input"]["w"]),
-                         str(data["input"]["mode"]))
-        layers = []
-        for i, entry in enumerate(data.get("layers", []), 1):
-            entry = dict(entry)
-            kind = entry.pop("type")
-            if kind not in _TYPES:
-                raise ArchError(f"layer {i}: unknown type {kind!r}; expected one of "
-                                f"{', '.join(sorted(_TYPES))}", position=i)
-            layers.append(_TYPES[kind](**entry))
-    except (KeyError, TypeError) as exc:
-        raise ArchError(f"not an architecture object: {exc}; expected "
-                        '{"input": {"h", "w", "mode"}, "layers": [{"type": ...}]}') from None
-    # Round-trip through the text so the same rules apply to both forms.
-    return parse(str(Arch(spec, tuple(layers))))
+    """Inverse of :func:`to_dict`; the result is validated like a parsed text.
+
+    Raises
+    ------
+    ArchError
+        When ``data`` is not of the shape :func:`to_dict` writes, a layer type or
+        field is unknown, a value has the wrong type, or the architecture it
+        describes breaks a rule of the text form (same messages as :func:`parse`).
+    """
+
+    def bad(why: str, position: int | None = None) -> ArchError:
+        return ArchError(f"not an architecture object: {why}; expected {_SHAPE_HINT}",
+                         position=position)
+
+    if not isinstance(data, dict) or not isinstance(data.get("input"), dict):
+        raise bad(f"got {type(data).__name__} without an 'input' object")
+    unknown = set(data) - {"input", "layers"}
+    if unknown:
+        raise bad(f"unknown keys {sorted(unknown)}")
+    inp = data["input"]
+    if set(inp) != {"h", "w", "mode"}:
+        raise bad(f"'input' has keys {sorted(inp)}, needs exactly h, w, mode", 0)
+    for key, typ in (("h", int), ("w", int), ("mode", str)):
+        if not isinstance(inp[key], typ) or isinstance(inp[key], bool):
+            raise bad(f"input {key} = {inp[key]!r} is not {_TYPE_WORDS[typ]}", 0)
+    entries = data.get("layers", [])
+    if not isinstance(entries, list):
+        raise bad(f"'layers' is a {type(entries).__name__}, not a list")
+    layers = []
+    for i, entry in enumerate(entries, 1):
+        if not isinstance(entry, dict) or "type" not in entry:
+            raise bad(f"layer {i} is {entry!r}, not an object with a 'type'", i)
+        kind = entry["type"]
+        if kind not in _TYPES:
+            raise ArchError(f"layer {i}: unknown type {kind!r}; expected one of "
+                            f"{', '.join(sorted(_TYPES))}", position=i, token=str(kind))
+        cls = _TYPES[kind]
+        known = {f.name: f for f in fields(cls)}
+        args = {k: v for k, v in entry.items() if k != "type"}
+        if set(args) - set(known):
+            raise bad(f"layer {i} ({kind}) has unknown fields {sorted(set(args) - set(known))}; "
+                      f"known: {sorted(known) or 'none'}", i)
+        for key, value in args.items():
+            want = {"int": int, "bool": bool, "str": str}[str(known[key].type)]
+            if not isinstance(value, want) or (want is int and isinstance(value, bool)):
+                raise bad(f"layer {i} ({kind}) field {key} = {value!r} is not "
+                          f"{_TYPE_WORDS[want]}", i)
+        try:
+            layers.append(cls(**args))
+        except TypeError as exc:  # a required field left out
+            raise bad(f"layer {i} ({kind}): {exc}", i) from None
+    built = Arch(InputSpec(inp["h"], inp["w"], inp["mode"]), tuple(layers))
+    # Through the text, so that the same rules apply to both forms; a value the
+    # text cannot say (stride 3, pool kind 'min') prints as something else.
+    arch = parse(str(built))
+    if arch != built:
+        for i, (a, b) in enumerate(zip(arch.layers, built.layers), 1):
+            if a != b:
+                raise bad(f"layer {i} {b!r} has a value the architecture rules do not "
+                          f"allow (it would read back as {a!r})", i)
+        raise bad(f"input {built.input!r} would read back as {arch.input!r}", 0)
+    return arch
 
 
 # ---------------------------------------------------------------- the parser
 
-_INPUT = re.compile(r"(\d+)x(\d+)([a-z]+)")
-_CONV = re.compile(r"c(\d+)k(\d+)(s\d+)?(v)?")
-_DW = re.compile(r"dw(\d+)(s\d+)?(v)?")
-_POOL = re.compile(r"([pa])(\d+)")
-_DENSE = re.compile(r"d(\d+)")
-_DROP = re.compile(r"x(\d+)")
+# [0-9], not \d: \d also matches other scripts' digits, which int() accepts but
+# which would not print back the same (the text must round-trip exactly).
+_INPUT = re.compile(r"([0-9]+)x([0-9]+)([a-z]+)")
+_CONV = re.compile(r"c([0-9]+)k([0-9]+)(s[0-9]+)?(v)?")
+_DW = re.compile(r"dw([0-9]+)(s[0-9]+)?(v)?")
+_POOL = re.compile(r"([pa])([0-9]+)")
+_DENSE = re.compile(r"d([0-9]+)")
+_DROP = re.compile(r"x([0-9]+)")
 
 _EXPECTED = ("c{filters}k{kernel}[s2][v], dw{kernel}[s2][v], p{size}, a{size}, gap, "
              "d{units}, bn or x{percent}")
@@ -259,8 +316,11 @@ def parse_input(text: str) -> InputSpec:
         raise TypeError(f"input spec must be a str, got {type(text).__name__}")
     m = _INPUT.fullmatch(text)
     if not m:
+        hint = ""
+        if text[:1].isalpha():
+            hint = "; an architecture text starts with its input, e.g. 32x32rgb/c8k3-p2"
         raise ArchError(f"input {text!r} is not of the form {{h}}x{{w}}{{mode}}, "
-                        f"e.g. 32x32rgb (modes: {', '.join(MODES)})",
+                        f"e.g. 32x32rgb (modes: {', '.join(MODES)}){hint}",
                         text=text, position=0, token=text)
     try:
         h, w = _number(m.group(1)), _number(m.group(2))
@@ -273,8 +333,8 @@ def parse_input(text: str) -> InputSpec:
                         f"expected one of {', '.join(MODES)}",
                         text=text, position=0, token=text)
     if not (1 <= h <= MAX_SIDE and 1 <= w <= MAX_SIDE):
-        raise ArchError(f"input {text!r}: sides must be between 1 and {MAX_SIDE}",
-                        text=text, position=0, token=text)
+        raise ArchError(f"input {text!r}: sides must be between 1 and {MAX_SIDE}, "
+                        f"got {h}x{w}", text=text, position=0, token=text)
     return InputSpec(h, w, mode)
 
 
@@ -311,8 +371,11 @@ def _parse_token(tok: str) -> LayerSpec:
     if m := _DROP.fullmatch(tok):
         pct = _number(m.group(1))
         if not 1 <= pct <= 99:
-            raise ValueError(f"dropout percent must be between 1 and 99, got {pct}")
+            raise ValueError(f"dropout percent must be between 1 and 99, got {pct}; "
+                             "for no dropout leave the token out")
         return Dropout(pct)
+    if any(ch.isspace() for ch in tok):
+        raise ValueError("contains white space; write the text without spaces")
     raise ValueError(f"expected one of {_EXPECTED}")
 
 
@@ -323,7 +386,8 @@ def _stride(group: str | None) -> int:
     if stride == 1:
         raise ValueError("stride 1 is the default; leave out 's1'")
     if stride != 2:
-        raise ValueError(f"stride must be 1 or 2, got {stride}")
+        raise ValueError(f"stride must be 1 or 2, got {stride}; write s2 or leave the "
+                         "stride out")
     return stride
 
 
@@ -426,8 +490,9 @@ def expand(arch: Arch, n_classes: int, *, text: str = "") -> tuple[Op, ...]:
     ArchError
         When a layer does not fit the map it meets, naming token, position and size.
     """
-    if not isinstance(n_classes, int) or n_classes < 2:
-        raise ValueError(f"n_classes must be an integer >= 2, got {n_classes!r}")
+    if isinstance(n_classes, bool) or not isinstance(n_classes, int) or n_classes < 2:
+        raise InputError(f"number of classes must be an integer of at least 2, got "
+                         f"{n_classes!r}")
     text = text or str(arch)
     ops: list[Op] = []
     shape: tuple[int, ...] = arch.input.shape
@@ -474,7 +539,7 @@ def expand(arch: Arch, n_classes: int, *, text: str = "") -> tuple[Op, ...]:
         elif isinstance(layer, GlobalPool):
             if len(shape) != 3:
                 fail(pos, tok, f"global pooling needs an image map, but meets a vector of "
-                               f"{shape[0]} features")
+                               f"{shape[0]} features; keep one gap, before any dense layer")
             ops.append(Op("gap", shape, (shape[2],), pos, tok))
             shape = (shape[2],)
         elif isinstance(layer, Dense):

@@ -1,0 +1,644 @@
+"""Search-space files: which networks to try, and the budgets they must fit.
+
+A space file is TOML (read with the standard library's :mod:`tomllib`). Every
+table is optional except ``[input]``; every key is a list of choices unless
+said otherwise. Example, with the defaults of the optional keys shown::
+
+    format = 1                      # the version of this format (optional)
+    description = "tiles, 8 marks"  # free text (optional)
+
+    [input]
+    sizes = [32, "32x24"]           # a side (square) or "HxW"
+    modes = ["rgb", "gray"]         # rgb, gray, ycc, hsv
+
+    [stages]
+    count = [0, 1, 2]               # how many conv stages a candidate has
+    filters = [[4, 8], [8, 16]]     # choices per stage (a list per stage), or
+                                    # one list used by every stage: [8, 16]
+    # widths = [[4, 8], [16, 32]]   # instead of filters: whole plans, stage by
+                                    # stage; n stages use a plan's first n
+    kernel = [3]                    # odd sizes; one list, or a list per stage
+    conv = ["standard"]             # standard | separable
+    pool = ["max"]                  # max | avg | none | stride
+    pool_size = 2                   # one value: size and stride of the pooling
+    shared = ["kernel", "conv", "pool"]  # chosen once per candidate, not per stage
+    widening = true                 # filters never decrease from stage to stage
+
+    [head]
+    kind = ["flatten"]              # gap | flatten
+    hidden = [0]                    # hidden dense widths; 0 = none
+
+    [options]
+    batch_norm = [false]            # true: batch norm after every conv and hidden dense
+    dropout = [0]                   # percent before the classifier; 0 = none
+
+    [budget]                        # one value each; leave a key out for no limit
+    max_params = 50000
+    max_macs = 1000000
+    max_peak_kb = 64                # int8 peak activation memory (KB = 1,024 bytes)
+    max_flash_kb = 256              # int8 deployment layout
+
+What a stage is, in the architecture text form (:mod:`tinyconv.arch`), for
+``f`` filters and kernel ``k``:
+
+* ``standard``: ``c{f}k{k}``; ``separable``: ``dw{k}-c{f}k1`` (depthwise then
+  a 1x1 convolution);
+* ``pool``: ``max`` appends ``p{pool_size}``, ``avg`` appends ``a{pool_size}``,
+  ``none`` nothing, ``stride`` gives the stage's first convolution stride 2;
+* with batch norm, ``bn`` follows every convolution (and the hidden dense layer).
+
+The head: ``gap`` appends global average pooling (only when a stage exists and
+the map is larger than 1x1: otherwise it is the same network as ``flatten``,
+which is the implicit head); a hidden width ``n > 0`` appends ``d{n}``; dropout
+``p > 0`` appends ``x{p}``. The final dense layer to the classes is implicit.
+
+Enumeration order is deterministic: inputs (sizes, then modes, in file order),
+stage count, the shared choices, the per-stage choices (stage 1 slowest), head
+kind, hidden width, batch norm, dropout. Texts seen before are dropped, and so
+are combinations that do not fit their input (e.g. pooling a 2x2 map by 4).
+"""
+
+from __future__ import annotations
+
+import itertools
+import tomllib
+from dataclasses import dataclass, field
+from importlib import resources
+from pathlib import Path
+from typing import Any, Sequence, Union
+
+import numpy as np
+
+from tinyconv.arch import (MAX_SIDE, MAX_WIDTH, MODES, Arch, ArchError, BatchNorm, Conv,
+                           Dense, Depthwise, Dropout, GlobalPool, InputSpec, Pool, expand)
+from tinyconv.cost import KB, Totals, totals_of
+from tinyconv.errors import BudgetError, InputError
+
+__all__ = ["SpaceError", "Space", "StageChoices", "Budget", "Filtered", "load_space",
+           "builtin_space_text", "enumerate_space", "subsample", "filter_budget"]
+
+CONV_KINDS = ("standard", "separable")
+POOL_KINDS = ("max", "avg", "none", "stride")
+HEAD_KINDS = ("gap", "flatten")
+SHAREABLE = ("kernel", "conv", "pool")
+MAX_STAGES = 8
+
+_KNOWN = {
+    "": ("format", "description", "input", "stages", "head", "options", "budget"),
+    "input": ("sizes", "modes"),
+    "stages": ("count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
+               "shared", "widening"),
+    "head": ("kind", "hidden"),
+    "options": ("batch_norm", "dropout"),
+    "budget": ("max_params", "max_macs", "max_peak_kb", "max_flash_kb"),
+}
+
+
+class SpaceError(InputError):
+    """A search-space file that cannot be used; the message names key, value and rule."""
+
+
+# budget name -> (field of Totals, bytes per unit, how the figure is shown)
+_BUDGETS = {"max_params": ("params", 1, "parameters"), "max_macs": ("macs", 1, "MACs"),
+            "max_peak_kb": ("peak_int8_bytes", KB, "KB peak"),
+            "max_flash_kb": ("flash_bytes", KB, "KB flash")}
+
+
+@dataclass(frozen=True)
+class Budget:
+    """Device limits a candidate must fit; ``None`` means no limit.
+
+    Change one with :func:`dataclasses.replace` (e.g. from a command-line
+    option); the new value is checked the same way. KB are 1,024 bytes; the
+    peak is the int8 peak activation memory and the flash the int8 deployment
+    layout of :mod:`tinyconv.cost`.
+
+    Raises
+    ------
+    BudgetError
+        For a value that is not a positive number (integers for params and MACs).
+    """
+
+    max_params: int | None = None
+    max_macs: int | None = None
+    max_peak_kb: float | None = None
+    max_flash_kb: float | None = None
+
+    def __post_init__(self) -> None:
+        for name in _BUDGETS:
+            value = getattr(self, name)
+            if value is None:
+                continue
+            integer = name in ("max_params", "max_macs")
+            ok = (isinstance(value, (int, float)) and not isinstance(value, bool)
+                  and np.isfinite(value) and value > 0
+                  and (isinstance(value, int) or not integer))
+            if not ok:
+                kind = "a positive integer" if integer else "a positive number of KB"
+                raise BudgetError(f"budget {name} = {value!r}: must be {kind}; leave it "
+                                  "out (None) for no limit")
+
+    def limits(self) -> dict[str, float]:
+        """The set budgets: name -> limit in the unit of :class:`Totals` (bytes for KB)."""
+        return {name: getattr(self, name) * _BUDGETS[name][1] for name in _BUDGETS
+                if getattr(self, name) is not None}
+
+    def over(self, totals: Totals) -> tuple[str, ...]:
+        """Names of the budgets ``totals`` exceeds.
+
+        A candidate the int8 exporter cannot write (batch norm not after a
+        conv/dwconv/dense) has no known flash: it is over any flash budget.
+        """
+        out = []
+        for name, limit in self.limits().items():
+            if getattr(totals, _BUDGETS[name][0]) > limit or (
+                    name == "max_flash_kb" and not totals.exportable):
+                out.append(name)
+        return tuple(out)
+
+    def describe(self, totals: Totals) -> str:
+        """Each figure of ``totals`` against its budget, e.g. ``MACs 1,200 (max 1,000: over)``."""
+        parts = []
+        for name, (attr, unit, label) in _BUDGETS.items():
+            value = getattr(totals, attr)
+            shown = f"{value:,}" if unit == 1 else f"{value / unit:,.1f}"
+            limit = getattr(self, name)
+            if limit is None:
+                parts.append(f"{label} {shown} (no limit)")
+            else:
+                verdict = "over" if value > limit * unit else "ok"
+                parts.append(f"{label} {shown} (max {limit:,}: {verdict})")
+        return ", ".join(parts)
+
+
+def budget_from_table(table: dict, source: str) -> Budget:
+    """A :class:`Budget` from a ``[budget]`` table (keys already checked)."""
+    try:
+        return Budget(**table)
+    except BudgetError as exc:
+        raise BudgetError(f"{source}: {exc}") from None
+
+
+@dataclass(frozen=True)
+class StageChoices:
+    """The choices of one stage (1-based ``index``)."""
+
+    index: int
+    filters: tuple[int, ...]
+    kernels: tuple[int, ...]
+    convs: tuple[str, ...]
+    pools: tuple[str, ...]
+
+
+@dataclass(frozen=True)
+class Space:
+    """A parsed search-space file.
+
+    ``stages[i]`` holds the choices of stage ``i + 1``; there are
+    ``max(counts)`` of them. ``widths``, when not empty, replaces the
+    per-stage filter choices by whole plans (``stages[i].filters`` then lists
+    the plans' values for stage ``i + 1``). ``text`` is the file's text (kept
+    for the run record) and ``source`` where it came from.
+    """
+
+    inputs: tuple[InputSpec, ...]
+    counts: tuple[int, ...]
+    stages: tuple[StageChoices, ...]
+    pool_size: int = 2
+    shared: tuple[str, ...] = SHAREABLE
+    widening: bool = True
+    heads: tuple[str, ...] = ("flatten",)
+    hidden: tuple[int, ...] = (0,)
+    batch_norm: tuple[bool, ...] = (False,)
+    dropout: tuple[int, ...] = (0,)
+    budget: Budget = field(default_factory=Budget)
+    description: str = ""
+    text: str = ""
+    source: str = "<text>"
+    widths: tuple[tuple[int, ...], ...] = ()
+
+    def size_bound(self) -> int:
+        """Combinations before removing duplicates and misfits (an upper bound)."""
+        total = 0
+        for count in self.counts:
+            per = 1
+            for name in self.shared:
+                per *= len(getattr(self.stages[0], name + "s")) if count else 1
+            per *= len(self.widths) if (self.widths and count) else 1
+            for st in self.stages[:count]:
+                per *= 1 if self.widths else len(st.filters)
+                for name in SHAREABLE:
+                    if name not in self.shared:
+                        per *= len(getattr(st, name + "s"))
+            total += per
+        return (total * len(self.inputs) * len(self.heads) * len(self.hidden)
+                * len(self.batch_norm) * len(self.dropout))
+
+
+# ---------------------------------------------------------------- reading
+
+
+class _Reader:
+    """Checks values of one file, naming it, the key, the value and the rule."""
+
+    def __init__(self, source: str):
+        self.source = source
+
+    def fail(self, key: str, value: Any, rule: str) -> SpaceError:
+        return SpaceError(f"{self.source}: {key} = {value!r}: {rule}")
+
+    def table(self, data: dict, name: str) -> dict:
+        value = data.get(name, {}) if name else data
+        if not isinstance(value, dict):
+            raise self.fail(name, value, f"must be a table [{name}]")
+        unknown = [k for k in value if k not in _KNOWN[name]]
+        if unknown:
+            where = f"[{name}]" if name else "the top level"
+            raise SpaceError(f"{self.source}: unknown key {(name + '.' if name else '')}"
+                             f"{unknown[0]}; known keys in {where}: "
+                             f"{', '.join(_KNOWN[name])}")
+        return value
+
+    def choices(self, value: Any, key: str, check, what: str, unique: bool = True) -> tuple:
+        """A non-empty list (without repeats if ``unique``) whose items pass ``check``."""
+        if not isinstance(value, list) or not value:
+            raise self.fail(key, value, f"must be a non-empty list of {what}, e.g. "
+                                        f"{key.split('.')[-1]} = [...]")
+        for item in value:
+            if not check(item):
+                raise self.fail(key, value, f"{item!r} is not {what}")
+        if unique and len(set(map(repr, value))) != len(value):
+            raise self.fail(key, value, "lists a choice twice; give each once")
+        return tuple(value)
+
+    def per_stage(self, value: Any, key: str, n_stages: int, check, what: str
+                  ) -> tuple[tuple, ...]:
+        """One list for every stage, or a list per stage (at least ``n_stages``)."""
+        if isinstance(value, list) and value and all(isinstance(v, list) for v in value):
+            if len(value) < n_stages:
+                raise self.fail(key, value, f"gives choices for {len(value)} stages but "
+                                            f"stages.count goes up to {n_stages}; add a "
+                                            "list per stage or give one list for all")
+            return tuple(self.choices(v, f"{key}[{i}]", check, what)
+                         for i, v in enumerate(value[:max(n_stages, 1)]))
+        return (self.choices(value, key, check, what),) * max(n_stages, 1)
+
+
+def _is_int(x: Any, lo: int, hi: int) -> bool:
+    return isinstance(x, int) and not isinstance(x, bool) and lo <= x <= hi
+
+
+def _input_spec(item: Any, mode: str) -> InputSpec | None:
+    if _is_int(item, 1, MAX_SIDE):
+        return InputSpec(item, item, mode)
+    if isinstance(item, str):
+        h, x, w = item.partition("x")
+        if x and h.isdigit() and w.isdigit() and h.isascii() and w.isascii():
+            if 1 <= int(h) <= MAX_SIDE and 1 <= int(w) <= MAX_SIDE:
+                return InputSpec(int(h), int(w), mode)
+    return None
+
+
+def load_space(spec: Union[str, Path]) -> Space:
+    """Read a search-space file, its text, or a space shipped with the package.
+
+    Parameters
+    ----------
+    spec : str or Path
+        A :class:`~pathlib.Path`; or a str that is TOML text (it contains a
+        newline or ``=``), ``builtin:NAME`` (a file in ``tinyconv/spaces``,
+        e.g. ``builtin:demo``), or a path.
+
+    Raises
+    ------
+    SpaceError
+        Naming the file, the key, the bad value and the rule.
+    BudgetError
+        For an unusable budget value.
+    FileNotFoundError
+        When the path does not exist.
+    """
+    if isinstance(spec, Path):
+        source, text = str(spec), spec.read_text(encoding="utf-8")
+    elif not isinstance(spec, str):
+        raise TypeError(f"space must be a path or a str, got {type(spec).__name__}")
+    elif spec.startswith("builtin:"):
+        source, text = spec, builtin_space_text(spec[len("builtin:"):])
+    elif "\n" in spec or "=" in spec:
+        source, text = "<text>", spec
+    else:
+        source, text = spec, Path(spec).read_text(encoding="utf-8")
+    try:
+        data = tomllib.loads(text)
+    except tomllib.TOMLDecodeError as exc:
+        raise SpaceError(f"{source}: not valid TOML: {exc}; see the space format in "
+                         "search/space.py") from None
+    return _space_from_data(data, text, source)
+
+
+def builtin_space_text(name: str) -> str:
+    """The text of ``tinyconv/spaces/{name}.toml``."""
+    folder = resources.files("tinyconv") / "spaces"
+    names = sorted(p.name[:-5] for p in folder.iterdir() if p.name.endswith(".toml"))
+    if name not in names:
+        raise SpaceError(f"builtin:{name}: no such space shipped; known: "
+                         f"{', '.join('builtin:' + n for n in names)}")
+    return (folder / f"{name}.toml").read_text(encoding="utf-8")
+
+
+def _space_from_data(data: dict, text: str, source: str) -> Space:
+    r = _Reader(source)
+    top = r.table(data, "")
+    fmt = top.get("format", 1)
+    if fmt != 1 or isinstance(fmt, bool):
+        raise r.fail("format", fmt, "this version of tinyconv reads format 1 only")
+    description = top.get("description", "")
+    if not isinstance(description, str):
+        raise r.fail("description", description, "must be a string")
+
+    inp = r.table(data, "input")
+    for key in ("sizes", "modes"):
+        if key not in inp:
+            raise SpaceError(f"{source}: missing key input.{key}; e.g. sizes = [32], "
+                             "modes = [\"rgb\"]")
+    modes = r.choices(inp["modes"], "input.modes", lambda m: m in MODES,
+                      f"a colour mode ({', '.join(MODES)})")
+    sizes = r.choices(inp["sizes"], "input.sizes", lambda s: _input_spec(s, "rgb"),
+                      f"a side from 1 to {MAX_SIDE} or a string \"HxW\"")
+    inputs = tuple(_input_spec(s, m) for s in sizes for m in modes)
+
+    st = r.table(data, "stages")
+    counts = r.choices(st.get("count", [0]), "stages.count",
+                       lambda c: _is_int(c, 0, MAX_STAGES), f"an integer 0..{MAX_STAGES}")
+    n = max(counts)
+    if n and ("filters" in st) == ("widths" in st):
+        raise SpaceError(f"{source}: stages.count goes up to {n}, so give exactly one of "
+                         "stages.filters (choices per stage, e.g. filters = [8, 16]) or "
+                         "stages.widths (whole plans, e.g. widths = [[8, 16], [16, 32]])")
+    is_width = lambda f: _is_int(f, 1, MAX_WIDTH)  # noqa: E731
+    widths: tuple[tuple[int, ...], ...] = ()
+    if "widths" in st:
+        plans = st["widths"]
+        if not (isinstance(plans, list) and plans and all(isinstance(p, list) for p in plans)):
+            raise r.fail("stages.widths", plans, "must be a list of plans, each a list of "
+                         "filters per stage, e.g. [[8, 16], [16, 32]]")
+        widths = tuple(r.choices(p, f"stages.widths[{i}]", is_width,
+                                 f"an integer 1..{MAX_WIDTH}", unique=False)
+                       for i, p in enumerate(plans))
+        for i, plan in enumerate(widths):
+            if len(plan) < n:
+                raise r.fail(f"stages.widths[{i}]", list(plan), f"has {len(plan)} stages "
+                             f"but stages.count goes up to {n}; give {n} widths")
+        if len(set(widths)) != len(widths):
+            raise r.fail("stages.widths", plans, "lists a plan twice; give each once")
+        filters = tuple(tuple(dict.fromkeys(p[i] for p in widths)) for i in range(n)) \
+            or ((8,),)
+    else:
+        filters = r.per_stage(st.get("filters", [8]), "stages.filters", n, is_width,
+                              f"an integer 1..{MAX_WIDTH}")
+    kernels = r.per_stage(st.get("kernel", [3]), "stages.kernel", n,
+                          lambda k: _is_int(k, 1, 31) and k % 2 == 1,
+                          "an odd kernel size 1..31 (same padding needs an odd kernel)")
+    convs = r.per_stage(st.get("conv", ["standard"]), "stages.conv", n,
+                        lambda c: c in CONV_KINDS, f"one of {', '.join(CONV_KINDS)}")
+    pools = r.per_stage(st.get("pool", ["max"]), "stages.pool", n,
+                        lambda p: p in POOL_KINDS, f"one of {', '.join(POOL_KINDS)}")
+    pool_size = st.get("pool_size", 2)
+    if not _is_int(pool_size, 2, MAX_SIDE):
+        raise r.fail("stages.pool_size", pool_size, f"must be one integer 2..{MAX_SIDE}")
+    shared = r.choices(st.get("shared", list(SHAREABLE)), "stages.shared",
+                       lambda s: s in SHAREABLE, f"one of {', '.join(SHAREABLE)}") \
+        if st.get("shared", None) != [] else ()
+    for name, lists in (("kernel", kernels), ("conv", convs), ("pool", pools)):
+        if name in shared and len(set(lists)) > 1:
+            raise r.fail(f"stages.{name}", st[name], "is given per stage, so it cannot be "
+                         f"in stages.shared; take {name!r} out of shared or give one list")
+    widening = st.get("widening", True)
+    if not isinstance(widening, bool):
+        raise r.fail("stages.widening", widening, "must be true or false")
+    stages = tuple(StageChoices(i + 1, filters[i], kernels[i], convs[i], pools[i])
+                   for i in range(n))
+
+    head = r.table(data, "head")
+    heads = r.choices(head.get("kind", ["flatten"]), "head.kind",
+                      lambda h: h in HEAD_KINDS, f"one of {', '.join(HEAD_KINDS)}")
+    hidden = r.choices(head.get("hidden", [0]), "head.hidden",
+                       lambda u: _is_int(u, 0, MAX_WIDTH),
+                       f"a width 0..{MAX_WIDTH} (0 for no hidden layer)")
+    opts = r.table(data, "options")
+    batch_norm = r.choices(opts.get("batch_norm", [False]), "options.batch_norm",
+                           lambda b: isinstance(b, bool), "true or false")
+    dropout = r.choices(opts.get("dropout", [0]), "options.dropout",
+                        lambda p: _is_int(p, 0, 99), "a percent 0..99 (0 for none)")
+    budget = budget_from_table(r.table(data, "budget"), source)
+    return Space(inputs, counts, stages, pool_size, tuple(shared), widening, heads, hidden,
+                 batch_norm, dropout, budget, description, text, source, widths)
+
+
+# ---------------------------------------------------------------- enumerating
+
+
+def _stage_layers(f: int, k: int, conv: str, pool: str, pool_size: int, bn: bool) -> list:
+    stride = 2 if pool == "stride" else 1
+    norm = [BatchNorm()] if bn else []
+    if conv == "standard":
+        layers = [Conv(f, k, stride)] + norm
+    else:
+        layers = [Depthwise(k, stride)] + norm + [Conv(f, 1)] + norm
+    if pool in ("max", "avg"):
+        layers.append(Pool(pool, pool_size))
+    return layers
+
+
+def _stage_options(space: Space, count: int):
+    """Each item: a tuple of (filters, kernel, conv, pool) per stage."""
+    shared_lists = [getattr(space.stages[0], n + "s") for n in space.shared] if count else []
+    plans = space.widths if (space.widths and count) else (None,)
+    for shared, plan in itertools.product(itertools.product(*shared_lists), plans):
+        fixed = dict(zip(space.shared, shared))
+        per_stage = []
+        for i, st in enumerate(space.stages[:count]):
+            per_stage.append(list(itertools.product(
+                (plan[i],) if plan else st.filters,
+                [fixed["kernel"]] if "kernel" in fixed else st.kernels,
+                [fixed["conv"]] if "conv" in fixed else st.convs,
+                [fixed["pool"]] if "pool" in fixed else st.pools)))
+        for combo in itertools.product(*per_stage):
+            if space.widening and any(a[0] > b[0] for a, b in zip(combo, combo[1:])):
+                continue
+            yield combo
+
+
+def enumerate_space(space: Space, max_candidates: int | None = None,
+                    seed: int = 0) -> list[Arch]:
+    """The unique candidates of ``space``, in the documented order.
+
+    Parameters
+    ----------
+    space : Space
+    max_candidates : int, optional
+        When there are more, a seeded random subsample of this many (see
+        :func:`subsample`).
+    seed : int
+
+    Returns
+    -------
+    list of Arch
+        Each valid for its input; no two with the same text.
+
+    Raises
+    ------
+    SpaceError
+        When no combination fits its input (the message shows the first error).
+    """
+    seen: set[str] = set()
+    out: list[Arch] = []
+    first_error: ArchError | None = None
+    for spec in space.inputs:
+        for count in space.counts:
+            for combo in _stage_options(space, count):
+                body = [layer for opts in combo
+                        for layer in _stage_layers(*opts, space.pool_size, False)]
+                try:  # shapes do not depend on batch norm: check the body once
+                    ops = expand(Arch(spec, tuple(body)), 2)
+                    shape = next(op.in_shape for op in ops if op.kind in ("flatten", "dense"))
+                except ArchError as exc:
+                    first_error = first_error or exc
+                    continue
+                spatial = count > 0 and len(shape) == 3 and shape[:2] != (1, 1)
+                for head, hidden, bn, drop in itertools.product(
+                        space.heads, space.hidden, space.batch_norm, space.dropout):
+                    layers = [layer for opts in combo
+                              for layer in _stage_layers(*opts, space.pool_size, bn)]
+                    if head == "gap" and spatial:
+                        layers.append(GlobalPool())
+                    if hidden:
+                        layers.append(Dense(hidden))
+                        if bn:
+                            layers.append(BatchNorm())
+                    if drop:
+                        layers.append(Dropout(drop))
+                    arch = Arch(spec, tuple(layers))
+                    text = str(arch)
+                    if text not in seen:
+                        seen.add(text)
+                        out.append(arch)
+    if not out:
+        raise SpaceError(f"{space.source}: no combination of the space fits its input; the "
+                         f"first problem: {first_error}; use larger inputs or fewer stages")
+    if max_candidates is not None and len(out) > max_candidates:
+        out = subsample(out, max_candidates, seed)
+    return out
+
+
+def subsample(candidates: Sequence[Arch], k: int, seed: int | np.random.Generator = 0
+              ) -> list[Arch]:
+    """``k`` of ``candidates`` drawn at random without repeats, in their original order.
+
+    Parameters
+    ----------
+    candidates : sequence of Arch
+    k : int
+        How many to keep (>= 1); all are kept when there are no more than ``k``.
+    seed : int or numpy.random.Generator
+    """
+    if isinstance(k, bool) or not isinstance(k, int) or k < 1:
+        raise InputError(f"max candidates must be a positive integer, got {k!r}")
+    if len(candidates) <= k:
+        return list(candidates)
+    rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)
+    keep = np.sort(rng.choice(len(candidates), size=k, replace=False))
+    return [candidates[i] for i in keep]
+
+
+# ---------------------------------------------------------------- budgets
+
+
+@dataclass(frozen=True)
+class Filtered:
+    """The outcome of :func:`filter_budget`.
+
+    Attributes
+    ----------
+    survivors : tuple of Arch
+        The candidates within every budget, in their original order.
+    totals : tuple of Totals
+        Cost figures of every candidate, in the original order.
+    within : tuple of bool
+        Per candidate: within every budget.
+    over : dict
+        Budget name -> how many candidates exceed it. A candidate over several
+        budgets is counted under each, so the counts can add up to more than
+        ``n_removed``.
+    budget : Budget
+    """
+
+    survivors: tuple[Arch, ...]
+    totals: tuple[Totals, ...]
+    within: tuple[bool, ...]
+    over: dict[str, int]
+    budget: Budget
+
+    @property
+    def n_candidates(self) -> int:
+        return len(self.totals)
+
+    @property
+    def n_removed(self) -> int:
+        return self.n_candidates - len(self.survivors)
+
+    def summary(self) -> str:
+        """One line, e.g. ``120 candidates, 80 within budget; over max_macs: 30, ...``."""
+        over = ", ".join(f"over {k}: {v}" for k, v in self.over.items())
+        return (f"{self.n_candidates} candidates, {len(self.survivors)} within budget"
+                + (f"; {over}" if over else ""))
+
+    def table(self):
+        """A DataFrame, one row per candidate: candidate, params, macs,
+        peak_int8_bytes, flash_bytes, within_budget, over (budget names, comma-joined)."""
+        import pandas as pd
+        return pd.DataFrame({
+            "candidate": [t.arch for t in self.totals],
+            "params": [t.params for t in self.totals],
+            "macs": [t.macs for t in self.totals],
+            "peak_int8_bytes": [t.peak_int8_bytes for t in self.totals],
+            "flash_bytes": [t.flash_bytes for t in self.totals],
+            "within_budget": list(self.within),
+            "over": [",".join(self.budget.over(t)) for t in self.totals]})
+
+
+def filter_budget(candidates: Sequence[Arch], budget: Budget, n_classes: int) -> Filtered:
+    """Keep the candidates that fit every budget, and count what each budget removed.
+
+    Parameters
+    ----------
+    candidates : sequence of Arch
+    budget : Budget
+    n_classes : int
+        Classes of the data set (the head's size counts in every figure).
+
+    Raises
+    ------
+    BudgetError
+        When no candidate survives: names the candidate closest to fitting (the
+        smallest largest ratio of figure to limit) and its figures against every
+        budget, so that one knows which limit to raise or what to shrink.
+    """
+    if not candidates:
+        raise BudgetError("no candidates to filter: the space yields none")
+    limits = budget.limits()
+    totals = tuple(totals_of(a, n_classes) for a in candidates)
+    over_each = [budget.over(t) for t in totals]
+    within = tuple(not o for o in over_each)
+    counts = {name: sum(name in o for o in over_each) for name in limits}
+    survivors = tuple(a for a, ok in zip(candidates, within) if ok)
+    if not survivors:
+        def worst(t: Totals) -> float:
+            return max(getattr(t, _BUDGETS[n][0]) / lim for n, lim in limits.items())
+        best = min(totals, key=worst)
+        over = ", ".join(f"{k}: {v}" for k, v in counts.items() if v)
+        raise BudgetError(
+            f"no candidate of {len(totals)} fits the budget (over {over}); the closest, "
+            f"{best.arch!r}, costs {budget.describe(best)}; raise the budgets marked "
+            "over or add smaller choices to the space")
+    return Filtered(survivors, totals, within, counts, budget)

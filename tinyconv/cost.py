@@ -1,0 +1,406 @@
+"""What a network costs: parameters, MACs, activation memory and int8 flash.
+
+The one source of these numbers for the search's budgets, the report and the
+C export. Everything is computed from :func:`tinyconv.arch.expand`, one row per
+:class:`~tinyconv.arch.Op`, plus one row for the input quantisation.
+
+Counting rules (the contract in DEVELOPERS.md, "Cost"):
+
+* **parameters** (trained): conv ``k*k*c_in*f + f``; depthwise ``k*k*c + c``;
+  dense ``n_in*n_out + n_out``; batch norm ``2c`` (gamma, beta). Batch norm's
+  running mean and variance (``2c``) are **state**, counted apart.
+* **MACs per image**: conv ``h_out*w_out*k*k*c_in*f``; depthwise
+  ``h_out*w_out*k*k*c``; dense ``n_in*n_out``. Pooling, ReLU, batch norm (folded
+  at deployment), dropout and flatten count 0: they multiply-accumulate nothing
+  in the int8 kernels.
+* **flash** (int8 deployment layout, byte for byte what ``export/`` writes):
+  the input table of ``256*c`` int8; per conv/dwconv/dense one byte per weight
+  plus 12 bytes per output channel (int32 bias, int32 multiplier, int32
+  shift); a batch norm directly after conv/dwconv/dense is folded into it and
+  costs nothing. A batch norm anywhere else has no int8 form: the exporter
+  refuses it, and :attr:`Cost.exportable` is False (its flash counts 0).
+* **peak activation memory**: the largest, over the ops that write a new
+  buffer (the input quantisation, conv, dwconv, maxpool, avgpool, gap,
+  dense), of input elements + output elements. ReLU, batch norm, dropout and
+  flatten work in place and add nothing; the C kernels loop directly, so there
+  are no scratch buffers; each op reads from one end of the arena and writes
+  to the other, so the arena is exactly the peak. int8 bytes = elements;
+  float32 bytes = 4 x elements. The input quantisation reads the raw pixels
+  (one byte each) and writes the int8 input, so it counts ``2*h*w*c``.
+
+KB in this package means 1,024 bytes.
+"""
+
+from __future__ import annotations
+
+from dataclasses import asdict, dataclass
+from math import prod
+from typing import Union
+
+import pandas as pd
+
+from tinyconv.arch import Arch, Op, expand, parse
+from tinyconv.errors import InputError
+
+#: op kinds that write a new activation buffer (the others work in place)
+BUFFER_KINDS = frozenset({"input", "conv", "dwconv", "maxpool", "avgpool", "gap", "dense"})
+#: op kinds with int8 weights in flash
+WEIGHT_KINDS = frozenset({"conv", "dwconv", "dense"})
+#: flash bytes per output channel of a weighted op: int32 bias, multiplier, shift
+CHANNEL_BYTES = 12
+#: rows of the input lookup table (one per raw 8-bit pixel value)
+INPUT_TABLE_ROWS = 256
+KB = 1024
+
+
+@dataclass(frozen=True)
+class OpCost:
+    """The cost of one operation (or of the input quantisation, ``kind='input'``).
+
+    Attributes
+    ----------
+    index : int
+        Index into ``expand(arch, n_classes)``; -1 for the input row.
+    name, kind : str
+        ``Op.name`` (e.g. ``"3:c16k3"``, ``"head:dense"``) and ``Op.kind``.
+    in_shape, out_shape : tuple of int
+        Per-image shapes, (h, w, c) or (n_features,).
+    params : int
+        Trained parameters.
+    state : int
+        Saved but untrained values (batch norm's running mean and variance).
+    macs : int
+        Multiply-accumulates per image.
+    out_elements : int
+        Elements of the output activation of one image.
+    flash_bytes : int
+        int8 deployment bytes of this op (0 for folded batch norm).
+    live_elements : int
+        Input + output elements when the op writes a new buffer, else 0.
+    folded : bool
+        True for a batch norm folded into the conv/dwconv/dense before it.
+    """
+
+    index: int
+    name: str
+    kind: str
+    in_shape: tuple[int, ...]
+    out_shape: tuple[int, ...]
+    params: int
+    state: int
+    macs: int
+    out_elements: int
+    flash_bytes: int
+    live_elements: int
+    folded: bool = False
+
+
+@dataclass(frozen=True)
+class Cost:
+    """Totals for one architecture and number of classes, with the per-op rows.
+
+    ``rows[0]`` is the input quantisation; ``rows[i + 1]`` costs
+    ``expand(arch, n_classes)[i]``.
+
+    Attributes
+    ----------
+    arch : str
+        The architecture text.
+    n_classes : int
+    rows : tuple of OpCost
+    params, state, macs, flash_bytes : int
+        Sums over the rows.
+    peak_elements : int
+        Largest ``live_elements`` of any row.
+    peak_int8_bytes, peak_float32_bytes : int
+        ``peak_elements`` x 1 and x 4.
+    peak_op : str
+        Name of the row where the peak occurs (the first, on ties).
+    exportable : bool
+        False when a batch norm does not directly follow conv/dwconv/dense (the
+        int8 exporter refuses it; its flash is then not known and counted 0).
+    """
+
+    arch: str
+    n_classes: int
+    rows: tuple[OpCost, ...]
+    params: int
+    state: int
+    macs: int
+    flash_bytes: int
+    peak_elements: int
+    peak_int8_bytes: int
+    peak_float32_bytes: int
+    peak_op: str
+    exportable: bool
+
+    @property
+    def flash_kb(self) -> float:
+        return self.flash_bytes / KB
+
+    @property
+    def peak_kb(self) -> float:
+        """int8 peak activation memory in KB (1,024 bytes)."""
+        return self.peak_int8_bytes / KB
+
+    def totals(self) -> dict:
+        """The totals as a plain dict (no rows)."""
+        return {k: v for k, v in asdict(self).items() if k != "rows"}
+
+    def table(self) -> pd.DataFrame:
+        """One row per :class:`OpCost` (the input first); shapes as ``8x8x16`` text."""
+        records = []
+        for row in self.rows:
+            rec = asdict(row)
+            rec["in_shape"] = "x".join(map(str, row.in_shape))
+            rec["out_shape"] = "x".join(map(str, row.out_shape))
+            records.append(rec)
+        return pd.DataFrame.from_records(records, columns=list(OpCost.__dataclass_fields__))
+
+    def as_dict(self) -> dict:
+        """Totals and rows as JSON-ready data."""
+        out = self.totals()
+        out["rows"] = [asdict(r) for r in self.rows]
+        return out
+
+
+def _as_arch(arch: Union[Arch, str]) -> Arch:
+    return parse(arch) if isinstance(arch, str) else arch
+
+
+def _numbers(op: Op) -> tuple[int, int, int, int, int, int]:
+    """(params, state, macs, out_elements, flash_bytes, live_elements) of one op."""
+    shape_in, shape_out = op.in_shape, op.out_shape
+    n_in, n_out = prod(shape_in), prod(shape_out)
+    kind = op.kind
+    live = n_in + n_out if kind in BUFFER_KINDS else 0
+    if kind == "conv":
+        f = op.filters
+        weights = op.kernel * op.kernel * shape_in[2] * f
+        return (weights + f, 0, shape_out[0] * shape_out[1] * weights, n_out,
+                weights + CHANNEL_BYTES * f, live)
+    if kind == "dwconv":
+        c = shape_in[2]
+        weights = op.kernel * op.kernel * c
+        return (weights + c, 0, shape_out[0] * shape_out[1] * weights, n_out,
+                weights + CHANNEL_BYTES * c, live)
+    if kind == "dense":
+        weights = n_in * n_out
+        return weights + n_out, 0, weights, n_out, weights + CHANNEL_BYTES * n_out, live
+    if kind == "bn":
+        c = shape_in[-1]
+        return 2 * c, 2 * c, 0, n_out, 0, live
+    return 0, 0, 0, n_out, 0, live
+
+
+def op_cost(op: Op, index: int, folded: bool = False) -> OpCost:
+    """The cost of one :class:`~tinyconv.arch.Op`.
+
+    Parameters
+    ----------
+    op : Op
+    index : int
+        Its index in ``expand()``.
+    folded : bool
+        For a batch norm: whether it is folded into the op before it.
+    """
+    return OpCost(index, op.name, op.kind, op.in_shape, op.out_shape, *_numbers(op),
+                  folded=folded)
+
+
+def input_cost(arch: Arch) -> OpCost:
+    """The input quantisation: a ``256*c`` int8 table; raw pixels in, int8 out."""
+    shape = arch.input.shape
+    n = prod(shape)
+    return OpCost(-1, "input", "input", shape, shape, 0, 0, 0, n,
+                  INPUT_TABLE_ROWS * shape[2], 2 * n)
+
+
+def folded_flags(ops: tuple[Op, ...]) -> tuple[bool, ...]:
+    """Per op: True for a batch norm directly after conv/dwconv/dense (folded)."""
+    return tuple(op.kind == "bn" and i > 0 and ops[i - 1].kind in WEIGHT_KINDS
+                 for i, op in enumerate(ops))
+
+
+def cost_of(arch: Union[Arch, str], n_classes: int) -> Cost:
+    """Parameters, MACs, flash and peak activation memory of ``arch``.
+
+    Parameters
+    ----------
+    arch : Arch or str
+        An architecture or its text.
+    n_classes : int
+        Outputs of the classifier head (>= 2).
+
+    Returns
+    -------
+    Cost
+        Totals and per-op rows (see the module docstring for the rules).
+
+    Raises
+    ------
+    ArchError
+        For a bad architecture text.
+    InputError
+        For a bad number of classes.
+    """
+    arch = _as_arch(arch)
+    ops = expand(arch, n_classes)
+    flags = folded_flags(ops)
+    rows = (input_cost(arch),) + tuple(op_cost(op, i, f)
+                                       for i, (op, f) in enumerate(zip(ops, flags)))
+    exportable = all(f for op, f in zip(ops, flags) if op.kind == "bn")
+    peak_row = max(rows, key=lambda r: r.live_elements)  # first of equal maxima
+    peak = peak_row.live_elements
+    return Cost(str(arch), n_classes, rows,
+                params=sum(r.params for r in rows), state=sum(r.state for r in rows),
+                macs=sum(r.macs for r in rows), flash_bytes=sum(r.flash_bytes for r in rows),
+                peak_elements=peak, peak_int8_bytes=peak, peak_float32_bytes=4 * peak,
+                peak_op=peak_row.name, exportable=exportable)
+
+
+@dataclass(frozen=True)
+class Totals:
+    """The budget figures of one candidate, without per-op rows (cheap to keep).
+
+    Same numbers as the matching fields of :class:`Cost`.
+    """
+
+    arch: str
+    n_classes: int
+    params: int
+    macs: int
+    flash_bytes: int
+    peak_int8_bytes: int
+    exportable: bool
+
+    @property
+    def flash_kb(self) -> float:
+        return self.flash_bytes / KB
+
+    @property
+    def peak_kb(self) -> float:
+        return self.peak_int8_bytes / KB
+
+
+def totals_of(arch: Union[Arch, str], n_classes: int) -> Totals:
+    """The totals of :func:`cost_of` without building its rows (for filtering many).
+
+    Uses the same per-op rule as :func:`cost_of`; a test checks they agree.
+    """
+    arch = _as_arch(arch)
+    ops = expand(arch, n_classes)
+    shape = arch.input.shape
+    n = shape[0] * shape[1] * shape[2]
+    params = macs = 0
+    flash, peak = INPUT_TABLE_ROWS * shape[2], 2 * n
+    exportable = True
+    prev = "input"
+    for op in ops:
+        p, _, m, _, f, live = _numbers(op)
+        params += p
+        macs += m
+        flash += f
+        if live > peak:
+            peak = live
+        if op.kind == "bn" and prev not in WEIGHT_KINDS:
+            exportable = False
+        prev = op.kind
+    return Totals(str(arch), n_classes, params, macs, flash, peak, exportable)
+
+
+# ---------------------------------------------------------------- training memory
+
+#: optimiser state buffers per parameter
+OPTIMIZER_SLOTS = {"adam": 2, "sgd": 1}
+
+
+@dataclass(frozen=True)
+class TrainingMemory:
+    """Bytes a training step holds for one batch (float32 unless told).
+
+    Attributes
+    ----------
+    batch_size : int
+    cached_bytes : int
+        Activations kept by the forward pass for the backward pass.
+    gradient_bytes : int
+        The largest pair of activation gradients alive at once in the backward
+        pass (gradient into an op + gradient out of it).
+    params_bytes, grads_bytes, optimizer_bytes, state_bytes : int
+        Parameters, their gradients, optimiser buffers and batch-norm state.
+    total_bytes : int
+        The sum of the above.
+    """
+
+    batch_size: int
+    optimizer: str
+    cached_bytes: int
+    gradient_bytes: int
+    params_bytes: int
+    grads_bytes: int
+    optimizer_bytes: int
+    state_bytes: int
+    total_bytes: int
+
+
+def _cached_elements(op: Op) -> int:
+    """Per-image elements ``op`` keeps from forward for backward."""
+    n_in, n_out = prod(op.in_shape), prod(op.out_shape)
+    if op.kind in ("conv", "dwconv", "dense", "maxpool"):
+        return n_in            # the input (max pooling: to find the winners)
+    if op.kind in ("relu", "dropout"):
+        return n_out           # the output (ReLU) or the mask (dropout)
+    if op.kind == "bn":
+        return n_in + 2 * op.in_shape[-1]   # normalised input, batch mean and 1/std
+    return 0                   # avgpool, gap, flatten need only shapes
+
+
+def training_memory(arch: Union[Arch, str], n_classes: int, batch_size: int,
+                    optimizer: str = "adam", momentum: float = 0.9,
+                    item_bytes: int = 4) -> TrainingMemory:
+    """Memory of one training step of a batch, in bytes.
+
+    Parameters
+    ----------
+    arch : Arch or str
+    n_classes : int
+    batch_size : int
+        Images per step (>= 1).
+    optimizer : {"adam", "sgd"}
+        Adam keeps two buffers per parameter; SGD one (none when ``momentum``
+        is 0).
+    momentum : float
+        SGD momentum.
+    item_bytes : int
+        Bytes per number: 4 for float32, 8 for float64.
+
+    Notes
+    -----
+    Counted: activations cached for backward, per image — the input of every
+    conv, dwconv, dense and max pooling; the output of every ReLU; the mask of
+    every dropout; the normalised input and the batch statistics of every batch
+    norm; and the class probabilities of the loss — times the batch; the
+    largest input + output gradient pair of any op, times the batch; the
+    parameters, their gradients and the optimiser buffers; batch-norm state.
+    Not counted: the training images themselves, scratch a convolution kernel
+    may allocate (such as an im2col matrix) and interpreter overhead, which
+    depend on the engine rather than the network.
+    """
+    if optimizer not in OPTIMIZER_SLOTS:
+        raise InputError(f"optimizer {optimizer!r} is not one of "
+                         f"{', '.join(OPTIMIZER_SLOTS)}; pick one of them")
+    if isinstance(batch_size, bool) or not isinstance(batch_size, int) or batch_size < 1:
+        raise InputError(f"batch size must be a positive integer, got {batch_size!r}")
+    arch = _as_arch(arch)
+    ops = expand(arch, n_classes)
+    cost = cost_of(arch, n_classes)
+    cached = sum(_cached_elements(op) for op in ops) + n_classes
+    grad_pair = max(prod(op.in_shape) + prod(op.out_shape) for op in ops)
+    slots = OPTIMIZER_SLOTS[optimizer] if (optimizer != "sgd" or momentum) else 0
+    b = item_bytes
+    parts = dict(cached_bytes=cached * batch_size * b,
+                 gradient_bytes=grad_pair * batch_size * b,
+                 params_bytes=cost.params * b, grads_bytes=cost.params * b,
+                 optimizer_bytes=slots * cost.params * b, state_bytes=cost.state * b)
+    return TrainingMemory(batch_size, optimizer, total_bytes=sum(parts.values()), **parts)
