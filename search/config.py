@@ -1,0 +1,184 @@
+"""The settings of one search, as stored in its run folder, and their checks.
+
+:class:`SearchSettings` holds everything that decides *which* units run and
+*what* they compute: data, space, folds, seed, the schedule, device budgets and
+training settings. Two runs with equal settings and equal data compute
+bit-identical units, whatever the number of workers; a run folder therefore
+refuses settings that differ from the ones it was started with
+(:func:`differences`). The time and epoch budgets are the exception: they
+only say how much of the same fixed plan to carry out, so a resumed run may
+raise (or lower) them.
+"""
+
+from __future__ import annotations
+
+import math
+import re
+from dataclasses import asdict, dataclass, field
+from typing import Any
+
+from tinyconv.errors import InputError
+
+FORMAT = 1
+RANK_ORDERS = ("per_param", "accuracy")
+# Keys whose change does not alter any unit, only how far the plan is followed.
+EXTENDABLE = ("budget_cpu_s", "budget_epochs")
+# Keys kept for the record but not compared (the data is compared by fingerprint).
+RECORD_ONLY = ("data",)
+
+_DURATION = re.compile(r"(?:(\d+(?:\.\d+)?)h)?(?:(\d+(?:\.\d+)?)m)?(?:(\d+(?:\.\d+)?)s?)?")
+
+
+def parse_duration(text: str) -> float:
+    """Seconds in ``90s``, ``20m``, ``1h``, ``1h30m``, ``2.5m`` or a bare number.
+
+    Raises
+    ------
+    InputError
+        For anything else, showing the value and the accepted forms.
+    """
+    value = str(text).strip().lower()
+    m = _DURATION.fullmatch(value)
+    if not value or not m or not any(m.groups()):
+        raise InputError(f"CPU budget {text!r} is not a duration; write e.g. 90s, 20m, 1h "
+                         "or 1h30m")
+    h, mins, s = (float(g) if g else 0.0 for g in m.groups())
+    seconds = 3600 * h + 60 * mins + s
+    if not seconds > 0:
+        raise InputError(f"CPU budget {text!r} must be more than zero seconds")
+    return seconds
+
+
+def format_duration(seconds: float) -> str:
+    """A short human form: ``45s``, ``12m 05s``, ``1h 02m``."""
+    seconds = max(0.0, float(seconds))
+    if seconds < 60:
+        return f"{seconds:.0f}s" if seconds >= 10 else f"{seconds:.1f}s"
+    if seconds < 3600:
+        return f"{int(seconds // 60)}m {int(seconds % 60):02d}s"
+    return f"{int(seconds // 3600)}h {int(seconds % 3600 // 60):02d}m"
+
+
+@dataclass(frozen=True)
+class SearchSettings:
+    """What one search computes (see the module notes).
+
+    Attributes
+    ----------
+    data : str
+        The data spec given (folder, ``.npz``, ``builtin:...``); for the record.
+    fingerprint : str
+        ``tinyconv.data.fingerprint`` of the data set: the data's identity.
+    classes : tuple of str
+    n_images : int
+    space : str
+        The text of the space file.
+    space_source : str
+    folds : int
+        ``k`` of the stratified k-fold cross-validation (>= 2).
+    seed : int
+        The run seed; every unit's seed derives from it.
+    eta : int
+        Halving rate (>= 2).
+    max_epochs : int
+        ``R``: epochs of the final rung (>= 1).
+    full : bool
+        Train every surviving candidate for ``max_epochs`` on every fold.
+    max_candidates : int or None
+        Seeded subsample of the surviving candidates.
+    budget : dict
+        Device limits (``max_params``, ``max_macs``, ``max_peak_kb``,
+        ``max_flash_kb``; ``None`` for no limit).
+    budget_cpu_s : float or None
+        Total CPU seconds the units may use (summed over workers).
+    budget_epochs : int or None
+        Total training epochs (summed over units, as planned).
+    training : dict
+        ``TrainConfig`` fields other than ``epochs`` and ``seed``.
+    """
+
+    data: str
+    fingerprint: str
+    classes: tuple[str, ...]
+    n_images: int
+    space: str
+    space_source: str = ""
+    folds: int = 3
+    seed: int = 0
+    eta: int = 3
+    max_epochs: int = 9
+    full: bool = False
+    max_candidates: int | None = None
+    budget: dict = field(default_factory=dict)
+    budget_cpu_s: float | None = None
+    budget_epochs: int | None = None
+    training: dict = field(default_factory=dict)
+
+    def __post_init__(self) -> None:
+        _positive_int("folds", self.folds, 2, "--folds")
+        _positive_int("eta", self.eta, 2, "--eta")
+        _positive_int("max epochs", self.max_epochs, 1, "--max-epochs")
+        if not isinstance(self.seed, int) or isinstance(self.seed, bool):
+            raise InputError(f"seed must be an integer, got {self.seed!r}")
+        if self.max_candidates is not None:
+            _positive_int("max candidates", self.max_candidates, 1, "--max-candidates")
+        if self.budget_cpu_s is not None and not (math.isfinite(self.budget_cpu_s)
+                                                  and self.budget_cpu_s > 0):
+            raise InputError(f"CPU budget must be a positive number of seconds, got "
+                             f"{self.budget_cpu_s!r}")
+        if self.budget_epochs is not None:
+            _positive_int("epoch budget", self.budget_epochs, 1, "--budget-epochs")
+
+    def as_dict(self) -> dict[str, Any]:
+        """Plain data (lists for tuples), as stored; includes the format version."""
+        out = asdict(self)
+        out["classes"] = list(self.classes)
+        out["format"] = FORMAT
+        return out
+
+    @staticmethod
+    def from_dict(data: dict[str, Any]) -> "SearchSettings":
+        values = {k: v for k, v in data.items() if k != "format"}
+        values["classes"] = tuple(values["classes"])
+        return SearchSettings(**values)
+
+
+def _positive_int(name: str, value: Any, low: int, option: str) -> None:
+    if isinstance(value, bool) or not isinstance(value, int) or value < low:
+        raise InputError(f"{name} must be an integer >= {low}, got {value!r}; set {option}")
+
+
+def _show(value: Any) -> str:
+    text = repr(value)
+    if isinstance(value, str) and ("\n" in value or len(value) > 40):
+        first = value.strip().splitlines()[0] if value.strip() else ""
+        return f"a text of {len(value)} characters starting {first[:30]!r}"
+    return text if len(text) <= 60 else text[:57] + "..."
+
+
+def differences(stored: dict[str, Any], now: dict[str, Any]) -> list[str]:
+    """What differs between a stored configuration and a new one.
+
+    Keys in ``EXTENDABLE`` and ``RECORD_ONLY`` are not compared. Each item
+    reads ``"folds: 5 in the run folder, 3 now"``; nested dicts (budget,
+    training) are compared key by key.
+    """
+    out = []
+    keys = sorted(set(stored) | set(now))
+    for key in keys:
+        if key in EXTENDABLE or key in RECORD_ONLY:
+            continue
+        a, b = stored.get(key), now.get(key)
+        if isinstance(a, dict) and isinstance(b, dict):
+            for sub in sorted(set(a) | set(b)):
+                if a.get(sub) != b.get(sub):
+                    out.append(f"{key}.{sub}: {_show(a.get(sub))} in the run folder, "
+                               f"{_show(b.get(sub))} now")
+        elif a != b:
+            name = "data fingerprint" if key == "fingerprint" else key
+            if key == "fingerprint":
+                out.append(f"{name}: {a} (data {stored.get('data')!r}) in the run folder, "
+                           f"{b} (data {now.get('data')!r}) now: it is other data")
+            else:
+                out.append(f"{name}: {_show(a)} in the run folder, {_show(b)} now")
+    return out

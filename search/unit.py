@@ -1,0 +1,190 @@
+"""One work unit: train a candidate on all folds but one, evaluate on that fold.
+
+A unit is (candidate text, fold, rung, epochs) with a seed derived from the
+run seed and those (:func:`search.schedule.unit_seed`). It trains from
+scratch: the rung only says how many epochs. The normalisation statistics
+come from the training part of the fold only. The unit never raises: a
+problem in training becomes ``status="failed"`` with the message, a
+non-finite loss ``status="diverged"`` (with no accuracy and no predictions,
+since the weights are not trustworthy).
+
+The data reach a worker once, as :class:`UnitData` (raw uint8 images, labels,
+fold of every image); images are prepared (resized, converted) for each input
+spec once per worker and kept (:meth:`UnitData.prepared`).
+"""
+
+from __future__ import annotations
+
+import json
+import time
+import traceback
+from dataclasses import dataclass, field
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+
+DATA_FILES = ("images.npy", "labels.npy", "folds.npy")
+
+
+@dataclass(frozen=True)
+class UnitTask:
+    """What to compute: train ``candidate`` for ``epochs``, hold out ``fold``.
+
+    ``training`` holds the ``TrainConfig`` fields other than epochs and seed.
+    """
+
+    candidate: str
+    fold: int
+    rung: int
+    epochs: int
+    seed: int
+    n_classes: int
+    training: tuple[tuple[str, Any], ...] = ()
+
+    @property
+    def key(self) -> tuple[str, int, int]:
+        """(candidate, fold, rung): the identity of a unit in a run."""
+        return (self.candidate, self.fold, self.rung)
+
+
+@dataclass(frozen=True)
+class UnitResult:
+    """What a unit gave.
+
+    Attributes
+    ----------
+    task : UnitTask
+    status : {"done", "diverged", "failed"}
+    message : str
+        Why it diverged or failed ("" when done).
+    train_acc, train_loss, val_acc, val_loss : float or None
+        After the last epoch, in evaluation mode, on the training part and the
+        held-out fold (None unless done).
+    cpu_s, wall_s : float
+        CPU seconds of the worker process (``time.process_time``) and wall seconds.
+    history : dict of str to list of float
+        Per epoch: train_loss, train_acc (training mode), val_loss, val_acc.
+    index : ndarray, shape (m,), int64
+        Held-out images (indices into the data set), ascending.
+    label, pred : ndarray, shape (m,), int64
+    probs : ndarray, shape (m, K), float32
+        Predicted class probabilities (empty unless done).
+    """
+
+    task: UnitTask
+    status: str
+    message: str = ""
+    train_acc: float | None = None
+    train_loss: float | None = None
+    val_acc: float | None = None
+    val_loss: float | None = None
+    cpu_s: float = 0.0
+    wall_s: float = 0.0
+    history: dict = field(default_factory=dict)
+    index: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    label: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    pred: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
+    probs: np.ndarray = field(default_factory=lambda: np.zeros((0, 0), np.float32))
+
+    def history_json(self) -> str:
+        return json.dumps(self.history, sort_keys=True)
+
+
+class UnitData:
+    """The data every unit of a run reads: raw images, labels, folds.
+
+    Parameters
+    ----------
+    images : ndarray, shape (n, h, w, c), uint8
+    labels : ndarray, shape (n,), int64
+    folds : ndarray, shape (n,), int64
+    """
+
+    def __init__(self, images: np.ndarray, labels: np.ndarray, folds: np.ndarray):
+        self.images = images
+        self.labels = np.asarray(labels, dtype=np.int64)
+        self.folds = np.asarray(folds, dtype=np.int64)
+        self._prepared: dict[str, np.ndarray] = {}
+
+    def __getstate__(self) -> dict:
+        # Ship only the raw arrays; each worker prepares its own copies.
+        return {"images": np.asarray(self.images), "labels": self.labels,
+                "folds": self.folds}
+
+    def __setstate__(self, state: dict) -> None:
+        self.__init__(state["images"], state["labels"], state["folds"])
+
+    def save(self, folder: str | Path) -> None:
+        """Write the arrays as ``.npy`` files (read back memory-mapped)."""
+        folder = Path(folder)
+        for name, arr in zip(DATA_FILES, (self.images, self.labels, self.folds)):
+            tmp = folder / (name + ".tmp")
+            with open(tmp, "wb") as fh:
+                np.save(fh, np.ascontiguousarray(arr))
+            tmp.replace(folder / name)
+
+    @staticmethod
+    def load(folder: str | Path) -> "UnitData":
+        folder = Path(folder)
+        images, labels, folds = (np.load(folder / n, mmap_mode="r") for n in DATA_FILES)
+        return UnitData(images, np.array(labels), np.array(folds))
+
+    def prepared(self, spec) -> np.ndarray:
+        """The images prepared for an ``InputSpec``, float32 in [0, 1] (cached)."""
+        key = str(spec)
+        if key not in self._prepared:
+            from tinyconv.data import prepare
+            self._prepared[key] = prepare(np.asarray(self.images), spec)
+        return self._prepared[key]
+
+
+def run_unit(task: UnitTask, data: UnitData) -> UnitResult:
+    """Train and evaluate one unit; never raises (see the module notes)."""
+    cpu0, wall0 = time.process_time(), time.perf_counter()
+    try:
+        return _run(task, data, cpu0, wall0)
+    except Exception as exc:  # the unit reports it; the search goes on
+        last = traceback.extract_tb(exc.__traceback__)[-1] if exc.__traceback__ else None
+        where = f" (at {Path(last.filename).name}:{last.lineno})" if last else ""
+        return UnitResult(task, "failed", f"{type(exc).__name__}: {exc}{where}",
+                          cpu_s=time.process_time() - cpu0,
+                          wall_s=time.perf_counter() - wall0)
+
+
+def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResult:
+    from tinyconv import arch as arch_mod
+    from tinyconv.data import fit_normalisation, normalise
+    from tinyconv.network import Network
+    from tinyconv.train import TrainConfig, evaluate, fit, predict_proba
+
+    from search.schedule import derive_seed
+
+    arch = arch_mod.parse(task.candidate)
+    x_all = data.prepared(arch.input)                       # (n, h, w, c) float32
+    train = np.flatnonzero(data.folds != task.fold)
+    held = np.flatnonzero(data.folds == task.fold)
+    mean, std = fit_normalisation(x_all[train])             # training part only
+    x_train, y_train = normalise(x_all[train], mean, std), data.labels[train]
+    x_held, y_held = normalise(x_all[held], mean, std), data.labels[held]
+
+    net = Network.from_arch(arch, task.n_classes, seed=derive_seed(task.seed, "weights"))
+    config = TrainConfig(epochs=task.epochs, seed=derive_seed(task.seed, "batches"),
+                         **dict(task.training))
+    hist = fit(net, x_train, y_train, config, x_held, y_held)
+    history = {"train_loss": list(hist.train_loss), "train_acc": list(hist.train_acc),
+               "val_loss": list(hist.val_loss), "val_acc": list(hist.val_acc)}
+    if hist.status == "diverged":
+        return UnitResult(task, "diverged",
+                          f"the training loss was not finite in epoch {hist.diverged_epoch} "
+                          f"of {task.epochs}; try a smaller learning rate",
+                          cpu_s=time.process_time() - cpu0,
+                          wall_s=time.perf_counter() - wall0, history=history)
+    train_loss, train_acc = evaluate(net, x_train, y_train)
+    probs = predict_proba(net, x_held).astype(np.float32)   # (m, K)
+    pred = probs.argmax(axis=1).astype(np.int64)
+    val_loss, val_acc = evaluate(net, x_held, y_held)
+    return UnitResult(task, "done", "", float(train_acc), float(train_loss), float(val_acc),
+                      float(val_loss), time.process_time() - cpu0,
+                      time.perf_counter() - wall0, history, held.astype(np.int64),
+                      y_held.astype(np.int64), pred, probs)
