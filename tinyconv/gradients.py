@@ -13,11 +13,15 @@ Method
   exactly and round-off stays near ``eps * |y| / h``.
 * Relative error per coordinate ``|a - n| / max(|a|, |n|, floor)``, reported
   as the maximum per parameter tensor and for the input. ``floor`` is
-  ``FLOOR_FRACTION`` (1e-3) times the largest gradient magnitude in that
-  tensor (at least ``TINY``): a component a thousand times smaller than the
-  tensor's largest is judged on the tensor's scale, because round-off in the
-  difference quotient would otherwise dominate it (exact zeros, such as the
-  gradient through a dead ReLU, then compare as 0 against 0).
+  ``FLOOR_FRACTION`` (1e-3) times the largest gradient magnitude of the whole
+  check (every tensor of the layer or network, analytic and numeric; at least
+  ``TINY``). A component a thousand times smaller than that is judged on that
+  scale, because round-off in the difference quotient (about
+  ``eps * |f| / h``) would otherwise dominate it: a gradient that is zero in
+  exact arithmetic, such as a convolution bias just before batch norm, is
+  computed as round-off on both sides. Such a tensor's note says
+  "gradient is round-off small". The absolute tolerance this leaves is
+  ``THRESHOLD * FLOOR_FRACTION = 1e-9`` times the largest gradient.
 * Pass threshold ``THRESHOLD = 1e-6``: smooth float64 checks reach about 1e-7
   or better, and anything above 1e-4 is suspicious (common practice).
 * Kinks. ReLU and max pooling are not differentiable where an input crosses
@@ -101,6 +105,18 @@ def _generator(seed: int) -> np.random.Generator:
     return np.random.default_rng((int(seed), 1))
 
 
+def _scale(arrays: Sequence) -> float:
+    """Largest finite magnitude over the analytic gradients of one check."""
+    best = 0.0
+    for a in arrays:
+        if a is not None and np.size(a):
+            a = np.abs(np.asarray(a, dtype=np.float64))
+            a = a[np.isfinite(a)]
+            if a.size:
+                best = max(best, float(a.max()))
+    return best
+
+
 def _kink_states(layers: Sequence) -> list:
     return [s for s in (getattr(layer, "kink_state", lambda: None)() for layer in layers)
             if s is not None]
@@ -122,7 +138,7 @@ def _hold_dropout(layers: Sequence) -> bool:
 def _check_tensor(array: np.ndarray, analytic: np.ndarray | None, evaluate: Callable,
                   weight, base_states: list, layers: Sequence, *, layer: str, tensor: str,
                   rng: np.random.Generator, step: float, threshold: float,
-                  max_coords: int | None, notes: Sequence[str]) -> GradRow:
+                  max_coords: int | None, notes: Sequence[str], scale: float) -> GradRow:
     """Central differences of ``sum(evaluate() * weight)`` over coordinates of ``array``."""
     shape = tuple(array.shape)
     note = list(notes)
@@ -160,7 +176,12 @@ def _check_tensor(array: np.ndarray, analytic: np.ndarray | None, evaluate: Call
         note.append("no coordinate away from kinks: nothing checked")
         return GradRow(layer, tensor, shape, float("nan"), False, "; ".join(note))
     a = np.asarray(analytic, dtype=np.float64).reshape(-1)[coords][ok]
-    err = float(np.max(relative_error(a, numeric[ok])))
+    n = numeric[ok]
+    own = max(float(np.max(np.abs(a))), float(np.max(np.abs(n))))
+    if own < FLOOR_FRACTION * scale:
+        note.append(f"gradient is round-off small (max {own:.1e} against {scale:.1e} "
+                    "elsewhere): compared on the larger scale")
+    err = float(np.max(relative_error(a, n, floor=FLOOR_FRACTION * max(scale, own))))
     return GradRow(layer, tensor, shape, err, bool(err < threshold), "; ".join(note))
 
 
@@ -204,7 +225,8 @@ def check_layer(layer, x: np.ndarray, *, seed: int = 0, step: float = STEP,
     grads = {key: None if g is None else np.array(g, dtype=np.float64)
              for key, g in ((k, layer.grads.get(k)) for k in layer.params)}
     evaluate = lambda: layer.forward(x, training=True)  # noqa: E731
-    common = dict(rng=rng, step=step, threshold=threshold, max_coords=max_coords, notes=notes)
+    common = dict(rng=rng, step=step, threshold=threshold, max_coords=max_coords, notes=notes,
+                  scale=_scale([grad_x] + list(grads.values())))
     rows = []
     if check_input:
         rows.append(_check_tensor(x, grad_x, evaluate, upstream, base_states, [layer],
@@ -256,7 +278,8 @@ def check_network(net, x: np.ndarray, y: np.ndarray, *, seed: int = 0, step: flo
     names = [name for name, _ in net.param_list()]
     grads = dict(zip(names, (np.array(g, dtype=np.float64) for _, g in net.grad_list())))
     evaluate = lambda: loss(net.forward(x, training=True), labels)[0]  # noqa: E731
-    common = dict(rng=rng, step=step, threshold=threshold, max_coords=max_coords, notes=notes)
+    common = dict(rng=rng, step=step, threshold=threshold, max_coords=max_coords, notes=notes,
+                  scale=_scale([grad_x] + list(grads.values())))
     rows = []
     if check_input:
         rows.append(_check_tensor(x, grad_x, evaluate, 1.0, base_states, net.layers,
