@@ -1,0 +1,120 @@
+"""From a run's plain data to the report's figures (PNG bytes) and tables (frames)."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+
+from tinyconv.report.axes import png_bytes
+from tinyconv.report.boxes import fold_boxes
+from tinyconv.report.budgets import axis_budget, budget_rows
+from tinyconv.report.confusion import (confusion_counts, confusion_figure, per_class_table,
+                                       top_confusions)
+from tinyconv.report.curves import learning_curves
+from tinyconv.report.gallery import (confident_mistakes, confusion_examples,
+                                     confusion_gallery, mistakes_gallery)
+from tinyconv.report.pareto import pareto_plot
+from tinyconv.report.rundata import RunData, fold_scores
+
+MAX_FINALIST_CURVES = 6
+N_CONFUSIONS = 6
+PER_CONFUSION = 6
+N_MISTAKES = 12
+
+
+@dataclass
+class Assembled:
+    """The report's parts: figure PNGs, CSV frames, and values the page quotes."""
+
+    figures: dict[str, bytes] = field(default_factory=dict)
+    tables: dict[str, pd.DataFrame] = field(default_factory=dict)
+    counts: np.ndarray | None = None
+    curve_candidates: list[str] = field(default_factory=list)
+    notices: list[str] = field(default_factory=list)
+
+
+def _keep(out: Assembled, name: str, fig: Figure) -> None:
+    out.figures[name] = png_bytes(fig)
+    fig.clear()
+
+
+def curve_finalists(data: RunData) -> list[str]:
+    """The candidates whose learning curves are drawn: pick, best, then by rank."""
+    fin = data.finalists.sort_values("rank_per_param", kind="stable")
+    chosen = [data.pick["candidate"], data.best["candidate"]]
+    chosen += [c for c in fin["candidate"] if c not in chosen]
+    seen: list[str] = []
+    for c in chosen:
+        if c not in seen:
+            seen.append(c)
+    return seen[:MAX_FINALIST_CURVES]
+
+
+def assemble(data: RunData) -> Assembled:
+    """Render every figure and build every table of the report.
+
+    Figures (names are the PNG file names): ``folds.png``, ``pareto_params.png``,
+    ``pareto_macs.png``, ``curves.png``, and for the pick, when its held-out
+    predictions are stored, ``confusion.png``; with the data set's images also
+    ``confusions_gallery.png`` and ``mistakes.png``.
+    """
+    out = Assembled(notices=list(data.notices))
+    ranking = data.ranking
+    pick = data.pick
+    budgets = data.config.get("budget") or {}
+    chance = data.chance
+    out.tables["ranking.csv"] = ranking
+
+    folds = fold_scores(ranking, data.units)
+    out.tables["folds.csv"] = folds
+    _keep(out, "folds.png", fold_boxes(folds, chance=chance, pick=pick["candidate"]))
+
+    fin = data.finalists
+    for axis in ("params", "macs"):
+        _keep(out, f"pareto_{axis}.png",
+              pareto_plot(fin, axis, budget=axis_budget(budgets, axis), chance=chance))
+
+    out.curve_candidates = curve_finalists(data)
+    done = data.units[data.units["status"] == "done"]
+    _keep(out, "curves.png", learning_curves(done, out.curve_candidates, chance=chance,
+                                             pick=pick["candidate"]))
+
+    out.tables["budgets.csv"] = budget_rows(budgets, pick, data.removed)
+
+    p = data.predictions
+    classes = list(data.classes)
+    if p is None or p.label.size == 0:
+        out.notices.append("The pick's held-out predictions are not in the run store, so its "
+                           "confusion matrix and galleries are left out.")
+        return out
+    counts = confusion_counts(p.label, p.pred, len(classes))
+    out.counts = counts
+    out.tables["confusion_counts.csv"] = pd.DataFrame(
+        counts, index=pd.Index(classes, name="true \\ predicted"), columns=classes)
+    out.tables["per_class.csv"] = per_class_table(counts, classes)
+    pairs = top_confusions(counts, N_CONFUSIONS)
+    out.tables["confusions.csv"] = pd.DataFrame(
+        [{"true": classes[t], "predicted": classes[q], "images": c,
+          "share_of_true_class": c / max(int(counts[t].sum()), 1)} for t, q, c in pairs],
+        columns=["true", "predicted", "images", "share_of_true_class"])
+    conf = p.confidence
+    wrong = confident_mistakes(p.label, p.pred, conf, N_MISTAKES)
+    out.tables["mistakes.csv"] = pd.DataFrame({
+        "index": p.index[wrong], "fold": p.fold[wrong],
+        "true": [classes[i] for i in p.label[wrong]],
+        "predicted": [classes[i] for i in p.pred[wrong]],
+        "confidence": conf[wrong],
+        "path": [data.paths[i] if data.paths else "" for i in p.index[wrong]],
+    })
+    _keep(out, "confusion.png", confusion_figure(counts, classes))
+    if data.images is None:
+        return out
+    examples = confusion_examples(p.label, p.pred, conf, pairs, PER_CONFUSION)
+    _keep(out, "confusions_gallery.png",
+          confusion_gallery(data.images, examples, classes, confidence=conf, source=p.index))
+    _keep(out, "mistakes.png", mistakes_gallery(data.images, wrong, p.label, p.pred, conf,
+                                                classes, source=p.index))
+    return out

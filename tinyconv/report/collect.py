@@ -1,0 +1,98 @@
+"""Read a run folder into :class:`~tinyconv.report.rundata.RunData`.
+
+This is the one module of the report that knows the run store and the
+ranking (``search``); everything after it works on plain values.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import numpy as np
+
+from search.rank import rank_run
+from search.store import FILE, RunStore
+from tinyconv.errors import RunError
+from tinyconv.report.rundata import PickPredictions, RunData
+
+
+def collect(run_dir: str | Path) -> RunData:
+    """Everything the report shows, from the run folder's store and data set.
+
+    The data set is reloaded from the spec stored in the run's settings
+    (:func:`tinyconv.data.load_data`) for the image galleries; when it cannot
+    be loaded, or its fingerprint differs from the run's, the galleries are
+    left out and ``notices`` says why (the rest of the report does not need
+    the images).
+
+    Raises
+    ------
+    RunError
+        When the folder is missing, holds no store, or has no candidate
+        finished on every fold yet.
+    """
+    run_dir = Path(run_dir)
+    if not run_dir.exists():
+        raise RunError(f"{run_dir}: no such run folder; give the folder a search wrote "
+                       "with --out")
+    if not run_dir.is_dir():
+        raise RunError(f"{run_dir}: not a folder; give the run folder a search wrote with --out")
+    if not (run_dir / FILE).is_file():
+        raise RunError(f"{run_dir}: no run here (no {FILE}); give the folder a search wrote "
+                       "with --out, or run the search first")
+    with RunStore(run_dir) as store:
+        config = store.config() or {}
+        classes = tuple(str(c) for c in config.get("classes", ()))
+        ranking = rank_run(store)
+        if ranking.empty:
+            n = len(store.units())
+            raise RunError(f"{run_dir}: nothing to report yet: {n} units finished, and no "
+                           f"candidate has finished all {config.get('folds', '?')} folds of a "
+                           "rung; let the search run longer (it resumes in the same folder)")
+        units = store.units()
+        candidates = store.candidates()
+        removed = {str(k): int(v) for k, v in (store.removed() or {}).items()}
+        pick = ranking[ranking["pick"].astype(bool)].iloc[0]
+        frame = store.predictions(pick["candidate"], int(pick["rung"]))
+        probs = store.prediction_probs(pick["candidate"], int(pick["rung"]))
+    predictions = None
+    if len(frame):
+        predictions = PickPredictions(fold=frame["fold"].to_numpy(np.int64),
+                                      index=frame["index"].to_numpy(np.int64),
+                                      label=frame["label"].to_numpy(np.int64),
+                                      pred=frame["pred"].to_numpy(np.int64),
+                                      probs=np.asarray(probs, dtype=np.float64))
+    images, paths, notes = _images(config, predictions)
+    return RunData(run_dir=run_dir, config=config, classes=classes, ranking=ranking,
+                   units=units, predictions=predictions, images=images, paths=paths,
+                   candidates=candidates, removed=removed, notices=tuple(notes))
+
+
+def _images(config: dict, predictions: PickPredictions | None
+            ) -> tuple[np.ndarray | None, tuple[str, ...] | None, list[str]]:
+    """The run's images for the galleries, or None with the reason."""
+    if predictions is None:
+        return None, None, []
+    from tinyconv.data import fingerprint, load_data
+
+    spec = config.get("data")
+    if not spec:
+        return None, None, ["The run's settings name no data set, so the image galleries "
+                            "are left out."]
+    try:
+        data = load_data(spec)
+    except (ValueError, OSError) as exc:
+        return None, None, [f"The data set {spec!r} could not be reloaded ({exc}), so the image "
+                            "galleries are left out; make it available at the same path and "
+                            "write the report again."]
+    stored = config.get("fingerprint")
+    now = fingerprint(data)
+    if stored and now != stored:
+        return None, None, [f"The data set at {spec!r} has changed since the run (fingerprint "
+                            f"{now[:12]} now, {str(stored)[:12]} in the run), so its images "
+                            "would not match the predictions: the galleries are left out. "
+                            "Restore the data as it was, or search again."]
+    if predictions.index.size and int(predictions.index.max()) >= len(data.images):
+        return None, None, [f"The predictions point past the {len(data.images)} images of "
+                            f"{spec!r}, so the galleries are left out."]
+    return data.images, data.paths, []

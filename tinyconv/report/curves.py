@@ -1,0 +1,151 @@
+"""Learning curves of the finalists: accuracy by epoch, per rung, folds averaged."""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Mapping, Sequence
+
+import numpy as np
+import pandas as pd
+from matplotlib.figure import Figure
+from matplotlib.lines import Line2D
+
+import matplotlib as mpl
+
+from tinyconv.report.axes import PERCENT_FORMAT, chance_line, new_figure
+from tinyconv.report.palette import PALETTE, style
+
+_RUNG_STYLES = ("-", "--", "-.", ":")
+
+
+def history_of(value: object) -> dict[str, list[float]]:
+    """A unit's per-epoch history as a dict of lists (accepts the stored JSON text).
+
+    Missing or unreadable histories give an empty dict (the unit is then left
+    out of the curves rather than drawn as zeros).
+    """
+    if value is None or (isinstance(value, float) and math.isnan(value)):
+        return {}
+    if isinstance(value, (str, bytes)):
+        try:
+            value = json.loads(value)
+        except ValueError:
+            return {}
+    if not isinstance(value, Mapping):
+        return {}
+    return {str(k): [float("nan") if x is None else float(x) for x in v]
+            for k, v in value.items() if isinstance(v, (list, tuple))}
+
+
+def mean_curves(units: pd.DataFrame, key: str) -> dict[int, tuple[np.ndarray, np.ndarray]]:
+    """Per rung, (epoch numbers, mean over folds of ``history[key]``).
+
+    Parameters
+    ----------
+    units : DataFrame
+        Units of one candidate with ``rung``, ``epochs`` and ``history``.
+    key : str
+        ``"val_acc"`` or ``"train_acc"``.
+
+    Notes
+    -----
+    A unit that resumed from a lower rung may store only its new epochs; its
+    curve then starts at ``epochs - len(history) + 1`` so that the x-axis is
+    always the total epoch count. Folds of unequal length (early stopping) are
+    averaged over the folds still present at each epoch.
+    """
+    out: dict[int, tuple[np.ndarray, np.ndarray]] = {}
+    for rung, sub in units.groupby("rung", sort=True):
+        rows: list[np.ndarray] = []
+        starts: list[int] = []
+        for _, u in sub.iterrows():
+            h = history_of(u.get("history"))
+            vals = np.asarray(h.get(key, []), dtype=float)
+            if vals.size == 0:
+                continue
+            total = int(u["epochs"]) if pd.notna(u.get("epochs")) else vals.size
+            starts.append(max(total - vals.size, 0))
+            rows.append(vals)
+        if not rows:
+            continue
+        start = min(starts)
+        length = max(s + r.size for s, r in zip(starts, rows)) - start
+        grid = np.full((len(rows), length), np.nan)
+        for i, (s, r) in enumerate(zip(starts, rows)):
+            grid[i, s - start:s - start + r.size] = r
+        with np.errstate(all="ignore"):
+            mean = np.nanmean(grid, axis=0)
+        out[int(rung)] = (np.arange(start + 1, start + length + 1), mean)
+    return out
+
+
+def learning_curves(units: pd.DataFrame, finalists: Sequence[object], *,
+                    labels: Mapping[object, str] | None = None,
+                    chance: float | None = None, pick: object = None) -> Figure:
+    """Small multiples: one panel per finalist, held-out and training accuracy by epoch.
+
+    Parameters
+    ----------
+    units : DataFrame
+        Finished units with ``candidate``, ``fold``, ``rung``, ``epochs`` and
+        ``history`` (JSON text or dict of per-epoch lists with ``train_acc``
+        and ``val_acc``).
+    finalists : sequence
+        ``candidate`` values to draw, in panel order.
+    labels : mapping, optional
+        Panel titles per candidate (e.g. the architecture text).
+    chance : float, optional
+        Chance accuracy 1/K (dotted).
+    pick : optional
+        The picked candidate; its panel title says so.
+
+    Returns
+    -------
+    Figure
+        Each rung is one line style; lines are means over the folds.
+    """
+    finalists = list(finalists)
+    if not finalists:
+        raise ValueError("learning_curves needs at least one finalist")
+    n = len(finalists)
+    cols = min(n, 3)
+    rows = math.ceil(n / cols)
+    rungs_seen: set[int] = set()
+    with mpl.rc_context(style()):
+        fig = new_figure(3.6 * cols + 0.4, 2.9 * rows + 0.5)
+        axes = np.atleast_1d(fig.subplots(rows, cols, sharey=True, squeeze=False)).ravel()
+        for ax, cand in zip(axes, finalists):
+            sub = units[units["candidate"] == cand]
+            drew = False
+            for key, colour in (("train_acc", PALETTE.training), ("val_acc", PALETTE.held_out)):
+                for rung, (ep, mean) in mean_curves(sub, key).items():
+                    rungs_seen.add(rung)
+                    ax.plot(ep, mean, color=colour, linestyle=_RUNG_STYLES[rung % len(_RUNG_STYLES)],
+                            linewidth=1.2 + 0.5 * min(rung, 3), marker="o" if ep.size < 4 else None,
+                            markersize=3)
+                    drew = True
+            if not drew:
+                ax.text(0.5, 0.5, "no per-epoch history stored", transform=ax.transAxes,
+                        ha="center", va="center", color=PALETTE.chance, fontsize=9)
+            chance_line(ax, chance)
+            title = (labels or {}).get(cand, str(cand))
+            if len(title) > 38:
+                title = title[:36] + "\u2026"
+            ax.set_title(("\u2605 " if cand == pick else "") + title, fontsize=9,
+                         color=PALETTE.pick if cand == pick else PALETTE.ink)
+            ax.set_xlabel("epoch")
+            ax.yaxis.set_major_formatter(PERCENT_FORMAT)
+        for ax in axes[n:]:
+            ax.set_visible(False)
+        for ax in axes[::cols]:
+            ax.set_ylabel("accuracy (%)")
+        handles = [Line2D([], [], color=PALETTE.held_out, label="held-out"),
+                   Line2D([], [], color=PALETTE.training, label="training")]
+        handles += [Line2D([], [], color=PALETTE.ink, linestyle=_RUNG_STYLES[r % len(_RUNG_STYLES)],
+                           linewidth=1.2 + 0.5 * min(r, 3), label=f"rung {r}")
+                    for r in sorted(rungs_seen)]
+        fig.legend(handles=handles, loc="outside lower center", ncols=len(handles))
+        fig.suptitle("Learning curves of the finalists (mean over folds)", x=0.01,
+                     ha="left", fontsize=11, fontweight="bold")
+    return fig

@@ -1,0 +1,222 @@
+"""What the page says, section by section, from a run's data and its rendered parts."""
+
+from __future__ import annotations
+
+import json
+import math
+from typing import Any
+
+import pandas as pd
+
+from tinyconv.report.assemble import Assembled
+from tinyconv.report.html import (Column, Section, bullet_list, definitions, esc, figure, notice,
+                                  num, paragraph, pct, pvalue, table, tiles)
+from tinyconv.report.rundata import RunData
+from tinyconv.report.tables import TABLE_FILES
+
+CAUTIONS = (
+    "Held-out accuracy measures how well the network does on this data set, split this way; "
+    "it is not a promise about the images the device will see in the world. Collect new "
+    "images from the real device and check the pick on them before relying on it.",
+    "A network can be right for the wrong reason. Confusions (and successes) may be driven "
+    "by backgrounds, lighting, the camera, the day of capture or the person who took the "
+    "pictures when these leak into the labels. Look at the galleries and ask what the "
+    "confused images have in common.",
+    "Check the class balance (the per-class counts above) and look for duplicates or "
+    "near-duplicates across classes and folds: a copy of an image in two folds makes "
+    "held-out accuracy look better than it is. The inspect command lists exact duplicates.",
+    "Small differences between candidates are often noise: read the standard errors and "
+    "p-values, not the order of the table.",
+    "This tool is not for decisions about people (who they are, what they do or what they "
+    "deserve). Where your field has its own norms for validation, reporting and review, "
+    "those come first.",
+)
+
+
+def _code(v: object) -> str:
+    return f"<code>{esc(str(v))}</code>"
+
+
+def _acc_pm(row: pd.Series) -> str:
+    return f"{pct(row['acc_mean'])} \u00b1 {pct(row['acc_se'])}"
+
+
+RANKING_COLUMNS = (
+    Column("rank", "rank_per_param", num, title="rank by accuracy over chance per 1000 parameters"),
+    Column("candidate", "candidate", _code, numeric=False),
+    Column("params", "params", num),
+    Column("MACs", "macs", num, title="multiply-accumulates per image"),
+    Column("peak KB", "peak_kb", lambda v: num(v, 1), title="peak activation memory, int8"),
+    Column("flash KB", "flash_kb", lambda v: num(v, 1), title="int8 weights and tables"),
+    Column("epochs", "epochs", num),
+    Column("held-out acc", "_acc", esc, title="mean over folds \u00b1 standard error"),
+    Column("train acc", "train_acc_mean", pct),
+    Column("gap", "gap", lambda v: pct(v, 1), title="training minus held-out accuracy"),
+    Column("acc / kparam", "acc_per_kparam", lambda v: num(v, 3),
+           title="(accuracy - 1/K) per 1000 parameters"),
+    Column("p vs best", "p_vs_best", pvalue, title="corrected resampled t-test against the best"),
+    Column("rank (acc)", "rank_accuracy", num, title="rank by mean held-out accuracy"),
+)
+
+
+def why_pick(data: RunData) -> str:
+    """One plain paragraph on why the pick was picked (the one-SE rule)."""
+    pick, best = data.pick, data.best
+    fin = data.finalists
+    n_within = int(fin["within_1se"].astype(bool).sum())
+    threshold = float(best["acc_mean"]) - float(best["acc_se"])
+    head = (f"The one-standard-error rule picks the candidate with the fewest parameters among "
+            f"those whose mean held-out accuracy is within one standard error of the best. The "
+            f"best, {best['candidate']}, scores {_acc_pm(best)}, so the bar is "
+            f"{pct(threshold)}; {n_within} of the {len(fin)} finalists clear it")
+    if pick["candidate"] == best["candidate"]:
+        return head + (f", and the best is itself the smallest of them "
+                       f"({num(pick['params'])} parameters).")
+    p = pvalue(pick.get("p_vs_best", math.nan)).replace("&lt;", "<")
+    return head + (f". The pick, {pick['candidate']}, has {num(pick['params'])} parameters "
+                   f"against the best's {num(best['params'])} "
+                   f"({float(best['params']) / max(float(pick['params']), 1):.1f} times fewer) and "
+                   f"scores {_acc_pm(pick)}, {100 * (best['acc_mean'] - pick['acc_mean']):.1f} "
+                   f"points below the best (corrected paired t-test p = {p}).")
+
+
+def decision_panel(data: RunData) -> str:
+    """The panel under the header: the pick, in words and headline numbers."""
+    pick = data.pick
+    t = tiles((
+        ("held-out accuracy", pct(pick["acc_mean"]), f"\u00b1 {pct(pick['acc_se'])} SE over "
+         f"{int(pick['folds'])} folds"),
+        ("parameters", num(pick["params"]), f"{num(pick['macs'])} MACs per image"),
+        ("flash", f"{num(pick['flash_kb'], 1)} KB", "int8 weights and tables"),
+        ("peak memory", f"{num(pick['peak_kb'], 1)} KB", "int8 activations"),
+        ("over-fitting gap", pct(pick["gap"]), f"training {pct(pick['train_acc_mean'])}"),
+    ))
+    return ('<div class="decision"><div><h2>The pick</h2>'
+            f'<p class="arch">{esc(str(pick["candidate"]))}</p>{paragraph(why_pick(data))}</div>'
+            f"<div>{t}</div></div>")
+
+
+def ranking_section(data: RunData) -> Section:
+    frame = data.ranking.copy()
+    frame["_acc"] = [_acc_pm(r) for _, r in frame.iterrows()]
+    body = table(frame, RANKING_COLUMNS, highlight=list(frame["pick"].astype(bool)),
+                 css="ranking")
+    n_lower = int((~data.ranking.get("finalist", pd.Series(True, index=frame.index))
+                   .astype(bool)).sum())
+    extra = []
+    if n_lower:
+        extra.append(f"{n_lower} candidates were stopped at a lower rung (fewer epochs): they are "
+                     "listed after the finalists and take no part in the pick.")
+    extra.append(f"Chance accuracy with {len(data.classes)} classes is {pct(data.chance)}; "
+                 "accuracy per thousand parameters counts only the part above chance.")
+    return Section("ranking", "Ranking", body + "".join(paragraph(t) for t in extra),
+                   lead="Mean held-out accuracy over the cross-validation folds with its "
+                        "standard error, the size and cost of each candidate, and how it "
+                        "compares with the best. The highlighted row is the pick.")
+
+
+def folds_section(a: Assembled) -> Section:
+    fig = figure(a.figures["folds.png"], "box plots of per-fold accuracy",
+                 "Each pair of boxes is one candidate: the dark box its held-out accuracy on "
+                 "each fold, the light box its training accuracy. A wide gap between them is "
+                 "over-fitting; a tall box is an unstable result.", wide=True)
+    return Section("folds", "Spread and over-fitting", f'<div class="figs">{fig}</div>',
+                   lead="Per-fold accuracy, ordered by parameter count.")
+
+
+def pareto_section(a: Assembled) -> Section:
+    cap = ("Error bars are one standard error. The shaded band holds the candidates within one "
+           "standard error of the best; the stepped line is the front, where nothing is both "
+           "smaller and more accurate.")
+    figs = (figure(a.figures["pareto_params.png"], "accuracy against parameters", cap)
+            + figure(a.figures["pareto_macs.png"], "accuracy against MACs",
+                     "The same against multiply-accumulates per image (compute per inference)."))
+    return Section("tradeoff", "Accuracy against size", f'<div class="figs">{figs}</div>',
+                   lead="Finalists only: candidates stopped early were trained for fewer epochs "
+                        "and would not compare fairly.")
+
+
+def curves_section(a: Assembled) -> Section:
+    fig = figure(a.figures["curves.png"], "learning curves",
+                 "Held-out (dark) and training (light) accuracy by epoch, averaged over folds; "
+                 "each rung of the schedule has its own line style. Curves still rising at "
+                 "the end suggest more epochs would help; a training curve pulling away from "
+                 "the held-out one is over-fitting.", wide=True)
+    names = ", ".join(a.curve_candidates)
+    return Section("curves", "Learning curves", f'<div class="figs">{fig}</div>',
+                   lead=f"The finalists shown: {names}.")
+
+
+def pick_section(data: RunData, a: Assembled) -> Section:
+    parts = []
+    if "confusion.png" in a.figures:
+        parts.append(f'<div class="figs">'
+                     + figure(a.figures["confusion.png"], "confusion matrix",
+                              "Rows are the true class, columns the predicted class, over all "
+                              "held-out folds (each image predicted once, by the network that "
+                              "did not train on it).", wide=True) + "</div>")
+        pc = a.tables["per_class.csv"]
+        parts.append("<h3>Per-class precision and recall</h3>" + table(pc, (
+            Column("class", "class", esc, numeric=False), Column("images", "images", num),
+            Column("predicted as it", "predicted", num), Column("correct", "correct", num),
+            Column("precision", "precision", pct), Column("recall", "recall", pct))))
+    if "confusions_gallery.png" in a.figures:
+        parts.append("<h3>What it confuses</h3>" + '<div class="figs">' + figure(
+            a.figures["confusions_gallery.png"], "gallery of confused images",
+            "Real held-out images from the most frequent confusions, with the probability "
+            "the pick gave its (wrong) answer. Look for what they share: background, "
+            "lighting, framing, the object's size.", wide=True) + "</div>")
+        parts.append("<h3>Its most confident mistakes</h3>" + '<div class="figs">' + figure(
+            a.figures["mistakes.png"], "most confident mistakes",
+            "Wrong answers given with the highest probability: often label errors in the "
+            "data, or a cue the network learned that is not the object.", wide=True) + "</div>")
+    parts += [notice(n) for n in a.notices]
+    return Section("pick", "The pick up close", "".join(parts),
+                   lead=f"{data.pick['candidate']} at its ranked rung, every image scored by the "
+                        "fold model that held it out.")
+
+
+def budget_section(data: RunData, a: Assembled) -> Section:
+    b = a.tables["budgets.csv"]
+    if b.empty:
+        body = paragraph("The run set no budgets.")
+    else:
+        def share(v: object) -> str:
+            return pct(v, 0)
+
+        def within(v: object) -> str:
+            return "\u2013" if v is None or (isinstance(v, float) and math.isnan(v)) else (
+                "yes" if v else "<strong>no</strong>")
+        body = table(b, (Column("budget", "budget", _code, numeric=False),
+                         Column("limits", "limits", esc, numeric=False),
+                         Column("limit", "limit", num), Column("pick", "pick", lambda v: num(v, 1)),
+                         Column("unit", "unit", esc, numeric=False),
+                         Column("share used", "share", share),
+                         Column("within", "within", within, numeric=False)))
+    cfg = definitions((k, _config_value(v)) for k, v in data.config.items())
+    files = "".join(f"<li><code>{esc(n)}</code>: {esc(d)}</li>" for n, d in TABLE_FILES.items()
+                    if n in a.tables)
+    return Section("budgets", "Budgets and configuration",
+                   body + "<h3>Run configuration</h3>" + cfg
+                   + "<h3>Tables written beside this page</h3><ul>" + files + "</ul>",
+                   lead="Every candidate was costed before training; only those within all "
+                        "budgets were trained.")
+
+
+def _config_value(v: Any) -> str:
+    if isinstance(v, str):
+        return f"<pre>{esc(v)}</pre>" if "\n" in v else _code(v)
+    if isinstance(v, (dict, list, tuple)):
+        return f"<pre>{esc(json.dumps(v, indent=1, default=str))}</pre>"
+    return esc(str(v))
+
+
+def cautions_section() -> Section:
+    return Section("cautions", "Before you trust it",
+                   f'<div class="cautions">{bullet_list(CAUTIONS)}</div>')
+
+
+def all_sections(data: RunData, a: Assembled) -> list[Section]:
+    """The page's sections in order."""
+    return [ranking_section(data), folds_section(a), pareto_section(a), curves_section(a),
+            pick_section(data, a), budget_section(data, a), cautions_section()]

@@ -1,0 +1,51 @@
+"""Write a report's files (page, figures, tables) from a run's plain data."""
+
+from __future__ import annotations
+
+from datetime import datetime, timezone
+from pathlib import Path
+
+from tinyconv import __version__
+from tinyconv.report.assemble import assemble
+from tinyconv.report.html import page
+from tinyconv.report.rundata import RunData
+from tinyconv.report.sections import all_sections, decision_panel
+from tinyconv.report.tables import write_tables
+
+PAGE_NAME = "report.html"
+
+
+def render_report(data: RunData, out_dir: Path | None = None, *,
+                  stamp: datetime | None = None) -> Path:
+    """Render the figures, tables and page of ``data`` into ``out_dir``.
+
+    Parameters
+    ----------
+    data : the run's plain data
+    out_dir : folder to write into; the run folder when omitted
+    stamp : time shown in the footer (now, UTC, when omitted)
+
+    Returns
+    -------
+    Path of ``report.html``. The PNG figures and CSV tables are written
+    beside it; the page embeds the same PNG bytes as data URIs.
+    """
+    out = Path(out_dir) if out_dir is not None else Path(data.run_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    parts = assemble(data)
+    for name, png in parts.figures.items():
+        (out / name).write_bytes(png)
+    write_tables(out, parts.tables)
+    cfg = data.config
+    when = (stamp or datetime.now(timezone.utc)).strftime("%Y-%m-%d %H:%M UTC")
+    meta = {"run": Path(data.run_dir).name or str(data.run_dir),
+            "data": str(cfg.get("data", "?")),
+            "classes": str(len(data.classes)),
+            "folds": str(cfg.get("folds", "?")),
+            "candidates ranked": str(len(data.ranking))}
+    text = page("Which network to ship", "tinyconv run report", meta, decision_panel(data),
+                all_sections(data, parts),
+                f"Written by tinyconv {__version__} on {when} from {data.run_dir}.")
+    path = out / PAGE_NAME
+    path.write_text(text, encoding="utf-8")
+    return path
