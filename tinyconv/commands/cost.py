@@ -1,0 +1,113 @@
+"""``tinyconv cost ARCH``: the per-layer cost table of a network and its totals.
+
+ARCH is a whole architecture text (``32x32rgb/c8k3-p2-gap``), an input alone
+(``32x32rgb``: the classifier head only), or just the layers (``c8k3-p2-gap``),
+which then read the input given by ``--input`` (32x32rgb when not given).
+``--input`` also replaces the input of a whole text.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+
+import pandas as pd
+
+from tinyconv.arch import Arch, parse, parse_input
+from tinyconv.cost import KB, cost_of, training_memory
+
+DEFAULT_INPUT = "32x32rgb"
+# table columns shown, and their headings
+_COLUMNS = {"name": "layer", "kind": "op", "in_shape": "in", "out_shape": "out",
+            "params": "params", "macs": "MACs", "flash_bytes": "flash B",
+            "live_elements": "live int8 B"}
+
+
+def _classes(value: str) -> int:
+    try:
+        n = int(value)
+    except ValueError:
+        n = 0
+    if n < 2:
+        raise argparse.ArgumentTypeError(f"--classes {value!r}: must be an integer of at "
+                                         "least 2 (the number of classes)")
+    return n
+
+
+def _batch(value: str) -> int:
+    try:
+        n = int(value)
+    except ValueError:
+        n = 0
+    if n < 1:
+        raise argparse.ArgumentTypeError(f"--batch {value!r}: must be a positive integer")
+    return n
+
+
+def configure(parser: argparse.ArgumentParser) -> None:
+    """Add the options of ``tinyconv cost``."""
+    parser.add_argument("arch", metavar="ARCH",
+                        help="architecture text, e.g. 32x32rgb/c8k3-p2-c16k3-p2-gap, or just "
+                             "the layers (c8k3-p2-gap) with --input")
+    parser.add_argument("--input", metavar="SPEC", default=None,
+                        help=f"input size and colour mode, e.g. 16x16gray (default "
+                             f"{DEFAULT_INPUT}, or the one in ARCH)")
+    parser.add_argument("--classes", type=_classes, default=8, metavar="K",
+                        help="number of classes of the head (default 8)")
+    parser.add_argument("--batch", type=_batch, default=64, metavar="N",
+                        help="batch size for the training-memory figure (default 64)")
+    parser.add_argument("--json", action="store_true",
+                        help="print JSON (totals, rows, training memory) instead of a table")
+
+
+def resolve_arch(text: str, input_spec: str | None) -> Arch:
+    """The architecture ``text`` names, on ``input_spec`` when given.
+
+    Raises
+    ------
+    ArchError
+        For a bad text or input.
+    """
+    if "/" in text or text[:1].isdigit():
+        arch = parse(text)
+    else:
+        arch = parse(f"{input_spec or DEFAULT_INPUT}/{text}")
+    if input_spec is not None and str(arch.input) != input_spec:
+        arch = parse(str(arch.with_input(parse_input(input_spec))))
+    return arch
+
+
+def run(args: argparse.Namespace) -> int:
+    """Print the cost table (or JSON); returns 0."""
+    arch = resolve_arch(args.arch, args.input)
+    cost = cost_of(arch, args.classes)
+    memory = training_memory(arch, args.classes, args.batch)
+    if args.json:
+        data = cost.as_dict()
+        data["training_memory"] = memory.__dict__.copy()
+        json.dump(data, sys.stdout, indent=2)
+        print()
+        return 0
+    table = cost.table()[list(_COLUMNS)].rename(columns=_COLUMNS)
+    print(f"{cost.arch}  ({cost.n_classes} classes)")
+    print(table.to_string(index=False))
+    totals = pd.Series({
+        "parameters": f"{cost.params:,}" + (f" (+{cost.state:,} batch-norm state)"
+                                             if cost.state else ""),
+        "MACs per image": f"{cost.macs:,}",
+        "flash, int8": f"{cost.flash_bytes:,} B ({cost.flash_bytes / KB:.1f} KB)",
+        "peak activations, int8": f"{cost.peak_int8_bytes:,} B ({cost.peak_kb:.1f} KB) "
+                                  f"at {cost.peak_op}",
+        "peak activations, float32": f"{cost.peak_float32_bytes:,} B",
+        f"training memory, batch {args.batch}": f"{memory.total_bytes:,} B "
+                                                f"({memory.total_bytes / KB / KB:.1f} MB)",
+    })
+    print()
+    print(totals.to_string())
+    if not cost.exportable:
+        print("note: a batch norm does not directly follow a conv, dwconv or dense layer; "
+              "the int8 exporter cannot fold it, so its flash is not counted",
+              file=sys.stderr)
+    return 0
+
