@@ -58,16 +58,21 @@ class Network:
     n_classes : int
     ops : tuple of Op
     layers : list of Layer, one per op
-    dtype : numpy dtype (float32, or float64 for checks)
+    dtype : numpy dtype
+        float32, or float64 for checks: that of the parameters (read from the
+        head, so a cast of the layers themselves is seen too).
     """
 
     def __init__(self, arch: arch_mod.Arch, n_classes: int, ops: tuple[arch_mod.Op, ...],
-                 layers: list, dtype) -> None:
+                 layers: list) -> None:
         self.arch = arch
         self.n_classes = n_classes
         self.ops = ops
         self.layers = layers
-        self.dtype = np.dtype(dtype)
+
+    @property
+    def dtype(self) -> np.dtype:
+        return self.layers[-1].params["w"].dtype
 
     @classmethod
     def from_arch(cls, arch: arch_mod.Arch | str, n_classes: int, seed: int = 0,
@@ -89,7 +94,7 @@ class Network:
         ops = arch_mod.expand(arch, n_classes)
         rng = np.random.default_rng(seed)
         layers = [layers_mod.build(op, rng, np.dtype(dtype)) for op in ops]
-        return cls(arch, n_classes, ops, layers, dtype)
+        return cls(arch, n_classes, ops, layers)
 
     def __repr__(self) -> str:
         n = sum(a.size for _, a in self.param_list())
@@ -166,7 +171,6 @@ class Network:
         """
         for layer in self.layers:
             layer.astype(dtype)
-        self.dtype = np.dtype(dtype)
         return self
 
     # ------------------------------------------------------------ files
