@@ -45,7 +45,8 @@ CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS candidates (
     candidate TEXT PRIMARY KEY, ordinal INTEGER NOT NULL, params INTEGER NOT NULL,
     macs INTEGER NOT NULL, peak_int8_bytes INTEGER NOT NULL, flash_bytes INTEGER NOT NULL,
-    within_budget INTEGER NOT NULL, over TEXT NOT NULL DEFAULT '');
+    within_budget INTEGER NOT NULL, over TEXT NOT NULL DEFAULT '',
+    scheduled INTEGER NOT NULL DEFAULT 1);
 CREATE TABLE IF NOT EXISTS units (
     id INTEGER PRIMARY KEY, candidate TEXT NOT NULL REFERENCES candidates(candidate),
     fold INTEGER NOT NULL, rung INTEGER NOT NULL, epochs INTEGER NOT NULL,
@@ -62,7 +63,7 @@ UNIT_COLUMNS = ("candidate", "fold", "rung", "epochs", "status", "message", "tra
                 "train_loss", "val_acc", "val_loss", "cpu_s", "wall_s", "history", "seed",
                 "unit_id")
 CANDIDATE_COLUMNS = ("candidate", "params", "macs", "peak_int8_bytes", "flash_bytes",
-                     "within_budget", "over")
+                     "within_budget", "over", "scheduled")
 
 
 def _connect(path: Path) -> sqlite3.Connection:
@@ -110,8 +111,8 @@ class RunStore:
         settings : dict
             ``SearchSettings.as_dict()``.
         candidates : DataFrame
-            Columns ``CANDIDATE_COLUMNS`` (``over`` optional), every candidate of
-            the space, in enumeration order.
+            Columns ``CANDIDATE_COLUMNS`` (``over`` and ``scheduled`` optional),
+            every candidate of the space, in enumeration order.
         removed : dict, optional
             What the budget filter removed (budget name -> count), for the record.
 
@@ -137,10 +138,11 @@ class RunStore:
                     _put_meta(con, "removed", removed or {})
                     _put_meta(con, "created", time.time())
                     con.executemany(
-                        "INSERT INTO candidates VALUES (?, ?, ?, ?, ?, ?, ?, ?)",
+                        "INSERT INTO candidates VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
                         [(r.candidate, i, int(r.params), int(r.macs), int(r.peak_int8_bytes),
                           int(r.flash_bytes), int(bool(r.within_budget)),
-                          str(getattr(r, "over", "") or ""))
+                          str(getattr(r, "over", "") or ""),
+                          int(bool(getattr(r, "scheduled", r.within_budget))))
                          for i, r in enumerate(candidates.itertuples(index=False))])
                 else:
                     stored = json.loads(row[0])
@@ -215,11 +217,14 @@ class RunStore:
         """Every candidate of the space, in enumeration order, with its costs.
 
         Columns: candidate, params, macs, peak_int8_bytes, flash_bytes,
-        within_budget (bool), over (which budgets it exceeds, "" if none).
+        within_budget (bool), over (the budgets it exceeds, comma-joined, ""
+        if none), scheduled (bool: in the search's pool; False when over
+        budget or left out by ``--max-candidates``).
         """
         df = pd.read_sql_query(f"SELECT {', '.join(CANDIDATE_COLUMNS)} FROM candidates "
                                "ORDER BY ordinal", self._con)
         df["within_budget"] = df["within_budget"].astype(bool)
+        df["scheduled"] = df["scheduled"].astype(bool)
         return df
 
     def units(self, status: str | None = None) -> pd.DataFrame:

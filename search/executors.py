@@ -1,0 +1,179 @@
+"""Where units run: local worker processes, or a Dask cluster.
+
+Both give ``concurrent.futures.Future`` objects from ``submit(task)``, so one
+search loop (:mod:`search.runner`) drives either.
+
+* :class:`LocalWorkers`: a ``ProcessPoolExecutor`` with the *spawn* start
+  method. Each worker runs one single-threaded engine: the BLAS and Numba
+  thread counts are set to 1 in the environment the workers start with (read
+  by OpenBLAS, MKL and Numba when they load), and once more at run time with
+  ``threadpoolctl`` when it is installed. The data reach each worker once: the
+  initializer memory-maps the ``.npy`` files the search wrote in the run folder.
+  A crashed worker breaks the whole pool (``BrokenProcessPool``); the search
+  loop then calls :meth:`LocalWorkers.restart` and finds the culprit.
+* :class:`ClusterWorkers`: ``dask.distributed`` (the optional ``cluster``
+  extra) through ``Client.get_executor()``; the data are scattered to every
+  worker once (``broadcast=True``). Workers should run one thread each
+  (``--nthreads 1``), or their CPU-time figures include each other's work.
+
+This module imports nothing heavy at the top, so that a spawned worker sets
+its thread limits before NumPy is loaded.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import multiprocessing
+import os
+from concurrent.futures import Future, ProcessPoolExecutor
+from pathlib import Path
+from typing import Callable, Iterator
+
+THREAD_VARIABLES = ("OMP_NUM_THREADS", "OPENBLAS_NUM_THREADS", "MKL_NUM_THREADS",
+                    "NUMBA_NUM_THREADS", "VECLIB_MAXIMUM_THREADS")
+
+# The worker process's data and work function, set once by the initializer.
+_WORKER: dict = {}
+
+
+@contextlib.contextmanager
+def single_threaded_env() -> Iterator[None]:
+    """Set the thread-count variables to 1 while workers start; restore after."""
+    saved = {k: os.environ.get(k) for k in THREAD_VARIABLES}
+    os.environ.update({k: "1" for k in THREAD_VARIABLES})
+    try:
+        yield
+    finally:
+        for key, value in saved.items():
+            if value is None:
+                os.environ.pop(key, None)
+            else:
+                os.environ[key] = value
+
+
+def limit_threads() -> None:
+    """Limit BLAS/OpenMP pools of the current process to one thread, if possible."""
+    os.environ.update({k: "1" for k in THREAD_VARIABLES})
+    try:
+        import threadpoolctl
+    except ImportError:  # the environment variables already did it at load time
+        return
+    threadpoolctl.threadpool_limits(1)
+
+
+def _init_worker(data_dir: str, work: Callable) -> None:
+    limit_threads()
+    from search.unit import UnitData
+    _WORKER["data"] = UnitData.load(data_dir)
+    _WORKER["work"] = work
+
+
+def _work_local(task):
+    return _WORKER["work"](task, _WORKER["data"])
+
+
+def default_work() -> Callable:
+    from search.unit import run_unit
+    return run_unit
+
+
+class LocalWorkers:
+    """``workers`` local processes, each with the run's data loaded once.
+
+    Parameters
+    ----------
+    data_dir : str or Path
+        Folder holding the ``.npy`` files of :meth:`search.unit.UnitData.save`.
+    workers : int
+        Number of processes (>= 1).
+    work : callable, optional
+        ``work(task, data) -> UnitResult``, a module-level function (it is
+        sent to the workers by reference); :func:`search.unit.run_unit` by default.
+    """
+
+    def __init__(self, data_dir: str | Path, workers: int, work: Callable | None = None):
+        if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
+            from tinyconv.errors import InputError
+            raise InputError(f"--workers must be an integer >= 1, got {workers!r}")
+        self.data_dir = str(data_dir)
+        self.workers = workers
+        self.work = work or default_work()
+        self._pool: ProcessPoolExecutor | None = None
+        self.description = f"{workers} local worker process{'es' if workers > 1 else ''}"
+
+    def _ensure(self) -> ProcessPoolExecutor:
+        if self._pool is None:
+            self._pool = ProcessPoolExecutor(
+                self.workers, mp_context=multiprocessing.get_context("spawn"),
+                initializer=_init_worker, initargs=(self.data_dir, self.work))
+        return self._pool
+
+    def submit(self, task) -> Future:
+        with single_threaded_env():
+            return self._ensure().submit(_work_local, task)
+
+    def restart(self) -> None:
+        """Drop a broken pool; the next submit starts fresh processes."""
+        if self._pool is not None:
+            self._pool.shutdown(wait=False, cancel_futures=True)
+        self._pool = None
+
+    def shutdown(self, cancel: bool = False) -> None:
+        if self._pool is not None:
+            self._pool.shutdown(wait=not cancel, cancel_futures=cancel)
+        self._pool = None
+
+
+def _work_cluster(task, data, work):
+    limit_threads()
+    return work(task, data)
+
+
+class ClusterWorkers:
+    """Units on a Dask cluster at ``address`` (``tcp://HOST:PORT``).
+
+    Parameters
+    ----------
+    address : str or a ``distributed`` cluster object
+    data : search.unit.UnitData
+        Scattered to every worker once.
+    work : callable, optional
+        As for :class:`LocalWorkers`.
+
+    Raises
+    ------
+    InputError
+        When dask.distributed is not installed, or the scheduler cannot be reached.
+    """
+
+    def __init__(self, address, data, work: Callable | None = None, timeout: float = 20.0):
+        from tinyconv.errors import InputError
+        try:
+            from distributed import Client
+        except ImportError:
+            raise InputError("--cluster needs dask.distributed; install the cluster extra: "
+                             "pip install 'tinyconv[cluster]'") from None
+        try:
+            self.client = Client(address, timeout=timeout)
+        except (OSError, TimeoutError) as exc:
+            raise InputError(f"--cluster {address}: cannot reach a Dask scheduler there "
+                             f"({exc}); start one with 'dask scheduler' and workers with "
+                             "'dask worker ADDRESS --nthreads 1'") from None
+        self.work = work or default_work()
+        self._data = self.client.scatter(data, broadcast=True)
+        self._pool = self.client.get_executor(pure=False)
+        self.workers = max(1, sum(self.client.nthreads().values()))
+        self.description = f"Dask cluster {self.client.scheduler.address} " \
+                           f"({self.workers} worker threads)"
+
+    def submit(self, task) -> Future:
+        return self._pool.submit(_work_cluster, task, self._data, self.work)
+
+    def restart(self) -> None:
+        """Nothing to do: Dask replaces lost workers and retries their tasks."""
+
+    def shutdown(self, cancel: bool = False) -> None:
+        with contextlib.suppress(Exception):
+            self._pool.shutdown(wait=not cancel)
+        with contextlib.suppress(Exception):
+            self.client.close()

@@ -1,0 +1,273 @@
+"""The search loop: brackets, rungs, units, budgets, crashes, resume.
+
+Rungs run synchronously: every unit of a rung (each candidate on each of the
+``k`` folds) finishes before the promotion to the next rung is decided, from
+the stored results alone. Units are submitted in one fixed order and a unit
+already in the store is never submitted again, so a run's results do not
+depend on the number of workers, on the order units finish in, or on
+interruptions (re-running replays the same decisions from the store).
+
+Budgets: before each submission the loop checks the epoch budget (planned
+epochs of finished and in-flight units plus the new one; deterministic) and
+the CPU budget (CPU seconds of the finished units; stops the first time it is
+reached). Once a budget stops the loop, units in flight finish and are kept,
+nothing new starts, and the outcome says which budget ended the run.
+
+A worker crash breaks a local pool and every unit in flight with it. The
+loop starts a fresh pool and runs each of those units alone: one that breaks
+the pool again is recorded ``failed``; the others are recorded as usual.
+"""
+
+from __future__ import annotations
+
+import math
+from concurrent.futures import FIRST_COMPLETED, Future, wait
+from concurrent.futures.process import BrokenProcessPool
+from dataclasses import dataclass, field
+from typing import Mapping, Sequence
+
+import numpy as np
+
+from search import schedule
+from search.store import RunStore
+from search.unit import UnitResult, UnitTask
+
+
+class Progress:
+    """Hooks the loop calls; the default does nothing (see commands/search.py)."""
+
+    def start(self, plan_units: int, done_units: int, cpu_s: float, epochs: int) -> None:
+        """Before the first unit: units in the full plan and those already stored."""
+
+    def rung(self, bracket: int, n_brackets: int, rung: int, n_rungs: int,
+             candidates: int, folds: int, epochs: int, done: int) -> None:
+        """A rung starts; ``done`` of its units are already stored."""
+
+    def unit(self, result: UnitResult, cpu_s: float, epochs: int) -> None:
+        """A unit finished; the totals spent so far."""
+
+    def close(self) -> None:
+        """The loop ended."""
+
+
+@dataclass
+class Outcome:
+    """How a search session ended.
+
+    ``state`` is ``complete`` (the whole plan ran), ``budget_cpu`` or
+    ``budget_epochs`` (a budget ended it), or ``interrupted``.
+    """
+
+    state: str = "complete"
+    units_run: int = 0
+    units_stored: int = 0
+    failed: int = 0
+    diverged: int = 0
+    cpu_s: float = 0.0
+    epochs: int = 0
+    notes: list[str] = field(default_factory=list)
+
+    def as_dict(self) -> dict:
+        return {"state": self.state, "units_run": self.units_run,
+                "units_stored": self.units_stored, "failed": self.failed,
+                "diverged": self.diverged, "cpu_s": self.cpu_s, "epochs": self.epochs,
+                "notes": list(self.notes)}
+
+
+class _BudgetStop(Exception):
+    def __init__(self, state: str):
+        self.state = state
+
+
+def plan_brackets(candidates: Sequence[str], max_epochs: int, eta: int, full: bool,
+                  seed: int) -> list[tuple[schedule.Bracket, tuple[str, ...]]]:
+    """The brackets and the candidates each starts with."""
+    if full:
+        (bracket,) = schedule.full_plan(max_epochs, len(candidates), eta)
+        return [(bracket, tuple(sorted(candidates)))]
+    return schedule.assign(candidates, schedule.hyperband(max_epochs, eta), seed)
+
+
+def plan_size(plan, folds: int) -> int:
+    """Units of the plan if every rung runs in full (an upper bound: brackets that
+    meet a candidate at the same epochs share its units)."""
+    return folds * sum(rung.size for bracket, _ in plan for rung in bracket.rungs)
+
+
+class SearchLoop:
+    """One session of a search over ``candidates`` (texts within budget).
+
+    Parameters
+    ----------
+    store : RunStore
+    executor : LocalWorkers or ClusterWorkers (anything with submit/restart/workers)
+    candidates : sequence of str
+    params : mapping of candidate text to parameter count (promotion ties)
+    settings : dict
+        ``SearchSettings.as_dict()`` (folds, seed, eta, max_epochs, full,
+        budget_cpu_s, budget_epochs, training, classes).
+    progress : Progress, optional
+    """
+
+    def __init__(self, store: RunStore, executor, candidates: Sequence[str],
+                 params: Mapping[str, int], settings: dict, progress: Progress | None = None):
+        self.store, self.executor = store, executor
+        self.candidates = list(candidates)
+        self.params = dict(params)
+        self.s = settings
+        self.k = int(settings["folds"])
+        self.progress = progress or Progress()
+        self.training = tuple(sorted((settings.get("training") or {}).items()))
+        self.n_classes = len(settings["classes"])
+        self.finished = store.finished()
+        self.cpu_s, self.epochs = store.spent()
+        self.outcome = Outcome()
+        self._inflight: dict[Future, UnitTask] = {}
+        self._inflight_epochs = 0
+
+    # ------------------------------------------------------------ the plan
+
+    def run(self) -> Outcome:
+        plan = plan_brackets(self.candidates, int(self.s["max_epochs"]), int(self.s["eta"]),
+                             bool(self.s["full"]), int(self.s["seed"]))
+        self.progress.start(plan_size(plan, self.k), len(self.finished), self.cpu_s,
+                            self.epochs)
+        try:
+            for b, (bracket, chosen) in enumerate(plan):
+                current = chosen[:bracket.rungs[0].size]
+                for i, rung in enumerate(bracket.rungs):
+                    self._run_rung(current, rung, (b, len(plan), i, len(bracket.rungs)))
+                    if i + 1 < len(bracket.rungs):
+                        current = schedule.promote(self._scores(current, rung.level),
+                                                   bracket.rungs[i + 1].size, self.params)
+                        if not current:
+                            self.outcome.notes.append(
+                                f"bracket {b + 1}: no candidate finished every fold at "
+                                f"{rung.epochs} epochs; nothing to promote")
+                            break
+        except _BudgetStop as stop:
+            self.outcome.state = stop.state
+            self._drain()
+        except KeyboardInterrupt:
+            self.outcome.state = "interrupted"
+            self.executor.shutdown(cancel=True)
+            self._inflight.clear()
+            raise
+        finally:
+            self.outcome.cpu_s, self.outcome.epochs = self.cpu_s, self.epochs
+            self.outcome.units_stored = len(self.finished)
+            self.store.set_outcome(self.outcome.as_dict())
+            self.progress.close()
+        return self.outcome
+
+    def _scores(self, current: Sequence[str], level: int) -> dict[str, float | None]:
+        """Mean held-out accuracy over the folds; None unless every fold is done."""
+        scores: dict[str, float | None] = {}
+        for cand in current:
+            accs = []
+            for fold in range(self.k):
+                status, acc = self.finished.get((cand, fold, level), (None, None))
+                if status != "done" or acc is None:
+                    break
+                accs.append(acc)
+            scores[cand] = float(np.mean(accs)) if len(accs) == self.k else None
+        return scores
+
+    def _task(self, cand: str, fold: int, rung: schedule.Rung) -> UnitTask:
+        return UnitTask(cand, fold, rung.level, rung.epochs,
+                        schedule.unit_seed(int(self.s["seed"]), cand, fold, rung.level),
+                        self.n_classes, self.training)
+
+    # ------------------------------------------------------------ one rung
+
+    def _run_rung(self, current: Sequence[str], rung: schedule.Rung, where) -> None:
+        tasks = [self._task(c, f, rung) for c in current for f in range(self.k)]
+        todo = [t for t in tasks if t.key not in self.finished]
+        b, nb, i, nr = where
+        self.progress.rung(b, nb, i, nr, len(current), self.k, rung.epochs,
+                           len(tasks) - len(todo))
+        for task in todo:
+            self._check_budget(task)
+            while len(self._inflight) >= self.executor.workers:
+                self._collect()
+            self._submit(task)
+        self._drain()
+
+    def _check_budget(self, task: UnitTask) -> None:
+        limit_e = self.s.get("budget_epochs")
+        if limit_e is not None and self.epochs + self._inflight_epochs + task.epochs > limit_e:
+            raise _BudgetStop("budget_epochs")
+        limit_c = self.s.get("budget_cpu_s")
+        if limit_c is not None and self.cpu_s >= limit_c:
+            raise _BudgetStop("budget_cpu")
+
+    def _submit(self, task: UnitTask) -> None:
+        try:
+            future = self.executor.submit(task)
+        except BrokenProcessPool:
+            self._recover()
+            future = self.executor.submit(task)
+        self._inflight[future] = task
+        self._inflight_epochs += task.epochs
+
+    def _drain(self) -> None:
+        while self._inflight:
+            self._collect()
+
+    def _collect(self) -> None:
+        done, _ = wait(list(self._inflight), return_when=FIRST_COMPLETED)
+        broken = False
+        for future in sorted(done, key=lambda f: self._inflight[f].key):
+            task = self._inflight[future]
+            try:
+                result = future.result()
+            except BrokenProcessPool:
+                broken = True
+                continue
+            except Exception as exc:  # e.g. a cluster worker lost too often
+                result = UnitResult(task, "failed", f"{type(exc).__name__}: {exc}")
+            self._forget(future)
+            self._keep(result)
+        if broken:
+            self._recover()
+
+    def _forget(self, future: Future) -> None:
+        task = self._inflight.pop(future)
+        self._inflight_epochs -= task.epochs
+
+    def _recover(self) -> None:
+        """After a worker crash: run each unit that was in flight alone."""
+        suspects = sorted(self._inflight.values(), key=lambda t: t.key)
+        self._inflight.clear()
+        self._inflight_epochs = 0
+        self.executor.restart()
+        for task in suspects:
+            try:
+                result = self.executor.submit(task).result()
+            except BrokenProcessPool as exc:
+                self.executor.restart()
+                result = UnitResult(task, "failed", "the worker process died while running "
+                                    f"this unit ({exc or 'no message'}); it may have run "
+                                    "out of memory")
+            self._keep(result)
+
+    def _keep(self, result: UnitResult) -> None:
+        self.store.record(result)
+        key = result.task.key
+        self.finished[key] = (result.status, result.val_acc)
+        self.cpu_s += float(result.cpu_s)
+        self.epochs += int(result.task.epochs)
+        self.outcome.units_run += 1
+        self.outcome.failed += result.status == "failed"
+        self.outcome.diverged += result.status == "diverged"
+        self.progress.unit(result, self.cpu_s, self.epochs)
+
+
+def budget_left(settings: dict, cpu_s: float, epochs: int) -> float:
+    """Fraction of the tightest budget still left (``inf`` without budgets)."""
+    left = math.inf
+    if settings.get("budget_cpu_s"):
+        left = min(left, 1 - cpu_s / settings["budget_cpu_s"])
+    if settings.get("budget_epochs"):
+        left = min(left, 1 - epochs / settings["budget_epochs"])
+    return left

@@ -1,0 +1,172 @@
+"""One search from start to ranking: data, space, budgets, store, workers, loop.
+
+:func:`run_search` is what ``tinyconv search`` and ``tinyconv demo`` call:
+
+1. load and fingerprint the data; read the space; apply budgets from the
+   command line over the space file's;
+2. enumerate the candidates, cost them and drop those over budget (they are
+   stored, marked, and never trained); optionally subsample the rest;
+3. assign stratified folds (seeded); open the run store (refusing a folder
+   that holds another run); write the data for the workers;
+4. run the loop on local processes or a Dask cluster; rank; write
+   ``ranking.csv``.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import os
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import pandas as pd
+
+from search.config import RANK_ORDERS, SearchSettings
+from search.rank import rank_run, save_ranking
+from search.runner import Outcome, Progress, SearchLoop
+from search.schedule import derive_seed
+from search.store import RunStore
+from search.unit import UnitData
+
+#: Training settings of every unit unless told otherwise (TrainConfig fields).
+DEFAULT_TRAINING = {"batch_size": 32, "optimizer": "adam", "lr": 0.003, "momentum": 0.9,
+                    "weight_decay": 0.0, "decay": "decoupled", "schedule": "cosine",
+                    "label_smoothing": 0.0}
+#: Command-line budget names -> the space file's [budget] keys.
+BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
+               "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb"}
+
+
+@dataclass(frozen=True)
+class SearchRequest:
+    """Everything a search is asked to do (the command line, as data).
+
+    ``budgets`` maps ``max_params``, ``max_macs``, ``max_ram_kb`` (int8 peak
+    activation memory) and ``max_flash_kb`` to limits that replace the space
+    file's; ``training`` overrides :data:`DEFAULT_TRAINING`. ``workers`` is the
+    number of local processes (default: the number of cores); ``cluster`` a
+    Dask scheduler address, used instead of local processes.
+    """
+
+    data: str
+    space: str
+    out: Path
+    folds: int = 3
+    seed: int = 0
+    eta: int = 3
+    max_epochs: int = 9
+    full: bool = False
+    max_candidates: int | None = None
+    budgets: dict = field(default_factory=dict)
+    budget_cpu_s: float | None = None
+    budget_epochs: int | None = None
+    training: dict = field(default_factory=dict)
+    workers: int | None = None
+    cluster: object | None = None
+    rank_by: str = "per_param"
+
+
+@dataclass
+class SearchSummary:
+    """What a search session left: where, how it ended, the ranking."""
+
+    run_dir: Path
+    outcome: Outcome
+    table: pd.DataFrame
+    ranking_path: Path
+    n_candidates: int
+    n_within: int
+    n_searched: int
+    removed: dict
+    workers: str
+
+
+def _budget(space, request: SearchRequest):
+    """The space file's budget with the command line's limits put over it."""
+    changes = {}
+    for name, value in request.budgets.items():
+        if name not in BUDGET_KEYS:
+            raise ValueError(f"unknown budget {name!r}; expected {', '.join(BUDGET_KEYS)}")
+        if value is not None:
+            changes[BUDGET_KEYS[name]] = value
+    return dataclasses.replace(space.budget, **changes)
+
+
+def run_search(request: SearchRequest, progress: Progress | None = None,
+               work=None) -> SearchSummary:
+    """Run (or resume) a search; see the module notes.
+
+    Parameters
+    ----------
+    request : SearchRequest
+    progress : Progress, optional
+        Hooks for progress bars.
+    work : callable, optional
+        ``work(task, data) -> UnitResult`` in place of
+        :func:`search.unit.run_unit` (a module-level function; for tests).
+
+    Raises
+    ------
+    InputError
+        Bad data, space, budgets or settings (``RunError`` for a folder that
+        holds another run, ``BudgetError`` when nothing fits).
+    """
+    from search.folds import assign_folds
+    from search.space import enumerate_space, filter_budget, load_space, subsample
+    from tinyconv.data import fingerprint, load_data
+
+    if request.rank_by not in RANK_ORDERS:
+        raise ValueError(f"rank by {request.rank_by!r}: expected one of {RANK_ORDERS}")
+    dataset = load_data(request.data)
+    space = load_space(request.space)
+    budget = _budget(space, request)
+    n_classes = len(dataset.classes)
+    archs = enumerate_space(space)
+    filtered = filter_budget(archs, budget, n_classes)
+    pool = list(filtered.survivors)
+    if request.max_candidates is not None:
+        pool = subsample(pool, request.max_candidates, derive_seed(request.seed, "subsample"))
+    texts = [str(a) for a in pool]
+    training = {**DEFAULT_TRAINING, **request.training}
+    settings = SearchSettings(
+        data=str(request.data), fingerprint=fingerprint(dataset), classes=tuple(dataset.classes),
+        n_images=int(dataset.labels.size), space=space.text, space_source=str(space.source),
+        folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
+        full=request.full, max_candidates=request.max_candidates,
+        budget={k: getattr(budget, k) for k in BUDGET_KEYS.values()},
+        budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
+        training=training)
+    _check_training(training)
+    folds = assign_folds(dataset.labels, request.folds, derive_seed(request.seed, "folds"),
+                         classes=dataset.classes)
+    table = filtered.table()
+    table["scheduled"] = table["candidate"].isin(set(texts))
+    store = RunStore.start(request.out, settings.as_dict(), table, dict(filtered.over))
+    data = UnitData(dataset.images, dataset.labels, folds)
+    data.save(request.out)
+    executor = _executor(request, data, work)
+    params = dict(zip(table["candidate"], table["params"]))
+    try:
+        loop = SearchLoop(store, executor, texts, params, store.config(), progress)
+        outcome = loop.run()
+    finally:
+        executor.shutdown()
+    ranking = rank_run(store, by=request.rank_by)
+    path = save_ranking(ranking, request.out)
+    return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
+                         len(filtered.survivors), len(texts), dict(filtered.over),
+                         executor.description)
+
+
+def _check_training(training: dict) -> None:
+    """Fail early (before any worker starts) on unusable training settings."""
+    from tinyconv.train import TrainConfig
+    TrainConfig(epochs=1, **training)
+
+
+def _executor(request: SearchRequest, data: UnitData, work):
+    from search.executors import ClusterWorkers, LocalWorkers
+    if request.cluster is not None:
+        return ClusterWorkers(request.cluster, data, work)
+    workers = request.workers if request.workers is not None else (os.cpu_count() or 1)
+    return LocalWorkers(request.out, workers, work)

@@ -1,0 +1,237 @@
+"""``tinyconv search DATA --space FILE --out DIR``: the budgeted, cross-validated search.
+
+Re-running the same command in the same ``--out`` folder resumes it: finished
+units are never recomputed. Progress goes to stderr (two bars: the budget or
+the plan, and the current rung); the summary, ranking and report paths to
+stdout. Exit codes: 0 done (also when a budget ended the search: what
+finished is ranked), 2 bad input or a folder holding another run, 130
+interrupted (finished units are kept).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from search.config import format_duration, parse_duration
+from search.runner import Progress
+
+DATA_HELP = ("a folder with one sub-folder per class, a .npz file (x, y), "
+             "builtin:tiles[?n=100&size=32&seed=0] or builtin:digits")
+STATE_TEXT = {"complete": "the whole plan ran",
+              "budget_cpu": "the CPU budget ran out; what finished is ranked",
+              "budget_epochs": "the epoch budget ran out; what finished is ranked",
+              "interrupted": "interrupted"}
+
+
+def _positive_int(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 1:
+        raise argparse.ArgumentTypeError(f"{value} must be at least 1")
+    return value
+
+
+def _positive_float(text: str) -> float:
+    try:
+        value = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
+    if not value > 0:
+        raise argparse.ArgumentTypeError(f"{value} must be more than 0")
+    return value
+
+
+def add_search_options(parser: argparse.ArgumentParser) -> None:
+    """Options shared by ``search`` (and read by ``demo``)."""
+    g = parser.add_argument_group("cross-validation and schedule")
+    g.add_argument("--folds", type=int, default=3, metavar="K",
+                   help="stratified folds (default 3)")
+    g.add_argument("--budget-cpu", default=None, metavar="T",
+                   help="total CPU time for training, e.g. 90s, 20m, 1h (default: no limit)")
+    g.add_argument("--budget-epochs", type=_positive_int, default=None, metavar="N",
+                   help="total training epochs summed over all units (default: no limit)")
+    g.add_argument("--max-epochs", type=_positive_int, default=9, metavar="R",
+                   help="epochs of the final rung (default 9)")
+    g.add_argument("--eta", type=int, default=3, help="halving rate: each rung keeps 1/eta "
+                   "(default 3)")
+    g.add_argument("--full", action="store_true",
+                   help="no halving: every candidate trains R epochs on every fold")
+    g.add_argument("--max-candidates", type=_positive_int, default=None, metavar="N",
+                   help="a seeded sample of N of the candidates within budget")
+    g.add_argument("--seed", type=int, default=0, help="run seed (default 0)")
+    g.add_argument("--rank-by", choices=("per-param", "accuracy"), default="per-param",
+                   help="order of the ranking: accuracy over chance per 1,000 parameters "
+                        "(default) or mean held-out accuracy")
+    b = parser.add_argument_group("device budgets (override the space file's)")
+    b.add_argument("--max-params", type=_positive_int, default=None, metavar="N")
+    b.add_argument("--max-macs", type=_positive_int, default=None, metavar="N",
+                   help="multiply-accumulates per image")
+    b.add_argument("--max-ram-kb", type=_positive_float, default=None, metavar="KB",
+                   help="int8 peak activation memory (KB = 1,024 bytes)")
+    b.add_argument("--max-flash-kb", type=_positive_float, default=None, metavar="KB",
+                   help="int8 weights, tables and per-channel constants")
+    t = parser.add_argument_group("training of every unit")
+    t.add_argument("--lr", type=_positive_float, default=None,
+                   help="learning rate (default 0.003)")
+    t.add_argument("--batch-size", type=_positive_int, default=None, metavar="N",
+                   help="images per mini-batch (default 32)")
+    t.add_argument("--optimizer", choices=("adam", "sgd"), default=None,
+                   help="optimiser (default adam)")
+    t.add_argument("--weight-decay", type=float, default=None, metavar="W",
+                   help="decoupled weight decay (default 0)")
+    x = parser.add_argument_group("where units run")
+    x.add_argument("--workers", type=_positive_int, default=None, metavar="N",
+                   help="local worker processes (default: the number of cores)")
+    x.add_argument("--cluster", default=None, metavar="ADDR",
+                   help="a Dask scheduler, e.g. tcp://10.0.0.5:8786, instead of local "
+                        "processes (needs the 'cluster' extra)")
+
+
+def configure(parser: argparse.ArgumentParser) -> None:
+    """Add this command's arguments."""
+    parser.add_argument("data", metavar="DATA", help=DATA_HELP)
+    parser.add_argument("--space", required=True, metavar="FILE",
+                        help="search-space file (TOML), or builtin:demo")
+    parser.add_argument("--out", required=True, metavar="DIR",
+                        help="run folder: created, or resumed when it holds this search")
+    add_search_options(parser)
+
+
+def request_from(args: argparse.Namespace, data: str, space: str, out: str):
+    """A SearchRequest from parsed options."""
+    from search.session import SearchRequest
+    training = {k: v for k, v in (("lr", args.lr), ("batch_size", args.batch_size),
+                                  ("optimizer", args.optimizer),
+                                  ("weight_decay", args.weight_decay)) if v is not None}
+    return SearchRequest(
+        data=data, space=space, out=Path(out), folds=args.folds, seed=args.seed, eta=args.eta,
+        max_epochs=args.max_epochs, full=args.full, max_candidates=args.max_candidates,
+        budgets={"max_params": args.max_params, "max_macs": args.max_macs,
+                 "max_ram_kb": args.max_ram_kb, "max_flash_kb": args.max_flash_kb},
+        budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
+        budget_epochs=args.budget_epochs, training=training, workers=args.workers,
+        cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"))
+
+
+class BarProgress(Progress):
+    """Two tqdm bars on stderr: the budget (or the plan) and the current rung."""
+
+    def __init__(self, settings_budget_cpu: float | None, budget_epochs: int | None):
+        self.cpu_budget, self.epoch_budget = settings_budget_cpu, budget_epochs
+        self.main = self.rung_bar = None
+
+    def start(self, plan_units, done_units, cpu_s, epochs):
+        from tqdm import tqdm
+        if self.cpu_budget:
+            self.main = tqdm(total=round(self.cpu_budget), initial=min(round(cpu_s),
+                             round(self.cpu_budget)), unit="cpu-s", desc="CPU budget",
+                             file=sys.stderr, position=0, dynamic_ncols=True, disable=None)
+        elif self.epoch_budget:
+            self.main = tqdm(total=self.epoch_budget, initial=min(epochs, self.epoch_budget),
+                             unit="epoch", desc="epoch budget", file=sys.stderr, position=0,
+                             dynamic_ncols=True)
+        else:
+            self.main = tqdm(total=plan_units, initial=min(done_units, plan_units),
+                             unit="unit", desc="plan (at most)", file=sys.stderr, position=0,
+                             dynamic_ncols=True)
+        self._last = (cpu_s, epochs)
+
+    def rung(self, bracket, n_brackets, rung, n_rungs, candidates, folds, epochs, done):
+        from tqdm import tqdm
+        if self.rung_bar is not None:
+            self.rung_bar.close()
+        self.rung_bar = tqdm(total=candidates * folds, initial=done, unit="unit",
+                             desc=f"bracket {bracket + 1}/{n_brackets} rung {rung + 1}/"
+                                  f"{n_rungs}: {candidates} x {folds} folds, {epochs} ep",
+                             file=sys.stderr, position=1, leave=False, dynamic_ncols=True,
+                             disable=None)
+
+    def unit(self, result, cpu_s, epochs):
+        if self.rung_bar is not None:
+            self.rung_bar.update(1)
+        if self.main is not None:
+            if self.cpu_budget:
+                self.main.update(max(0, min(round(cpu_s), self.main.total) - self.main.n))
+            elif self.epoch_budget:
+                self.main.update(max(0, min(epochs, self.main.total) - self.main.n))
+            else:
+                self.main.update(1)
+
+    def close(self):
+        for bar in (self.rung_bar, self.main):
+            if bar is not None:
+                bar.close()
+
+
+def _fmt_row(r) -> str:
+    return (f"{int(r.rank_per_param):>4} {int(r.rank_accuracy):>4}  {r.acc_mean:.3f}±"
+            f"{r.acc_se:.3f}  {r.train_acc_mean:.3f}  {r.acc_per_kparam:8.3f}  "
+            f"{int(r.params):>7,}  {int(r.macs):>9,}  {r.peak_kb:6.1f}  {r.flash_kb:6.1f}  "
+            f"{int(r.epochs):>3}  {'' if r.p_vs_best != r.p_vs_best else f'{r.p_vs_best:.3f}':>5}"
+            f"  {'*' if r.pick else ' '}{r.candidate}")
+
+
+def summary_lines(summary, top: int = 10) -> list[str]:
+    """The one-screen summary of a finished (or stopped) search."""
+    o, t = summary.outcome, summary.table
+    over = ", ".join(f"{k} {v}" for k, v in summary.removed.items() if v)
+    lines = [f"candidates: {summary.n_candidates} in the space, {summary.n_within} within "
+             f"budget{f' (over {over})' if over else ''}, {summary.n_searched} searched",
+             f"units: {o.units_run} run now, {o.units_stored} stored ({o.diverged} diverged, "
+             f"{o.failed} failed); training CPU {format_duration(o.cpu_s)}, {o.epochs} epochs "
+             f"in all; {summary.workers}",
+             f"end: {STATE_TEXT.get(o.state, o.state)}"]
+    lines += [f"note: {n}" for n in o.notes]
+    if t.empty:
+        lines.append("no candidate has finished every fold of a rung yet: nothing to rank")
+        return lines
+    lines += ["", "rank: per-kparam, accuracy; * = pick (one-SE rule); p = corrected t-test "
+              "vs the best",
+              "  pp  acc  held-out     train  acc/kpar   params       MACs  pk KB  fl KB   ep"
+              "      p  candidate"]
+    lines += [_fmt_row(r) for r in t.head(top).itertuples()]
+    if len(t) > top:
+        lines.append(f"  ... {len(t) - top} more in {summary.ranking_path}")
+    pick = t[t["pick"]].iloc[0]
+    best = t[t["finalist"]].sort_values(["acc_mean", "params"], ascending=[False, True]).iloc[0]
+    lines += ["", f"pick: {pick.candidate}  held-out accuracy {pick.acc_mean:.3f} ± "
+                  f"{pick.acc_se:.3f} over {int(pick.folds)} folds, {int(pick.params):,} "
+                  f"parameters, {pick.peak_kb:.1f} KB RAM, {pick.flash_kb:.1f} KB flash",
+              f"best: {best.candidate}  {best.acc_mean:.3f} ± {best.acc_se:.3f}, "
+              f"{int(best.params):,} parameters",
+              f"ranking: {summary.ranking_path}"]
+    return lines
+
+
+def write_report_if_available(run_dir) -> tuple[str, str]:
+    """(state, text): ``("written", path)``, ``("missing", why)`` or ``("failed", why)``."""
+    try:
+        from tinyconv.report import write_report
+    except ImportError as exc:
+        return "missing", f"the report is not available in this installation ({exc})"
+    try:
+        return "written", str(write_report(run_dir))
+    except Exception as exc:  # the results are safe in the store either way
+        return "failed", (f"{type(exc).__name__}: {exc}; the results are in "
+                          f"{Path(run_dir) / 'run.sqlite'}; 'tinyconv report {run_dir}' "
+                          "tries again")
+
+
+def run(args: argparse.Namespace) -> int:
+    """Run or resume the search, print the summary, write the report."""
+    from search.session import run_search
+
+    request = request_from(args, args.data, args.space, args.out)
+    progress = BarProgress(request.budget_cpu_s, request.budget_epochs)
+    summary = run_search(request, progress)
+    print("\n".join(summary_lines(summary)))
+    state, text = write_report_if_available(summary.run_dir)
+    if state == "written":
+        print(f"report: {text}")
+        return 0
+    print(f"report: {text}", file=sys.stderr)
+    return 0 if state == "missing" else 1
