@@ -11,7 +11,7 @@ how many stratified folds it allows.
 from .dataset import DataNote, DataWarning, Dataset, Intake, LeakageWarning
 from .fingerprint import fingerprint
 from .load import load_data, load_with_intake
-from .normalise import fit_normalisation, normalise
+from .normalise import fit_normalisation, normalise, normalise_fold
 from .prepare import prepare
 from .tiles import CLASSES as TILE_CLASSES, make_tiles
 from .validate import check_folds, max_folds
@@ -19,5 +19,5 @@ from .validate import check_folds, max_folds
 __all__ = [
     "DataNote", "DataWarning", "Dataset", "Intake", "LeakageWarning", "TILE_CLASSES",
     "check_folds", "fingerprint", "fit_normalisation", "load_data", "load_with_intake",
-    "make_tiles", "max_folds", "normalise", "prepare",
+    "make_tiles", "max_folds", "normalise", "normalise_fold", "prepare",
 ]

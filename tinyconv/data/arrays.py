@@ -60,6 +60,9 @@ def load_arrays(path: str | Path) -> tuple[Dataset, Intake]:
         non-integer or non-contiguous labels, a single class, bad class names.
     """
     where = str(path)
+    if not zipfile.is_zipfile(path):
+        raise DataError(f"{where}: not a readable .npz file (not a zip archive); save it "
+                        "with np.savez(path, x=images, y=labels)")
     try:
         with np.load(path, allow_pickle=False) as z:
             stored = {k: z[k] for k in z.files}

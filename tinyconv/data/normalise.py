@@ -42,3 +42,26 @@ def normalise(x: np.ndarray, mean: np.ndarray, std: np.ndarray) -> np.ndarray:
         raise ValueError(f"mean and std must have shape ({x.shape[-1]},) for images with "
                          f"{x.shape[-1]} channels, got {mean.shape} and {std.shape}")
     return ((x.astype(np.float32, copy=False) - mean) / std).astype(np.float32, copy=False)
+
+
+def normalise_fold(x: np.ndarray, train: np.ndarray, held_out: np.ndarray
+                   ) -> tuple[np.ndarray, np.ndarray, np.ndarray, np.ndarray]:
+    """Standardise one fold with statistics of its training part only.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, h, w, c)
+        Prepared images of the whole data set.
+    train, held_out : ndarray of int
+        Indices of the fold's training and held-out images.
+
+    Returns
+    -------
+    x_train, x_held_out : ndarray, float32
+        Both parts normalised with the training statistics.
+    mean, std : ndarray, shape (c,), float32
+        Those statistics (store them with the network).
+    """
+    x_train = x[train]
+    mean, std = fit_normalisation(x_train)
+    return normalise(x_train, mean, std), normalise(x[held_out], mean, std), mean, std

@@ -117,26 +117,29 @@ def _draw_params(rng: np.random.Generator, n: int, size: int) -> dict[str, np.nd
 
 
 def _blur(x: np.ndarray) -> np.ndarray:
-    """Separable [1, 2, 1] / 4 blur over axes 1 and 2, edges repeated."""
-    for axis in (1, 2):
-        out = 0.5 * x
-        lo = [slice(None)] * 4
-        hi = [slice(None)] * 4
-        lo[axis], hi[axis] = slice(None, -1), slice(1, None)
-        out[tuple(hi)] += 0.25 * x[tuple(lo)]   # neighbour before
-        out[tuple(lo)] += 0.25 * x[tuple(hi)]   # neighbour after
-        first = [slice(None)] * 4
-        last = [slice(None)] * 4
-        first[axis], last[axis] = slice(0, 1), slice(-1, None)
-        out[tuple(first)] += 0.25 * x[tuple(first)]  # edge pixel repeats itself
-        out[tuple(last)] += 0.25 * x[tuple(last)]
-        x = out
-    return x
+    """Separable [1, 2, 1] / 4 blur of (n, h, w) fields, edge pixels repeated."""
+    out = 0.5 * x
+    out[:, 1:] += 0.25 * x[:, :-1]            # neighbour above
+    out[:, :-1] += 0.25 * x[:, 1:]            # neighbour below
+    out[:, 0] += 0.25 * x[:, 0]               # edges repeat themselves
+    out[:, -1] += 0.25 * x[:, -1]
+    x = out
+    out = 0.5 * x
+    out[:, :, 1:] += 0.25 * x[:, :, :-1]
+    out[:, :, :-1] += 0.25 * x[:, :, 1:]
+    out[:, :, 0] += 0.25 * x[:, :, 0]
+    out[:, :, -1] += 0.25 * x[:, :, -1]
+    return out
 
 
 def _render(labels: np.ndarray, prm: dict[str, np.ndarray], size: int,
             rng: np.random.Generator) -> np.ndarray:
-    """Images of one chunk, shape (n, size, size, 3), float32 in [0, 1]."""
+    """Images of one chunk whose labels are sorted, shape (n, size, size, 3), uint8.
+
+    The mark coverage and the speckle are single-channel fields; blur is applied
+    to them (the lighting is smooth and the glaze flat, so blurring before
+    colouring matches blurring the colour image up to the gradient's slope).
+    """
     f32 = np.float32
     n = labels.size
     p = {k: v.astype(f32) for k, v in prm.items()}
@@ -151,30 +154,39 @@ def _render(labels: np.ndarray, prm: dict[str, np.ndarray], size: int,
     r = p["radius"][:, None, None]
     qx = (cos * dx + sin * dy) / r                      # (n, h, w)
     qy = (-sin * dx + cos * dy) / r
-    dist_px = np.empty((n, size, size), dtype=f32)
+    cover = np.empty((n, size, size), dtype=f32)
+    bounds = np.searchsorted(labels, np.arange(len(CLASSES) + 1))
     for c, name in enumerate(CLASSES):
-        sel = labels == c
-        if not sel.any():
+        sl = slice(bounds[c], bounds[c + 1])          # labels sorted: one view per mark
+        if sl.start == sl.stop:
             continue
-        d, filled = mark_distance(name, qx[sel], qy[sel])
-        stroke = p["stroke"][sel][:, None, None]
-        dist_px[sel] = d * r[sel] - (0.5 * stroke if filled else stroke)
-    cover = np.clip(0.5 - dist_px, 0.0, 1.0)[..., None]  # (n, h, w, 1) anti-aliased
-    glaze = p["glaze"][:, None, None, :]
-    img = glaze + (p["mark"][:, None, None, :] - glaze) * cover
+        d, filled = mark_distance(name, qx[sl], qy[sl])
+        stroke = p["stroke"][sl][:, None, None]
+        dist_px = d * r[sl] - (0.5 * stroke if filled else stroke)
+        np.clip(0.5 - dist_px, 0.0, 1.0, out=cover[sl])  # anti-aliased coverage
     # glaze speckle: sparse flecks; u < rate marks a fleck and u / rate sets its shade
     u = rng.random((n, size, size), dtype=f32)
     rate = p["speckle"][:, None, None]
     fleck = np.where(u < rate, u / rate * f32(0.7) - f32(0.4), f32(0.0))
-    img += fleck[..., None]
+    b = p["blur"][:, None, None]
+    cover += b * (_blur(cover) - cover)
+    fleck += b * (_blur(fleck) - fleck)
     # lighting gradient across the tile
     la = p["light_angle"][:, None, None]
-    ramp = (np.cos(la) * px + np.sin(la) * py) * f32(2.0 / size)
-    img *= (f32(1.0) + p["light_gain"][:, None, None] * ramp)[..., None]
-    b = p["blur"][:, None, None, None]
-    img = img + b * (_blur(img) - img)
-    img += rng.standard_normal(img.shape, dtype=f32) * p["noise"][:, None, None, None]
-    return np.clip(img, 0.0, 1.0, out=img)
+    light = f32(1.0) + p["light_gain"][:, None, None] * (np.cos(la) * px + np.sin(la) * py) \
+        * f32(2.0 / size)
+    glaze = p["glaze"][:, None, None, :]
+    img = (p["mark"] - p["glaze"])[:, None, None, :] * cover[..., None]
+    img += glaze
+    img += fleck[..., None]
+    img *= light[..., None]
+    noise = rng.standard_normal(img.shape, dtype=f32)
+    noise *= p["noise"][:, None, None, None] * f32(1.0)
+    img += noise
+    img *= f32(255.0)
+    img += f32(0.5)                                   # round half up on the cast below
+    np.clip(img, 0.0, 255.0, out=img)
+    return img.astype(np.uint8)
 
 
 def make_tiles(n_per_class: int, size: int = 32, seed: int = 0) -> Dataset:
@@ -213,7 +225,9 @@ def make_tiles(n_per_class: int, size: int = 32, seed: int = 0) -> Dataset:
     for start, chunk_seq in zip(range(0, n, _CHUNK), pixel_seq.spawn(-(-n // _CHUNK))):
         sl = slice(start, min(start + _CHUNK, n))
         part = {k: v[sl] for k, v in prm.items()}
-        img = _render(labels[sl], part, size, np.random.default_rng(chunk_seq))
-        images[sl] = np.rint(img * np.float32(255.0)).astype(np.uint8)
+        order = np.argsort(labels[sl], kind="stable")  # render grouped by mark
+        part = {k: v[order] for k, v in part.items()}
+        chunk = images[sl]
+        chunk[order] = _render(labels[sl][order], part, size, np.random.default_rng(chunk_seq))
     source = f"{SPEC}?n={n_per_class}&size={size}&seed={seed}"
     return Dataset(images, labels, CLASSES, None, source, (), ())

@@ -58,15 +58,17 @@ def check_labels(y: np.ndarray, where: str) -> np.ndarray:
         bad = ~np.isfinite(y)
         if bad.any():
             idx = np.flatnonzero(bad)
-            raise DataError(f"{where}: {_plural(idx.size, 'label')} are NaN or infinite "
+            raise DataError(f"{where}: {_plural(idx.size, 'label')} "
+                            f"{'is' if idx.size == 1 else 'are'} NaN or infinite "
                             f"(at index {listing([str(i) for i in idx])}); every label must "
                             "be an integer class number")
         frac = y != np.round(y)
         if frac.any():
             idx = np.flatnonzero(frac)
             raise DataError(f"{where}: labels must be integers 0..K-1, but "
-                            f"{_plural(idx.size, 'label')} are not (e.g. y[{idx[0]}] = "
-                            f"{y[idx[0]]!r}); store class numbers, not scores or "
+                            f"{_plural(idx.size, 'label')} {'is' if idx.size == 1 else 'are'} "
+                            f"not (e.g. y[{idx[0]}] = "
+                            f"{float(y[idx[0]]):g}); store class numbers, not scores or "
                             "probabilities")
         labels = y.astype(np.int64)
     else:
@@ -156,7 +158,8 @@ def check_finite(x: np.ndarray, where: str) -> None:
     bad = ~np.isfinite(x.reshape(x.shape[0], -1)).all(axis=1)
     if bad.any():
         idx = np.flatnonzero(bad)
-        raise DataError(f"{where}: {_plural(idx.size, 'image')} hold NaN or infinite values "
+        raise DataError(f"{where}: {_plural(idx.size, 'image')} "
+                        f"{'holds' if idx.size == 1 else 'hold'} NaN or infinite values "
                         f"(index {listing([str(i) for i in idx])}); fix or drop them before "
                         "loading")
 
