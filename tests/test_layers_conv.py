@@ -142,3 +142,18 @@ def test_wrong_channel_count_is_named():
     op, layer = _layer(SHAPES[0])
     with pytest.raises(ValueError, match=r"1:c3k3: expected input \(n, h, w, 2\), got shape"):
         layer.forward(np.zeros((1, 5, 5, 3)))
+
+
+def test_input_grad_off_skips_only_the_input_gradient():
+    """With input_grad=False backward returns None and the same weight and bias gradients."""
+    op, layer = _layer(SHAPES[1])
+    x = randn((2,) + op.in_shape, 1)
+    g = randn((2,) + op.out_shape, 2)
+    layer.forward(x, training=True)
+    layer.backward(g)
+    expected = {k: v.copy() for k, v in layer.grads.items()}
+    layer.input_grad = False
+    layer.forward(x, training=True)
+    assert layer.backward(g) is None
+    for key in expected:
+        np.testing.assert_array_equal(layer.grads[key], expected[key])

@@ -76,3 +76,27 @@ def test_fused_relu_option_matches_separate_layers():
     dense = Dense(4, 3, rng=np.random.default_rng(0), dtype=np.float64, relu=True)
     rows = check_layer(dense, randn((6, 4), 5), max_coords=None)
     assert all(r.passed for r in rows), rows
+
+
+def test_nan_propagates_through_relu_and_max_pool():
+    """NaN passes through ReLU and wins a max-pool window, as numpy.maximum / numpy.max do."""
+    x = np.array([[[[np.nan], [1.0]], [[2.0], [-1.0]]]])
+    relu = build(simple_op("relu", (2, 2, 1)), np.random.default_rng(0), np.float64)
+    assert np.isnan(relu.forward(x)[0, 0, 0, 0])
+    np.testing.assert_array_equal(relu.forward(x)[0, :, :, 0].ravel()[1:], [1.0, 2.0, 0.0])
+    np.testing.assert_array_equal(np.isnan(relu.forward(x)), np.isnan(np.maximum(x, 0)))
+    pool = build(simple_op("maxpool", (2, 2, 1), (1, 1, 1), size=2), np.random.default_rng(0),
+                 np.float64)
+    assert np.isnan(pool.forward(x[:, ::-1]).item())
+    assert np.isnan(pool.forward(x).item())
+
+
+def test_dense_input_grad_off():
+    """A dense layer with input_grad=False returns None and still sets w and b gradients."""
+    layer = Dense(4, 3, rng=np.random.default_rng(0), dtype=np.float64)
+    layer.input_grad = False
+    x, g = randn((5, 4), 1), randn((5, 3), 2)
+    layer.forward(x, training=True)
+    assert layer.backward(g) is None
+    np.testing.assert_allclose(layer.grads["w"], x.T @ g)
+    np.testing.assert_allclose(layer.grads["b"], g.sum(axis=0))

@@ -126,9 +126,12 @@ def _same_states(a: list, b: list) -> bool:
     return len(a) == len(b) and all(np.array_equal(x, y) for x, y in zip(a, b))
 
 
-def _hold_dropout(layers: Sequence) -> bool:
+def _prepare_for_check(layers: Sequence) -> bool:
+    """Hold dropout masks (and make every layer return its input gradient)."""
     held = False
     for layer in layers:
+        if hasattr(layer, "input_grad"):
+            layer.input_grad = True
         if hasattr(layer, "hold_mask"):
             layer.hold_mask = True
             held = True
@@ -216,7 +219,7 @@ def check_layer(layer, x: np.ndarray, *, seed: int = 0, step: float = STEP,
     rng = _generator(seed)
     layer = copy.deepcopy(layer)
     layer.astype(np.float64)
-    notes = ["fixed dropout mask"] if _hold_dropout([layer]) else []
+    notes = ["fixed dropout mask"] if _prepare_for_check([layer]) else []
     x = np.array(x, dtype=np.float64)
     y = layer.forward(x, training=True)
     base_states = _kink_states([layer])
@@ -269,7 +272,7 @@ def check_network(net, x: np.ndarray, y: np.ndarray, *, seed: int = 0, step: flo
     net = copy.deepcopy(net)
     for layer in net.layers:
         layer.astype(np.float64)
-    notes = ["fixed dropout mask"] if _hold_dropout(net.layers) else []
+    notes = ["fixed dropout mask"] if _prepare_for_check(net.layers) else []
     x = np.array(x, dtype=np.float64)
     labels = np.asarray(y)
     _, grad_logits = loss(net.forward(x, training=True), labels)

@@ -6,7 +6,7 @@ import numpy as np
 
 from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
-from tinyconv.layers.kernels_act import add_bias_, bias_relu_, relu_backward
+from tinyconv.layers.kernels_act import add_bias_, bias_relu_, column_sum, relu_backward
 from tinyconv.layers.kernels_conv import col2im, conv_out_size, crop_nhwc, im2col, pad_nhwc
 
 
@@ -25,6 +25,13 @@ class Conv(Layer):
         Apply ReLU to the output in the same pass as the bias (fused); off when
         built from an Op, where ReLU is its own layer.
 
+    Attributes
+    ----------
+    input_grad : bool
+        When False, ``backward`` skips the input gradient (the column-gradient
+        product and col2im) and returns None: for a first layer, whose input
+        gradient nobody reads. True by default, as the layer contract says.
+
     Notes
     -----
     Output size per axis ``(size + before + after - k) // s + 1``. Forward keeps
@@ -40,6 +47,7 @@ class Conv(Layer):
         self.c_in, self.filters, self.kernel, self.stride = c_in, filters, kernel, stride
         self.pads = tuple(pads)
         self.relu = relu
+        self.input_grad = True
         self.params["w"] = he_normal(rng, (kernel, kernel, c_in, filters),
                                      kernel * kernel * c_in, dtype)
         self.params["b"] = np.zeros(filters, dtype=dtype)
@@ -76,14 +84,16 @@ class Conv(Layer):
             self._y = y if self.relu else None
         return y
 
-    def backward(self, grad_out: np.ndarray) -> np.ndarray:
+    def backward(self, grad_out: np.ndarray) -> np.ndarray | None:
         w = self.params["w"]
         k, s, f, c = self.kernel, self.stride, self.filters, self.c_in
         if self.relu:
             grad_out = relu_backward(grad_out, self._y)
         g = np.ascontiguousarray(grad_out).reshape(-1, f)  # (n*oh*ow, f)
         self.grads["w"] = (self._cols.T @ g).reshape(w.shape)
-        self.grads["b"] = g.sum(axis=0)
+        self.grads["b"] = column_sum(g)
+        if not self.input_grad:
+            return None
         gcols = g @ w.reshape(k * k * c, f).T  # (n*oh*ow, k*k*c_in)
         gxp = col2im(gcols, self._xp_shape, k, k, s)
         n, h, wd, _ = self._x_shape

@@ -6,7 +6,7 @@ import numpy as np
 
 from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
-from tinyconv.layers.kernels_act import add_bias_, bias_relu_, relu_backward
+from tinyconv.layers.kernels_act import add_bias_, bias_relu_, column_sum, relu_backward
 
 
 class Dense(Layer):
@@ -20,6 +20,11 @@ class Dense(Layer):
     dtype : numpy dtype
     relu : bool
         Apply ReLU fused with the bias (off when built from an Op).
+
+    Attributes
+    ----------
+    input_grad : bool
+        When False, ``backward`` skips the input gradient and returns None.
     """
 
     kind = "dense"
@@ -28,6 +33,7 @@ class Dense(Layer):
                  dtype=np.float32, relu: bool = False):
         super().__init__()
         self.n_in, self.n_out, self.relu = n_in, n_out, relu
+        self.input_grad = True
         self.params["w"] = he_normal(rng, (n_in, n_out), n_in, dtype)
         self.params["b"] = np.zeros(n_out, dtype=dtype)
         self._x: np.ndarray | None = None
@@ -46,11 +52,13 @@ class Dense(Layer):
             self._y = y if self.relu else None
         return y
 
-    def backward(self, grad_out: np.ndarray) -> np.ndarray:
+    def backward(self, grad_out: np.ndarray) -> np.ndarray | None:
         if self.relu:
             grad_out = relu_backward(grad_out, self._y)
         self.grads["w"] = self._x.T @ grad_out
-        self.grads["b"] = grad_out.sum(axis=0)
+        self.grads["b"] = column_sum(grad_out)
+        if not self.input_grad:
+            return None
         return grad_out @ self.params["w"].T
 
     def kink_state(self) -> np.ndarray | None:

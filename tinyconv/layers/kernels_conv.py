@@ -81,23 +81,25 @@ def im2col(xp: np.ndarray, kh: int, kw: int, stride: int,
     shape = (n, oh, ow, kh, kw, c)
     if out is None or out.shape != shape or out.dtype != xp.dtype:
         out = np.empty(shape, dtype=xp.dtype)
-    _im2col_kernel(np.ascontiguousarray(xp), stride, out)
+    xp = np.ascontiguousarray(xp)
+    # Views (n, hp, wp * c) and (n, oh, ow, kh, kw * c): in NHWC the kw pixels
+    # of one kernel row are one contiguous run of kw * c values.
+    _im2col_kernel(xp.reshape(n, hp, wp * c), c, stride, out.reshape(n, oh, ow, kh, kw * c))
     return out.reshape(n * oh * ow, kh * kw * c)
 
 
 @njit(cache=True)
-def _im2col_kernel(xp, stride, out):
-    """Fill ``out (n, oh, ow, kh, kw, c)`` from ``xp (n, hp, wp, c)``."""
-    n, oh, ow, kh, kw, c = out.shape
+def _im2col_kernel(xp, c, stride, out):
+    """Copy ``xp (n, hp, wp*c)`` into ``out (n, oh, ow, kh, kw*c)``, one kernel row at a time."""
+    n, oh, ow, kh, span = out.shape
     for b in range(n):
         for y in range(oh):
             for x in range(ow):
+                start = x * stride * c
                 for i in range(kh):
                     row = y * stride + i
-                    for j in range(kw):
-                        col = x * stride + j
-                        for ch in range(c):
-                            out[b, y, x, i, j, ch] = xp[b, row, col, ch]
+                    for q in range(span):
+                        out[b, y, x, i, q] = xp[b, row, start + q]
 
 
 def col2im(cols: np.ndarray, xp_shape: tuple[int, int, int, int], kh: int, kw: int,
@@ -122,24 +124,24 @@ def col2im(cols: np.ndarray, xp_shape: tuple[int, int, int, int], kh: int, kw: i
         return cols.reshape(xp_shape)
     if out is None or out.shape != tuple(xp_shape) or out.dtype != cols.dtype:
         out = np.empty(xp_shape, dtype=cols.dtype)
-    _col2im_kernel(np.ascontiguousarray(cols).reshape(n, oh, ow, kh, kw, c), stride, out)
+    cols = np.ascontiguousarray(cols).reshape(n, oh, ow, kh, kw * c)
+    _col2im_kernel(cols, c, stride, out.reshape(n, hp, wp * c))
     return out
 
 
 @njit(cache=True)
-def _col2im_kernel(cols, stride, out):
-    """``out (n, hp, wp, c)`` = sum of ``cols (n, oh, ow, kh, kw, c)`` at their pixels."""
-    out[...] = 0
-    n, oh, ow, kh, kw, c = cols.shape
+def _col2im_kernel(cols, c, stride, out):
+    """``out (n, hp, wp*c)`` = sum of ``cols (n, oh, ow, kh, kw*c)`` at their pixels."""
+    out[:] = 0
+    n, oh, ow, kh, span = cols.shape
     for b in range(n):
         for y in range(oh):
             for x in range(ow):
+                start = x * stride * c
                 for i in range(kh):
                     row = y * stride + i
-                    for j in range(kw):
-                        col = x * stride + j
-                        for ch in range(c):
-                            out[b, row, col, ch] += cols[b, y, x, i, j, ch]
+                    for q in range(span):
+                        out[b, row, start + q] += cols[b, y, x, i, q]
 
 
 def crop_nhwc(xp: np.ndarray, pads: tuple[int, int, int, int], h: int, w: int) -> np.ndarray:

@@ -60,6 +60,10 @@ def avgpool_backward(grad_out: np.ndarray, s: int,
     return gx
 
 
+# The kernels walk each window with the channel axis innermost, which is
+# contiguous in NHWC; windows never overlap (stride = size).
+
+
 @njit(cache=True)
 def _maxpool_forward_kernel(x, s, y, arg):
     n, oh, ow, c = y.shape
@@ -67,55 +71,70 @@ def _maxpool_forward_kernel(x, s, y, arg):
         for oy in range(oh):
             for ox in range(ow):
                 for ch in range(c):
-                    best = x[b, oy * s, ox * s, ch]
-                    at = 0
-                    for i in range(s):
-                        for j in range(s):
+                    y[b, oy, ox, ch] = x[b, oy * s, ox * s, ch]
+                    arg[b, oy, ox, ch] = 0
+                for i in range(s):
+                    for j in range(s):
+                        if i == 0 and j == 0:
+                            continue
+                        at = i * s + j
+                        for ch in range(c):
                             v = x[b, oy * s + i, ox * s + j, ch]
-                            if v > best:
-                                best = v
-                                at = i * s + j
-                    y[b, oy, ox, ch] = best
-                    arg[b, oy, ox, ch] = at
+                            # A NaN wins, so that it propagates like numpy's max.
+                            if v > y[b, oy, ox, ch] or v != v:
+                                y[b, oy, ox, ch] = v
+                                arg[b, oy, ox, ch] = at
 
 
 @njit(cache=True)
 def _maxpool_backward_kernel(g, arg, s, gx):
-    gx[...] = 0
     n, oh, ow, c = g.shape
+    h, w = gx.shape[1], gx.shape[2]
     for b in range(n):
         for oy in range(oh):
             for ox in range(ow):
-                for ch in range(c):
-                    at = arg[b, oy, ox, ch]
-                    gx[b, oy * s + at // s, ox * s + at % s, ch] += g[b, oy, ox, ch]
+                for i in range(s):
+                    for j in range(s):
+                        at = i * s + j
+                        for ch in range(c):
+                            if arg[b, oy, ox, ch] == at:
+                                gx[b, oy * s + i, ox * s + j, ch] = g[b, oy, ox, ch]
+                            else:
+                                gx[b, oy * s + i, ox * s + j, ch] = 0.0
+        # Rows and columns past the last whole window get no gradient.
+        for yy in range(oh * s, h):
+            gx[b, yy, :, :] = 0.0
+        for yy in range(oh * s):
+            for xx in range(ow * s, w):
+                gx[b, yy, xx, :] = 0.0
 
 
 @njit(cache=True)
 def _avgpool_forward_kernel(x, s, y):
     n, oh, ow, c = y.shape
     scale = 1.0 / (s * s)
+    acc = np.empty(c, dtype=np.float64)
     for b in range(n):
         for oy in range(oh):
             for ox in range(ow):
+                acc[:] = 0.0
+                for i in range(s):
+                    for j in range(s):
+                        for ch in range(c):
+                            acc[ch] += x[b, oy * s + i, ox * s + j, ch]
                 for ch in range(c):
-                    acc = 0.0
-                    for i in range(s):
-                        for j in range(s):
-                            acc += x[b, oy * s + i, ox * s + j, ch]
-                    y[b, oy, ox, ch] = acc * scale
+                    y[b, oy, ox, ch] = acc[ch] * scale
 
 
 @njit(cache=True)
 def _avgpool_backward_kernel(g, s, gx):
-    gx[...] = 0
+    gx[:] = 0
     n, oh, ow, c = g.shape
     scale = 1.0 / (s * s)
     for b in range(n):
         for oy in range(oh):
             for ox in range(ow):
-                for ch in range(c):
-                    v = g[b, oy, ox, ch] * scale
-                    for i in range(s):
-                        for j in range(s):
-                            gx[b, oy * s + i, ox * s + j, ch] = v
+                for i in range(s):
+                    for j in range(s):
+                        for ch in range(c):
+                            gx[b, oy * s + i, ox * s + j, ch] = g[b, oy, ox, ch] * scale

@@ -5,6 +5,7 @@ from __future__ import annotations
 import numpy as np
 
 from tinyconv.layers.base import Layer
+from tinyconv.layers.kernels_act import column_sum
 
 
 class BatchNorm(Layer):
@@ -50,11 +51,12 @@ class BatchNorm(Layer):
             inv_std = 1.0 / np.sqrt(self.state["var"] + self.eps)
             scale = (gamma * inv_std).astype(x.dtype)
             return x * scale + (beta - self.state["mean"] * scale).astype(x.dtype)
-        axes = tuple(range(x.ndim - 1))
-        count = x.size // self.channels
-        mean = x.mean(axis=axes)
-        centred = x - mean
-        var = np.mean(centred * centred, axis=axes)
+        # Statistics over a (rows, c) view; column_sum is a BLAS matrix-vector product.
+        rows = np.ascontiguousarray(x).reshape(-1, self.channels)
+        count = rows.shape[0]
+        mean = column_sum(rows) / count
+        centred = rows - mean
+        var = column_sum(centred * centred) / count
         inv_std = (1.0 / np.sqrt(var + self.eps)).astype(x.dtype)
         xhat = centred * inv_std
         m = self.momentum
@@ -62,16 +64,18 @@ class BatchNorm(Layer):
         self.state["mean"][...] = m * self.state["mean"] + (1 - m) * mean
         self.state["var"][...] = m * self.state["var"] + (1 - m) * unbiased
         self._xhat, self._inv_std = xhat, inv_std
+        xhat = xhat.reshape(x.shape)
         return xhat * gamma + beta
 
     def backward(self, grad_out: np.ndarray) -> np.ndarray:
-        xhat, inv_std = self._xhat, self._inv_std
-        axes = tuple(range(grad_out.ndim - 1))
-        self.grads["beta"] = grad_out.sum(axis=axes)
-        self.grads["gamma"] = (grad_out * xhat).sum(axis=axes)
+        xhat, inv_std = self._xhat, self._inv_std  # xhat as (rows, c)
+        g = np.ascontiguousarray(grad_out).reshape(xhat.shape)
+        self.grads["beta"] = column_sum(g)
+        self.grads["gamma"] = column_sum(g * xhat)
         # d/dx of gamma * (x - mean) / std with batch mean and variance:
         # inv_std * gamma * (g - mean(g) - xhat * mean(g * xhat)).
-        count = grad_out.size // self.channels
+        count = g.shape[0]
         mean_g = self.grads["beta"] / count
         mean_gx = self.grads["gamma"] / count
-        return (grad_out - mean_g - xhat * mean_gx) * (self.params["gamma"] * inv_std)
+        gx = (g - mean_g - xhat * mean_gx) * (self.params["gamma"] * inv_std)
+        return gx.reshape(grad_out.shape)
