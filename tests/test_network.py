@@ -152,6 +152,11 @@ def test_not_a_network_file_is_refused(tmp_path):
     junk.write_text("hello")
     with pytest.raises(DataError, match=r"junk\.npz is not a readable \.npz network file"):
         Network.load(junk)
+    good = Network.from_arch("8x8gray", 2).save(tmp_path / "good.npz")
+    cut = tmp_path / "cut.npz"
+    cut.write_bytes(good.read_bytes()[:200])  # a zip whose directory is lost
+    with pytest.raises(DataError, match=r"cut\.npz is not a readable \.npz network file"):
+        Network.load(cut)
 
 
 def test_forward_refuses_the_wrong_image_shape():

@@ -145,10 +145,15 @@ def test_bad_settings_and_data_are_refused():
     """Bad config values, patience without held-out data and wrong shapes get clear errors."""
     with pytest.raises(InputError, match=r"optimizer 'rms' is unknown; expected one of adam, sgd"):
         TrainConfig(epochs=1, optimizer="rms")
-    with pytest.raises(InputError, match=r"learning rate must be a finite number > 0, got -1"):
+    with pytest.raises(InputError, match=r"learning rate must be a finite number > 0, got -1\.0"):
         TrainConfig(epochs=1, lr=-1)
     with pytest.raises(InputError, match=r"epochs must be an integer >= 1, got 0"):
         TrainConfig(epochs=0)
+    with pytest.raises(InputError, match=r"batch size must be an integer, got 3\.5"):
+        TrainConfig(epochs=1, batch_size=3.5)
+    # NumPy numbers (e.g. from a pandas table) are accepted and stored as Python numbers.
+    cfg = TrainConfig(epochs=np.int64(3), lr=np.float32(0.5))
+    assert type(cfg.epochs) is int and type(cfg.lr) is float and cfg.lr == 0.5
     x, y = _quadrants(8, 10)
     net = Network.from_arch("8x8gray", 4)
     with pytest.raises(InputError, match=r"early stopping \(patience=2\) needs held-out data"):

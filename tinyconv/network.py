@@ -27,6 +27,7 @@ from __future__ import annotations
 
 import json
 import os
+import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -117,6 +118,7 @@ class Network:
         -------
         ndarray, shape (n, K)
         """
+        x = np.asarray(x)
         want = tuple(self.arch.input.shape)
         if x.ndim != 4 or tuple(x.shape[1:]) != want:
             raise DataError(f"images have shape {x.shape}, but the network {self.arch} reads "
@@ -300,7 +302,7 @@ def _read(path) -> dict[str, np.ndarray]:
     try:
         with np.load(path, allow_pickle=False) as data:
             entries = {k: data[k] for k in data.files}
-    except (ValueError, OSError) as exc:
+    except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
         if isinstance(exc, FileNotFoundError):
             raise
         raise DataError(f"{path} is not a readable .npz network file ({exc}); "

@@ -34,6 +34,7 @@ Decisions, stated once:
 from __future__ import annotations
 
 import math
+import numbers
 from dataclasses import dataclass
 from typing import Callable
 
@@ -89,21 +90,36 @@ class TrainConfig:
     seed: int = 0
 
     def __post_init__(self) -> None:
+        # Type first, then value; numbers from NumPy or pandas are accepted and
+        # stored as plain Python numbers so the repr and JSON stay simple.
         def need(ok: bool, message: str) -> None:
             if not ok:
                 raise InputError(message)
 
-        need(isinstance(self.epochs, int) and self.epochs >= 1,
-             f"epochs must be an integer >= 1, got {self.epochs!r}")
-        need(isinstance(self.batch_size, int) and self.batch_size >= 1,
-             f"batch size must be an integer >= 1, got {self.batch_size!r}")
+        def store(name: str, value) -> None:
+            object.__setattr__(self, name, value)
+
+        for name in ("epochs", "batch_size", "patience", "seed"):
+            value = getattr(self, name)
+            if value is None and name == "patience":
+                continue
+            need(isinstance(value, numbers.Integral) and not isinstance(value, bool),
+                 f"{name.replace('_', ' ')} must be an integer, got {value!r}")
+            store(name, int(value))
+        for name in ("lr", "momentum", "weight_decay", "label_smoothing"):
+            value = getattr(self, name)
+            need(isinstance(value, numbers.Real) and not isinstance(value, bool)
+                 and math.isfinite(value),
+                 f"{name.replace('_', ' ')} must be a finite number, got {value!r}")
+            store(name, float(value))
+        need(self.epochs >= 1, f"epochs must be an integer >= 1, got {self.epochs!r}")
+        need(self.batch_size >= 1, f"batch size must be an integer >= 1, got {self.batch_size!r}")
         need(self.optimizer in OPTIMISERS,
              f"optimizer {self.optimizer!r} is unknown; expected one of {', '.join(OPTIMISERS)}")
-        need(isinstance(self.lr, (int, float)) and math.isfinite(self.lr) and self.lr > 0,
-             f"learning rate must be a finite number > 0, got {self.lr!r}; try 1e-3 for "
-             "adam or 0.05 for sgd")
+        need(self.lr > 0, f"learning rate must be a finite number > 0, got {self.lr!r}; try "
+             "1e-3 for adam or 0.05 for sgd")
         need(0.0 <= self.momentum < 1.0, f"momentum must be in [0, 1), got {self.momentum!r}")
-        need(math.isfinite(self.weight_decay) and self.weight_decay >= 0,
+        need(self.weight_decay >= 0,
              f"weight decay must be a finite number >= 0, got {self.weight_decay!r}")
         need(self.decay in DECAY_KINDS,
              f"weight decay kind {self.decay!r} is unknown; expected one of "
@@ -112,9 +128,8 @@ class TrainConfig:
              f"learning-rate schedule {self.schedule!r} is unknown; expected one of "
              f"{', '.join(SCHEDULES)}")
         check_smoothing(self.label_smoothing)
-        need(self.patience is None or (isinstance(self.patience, int) and self.patience >= 1),
+        need(self.patience is None or self.patience >= 1,
              f"patience must be None or an integer >= 1, got {self.patience!r}")
-        need(isinstance(self.seed, int), f"seed must be an integer, got {self.seed!r}")
 
 
 @dataclass(frozen=True)
