@@ -14,7 +14,7 @@ from tinyconv.train import TrainConfig, evaluate, fit
 
 @pytest.fixture(scope="module")
 def digits():
-    """Digits scaled to [0, 1]: 1,797 images of 8x8, values 0-16, 10 classes (scikit-learn docs)."""
+    """Digits scaled to [0, 1]: 1,797 8x8 images, values 0-16, 10 classes (scikit-learn docs)."""
     data = load_digits()
     assert data.images.shape == (1797, 8, 8) and data.images.max() == 16
     return data.data / 16.0, data.target
@@ -22,7 +22,7 @@ def digits():
 
 @pytest.mark.slow
 def test_softmax_regression_reaches_scikit_learns_penalised_optimum(digits):
-    """Softmax regression with L2 reaches LogisticRegression's penalised loss (rel. diff < 1e-3)."""
+    """Softmax regression with L2 reaches LogisticRegression's penalised loss (within 1e-3)."""
     x, y = digits
     n = len(y)
     c = 0.5
@@ -61,7 +61,7 @@ def test_softmax_regression_reaches_scikit_learns_penalised_optimum(digits):
 
 @pytest.mark.slow
 def test_small_cnn_reaches_097_over_five_stratified_folds(digits):
-    """A small CNN scores >= 0.97 mean accuracy over 5 stratified folds (kernel SVMs ~0.98 [from memory])."""
+    """A small CNN scores >= 0.97 mean accuracy over 5 stratified folds."""
     x, y = digits
     x = x.reshape(-1, 8, 8, 1).astype(np.float32)
     accs = []

@@ -47,7 +47,8 @@ def test_whole_network_gradients_agree_with_finite_differences(text):
     net = Network.from_arch(text, 4, seed=2)
     # Zero initial biases can put pre-activations exactly on a ReLU kink; move them off.
     shift_away_from_kinks(net, np.random.default_rng(7))
-    # Reference: central finite differences (tinyconv.gradients, Nocedal & Wright §8.1 [from memory])
+    # Reference: central finite differences (tinyconv.gradients;
+    # Nocedal & Wright §8.1 [from memory])
     rows = check_network(net, x, y, seed=3)
     assert len(rows) == 1 + len(net.param_list())
     bad = [(r.layer, r.tensor, r.max_rel_error, r.note) for r in rows if not r.passed]

@@ -94,7 +94,7 @@ def test_divergence_reports_the_epoch_it_happened():
 
 
 def test_early_stopping_restores_the_best_epoch():
-    """With random labels held-out loss rises; training stops after `patience` bad epochs, best weights back."""
+    """Random labels: held-out loss rises; stop after `patience` epochs with the best weights back."""
     rng = np.random.default_rng(6)
     x = rng.normal(size=(120, 8, 8, 1)).astype(np.float32)
     y = rng.integers(0, 4, size=120)

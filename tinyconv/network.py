@@ -99,7 +99,8 @@ class Network:
 
     def __repr__(self) -> str:
         n = sum(a.size for _, a in self.param_list())
-        return f"Network({str(self.arch)!r}, n_classes={self.n_classes}, params={n}, dtype={self.dtype})"
+        return (f"Network({str(self.arch)!r}, n_classes={self.n_classes}, params={n}, "
+                f"dtype={self.dtype})")
 
     # ------------------------------------------------------------ passes
 
@@ -118,16 +119,26 @@ class Network:
         -------
         ndarray, shape (n, K)
         """
-        x = np.asarray(x)
-        want = tuple(self.arch.input.shape)
-        if x.ndim != 4 or tuple(x.shape[1:]) != want:
-            raise DataError(f"images have shape {x.shape}, but the network {self.arch} reads "
-                            f"(n, {', '.join(map(str, want))}); prepare the images to its "
-                            "input size and colour mode")
-        out = np.asarray(x, dtype=self.dtype)
+        out = self.check_images(x)
         for layer in self.layers:
             out = layer.forward(out, training)
         return out
+
+    def check_images(self, x: np.ndarray, what: str = "images") -> np.ndarray:
+        """``x`` as an array of the network's dtype, after checking its shape.
+
+        Raises
+        ------
+        DataError
+            When ``x`` is not (n, h, w, c) of the network's input, naming both shapes.
+        """
+        x = np.asarray(x)
+        want = tuple(self.arch.input.shape)
+        if x.ndim != 4 or tuple(x.shape[1:]) != want:
+            raise DataError(f"{what} have shape {x.shape}, but the network {self.arch} reads "
+                            f"(n, {', '.join(map(str, want))}); prepare the images to its "
+                            "input size and colour mode")
+        return np.asarray(x, dtype=self.dtype)
 
     def backward(self, grad_logits: np.ndarray) -> np.ndarray:
         """Back-propagate ``grad_logits`` (n, K) after a training forward.

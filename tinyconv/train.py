@@ -172,7 +172,8 @@ def make_optimiser(net, config: TrainConfig) -> SGD | Adam:
     return Adam(params, weight_decay=config.weight_decay, decay=config.decay)
 
 
-def check_arrays(net, x: np.ndarray, y: np.ndarray, what: str = "training") -> tuple[np.ndarray, np.ndarray]:
+def check_arrays(net, x: np.ndarray, y: np.ndarray,
+                 what: str = "training") -> tuple[np.ndarray, np.ndarray]:
     """Return ``x`` in the network's dtype and ``y`` as int64, after checking them.
 
     Raises
@@ -181,13 +182,8 @@ def check_arrays(net, x: np.ndarray, y: np.ndarray, what: str = "training") -> t
         When shapes do not match the network's input, the counts differ, or a
         label is outside ``0..K-1``.
     """
-    x = np.asarray(x)
+    x = net.check_images(x, f"{what} images")
     y = np.asarray(y)
-    want = tuple(net.arch.input.shape)
-    if x.ndim != 4 or tuple(x.shape[1:]) != want:
-        raise DataError(f"{what} images have shape {x.shape}, but the network "
-                        f"{net.arch} reads (n, {', '.join(map(str, want))}); prepare the "
-                        "images to the network's input size and colour mode")
     if y.shape != (x.shape[0],):
         raise DataError(f"{what} labels have shape {y.shape} for {x.shape[0]} images; "
                         "give one integer label per image")
@@ -200,7 +196,7 @@ def check_arrays(net, x: np.ndarray, y: np.ndarray, what: str = "training") -> t
                         f"of {net.n_classes} classes, got values {y.min()}..{y.max()}")
     if not np.isfinite(x).all():
         raise DataError(f"{what} images contain NaN or infinite values; clean the data")
-    return np.asarray(x, dtype=net.dtype), y.astype(np.int64, copy=False)
+    return x, y.astype(np.int64, copy=False)
 
 
 def _snapshot(net) -> list[np.ndarray]:
