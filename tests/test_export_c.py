@@ -1,0 +1,168 @@
+"""The generated C: compiles strictly, matches the integer reference bit for bit, sizes."""
+
+import re
+import shutil
+import subprocess
+
+import numpy as np
+import pytest
+
+from tinyconv.cost import cost_of
+from tinyconv.errors import InputError
+from tinyconv.export.c_writer import check_prefix, generate_c
+from tinyconv.network import Network
+from tinyconv.quant import int8_logits, quantize_network
+
+pytestmark = pytest.mark.skipif(shutil.which("gcc") is None, reason="needs gcc")
+
+GCC = ["gcc", "-std=c99", "-pedantic", "-Wall", "-Wextra", "-Werror", "-O2"]
+
+# Each architecture exercises a part of the writer; together: standard and
+# depthwise convolution, stride 2, valid padding, both pooling kinds, global
+# average pooling, hidden dense layers, batch norm folded, dropout skipped.
+ARCHS = [
+    ("16x16rgb/c8k3-bn-p2-dw3s2-bn-c8k1-a2-gap-d16-bn", 5),
+    ("12x12gray/c4k4v-p2-d8-x20-d6", 3),
+    ("20x20rgb/c6k5s2v-dw5-a2-c4k3s2", 4),
+    ("9x9hsv/dw3-bn-p3-d5", 2),
+    ("8x8gray", 10),
+]
+
+HARNESS = r"""
+#include <stdio.h>
+#include "@P@.c"
+
+/* Reads images from stdin; writes per image the logits then the class (int32). */
+int main(int argc, char **argv)
+{
+    static uint8_t image[@U@_INPUT_BYTES];
+    int8_t logits[@U@_CLASSES];
+    (void)argv;
+    if (argc > 1) { /* sizes of the arrays and of the arena */
+        @SIZES@
+        printf("arena %lu\n", (unsigned long)sizeof(@P@_arena));
+        return 0;
+    }
+    while (fread(image, 1, sizeof image, stdin) == sizeof image) {
+        int32_t best = @P@_classify(image, logits);
+        fwrite(logits, 1, sizeof logits, stdout);
+        fwrite(&best, sizeof best, 1, stdout);
+    }
+    return 0;
+}
+"""
+
+
+def random_setup(text: str, n_classes: int, seed: int):
+    """A random-weight network (random biases and batch norms), normalisation, images."""
+    rng = np.random.default_rng(seed)
+    net = Network.from_arch(text, n_classes, seed=seed)
+    for op, layer in zip(net.ops, net.layers):
+        if op.kind == "bn":
+            c = layer.params["gamma"].shape[0]
+            layer.params["gamma"][:] = rng.uniform(0.5, 2.0, c)
+            layer.params["beta"][:] = rng.normal(0, 0.3, c)
+            layer.state["mean"][:] = rng.normal(0, 0.3, c)
+            layer.state["var"][:] = rng.uniform(0.3, 2.0, c)
+        if "b" in layer.params:
+            layer.params["b"][:] = rng.normal(0, 0.1, layer.params["b"].shape)
+    h, w, c = net.arch.input.shape
+    mean, std = rng.uniform(0.3, 0.6, c), rng.uniform(0.15, 0.3, c)
+    # smooth-ish images (a random gradient plus noise) rather than pure noise
+    base = rng.uniform(0, 255, (300, 1, 1, c)) + rng.normal(0, 40, (300, h, w, c))
+    images = np.clip(base, 0, 255).astype(np.uint8)
+    return net, mean, std, images
+
+
+def build(tmp_path, code) -> tuple:
+    """Write and compile the generated files plus a harness; returns (run, sizes)."""
+    p, u = code.prefix, code.prefix.upper()
+    (tmp_path / f"{p}.c").write_text(code.source)
+    (tmp_path / f"{p}.h").write_text(code.header)
+    # the generated unit alone, with every warning an error
+    subprocess.run(GCC + ["-c", f"{p}.c", "-o", f"{p}.o"], cwd=tmp_path, check=True)
+    sizes = "\n        ".join(f'printf("{a.name} %lu\\n", (unsigned long)sizeof({a.name}));'
+                               for a in code.arrays)
+    harness = HARNESS.replace("@SIZES@", sizes).replace("@P@", p).replace("@U@", u)
+    (tmp_path / "harness.c").write_text(harness)
+    subprocess.run(GCC + ["harness.c", "-o", "harness"], cwd=tmp_path, check=True)
+    out = subprocess.run(["./harness", "sizes"], cwd=tmp_path, check=True,
+                         capture_output=True, text=True).stdout
+    sizes = {name: int(v) for name, v in (line.split() for line in out.splitlines())}
+
+    def run(images: np.ndarray, k: int) -> tuple[np.ndarray, np.ndarray]:
+        res = subprocess.run(["./harness"], cwd=tmp_path, input=images.tobytes(),
+                             capture_output=True, check=True)
+        raw = np.frombuffer(res.stdout, np.uint8).reshape(images.shape[0], k + 4)
+        return raw[:, :k].view(np.int8), raw[:, k:].copy().view(np.int32)[:, 0]
+
+    return run, sizes
+
+
+@pytest.mark.parametrize("text, k", ARCHS)
+def test_c_matches_integer_reference(tmp_path, text, k):
+    """C logits and class equal the NumPy integer inference bit for bit on 300 images."""
+    net, mean, std, images = random_setup(text, k, seed=len(text))
+    qnet = quantize_network(net, mean, std, images[:64])
+    code = generate_c(qnet, "tcx")
+    run, sizes = build(tmp_path, code)
+    logits, best = run(images, k)
+    want = int8_logits(qnet, images)
+    np.testing.assert_array_equal(logits, want)
+    # arg-max with the first of equal logits, as NumPy's argmax picks
+    np.testing.assert_array_equal(best, want.argmax(axis=1))
+
+    # sizes: the arena is the cost model's int8 peak; flash is the sum of sizeof
+    cost = cost_of(text, k)
+    assert sizes.pop("arena") == cost.peak_int8_bytes == code.arena_bytes
+    assert sum(sizes.values()) == cost.flash_bytes == code.flash_bytes
+    assert f"#define TCX_ARENA_BYTES {cost.peak_int8_bytes}\n" in code.header
+    assert f"#define TCX_FLASH_BYTES {cost.flash_bytes}\n" in code.header
+
+
+def _code_without_comments(text: str) -> str:
+    return re.sub(r"/\*.*?\*/", "", text, flags=re.S)
+
+
+def test_c_has_no_floats_no_malloc_and_only_two_headers():
+    """The integer path has no float or double, no allocation, only stdint.h/string.h."""
+    net, mean, std, images = random_setup(ARCHS[0][0], ARCHS[0][1], seed=1)
+    code = generate_c(quantize_network(net, mean, std, images[:32]), "tc",
+                      classes=[f"c{i}" for i in range(5)], macs=123)
+    for text in (code.source, code.header):
+        body = _code_without_comments(text)
+        assert not re.search(r"\b(float|double|malloc|calloc|free|printf)\b", body)
+        includes = re.findall(r"#include\s*([<\"][^>\"]+[>\"])", body)
+        assert set(includes) <= {"<stdint.h>", "<string.h>", '"tc.h"'}
+    # header comment: architecture, classes and sizes
+    assert ARCHS[0][0] in code.header and "4 c4" in code.header
+    assert f"flash (constant arrays): {code.flash_bytes} bytes" in code.header
+    assert "multiply-accumulates per image: 123" in code.header
+    # every global symbol carries the prefix
+    names = re.findall(r"^(?:static )?(?:const )?\w+ \*?(\w+)\(|^static (?:const )?\w+ (\w+)\[",
+                       _code_without_comments(code.source), flags=re.M)
+    assert names and all(n.startswith("tc_") for pair in names for n in pair if n)
+
+
+def test_class_names_cannot_break_the_comment():
+    """A class name holding '*/' or a newline stays inside the header comment."""
+    net, mean, std, images = random_setup("8x8gray", 2, seed=0)
+    code = generate_c(quantize_network(net, mean, std, images[:8]), "tc",
+                      classes=["a */ int x;", "b\nc"])
+    assert "int x;" not in _code_without_comments(code.header)
+    assert "b?c" in code.header
+
+
+@pytest.mark.parametrize("bad", ["1abc", "tc-x", "int", "", "_tc", "a" * 21, "tc x"])
+def test_prefix_must_be_a_c_identifier(bad):
+    """A prefix that is not a short C identifier is refused with the rule and an example."""
+    with pytest.raises(InputError, match=r"is not a usable C identifier.*e\.g\. 'tiles'"):
+        check_prefix(bad)
+    assert check_prefix("tiles_v2") == "tiles_v2"
+
+
+def test_wrong_number_of_class_names():
+    """Class names must be one per logit."""
+    net, mean, std, images = random_setup("8x8gray", 3, seed=0)
+    with pytest.raises(InputError, match="2 class names given for a network of 3 classes"):
+        generate_c(quantize_network(net, mean, std, images[:8]), "tc", classes=["a", "b"])

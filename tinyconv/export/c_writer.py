@@ -1,0 +1,278 @@
+"""Write an int8 network as one C99 source and one header.
+
+The generated code needs no allocator, no floating point and nothing of the
+C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
+
+* every constant as a ``static const`` array: the ``256 x c`` input table,
+  and per conv/dwconv/dense layer the int8 weights and the int32 bias,
+  multiplier and shift per output channel (the deployment layout of
+  DEVELOPERS.md, so flash = the sum of their ``sizeof``);
+* one ``static int8_t`` arena of exactly the cost model's int8 peak: the
+  input quantisation writes at the start of the arena; each later step reads
+  the buffer the step before wrote and writes at the other end (the start,
+  or flush with the end), so a step's input and output never overlap;
+* ``int32_t {prefix}_classify(const uint8_t *image, int8_t *logits)``: the
+  image is ``h x w x c`` uint8 in row-major HWC order, already in the
+  network's input size and colour mode; it writes the K int8 logits and
+  returns the arg-max class (the first of equal logits). It uses the one
+  static arena, so it is not re-entrant.
+"""
+
+from __future__ import annotations
+
+import keyword
+import re
+from dataclasses import dataclass
+from math import prod
+
+import numpy as np
+
+from tinyconv import __version__
+from tinyconv.errors import InputError
+from tinyconv.export.c_kernels import kernels_for
+from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer
+
+MAX_PREFIX = 20
+C_KEYWORDS = frozenset(
+    "auto break case char const continue default do double else enum extern float for goto "
+    "if inline int long register restrict return short signed sizeof static struct switch "
+    "typedef union unsigned void volatile while _Bool _Complex _Imaginary".split())
+_IDENT = re.compile(r"[A-Za-z][A-Za-z0-9_]*")
+
+
+@dataclass(frozen=True)
+class CArray:
+    """One constant array of the generated source."""
+
+    name: str
+    ctype: str      # "int8_t" or "int32_t"
+    count: int
+
+    @property
+    def nbytes(self) -> int:
+        return self.count * (1 if self.ctype == "int8_t" else 4)
+
+
+@dataclass(frozen=True)
+class CCode:
+    """The generated files' text and the figures they embody.
+
+    Attributes
+    ----------
+    source, header : str
+        Text of ``{prefix}.c`` and ``{prefix}.h``.
+    arrays : tuple of CArray
+        Every constant array, in the order written.
+    arena_bytes : int
+        Size of the static arena.
+    flash_bytes : int
+        Sum of the arrays' bytes.
+    """
+
+    prefix: str
+    source: str
+    header: str
+    arrays: tuple[CArray, ...]
+    arena_bytes: int
+    flash_bytes: int
+
+
+def check_prefix(prefix: str) -> str:
+    """A symbol prefix: a C identifier of at most 20 characters, not a keyword."""
+    if not isinstance(prefix, str):
+        raise InputError(f"prefix must be a string, got {type(prefix).__name__}")
+    if not _IDENT.fullmatch(prefix) or len(prefix) > MAX_PREFIX or prefix in C_KEYWORDS:
+        raise InputError(f"prefix {prefix!r} is not a usable C identifier: it must start with "
+                         "a letter, hold only letters, digits and '_', be at most "
+                         f"{MAX_PREFIX} characters and not be a C keyword; e.g. 'tiles' "
+                         "or 'tc_marks'")
+    return prefix
+
+
+def arena_layout(qnet: QuantizedNetwork) -> tuple[int, list[tuple[int, int]]]:
+    """Arena size and, per step, the (input offset, output offset) in it.
+
+    The input quantisation (step 0) reads the caller's image and writes at
+    offset 0; step ``j`` reads where step ``j - 1`` wrote and writes at the
+    other end. The size is the largest input + output of any step, with the
+    input quantisation counted as raw pixels + int8 pixels, as the cost model
+    counts it.
+
+    Returns
+    -------
+    arena_bytes : int
+    offsets : list of (int, int), one per layer of ``qnet``
+    """
+    n_in = prod(qnet.input_shape)
+    sizes = [(prod(layer.op.in_shape), prod(layer.op.out_shape)) for layer in qnet.layers]
+    arena = max([2 * n_in] + [a + b for a, b in sizes])
+    offsets = []
+    at_start = True  # where the last written buffer sits
+    src = 0
+    for _, n_out in sizes:
+        dst = arena - n_out if at_start else 0
+        offsets.append((src, dst))
+        src, at_start = dst, not at_start
+    return arena, offsets
+
+
+def _numbers(values: np.ndarray, per_line: int) -> str:
+    """Comma-separated integers, ``per_line`` a line, indented."""
+    flat = [str(int(v)) for v in np.asarray(values).reshape(-1)]
+    lines = [", ".join(flat[i:i + per_line]) for i in range(0, len(flat), per_line)]
+    return "    " + ",\n    ".join(lines)
+
+
+def _array(arr: CArray, values: np.ndarray) -> str:
+    per_line = 16 if arr.ctype == "int8_t" else 6
+    return (f"static const {arr.ctype} {arr.name}[{arr.count}] = {{\n"
+            f"{_numbers(values, per_line)}\n}};\n")
+
+
+def _comment_safe(text: str) -> str:
+    """Text that cannot end a C comment or break a line."""
+    text = "".join(ch if 32 <= ord(ch) < 127 else "?" for ch in str(text))
+    return text.replace("*/", "* /").replace("/*", "/ *")
+
+
+def _c_weights(layer: QuantLayer) -> np.ndarray:
+    """Weights in the order the C kernels read them."""
+    w = layer.weights
+    if layer.kind == "conv":
+        return w.transpose(3, 0, 1, 2)  # (k, k, c, f) -> [f][k][k][c]
+    if layer.kind == "dense":
+        return w.T  # (n_in, n_out) -> [n_out][n_in]
+    return w  # dwconv (k, k, c), read as [k][k][c]
+
+
+def _call(layer: QuantLayer, j: int, p: str, src: str, dst: str) -> str:
+    """The kernel call of one step."""
+    op = layer.op
+    if layer.kind in ("conv", "dwconv", "dense"):
+        tail = (f"{p}_l{layer.index}_w, {p}_l{layer.index}_bias, {p}_l{layer.index}_mult, "
+                f"{p}_l{layer.index}_shift, {layer.out_zp}, {layer.lo}, {layer.hi}")
+        if layer.kind == "dense":
+            return (f"    {p}_dense({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
+                    f"{layer.in_zp},\n        {tail});\n")
+        h, w, c = op.in_shape
+        oh, ow, f = op.out_shape
+        top, _, left, _ = op.pads
+        if layer.kind == "conv":
+            return (f"    {p}_conv({src}, {dst}, {h}, {w}, {c}, {oh}, {ow}, {f}, {op.kernel}, "
+                    f"{op.stride}, {top}, {left}, {layer.in_zp},\n        {tail});\n")
+        return (f"    {p}_dwconv({src}, {dst}, {h}, {w}, {c}, {oh}, {ow}, {op.kernel}, "
+                f"{op.stride}, {top}, {left}, {layer.in_zp},\n        {tail});\n")
+    h, w, c = op.in_shape
+    if layer.kind == "gap":
+        return f"    {p}_gap({src}, {dst}, {h * w}, {c});\n"
+    oh, ow, _ = op.out_shape
+    return f"    {p}_{layer.kind}({src}, {dst}, {w}, {c}, {oh}, {ow}, {op.size});\n"
+
+
+def _describe(layer: QuantLayer) -> str:
+    op = layer.op
+    shape = lambda s: "x".join(map(str, s))  # noqa: E731
+    extra = " + relu" if layer.relu else ""
+    return f"{op.name} {layer.kind}{extra}: {shape(op.in_shape)} -> {shape(op.out_shape)}"
+
+
+def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
+               macs: int | None = None) -> CCode:
+    """The C source and header for ``qnet``.
+
+    Parameters
+    ----------
+    qnet : QuantizedNetwork
+    prefix : str
+        Prefix of every generated symbol and of the file names
+        (:func:`check_prefix`); macros use its upper-case form.
+    classes : sequence of str, optional
+        Class names for the header comment (index order).
+    macs : int, optional
+        MACs per image, for the header comment.
+
+    Returns
+    -------
+    CCode
+    """
+    p = check_prefix(prefix)
+    P = p.upper()
+    h, w, c = qnet.input_shape
+    k = qnet.n_classes
+    classes = list(classes) if classes is not None else [str(i) for i in range(k)]
+    if len(classes) != k:
+        raise InputError(f"{len(classes)} class names given for a network of {k} classes; "
+                         "give one name per class")
+
+    arrays: list[CArray] = []
+    blocks: list[str] = []
+
+    def add(name: str, ctype: str, values: np.ndarray) -> None:
+        arr = CArray(name, ctype, int(np.asarray(values).size))
+        arrays.append(arr)
+        blocks.append(_array(arr, values))
+
+    add(f"{p}_input_table", "int8_t", qnet.table)  # [256][c]: table[p * c + ch]
+    for layer in qnet.layers:
+        if layer.weights is None:
+            continue
+        base = f"{p}_l{layer.index}"
+        add(f"{base}_w", "int8_t", _c_weights(layer))
+        add(f"{base}_bias", "int32_t", layer.bias)
+        add(f"{base}_mult", "int32_t", layer.multiplier)
+        add(f"{base}_shift", "int32_t", layer.shift)
+    flash = sum(a.nbytes for a in arrays)
+    arena, offsets = arena_layout(qnet)
+
+    last_dst = offsets[-1][1]
+    body = [f"int32_t {p}_classify(const uint8_t *image, int8_t *logits)\n{{\n",
+            "    int32_t i, best;\n",
+            f"    /* input: raw pixel -> quantised normalised value, arena[0 .. {h * w * c}) */\n",
+            f"    for (i = 0; i < {h * w * c}; ++i) {{\n",
+            f"        {p}_arena[i] = {p}_input_table[(int32_t)image[i] * {c} + i % {c}];\n",
+            "    }\n"]
+    for j, (layer, (src, dst)) in enumerate(zip(qnet.layers, offsets)):
+        body.append(f"    /* {_comment_safe(_describe(layer))} */\n")
+        body.append(_call(layer, j, p, f"{p}_arena + {src}", f"{p}_arena + {dst}"))
+    body += [f"    memcpy(logits, {p}_arena + {last_dst}, {k});\n",
+             "    best = 0;\n",
+             f"    for (i = 1; i < {k}; ++i) {{\n",
+             "        if (logits[i] > logits[best]) best = i;\n",
+             "    }\n",
+             "    return best;\n}\n"]
+
+    info = _info_comment(qnet, classes, flash, arena, macs)
+    source = (info + "\n#include <stdint.h>\n#include <string.h>\n\n"
+              f'#include "{p}.h"\n\n' + "\n".join(blocks) + "\n"
+              f"/* activations: each step reads one end and writes the other */\n"
+              f"static int8_t {p}_arena[{P}_ARENA_BYTES];\n"
+              + kernels_for([layer.kind for layer in qnet.layers], p) + "\n" + "".join(body))
+    header = (info + f"\n#ifndef {P}_H\n#define {P}_H\n\n#include <stdint.h>\n\n"
+              f"#define {P}_INPUT_H {h}\n#define {P}_INPUT_W {w}\n#define {P}_INPUT_C {c}\n"
+              f"#define {P}_INPUT_BYTES {h * w * c}\n#define {P}_CLASSES {k}\n"
+              f"#define {P}_ARENA_BYTES {arena}\n#define {P}_FLASH_BYTES {flash}\n"
+              f"#define {P}_LOGIT_ZERO_POINT {qnet.logits_zp}\n\n"
+              f"/* Classify one image: {P}_INPUT_BYTES uint8 values in row-major HWC order,\n"
+              f"   already in the network's input size and colour mode. Writes {P}_CLASSES\n"
+              "   int8 logits and returns the arg-max class (the first of equal logits).\n"
+              "   Uses one static arena: not re-entrant. */\n"
+              f"int32_t {p}_classify(const uint8_t *image, int8_t *logits);\n\n#endif\n")
+    return CCode(p, source, header, tuple(arrays), arena, flash)
+
+
+def _info_comment(qnet: QuantizedNetwork, classes, flash: int, arena: int,
+                  macs: int | None) -> str:
+    h, w, c = qnet.input_shape
+    lines = [f"int8 classifier generated by tinyconv {__version__}",
+             f"architecture: {qnet.arch}",
+             f"input: {h} x {w} x {c} uint8, row-major HWC, in the network's colour mode",
+             f"classes ({qnet.n_classes}): "
+             + ", ".join(f"{i} {name}" for i, name in enumerate(classes)),
+             f"flash (constant arrays): {flash} bytes",
+             f"arena (activations, static): {arena} bytes"]
+    if macs is not None:
+        lines.append(f"multiply-accumulates per image: {macs}")
+    lines += [f"calibration: {qnet.calibration} over {qnet.n_calib} images",
+              f"logit real value = {qnet.logits_scale:.9g} * (q - ({qnet.logits_zp}))"]
+    lines += ["steps:"] + [f"  {_describe(layer)}" for layer in qnet.layers]
+    return "/*\n" + "".join(f" * {_comment_safe(line)}\n" for line in lines) + " */\n"

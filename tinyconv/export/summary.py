@@ -1,0 +1,94 @@
+"""What an export wrote and what it measured, as a frozen record and JSON."""
+
+from __future__ import annotations
+
+import json
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+
+@dataclass(frozen=True)
+class ExportSummary:
+    """The figures of one export.
+
+    Attributes
+    ----------
+    arch : str
+        Architecture text.
+    classes : tuple of str
+        Class names in logit order.
+    prefix : str
+        C symbol prefix.
+    input_shape : tuple (h, w, c)
+    flash_bytes : int
+        Bytes of the generated constant arrays (= the cost model's int8 flash).
+    arena_bytes : int
+        Bytes of the static activation arena (= the cost model's int8 peak).
+    macs, params : int
+        Multiply-accumulates per image and trained parameters (cost model).
+    n_calib : int
+        Calibration images; ``calibration`` names the range rule.
+    logits_scale, logits_zero_point : float, int
+        Real logit = ``logits_scale * (q - logits_zero_point)``.
+    n_eval : int
+        Held-out images compared (0 when none were given).
+    agreement : float or None
+        Fraction of them where the int8 and float arg-max agree.
+    float_accuracy, int8_accuracy : float or None
+        Accuracies on them, when labels were given.
+    files : tuple of str
+        Paths written (weights .npz, .c, .h, summary.json).
+    """
+
+    arch: str
+    classes: tuple[str, ...]
+    prefix: str
+    input_shape: tuple[int, int, int]
+    flash_bytes: int
+    arena_bytes: int
+    macs: int
+    params: int
+    n_calib: int
+    calibration: str
+    logits_scale: float
+    logits_zero_point: int
+    n_eval: int = 0
+    agreement: float | None = None
+    float_accuracy: float | None = None
+    int8_accuracy: float | None = None
+    files: tuple[str, ...] = ()
+
+    def to_dict(self) -> dict:
+        """Plain data (lists for tuples), ready for JSON."""
+        out = asdict(self)
+        for key in ("classes", "input_shape", "files"):
+            out[key] = list(out[key])
+        return out
+
+    def to_json(self) -> str:
+        return json.dumps(self.to_dict(), indent=2, sort_keys=True)
+
+    @staticmethod
+    def from_json(text: str) -> "ExportSummary":
+        data = json.loads(text)
+        for key in ("classes", "input_shape", "files"):
+            data[key] = tuple(data[key])
+        return ExportSummary(**data)
+
+    def lines(self) -> list[str]:
+        """A short human-readable account (what the export command prints)."""
+        out = [f"architecture  {self.arch}",
+               f"flash         {self.flash_bytes:,} bytes ({self.flash_bytes / 1024:.1f} KB) "
+               "of constant arrays",
+               f"arena         {self.arena_bytes:,} bytes ({self.arena_bytes / 1024:.1f} KB) "
+               "of activations",
+               f"MACs          {self.macs:,} per image; {self.params:,} parameters",
+               f"calibration   {self.calibration} over {self.n_calib} images"]
+        if self.n_eval:
+            line = f"int8 vs float {self.agreement:.2%} top-1 agreement on {self.n_eval} images"
+            if self.float_accuracy is not None:
+                line += (f"; accuracy float {self.float_accuracy:.2%}, "
+                         f"int8 {self.int8_accuracy:.2%}")
+            out.append(line)
+        out += [f"wrote         {Path(f)}" for f in self.files]
+        return out

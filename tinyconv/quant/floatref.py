@@ -1,0 +1,72 @@
+"""Float64 inference of folded :class:`~tinyconv.quant.fold.Step` s.
+
+This is what calibration measures and what the batch-norm folding test
+compares with the network's own forward pass: a plain, obviously right
+NumPy reference (patches times weights), not a fast kernel.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from tinyconv.quant.fold import Step
+from tinyconv.quant.patches import conv_patches, pool_windows
+
+
+def run_step(step: Step, x: np.ndarray) -> np.ndarray:
+    """Apply one step to a batch.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, *step.op.in_shape)
+        float input; a flat (n, features) input reaches a dense step, a map
+        otherwise (a flatten before dense is done here, in NHWC order).
+
+    Returns
+    -------
+    ndarray of float64, shape (n, *step.op.out_shape)
+    """
+    x = np.asarray(x, np.float64)
+    n = x.shape[0]
+    kind = step.kind
+    if kind == "conv":
+        cols = conv_patches(x, step.op)  # (n, oh, ow, k, k, c)
+        k, c = step.op.kernel, x.shape[3]
+        # (n, oh, ow, k*k*c) @ (k*k*c, f)
+        y = cols.reshape(*cols.shape[:3], k * k * c) @ step.w.reshape(k * k * c, -1) + step.b
+    elif kind == "dwconv":
+        cols = conv_patches(x, step.op)
+        y = np.einsum("nyxijc,ijc->nyxc", cols, step.w, optimize=True) + step.b
+    elif kind == "dense":
+        y = x.reshape(n, -1) @ step.w + step.b
+    elif kind == "maxpool":
+        y = pool_windows(x, step.op.size).max(axis=3)
+    elif kind == "avgpool":
+        y = pool_windows(x, step.op.size).mean(axis=3)
+    elif kind == "gap":
+        y = x.mean(axis=(1, 2))
+    else:
+        raise ValueError(f"unknown step kind {kind!r}")
+    if step.relu:
+        y = np.maximum(y, 0.0)
+    return y
+
+
+def run_steps(steps: tuple[Step, ...], x: np.ndarray, keep: bool = False):
+    """Run all steps; the logits, or every step's output when ``keep``.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, h, w, c)
+        The normalised float input.
+
+    Returns
+    -------
+    ndarray, shape (n, K), or list of ndarray (one per step) when ``keep``.
+    """
+    outs = []
+    for step in steps:
+        x = run_step(step, x)
+        if keep:
+            outs.append(x)
+    return outs if keep else x

@@ -1,0 +1,165 @@
+"""From the Ops of a network to the steps a device runs, with batch norm folded.
+
+A deployed network runs *steps*: the ops that write a new buffer (conv,
+dwconv, dense, maxpool, avgpool, gap; see the peak-memory definition in
+DEVELOPERS.md). Everything else disappears into a step:
+
+* batch norm directly after a conv, dwconv or dense layer is folded into its
+  weights and bias: with ``a = gamma / sqrt(var + eps)`` per output channel,
+  ``w' = w a`` and ``b' = (b - mean) a + beta``, so ``bn(conv(x)) = conv'(x)``
+  exactly in real arithmetic (common practice; Jacob et al., CVPR 2018, §3.2);
+* ReLU becomes the lower end of the step's output clamp;
+* dropout is the identity at inference;
+* flatten is a new name for the same bytes (NHWC order is kept).
+
+Batch norm anywhere else (after pooling, dropout, another batch norm or the
+input) has no layer to fold into and is refused with the position and the fix.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from tinyconv.arch import ArchError, Op
+
+WEIGHTED = ("conv", "dwconv", "dense")
+POOLS = ("maxpool", "avgpool", "gap")
+
+
+@dataclass(frozen=True, eq=False)
+class Step:
+    """One buffer-writing step of the deployed network (float, folded).
+
+    Attributes
+    ----------
+    kind : str
+        ``conv``, ``dwconv``, ``dense``, ``maxpool``, ``avgpool`` or ``gap``.
+    op : Op
+        The op that writes the buffer (shapes, kernel, stride, pads).
+    index : int
+        Its index in ``expand(...)``.
+    covers : tuple of int
+        Indices of every op merged into this step (itself, then bn, relu,
+        dropout, flatten that follow or precede it).
+    w : ndarray or None
+        float64 weights in the layer's own layout (conv ``(k, k, c_in, f)``,
+        dwconv ``(k, k, c)``, dense ``(n_in, n_out)``), batch norm folded in.
+    b : ndarray or None, shape (f,)
+        float64 bias, batch norm folded in.
+    relu : bool
+        Whether a ReLU follows (clamp at real 0).
+    """
+
+    kind: str
+    op: Op
+    index: int
+    covers: tuple[int, ...]
+    w: np.ndarray | None = None
+    b: np.ndarray | None = None
+    relu: bool = False
+
+
+def fold_batch_norm(w: np.ndarray, b: np.ndarray, gamma: np.ndarray, beta: np.ndarray,
+                    mean: np.ndarray, var: np.ndarray, eps: float) -> tuple[np.ndarray, np.ndarray]:
+    """Fold ``y = gamma (z - mean) / sqrt(var + eps) + beta`` into ``z = x w + b``.
+
+    Parameters
+    ----------
+    w : ndarray, shape (..., f)
+        Weights with the output channel last (conv, dwconv and dense all are).
+    b, gamma, beta, mean, var : ndarray, shape (f,)
+    eps : float
+        The batch norm's variance epsilon.
+
+    Returns
+    -------
+    (w', b') : float64 arrays of the same shapes.
+    """
+    a = np.asarray(gamma, np.float64) / np.sqrt(np.asarray(var, np.float64) + eps)
+    w2 = np.asarray(w, np.float64) * a
+    b2 = (np.asarray(b, np.float64) - mean) * a + np.asarray(beta, np.float64)
+    return w2, b2
+
+
+def build_steps(ops: tuple[Op, ...], params: list[dict[str, np.ndarray]],
+                eps: list[float | None], arch_text: str = "") -> tuple[Step, ...]:
+    """Merge ``ops`` into deployable :class:`Step` s.
+
+    Parameters
+    ----------
+    ops : tuple of Op
+        From :func:`tinyconv.arch.expand`.
+    params : list of dict, one per op
+        The op's parameters and state by name (``w``, ``b``; ``gamma``,
+        ``beta``, ``mean``, ``var`` for batch norm); empty for the others.
+    eps : list of float or None, one per op
+        The variance epsilon of each batch norm op (None elsewhere).
+    arch_text : str
+        For error messages.
+
+    Raises
+    ------
+    ArchError
+        For a batch norm that does not directly follow conv, dwconv or dense.
+    """
+    if len(params) != len(ops) or len(eps) != len(ops):
+        raise ValueError(f"need one parameter dict and eps per op: {len(ops)} ops, "
+                         f"{len(params)} dicts, {len(eps)} eps")
+    steps: list[dict] = []
+    pending: list[int] = []  # ops seen before the first step (dropout on the input)
+    for i, op in enumerate(ops):
+        last = steps[-1] if steps else None
+        if op.kind in WEIGHTED:
+            p = params[i]
+            steps.append(dict(kind=op.kind, op=op, index=i, covers=pending + [i],
+                              w=np.asarray(p["w"], np.float64).copy(),
+                              b=np.asarray(p["b"], np.float64).copy(), relu=False,
+                              open=True))
+            pending = []
+        elif op.kind in POOLS:
+            steps.append(dict(kind=op.kind, op=op, index=i, covers=pending + [i], w=None,
+                              b=None, relu=False, open=False))
+            pending = []
+        elif op.kind == "bn":
+            prev = ops[i - 1] if i else None
+            if last is None or not last["open"] or prev is None or prev.kind not in WEIGHTED:
+                after = f"{prev.token or prev.kind!r}" if prev is not None else "the input"
+                raise ArchError(
+                    f"{arch_text!r}: layer {op.position} 'bn' follows {after}, not a "
+                    "convolution, depthwise convolution or dense layer, so it cannot be "
+                    "folded for int8 export; move the 'bn' directly after a c/dw/d layer "
+                    "or remove it", text=arch_text, position=op.position, token=op.token)
+            p = params[i]
+            last["w"], last["b"] = fold_batch_norm(last["w"], last["b"], p["gamma"], p["beta"],
+                                                   p["mean"], p["var"], float(eps[i]))
+            last["covers"].append(i)
+        elif op.kind == "relu":
+            if last is None or not last["open"] or last["relu"]:
+                raise ValueError(f"op {i} relu does not follow a conv, dwconv or dense layer; "
+                                 "expand() never makes such a network")
+            last["relu"] = True
+            last["covers"].append(i)
+        elif op.kind in ("dropout", "flatten"):
+            if last is None:
+                pending.append(i)
+            else:
+                last["open"] = False
+                last["covers"].append(i)
+        else:
+            raise ValueError(f"op {i}: unknown kind {op.kind!r}")
+        if op.kind != "relu" and op.kind != "bn" and op.kind not in WEIGHTED and steps:
+            steps[-1]["open"] = False
+    return tuple(Step(kind=s["kind"], op=s["op"], index=s["index"], covers=tuple(s["covers"]),
+                      w=s["w"], b=s["b"], relu=s["relu"]) for s in steps)
+
+
+def network_steps(net) -> tuple[Step, ...]:
+    """:func:`build_steps` for a :class:`tinyconv.network.Network`.
+
+    Reads each layer's ``params`` and ``state`` and each batch norm's ``eps``.
+    """
+    params = [{**layer.params, **layer.state} for layer in net.layers]
+    eps = [float(layer.eps) if op.kind == "bn" else None for op, layer in zip(net.ops, net.layers)]
+    return build_steps(tuple(net.ops), params, eps, arch_text=str(net.arch))

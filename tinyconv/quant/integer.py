@@ -1,0 +1,130 @@
+"""Integer-only inference of a :class:`QuantizedNetwork` in NumPy.
+
+The reference the generated C must match bit for bit. Every value here is an
+integer: int8 tensors, int64 accumulators that hold exactly the int32 sums
+the C forms (the quantiser guarantees they fit in int32), the fixed-point
+requantisation of :mod:`tinyconv.quant.fixed_point`, and integer rounding
+division for the averages. No float touches a tensor.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from tinyconv.quant.fixed_point import multiply_by_quantized_multiplier
+from tinyconv.quant.patches import conv_patches, pool_windows
+from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer, check_images
+
+
+def quantize_input(qnet: QuantizedNetwork, images: np.ndarray) -> np.ndarray:
+    """Look raw pixels up in the input table.
+
+    Parameters
+    ----------
+    images : ndarray of uint8, shape (n, h, w, c)
+
+    Returns
+    -------
+    ndarray of int8, shape (n, h, w, c): ``table[p, ch]`` per pixel.
+    """
+    c = qnet.input_shape[2]
+    return qnet.table[images, np.arange(c)]
+
+
+def rounding_divide(total: np.ndarray, count: int) -> np.ndarray:
+    """``total / count`` rounded half away from zero (``count >= 1``).
+
+    Written as C99 does it: ``(|t| + count / 2) / count`` with truncating
+    integer division, then the sign put back.
+    """
+    total = np.asarray(total, np.int64)
+    return np.sign(total) * ((np.abs(total) + count // 2) // count)
+
+
+def requantize(acc: np.ndarray, layer: QuantLayer) -> np.ndarray:
+    """int64 accumulators (..., f) -> int8 outputs on the layer's output grid."""
+    y = multiply_by_quantized_multiplier(acc, layer.multiplier, layer.shift) + layer.out_zp
+    return np.clip(y, layer.lo, layer.hi).astype(np.int8)
+
+
+def accumulate(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
+    """The int32 accumulators of a conv, dwconv or dense layer (bias included).
+
+    Parameters
+    ----------
+    x : ndarray of int8, shape (n, *layer.op.in_shape)
+
+    Returns
+    -------
+    ndarray of int64, shape (n, *layer.op.out_shape): ``bias + sum (q_in - Z_in) q_w``
+    """
+    n = x.shape[0]
+    xs = x.astype(np.int64) - layer.in_zp  # real 0 is now integer 0 (padding too)
+    w = layer.weights.astype(np.int64)
+    if layer.kind == "conv":
+        cols = conv_patches(xs, layer.op)  # (n, oh, ow, k, k, c)
+        kkc = cols.shape[3] * cols.shape[4] * cols.shape[5]
+        # (n, oh, ow, k*k*c) @ (k*k*c, f)
+        acc = cols.reshape(*cols.shape[:3], kkc) @ w.reshape(kkc, -1)
+    elif layer.kind == "dwconv":
+        acc = np.einsum("nyxijc,ijc->nyxc", conv_patches(xs, layer.op), w)
+    elif layer.kind == "dense":
+        acc = xs.reshape(n, -1) @ w  # a map is read in NHWC order, as flatten does
+    else:
+        raise ValueError(f"layer kind {layer.kind!r} has no accumulators")
+    return acc + layer.bias
+
+
+def run_layer(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
+    """Apply one int8 layer.
+
+    Parameters
+    ----------
+    x : ndarray of int8, shape (n, *layer.op.in_shape)
+
+    Returns
+    -------
+    ndarray of int8, shape (n, *layer.op.out_shape)
+    """
+    kind = layer.kind
+    if kind in ("conv", "dwconv", "dense"):
+        return requantize(accumulate(layer, x), layer)
+    if kind == "maxpool":
+        return pool_windows(x, layer.op.size).max(axis=3)
+    if kind == "avgpool":
+        s = layer.op.size
+        total = pool_windows(x, s).astype(np.int64).sum(axis=3)
+        return rounding_divide(total, s * s).astype(np.int8)
+    if kind == "gap":
+        h, w = x.shape[1], x.shape[2]
+        return rounding_divide(x.astype(np.int64).sum(axis=(1, 2)), h * w).astype(np.int8)
+    raise ValueError(f"unknown layer kind {kind!r}")
+
+
+def int8_logits(qnet: QuantizedNetwork, images: np.ndarray, batch: int = 128) -> np.ndarray:
+    """int8 logits of raw images.
+
+    Parameters
+    ----------
+    images : ndarray of uint8, shape (n, h, w, c)
+        In the network's input size and colour mode.
+    batch : int
+        Images per pass (bounds memory).
+
+    Returns
+    -------
+    ndarray of int8, shape (n, K)
+    """
+    images = check_images(images, qnet.input_shape)
+    out = []
+    for start in range(0, images.shape[0], batch):
+        x = quantize_input(qnet, images[start:start + batch])
+        for layer in qnet.layers:
+            x = run_layer(layer, x)
+        out.append(x)
+    return np.concatenate(out)
+
+
+def int8_predict(qnet: QuantizedNetwork, images: np.ndarray) -> np.ndarray:
+    """Arg-max class per image (the first index among equal logits, as the C does)."""
+    return int8_logits(qnet, images).argmax(axis=1)
