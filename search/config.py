@@ -23,8 +23,9 @@ FORMAT = 1
 RANK_ORDERS = ("per_param", "accuracy")
 # Keys whose change does not alter any unit, only how far the plan is followed.
 EXTENDABLE = ("budget_cpu_s", "budget_epochs")
-# Keys kept for the record but not compared (the data is compared by fingerprint).
-RECORD_ONLY = ("data",)
+# Keys kept for the record but not compared (the data is compared by fingerprint,
+# the space by its text).
+RECORD_ONLY = ("data", "space_source")
 
 _DURATION = re.compile(r"(?:(\d+(?:\.\d+)?)h)?(?:(\d+(?:\.\d+)?)m)?(?:(\d+(?:\.\d+)?)s?)?")
 

@@ -11,6 +11,9 @@ search loop (:mod:`search.runner`) drives either.
   initializer memory-maps the ``.npy`` files the search wrote in the run folder.
   A crashed worker breaks the whole pool (``BrokenProcessPool``); the search
   loop then calls :meth:`LocalWorkers.restart` and finds the culprit.
+* :class:`InlineWorkers`: units run one at a time in the calling process
+  (``--workers 0``), with BLAS limited to one thread while they run; no
+  start-up cost, for debugging and small tests.
 * :class:`ClusterWorkers`: ``dask.distributed`` (the optional ``cluster``
   extra) through ``Client.get_executor()``; the data are scattered to every
   worker once (``broadcast=True``). Workers should run one thread each
@@ -122,6 +125,44 @@ class LocalWorkers:
         if self._pool is not None:
             self._pool.shutdown(wait=not cancel, cancel_futures=cancel)
         self._pool = None
+
+
+class InlineWorkers:
+    """Run each unit at once in this process; futures come back finished.
+
+    Parameters
+    ----------
+    data : search.unit.UnitData
+    work : callable, optional
+        As for :class:`LocalWorkers`.
+    """
+
+    workers = 1
+    description = "in this process (no workers)"
+
+    def __init__(self, data, work: Callable | None = None):
+        self.data = data
+        self.work = work or default_work()
+
+    def submit(self, task) -> Future:
+        future: Future = Future()
+        try:
+            import threadpoolctl
+            limits = threadpoolctl.threadpool_limits(1)
+        except ImportError:
+            limits = contextlib.nullcontext()
+        with limits:
+            try:
+                future.set_result(self.work(task, self.data))
+            except Exception as exc:  # reported by the loop as a failed unit
+                future.set_exception(exc)
+        return future
+
+    def restart(self) -> None:
+        """Nothing to restart."""
+
+    def shutdown(self, cancel: bool = False) -> None:
+        """Nothing to stop."""
 
 
 def _work_cluster(task, data, work):

@@ -187,9 +187,9 @@ class SearchLoop:
         self.progress.rung(b, nb, i, nr, len(current), self.k, rung.epochs,
                            len(tasks) - len(todo))
         for task in todo:
-            self._check_budget(task)
             while len(self._inflight) >= self.executor.workers:
                 self._collect()
+            self._check_budget(task)  # with the latest finished units counted
             self._submit(task)
         self._drain()
 

@@ -20,11 +20,13 @@ uses the levels ``s_max - s .. s_max``. A work unit is (candidate, fold,
 level): the same candidate met at the same level by two brackets is trained
 once, and a unit's seed depends on the level, never on the bracket.
 
-The space is a finite list, not a distribution to sample from, so each
-bracket takes the next ``n`` candidates of one seeded permutation, wrapping
-round (every candidate starts somewhere before any starts twice); a bracket
-wanting more candidates than there are takes them all and its later rungs
-shrink in proportion (never below one).
+The space is a finite list, not a distribution to sample from. The most
+aggressive bracket therefore starts *every* candidate (its rung sizes scale
+with the pool, never below one): that is plain successive halving over the
+whole space, where the savings come from. The other brackets hedge against
+dropping a slow starter too early: each takes its textbook number of
+candidates from one seeded permutation, wrapping round, and gives them more
+epochs from the start (shrunk in proportion when the pool is smaller).
 
 Everything here is pure planning on integers: ``log()`` is never used because
 ``log(243) / log(3)`` is 4.999999999999999 in floating point.
@@ -144,16 +146,15 @@ def full_plan(max_epochs: int, n_candidates: int, eta: int = 3) -> tuple[Bracket
 
 
 def fit_to_pool(bracket: Bracket, n_candidates: int) -> Bracket:
-    """The bracket shrunk to a pool of ``n_candidates`` (a no-op when it fits).
+    """The bracket resized to start ``n_candidates`` (a no-op at its own size).
 
-    Rung ``i`` keeps ``max(1, floor(m / eta_i))`` candidates, where
-    ``m = min(n, n_candidates)`` and ``eta_i = n / n_i`` is the bracket's own
-    shrink factor, computed in integers as ``floor(m * n_i / n)``.
+    Rung ``i`` keeps ``max(1, floor(m * n_i / n))`` candidates for ``m``
+    starters instead of ``n``: the bracket's own shrink factors, in integers.
     """
     n = bracket.size
-    if n_candidates >= n:
-        return bracket
     m = max(int(n_candidates), 1)
+    if m == n:
+        return bracket
     rungs = tuple(Rung(r.level, r.epochs, max(1, m * r.size // n)) for r in bracket.rungs)
     return Bracket(bracket.s, rungs)
 
@@ -175,9 +176,12 @@ def assign(candidates: Sequence[str], brackets: Sequence[Bracket],
            seed: int) -> list[tuple[Bracket, tuple[str, ...]]]:
     """Which candidates start each bracket, with the bracket fitted to the pool.
 
-    Bracket ``b`` takes the next ``min(n_b, N)`` candidates of one seeded
-    permutation of the ``N`` candidates, wrapping round, so no candidate
-    starts twice before every candidate has started once.
+    The first (most aggressive) bracket starts **every** candidate, so each one
+    within budget is trained at least briefly on every fold; its rungs scale
+    with the pool. Each later bracket ``b`` takes the next ``min(n_b, N)``
+    candidates of one seeded permutation of the ``N`` candidates, wrapping
+    round, so no candidate starts a later bracket twice before every candidate
+    has started one.
     """
     order = permutation(candidates, seed)
     total = len(order)
@@ -185,12 +189,12 @@ def assign(candidates: Sequence[str], brackets: Sequence[Bracket],
         raise ValueError("there are no candidates to schedule")
     out = []
     start = 0
-    for bracket in brackets:
-        fitted = fit_to_pool(bracket, total)
-        take = min(bracket.size, total)
+    for b, bracket in enumerate(brackets):
+        take = total if b == 0 else min(bracket.size, total)
         chosen = tuple(order[(start + i) % total] for i in range(take))
-        start = (start + take) % total
-        out.append((fitted, chosen))
+        if b > 0:
+            start = (start + take) % total
+        out.append((fit_to_pool(bracket, take), chosen))
     return out
 
 

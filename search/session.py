@@ -44,8 +44,9 @@ class SearchRequest:
     ``budgets`` maps ``max_params``, ``max_macs``, ``max_ram_kb`` (int8 peak
     activation memory) and ``max_flash_kb`` to limits that replace the space
     file's; ``training`` overrides :data:`DEFAULT_TRAINING`. ``workers`` is the
-    number of local processes (default: the number of cores); ``cluster`` a
-    Dask scheduler address, used instead of local processes.
+    number of local processes (default: the number of cores; 0 runs the units
+    in this process); ``cluster`` a Dask scheduler address (or a
+    ``distributed`` cluster object), used instead of local processes.
     """
 
     data: str
@@ -165,8 +166,10 @@ def _check_training(training: dict) -> None:
 
 
 def _executor(request: SearchRequest, data: UnitData, work):
-    from search.executors import ClusterWorkers, LocalWorkers
+    from search.executors import ClusterWorkers, InlineWorkers, LocalWorkers
     if request.cluster is not None:
         return ClusterWorkers(request.cluster, data, work)
     workers = request.workers if request.workers is not None else (os.cpu_count() or 1)
+    if workers == 0:
+        return InlineWorkers(data, work)
     return LocalWorkers(request.out, workers, work)

@@ -68,6 +68,7 @@ from pathlib import Path
 from typing import Any, Sequence, Union
 
 import numpy as np
+import pandas as pd
 
 from tinyconv.arch import (MAX_SIDE, MAX_WIDTH, MODES, Arch, ArchError, BatchNorm, Conv,
                            Dense, Depthwise, Dropout, GlobalPool, InputSpec, Pool, expand)
@@ -275,12 +276,12 @@ class _Reader:
                   ) -> tuple[tuple, ...]:
         """One list for every stage, or a list per stage (at least ``n_stages``)."""
         if isinstance(value, list) and value and all(isinstance(v, list) for v in value):
-            if len(value) < n_stages:
+            if len(value) != n_stages:
                 raise self.fail(key, value, f"gives choices for {len(value)} stages but "
-                                            f"stages.count goes up to {n_stages}; add a "
-                                            "list per stage or give one list for all")
+                                            f"stages.count goes up to {n_stages}; give one "
+                                            "list per stage, or one list for all stages")
             return tuple(self.choices(v, f"{key}[{i}]", check, what)
-                         for i, v in enumerate(value[:max(n_stages, 1)]))
+                         for i, v in enumerate(value))
         return (self.choices(value, key, check, what),) * max(n_stages, 1)
 
 
@@ -406,9 +407,10 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
     pool_size = st.get("pool_size", 2)
     if not _is_int(pool_size, 2, MAX_SIDE):
         raise r.fail("stages.pool_size", pool_size, f"must be one integer 2..{MAX_SIDE}")
-    shared = r.choices(st.get("shared", list(SHAREABLE)), "stages.shared",
-                       lambda s: s in SHAREABLE, f"one of {', '.join(SHAREABLE)}") \
-        if st.get("shared", None) != [] else ()
+    shared: tuple[str, ...] = ()
+    if st.get("shared", SHAREABLE) != []:  # [] (nothing shared) is allowed here
+        shared = r.choices(st.get("shared", list(SHAREABLE)), "stages.shared",
+                           lambda s: s in SHAREABLE, f"one of {', '.join(SHAREABLE)}")
     for name, lists in (("kernel", kernels), ("conv", convs), ("pool", pools)):
         if name in shared and len(set(lists)) > 1:
             raise r.fail(f"stages.{name}", st[name], "is given per stage, so it cannot be "
@@ -494,13 +496,31 @@ def enumerate_space(space: Space, max_candidates: int | None = None,
     seen: set[str] = set()
     out: list[Arch] = []
     first_error: ArchError | None = None
+    stage_cache: dict = {}
+
+    def stage(opts: tuple, bn: bool) -> tuple[tuple, str]:
+        """Layers and text of one stage (cached: the same stage recurs a lot)."""
+        key = (opts, bn)
+        if key not in stage_cache:
+            layers = tuple(_stage_layers(*opts, space.pool_size, bn))
+            stage_cache[key] = layers, "-".join(map(str, layers))
+        return stage_cache[key]
+
+    tails = {}
+    for gap, hidden, bn, drop in itertools.product((False, True), space.hidden,
+                                                   space.batch_norm, space.dropout):
+        layers = ([GlobalPool()] if gap else []) + ([Dense(hidden)] if hidden else []) \
+            + ([BatchNorm()] if hidden and bn else []) + ([Dropout(drop)] if drop else [])
+        tails[gap, hidden, bn, drop] = tuple(layers), "-".join(map(str, layers))
+
     for spec in space.inputs:
+        spec_text = str(spec)
         for count in space.counts:
             for combo in _stage_options(space, count):
-                body = [layer for opts in combo
-                        for layer in _stage_layers(*opts, space.pool_size, False)]
-                try:  # shapes do not depend on batch norm: check the body once
-                    ops = expand(Arch(spec, tuple(body)), 2)
+                bodies = {bn: [stage(opts, bn) for opts in combo] for bn in space.batch_norm}
+                plain = tuple(layer for opts in combo for layer in stage(opts, False)[0])
+                try:  # shapes do not depend on batch norm: check the plain body once
+                    ops = expand(Arch(spec, plain), 2)
                     shape = next(op.in_shape for op in ops if op.kind in ("flatten", "dense"))
                 except ArchError as exc:
                     first_error = first_error or exc
@@ -508,21 +528,14 @@ def enumerate_space(space: Space, max_candidates: int | None = None,
                 spatial = count > 0 and len(shape) == 3 and shape[:2] != (1, 1)
                 for head, hidden, bn, drop in itertools.product(
                         space.heads, space.hidden, space.batch_norm, space.dropout):
-                    layers = [layer for opts in combo
-                              for layer in _stage_layers(*opts, space.pool_size, bn)]
-                    if head == "gap" and spatial:
-                        layers.append(GlobalPool())
-                    if hidden:
-                        layers.append(Dense(hidden))
-                        if bn:
-                            layers.append(BatchNorm())
-                    if drop:
-                        layers.append(Dropout(drop))
-                    arch = Arch(spec, tuple(layers))
-                    text = str(arch)
+                    tail, tail_text = tails[head == "gap" and spatial, hidden, bn, drop]
+                    parts = [t for _, t in bodies[bn]] + ([tail_text] if tail_text else [])
+                    # the same text as str(Arch(...)), built from cached pieces
+                    text = spec_text + ("/" + "-".join(parts) if parts else "")
                     if text not in seen:
                         seen.add(text)
-                        out.append(arch)
+                        out.append(Arch(spec, tuple(layer for lay, _ in bodies[bn]
+                                                    for layer in lay) + tail))
     if not out:
         raise SpaceError(f"{space.source}: no combination of the space fits its input; the "
                          f"first problem: {first_error}; use larger inputs or fewer stages")
@@ -593,10 +606,9 @@ class Filtered:
         return (f"{self.n_candidates} candidates, {len(self.survivors)} within budget"
                 + (f"; {over}" if over else ""))
 
-    def table(self):
-        """A DataFrame, one row per candidate: candidate, params, macs,
-        peak_int8_bytes, flash_bytes, within_budget, over (budget names, comma-joined)."""
-        import pandas as pd
+    def table(self) -> pd.DataFrame:
+        """One row per candidate: candidate, params, macs, peak_int8_bytes,
+        flash_bytes, within_budget, over (the budget names, comma-joined)."""
         return pd.DataFrame({
             "candidate": [t.arch for t in self.totals],
             "params": [t.params for t in self.totals],
@@ -627,7 +639,8 @@ def filter_budget(candidates: Sequence[Arch], budget: Budget, n_classes: int) ->
     if not candidates:
         raise BudgetError("no candidates to filter: the space yields none")
     limits = budget.limits()
-    totals = tuple(totals_of(a, n_classes) for a in candidates)
+    cache: dict = {}
+    totals = tuple(totals_of(a, n_classes, cache) for a in candidates)
     over_each = [budget.over(t) for t in totals]
     within = tuple(not o for o in over_each)
     counts = {name: sum(name in o for o in over_each) for name in limits}

@@ -171,7 +171,8 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     net = Network.from_arch(arch, task.n_classes, seed=derive_seed(task.seed, "weights"))
     config = TrainConfig(epochs=task.epochs, seed=derive_seed(task.seed, "batches"),
                          **dict(task.training))
-    hist = fit(net, x_train, y_train, config, x_held, y_held)
+    with np.errstate(over="ignore", invalid="ignore"):  # divergence is reported, not warned
+        hist = fit(net, x_train, y_train, config, x_held, y_held)
     history = {"train_loss": list(hist.train_loss), "train_acc": list(hist.train_acc),
                "val_loss": list(hist.val_loss), "val_acc": list(hist.val_acc)}
     if hist.status == "diverged":

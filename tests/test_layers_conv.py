@@ -157,3 +157,16 @@ def test_input_grad_off_skips_only_the_input_gradient():
     assert layer.backward(g) is None
     for key in expected:
         np.testing.assert_array_equal(layer.grads[key], expected[key])
+
+
+@pytest.mark.parametrize("shape", [SHAPES[0], SHAPES[6], SHAPES[7], SHAPES[8]])
+def test_returned_gradients_are_not_overwritten_later(shape):
+    """A grad_x returned by backward stays intact through later forwards and backwards."""
+    op, layer = _layer(shape)
+    x = randn((2,) + op.in_shape, 1)
+    layer.forward(x, training=True)
+    gx1 = layer.backward(randn((2,) + op.out_shape, 2))
+    gx1_copy = gx1.copy()
+    layer.forward(randn((2,) + op.in_shape, 3), training=True)
+    layer.backward(randn((2,) + op.out_shape, 4))
+    np.testing.assert_array_equal(gx1, gx1_copy)

@@ -76,25 +76,35 @@ def test_bad_eta():
         schedule.hyperband(9, 1)
 
 
-def test_fit_to_pool_shrinks_in_proportion():
-    """A bracket larger than the pool keeps the pool and shrinks its rungs, never below 1."""
+def test_fit_to_pool_scales_in_proportion():
+    """A bracket resized to a pool keeps its shrink factors, never below 1 per rung."""
     b = schedule.hyperband(81, 3)[0]
     fitted = schedule.fit_to_pool(b, 20)
     assert [r.size for r in fitted.rungs] == [20, 6, 2, 1, 1]
     assert [r.epochs for r in fitted.rungs] == [1, 3, 9, 27, 81]
-    assert schedule.fit_to_pool(b, 500) == b
+    assert [r.size for r in schedule.fit_to_pool(b, 162).rungs] == [162, 54, 18, 6, 2]
+    assert schedule.fit_to_pool(b, 81) == b
 
 
-def test_assign_covers_before_repeating():
-    """Brackets take successive slices of one permutation: all start before any twice."""
-    cands = [f"8x8gray/d{i}" for i in range(1, 12)]
-    brackets = schedule.hyperband(9, 3)  # sizes 9, 5, 3
-    plan = schedule.assign(cands, brackets, seed=4)
-    firsts = [c for _, chosen in plan for c in chosen]
-    assert len(firsts) == 9 + 5 + 3
-    assert set(firsts[:11]) == set(cands)
-    for _, chosen in plan:
-        assert len(set(chosen)) == len(chosen)
+def test_first_bracket_starts_every_candidate():
+    """The most aggressive bracket starts all candidates; later ones their textbook sizes."""
+    cands = [f"8x8gray/d{i}" for i in range(1, 47)]
+    plan = schedule.assign(cands, schedule.hyperband(9, 3), seed=4)   # sizes 9, 5, 3
+    (b0, first), (b1, second), (b2, third) = plan
+    assert sorted(first) == sorted(cands)
+    assert [r.size for r in b0.rungs] == [46, 15, 5]
+    assert len(second) == 5 and len(third) == 3
+    assert not set(second) & set(third)  # the permutation continues, no repeat yet
+    assert [r.size for r in b1.rungs] == [5, 1] and [r.size for r in b2.rungs] == [3]
+
+
+def test_small_pool_shrinks_later_brackets():
+    """With fewer candidates than a bracket wants, it takes them all, each once."""
+    cands = ["8x8gray/d1", "8x8gray/d2"]
+    plan = schedule.assign(cands, schedule.hyperband(9, 3), seed=0)
+    for bracket, chosen in plan:
+        assert sorted(chosen) == sorted(cands)
+        assert bracket.rungs[0].size == 2 and bracket.rungs[-1].size >= 1
 
 
 def test_assign_independent_of_input_order():

@@ -35,6 +35,16 @@ def _positive_int(text: str) -> int:
     return value
 
 
+def _count(text: str) -> int:
+    try:
+        value = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
+    if value < 0:
+        raise argparse.ArgumentTypeError(f"{value} must be 0 or more")
+    return value
+
+
 def _positive_float(text: str) -> float:
     try:
         value = float(text)
@@ -84,8 +94,9 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
     t.add_argument("--weight-decay", type=float, default=None, metavar="W",
                    help="decoupled weight decay (default 0)")
     x = parser.add_argument_group("where units run")
-    x.add_argument("--workers", type=_positive_int, default=None, metavar="N",
-                   help="local worker processes (default: the number of cores)")
+    x.add_argument("--workers", type=_count, default=None, metavar="N",
+                   help="local worker processes (default: the number of cores; 0 runs "
+                        "the units in this process)")
     x.add_argument("--cluster", default=None, metavar="ADDR",
                    help="a Dask scheduler, e.g. tcp://10.0.0.5:8786, instead of local "
                         "processes (needs the 'cluster' extra)")

@@ -94,9 +94,22 @@ class Conv(Layer):
         self.grads["b"] = column_sum(g)
         if not self.input_grad:
             return None
-        gcols = g @ w.reshape(k * k * c, f).T  # (n*oh*ow, k*k*c_in)
-        gxp = col2im(gcols, self._xp_shape, k, k, s)
+        buf = self._buffers
+        # A 1 x 1, stride-1 kernel returns the column gradient itself as grad_x,
+        # so it gets a fresh array; otherwise col2im copies it and it is scratch.
+        reuse = not (k == 1 and s == 1)
+        gcols = buf.get("gcols") if reuse else None
+        if gcols is None or gcols.shape != (g.shape[0], k * k * c) or gcols.dtype != g.dtype:
+            gcols = np.empty((g.shape[0], k * k * c), dtype=g.dtype)
+            if reuse:
+                buf["gcols"] = gcols
+        np.matmul(g, w.reshape(k * k * c, f).T, out=gcols)  # (n*oh*ow, k*k*c_in)
         n, h, wd, _ = self._x_shape
+        padded = any(self.pads)
+        # The padded gradient is scratch only when it is cropped (a copy) before return.
+        gxp = col2im(gcols, self._xp_shape, k, k, s, buf.get("gxp") if padded else None)
+        if padded:
+            buf["gxp"] = gxp
         return crop_nhwc(gxp, self.pads, h, wd)
 
     def kink_state(self) -> np.ndarray | None:

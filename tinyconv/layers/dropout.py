@@ -42,7 +42,9 @@ class Dropout(Layer):
         held = self._mask
         if not (self.hold_mask and held is not None and held.shape == x.shape
                 and held.dtype == x.dtype):
-            keep = self.rng.random(x.shape) >= self.rate
+            # Drawn in float32 whatever the layer's dtype: half the work, and one
+            # seed gives the same masks to float32 and float64 layers.
+            keep = self.rng.random(x.shape, dtype=np.float32) >= np.float32(self.rate)
             self._mask = keep.astype(x.dtype) * x.dtype.type(1.0 / (1.0 - self.rate))
         return x * self._mask
 

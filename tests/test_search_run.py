@@ -1,0 +1,168 @@
+"""Tests of a whole search run in this process: plan, budgets, resume, divergence, refusal."""
+
+from __future__ import annotations
+
+import dataclasses
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from search.session import SearchRequest, run_search
+from search.store import RunStore
+from search.unit import run_unit
+from tinyconv.errors import BudgetError, RunError
+
+DATA = "builtin:tiles?n=6&size=8&seed=1"
+# Six candidates: 8x8gray, 8x8gray/d8, c2k3-p2, c2k3-p2-d8, c4k3-p2, c4k3-p2-d8.
+SPACE = """
+[input]
+sizes = [8]
+modes = ["gray"]
+
+[stages]
+count = [0, 1]
+filters = [2, 4]
+
+[head]
+kind = ["flatten"]
+hidden = [0, 8]
+"""
+DIVERGING = "8x8gray/c4k3-p2"
+
+
+def request(out: Path, **change) -> SearchRequest:
+    base = dict(data=DATA, space=SPACE, out=out, folds=3, seed=2, max_epochs=3, workers=0,
+                training={"batch_size": 16, "lr": 0.01})
+    base.update(change)
+    return SearchRequest(**base)
+
+
+def diverge_one(task, data):
+    """Train one candidate with a huge SGD learning rate (through its training setting)."""
+    if task.candidate == DIVERGING:
+        task = dataclasses.replace(task, training=(("batch_size", 16), ("lr", 1e30),
+                                                   ("optimizer", "sgd")))
+    return run_unit(task, data)
+
+
+@pytest.fixture(scope="module")
+def finished(tmp_path_factory):
+    out = tmp_path_factory.mktemp("run")
+    return out, run_search(request(out))
+
+
+def test_search_completes_and_ranks(finished):
+    """The plan runs to the end; every ranked candidate has all folds at its rung."""
+    out, summary = finished
+    assert summary.outcome.state == "complete"
+    store = RunStore(out)
+    units = store.units()
+    assert not units.duplicated(["candidate", "fold", "rung"]).any()
+    # R = 3, eta = 3: bracket 1 starts all 6 at 1 epoch and keeps 2 for 3 epochs;
+    # bracket 0 gives 2 more candidates 3 epochs (Li et al. 2018, sizes scaled to 6).
+    per_rung = units.groupby("rung")["candidate"].nunique()
+    assert per_rung.loc[0] == 6 and 2 <= per_rung.loc[1] <= 4
+    assert set(units[units.rung == 0]["candidate"]) == set(store.candidates()["candidate"])
+    table = summary.table
+    assert table["pick"].sum() == 1 and table["finalist"].any()
+    for row in table.itertuples():
+        got = units[(units.candidate == row.candidate) & (units.rung == row.rung)]
+        assert sorted(got["fold"]) == [0, 1, 2]
+        assert row.acc_mean == pytest.approx(got["val_acc"].mean())
+    on_disk = pd.read_csv(out / "ranking.csv")
+    assert list(on_disk["candidate"]) == list(table["candidate"])
+
+
+def test_resume_recomputes_nothing(finished):
+    """Re-running the same search in its folder runs no unit and changes no row."""
+    out, first = finished
+    before = RunStore(out).units()
+    again = run_search(request(out))
+    assert again.outcome.units_run == 0
+    pd.testing.assert_frame_equal(RunStore(out).units(), before)
+    assert (out / "ranking.csv").read_bytes() == first.ranking_path.read_bytes()
+
+
+def test_refuses_other_settings(finished):
+    """The same folder with other folds is refused, saying what differs and what to do."""
+    out, _ = finished
+    with pytest.raises(RunError, match=r"folds: 3 in the run folder, 4 now(.|\n)*another --out"):
+        run_search(request(out, folds=4))
+    with pytest.raises(RunError, match=r"data fingerprint: .* it is other data"):
+        run_search(request(out, data="builtin:tiles?n=6&size=8&seed=2"))
+
+
+def test_over_budget_never_trained(tmp_path):
+    """Candidates over a device budget are stored as such and never trained."""
+    summary = run_search(request(tmp_path, budgets={"max_params": 400}))
+    store = RunStore(tmp_path)
+    cands = store.candidates().set_index("candidate")
+    over = set(cands.index[~cands["within_budget"]])
+    assert over and over.isdisjoint(set(store.units()["candidate"]))
+    assert (cands.loc[list(over), "params"] > 400).all()
+    assert (cands.loc[list(over), "over"] == "max_params").all()
+    assert summary.removed["max_params"] == len(over)
+    assert store.config()["budget"]["max_params"] == 400
+
+
+def test_nothing_fits_is_refused(tmp_path):
+    """A budget nothing meets is a BudgetError before any training."""
+    with pytest.raises(BudgetError):
+        run_search(request(tmp_path, budgets={"max_params": 5}))
+    assert not (tmp_path / "run.sqlite").exists()
+
+
+def test_diverging_candidate_is_recorded(tmp_path):
+    """A candidate whose loss diverges is stored as diverged; the search completes without it."""
+    summary = run_search(request(tmp_path), work=diverge_one)
+    assert summary.outcome.state == "complete" and summary.outcome.diverged >= 3
+    units = RunStore(tmp_path).units()
+    bad = units[units.candidate == DIVERGING]
+    assert set(bad["status"]) == {"diverged"} and bad["val_acc"].isna().all()
+    assert "not finite" in bad["message"].iloc[0]
+    assert DIVERGING not in set(summary.table["candidate"])
+    assert not summary.table.empty
+
+
+def test_epoch_budget_stops_then_resume_finishes(tmp_path, finished):
+    """An epoch budget stops the plan; resuming without it ends where an unbroken run ends."""
+    summary = run_search(request(tmp_path, budget_epochs=7))
+    assert summary.outcome.state == "budget_epochs"
+    assert summary.outcome.epochs <= 7
+    done = run_search(request(tmp_path))
+    assert done.outcome.state == "complete"
+    _, reference = finished
+    assert (tmp_path / "ranking.csv").read_bytes() == reference.ranking_path.read_bytes()
+
+
+def test_cpu_budget_stops(tmp_path):
+    """A CPU budget smaller than one unit stops after the first unit, and says so."""
+    summary = run_search(request(tmp_path, budget_cpu_s=1e-6))
+    assert summary.outcome.state == "budget_cpu"
+    assert summary.outcome.units_run == 1
+    assert RunStore(tmp_path).outcome()["state"] == "budget_cpu"
+
+
+def test_full_mode_shares_final_units(tmp_path, finished):
+    """--full trains every candidate R epochs on all folds, with the final rung's seeds."""
+    summary = run_search(request(tmp_path, full=True))
+    units = RunStore(tmp_path).units()
+    assert set(units["epochs"]) == {3} and set(units["rung"]) == {1}
+    assert len(units) == 6 * 3
+    assert summary.table["finalist"].all()
+    out, _ = finished
+    sh = RunStore(out).units()
+    top = sh[sh.rung == 1].set_index(["candidate", "fold"])["val_acc"]
+    full = units.set_index(["candidate", "fold"])["val_acc"]
+    assert np.array_equal(full.loc[top.index].to_numpy(), top.to_numpy())
+
+
+def test_rank_by_accuracy(finished):
+    """--rank-by accuracy orders rows by mean held-out accuracy among the finalists."""
+    out, _ = finished
+    summary = run_search(request(out, rank_by="accuracy"))
+    fin = summary.table[summary.table["finalist"]]
+    assert list(fin["acc_mean"]) == sorted(fin["acc_mean"], reverse=True)
+    assert list(summary.table["rank_accuracy"]) == list(range(1, len(summary.table) + 1))
