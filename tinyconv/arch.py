@@ -489,80 +489,123 @@ def expand(arch: Arch, n_classes: int, *, text: str = "") -> tuple[Op, ...]:
     ------
     ArchError
         When a layer does not fit the map it meets, naming token, position and size.
+    InputError
+        When ``n_classes`` is not an integer >= 2.
     """
-    if isinstance(n_classes, bool) or not isinstance(n_classes, int) or n_classes < 2:
-        raise InputError(f"number of classes must be an integer of at least 2, got "
-                         f"{n_classes!r}")
-    text = text or str(arch)
+    check_classes(n_classes)
     ops: list[Op] = []
     shape: tuple[int, ...] = arch.input.shape
     layers = arch.layers
-
-    def fail(pos: int, tok: str, why: str) -> None:
-        raise ArchError(f"{text!r}: layer {pos} {tok!r}: {why}", text=text,
-                        position=pos, token=tok)
-
     for i, layer in enumerate(layers):
-        pos, tok = i + 1, str(layer)
+        prev = layers[i - 1] if i > 0 else None
         follows_bn = i + 1 < len(layers) and isinstance(layers[i + 1], BatchNorm)
-        if isinstance(layer, (Conv, Depthwise)):
-            if len(shape) != 3:
-                fail(pos, tok, f"a convolution needs an image map, but meets a vector of "
-                               f"{shape[0]} features (after gap or dense); move it earlier")
-            h, w, c = shape
-            k, s = layer.kernel, layer.stride
-            if layer.valid and (k > h or k > w):
-                fail(pos, tok, f"kernel {k} is larger than the input map {h}x{w}; "
-                               "use a smaller kernel or same padding")
-            oh, pt, pb = conv_output(h, k, s, layer.valid)
-            ow, pl, pr = conv_output(w, k, s, layer.valid)
-            f = layer.filters if isinstance(layer, Conv) else c
-            kind = "conv" if isinstance(layer, Conv) else "dwconv"
-            ops.append(Op(kind, shape, (oh, ow, f), pos, tok, filters=f, kernel=k, stride=s,
-                          padding="valid" if layer.valid else "same", pads=(pt, pb, pl, pr)))
-            shape = (oh, ow, f)
-            if not follows_bn:
-                ops.append(Op("relu", shape, shape, pos, tok))
-        elif isinstance(layer, Pool):
-            if len(shape) != 3:
-                fail(pos, tok, f"pooling needs an image map, but meets a vector of "
-                               f"{shape[0]} features; move it before gap or dense")
-            h, w, c = shape
-            if layer.size > h or layer.size > w:
-                fail(pos, tok, f"pool size {layer.size} is larger than the map {h}x{w} it "
-                               "meets (it would shrink it below 1x1); use a smaller pool "
-                               "or fewer pooling layers")
-            out = (h // layer.size, w // layer.size, c)
-            ops.append(Op("maxpool" if layer.kind == "max" else "avgpool", shape, out, pos,
-                          tok, size=layer.size, stride=layer.size))
-            shape = out
-        elif isinstance(layer, GlobalPool):
-            if len(shape) != 3:
-                fail(pos, tok, f"global pooling needs an image map, but meets a vector of "
-                               f"{shape[0]} features; keep one gap, before any dense layer")
-            ops.append(Op("gap", shape, (shape[2],), pos, tok))
-            shape = (shape[2],)
-        elif isinstance(layer, Dense):
-            if len(shape) == 3:
-                flat = (shape[0] * shape[1] * shape[2],)
-                ops.append(Op("flatten", shape, flat, pos, tok))
-                shape = flat
-            ops.append(Op("dense", shape, (layer.units,), pos, tok, units=layer.units))
-            shape = (layer.units,)
-            if not follows_bn:
-                ops.append(Op("relu", shape, shape, pos, tok))
-        elif isinstance(layer, BatchNorm):
-            ops.append(Op("bn", shape, shape, pos, tok))
-            prev = layers[i - 1] if i > 0 else None
-            if isinstance(prev, (Conv, Depthwise, Dense)):
-                ops.append(Op("relu", shape, shape, pos, tok))
-        elif isinstance(layer, Dropout):
-            ops.append(Op("dropout", shape, shape, pos, tok, rate=layer.rate))
-        else:  # pragma: no cover - the parser makes only the types above
-            raise TypeError(f"unknown layer spec {layer!r}")
+        step, shape = expand_layer(layer, shape, i + 1, prev, follows_bn,
+                                   lambda: text or str(arch))
+        ops.extend(step)
+    ops.extend(expand_head(shape, n_classes))
+    return tuple(ops)
+
+
+def check_classes(n_classes: int) -> int:
+    """``n_classes`` if it is an integer >= 2, else :class:`InputError`."""
+    if isinstance(n_classes, bool) or not isinstance(n_classes, int) or n_classes < 2:
+        raise InputError(f"number of classes must be an integer of at least 2, got "
+                         f"{n_classes!r}")
+    return n_classes
+
+
+def expand_head(shape: tuple[int, ...], n_classes: int) -> list[Op]:
+    """The implicit head on a map or vector of ``shape``: flatten if spatial, dense."""
+    ops = []
     if len(shape) == 3:
         flat = (shape[0] * shape[1] * shape[2],)
         ops.append(Op("flatten", shape, flat))
         shape = flat
     ops.append(Op("dense", shape, (n_classes,), units=n_classes))
-    return tuple(ops)
+    return ops
+
+
+def expand_layer(layer: LayerSpec, shape: tuple[int, ...], pos: int,
+                 prev: LayerSpec | None, follows_bn: bool, text=lambda: ""
+                 ) -> tuple[list[Op], tuple[int, ...]]:
+    """The ops of one layer (1-based position ``pos``) meeting a map of ``shape``.
+
+    ``prev`` is the layer before (None for the first) and ``follows_bn`` says
+    whether a batch norm comes next: they decide where the ReLU goes. The ops
+    depend only on (layer, shape, whether prev is conv/depthwise/dense,
+    follows_bn) apart from their ``position``, so callers may reuse them.
+    ``text`` is called for the error message only.
+
+    Returns
+    -------
+    ops : list of Op
+    out_shape : tuple of int
+
+    Raises
+    ------
+    ArchError
+        When the layer does not fit ``shape``.
+    """
+    tok = str(layer)
+    ops: list[Op] = []
+
+    def fail(why: str) -> None:
+        whole = text()
+        raise ArchError(f"{whole!r}: layer {pos} {tok!r}: {why}", text=whole,
+                        position=pos, token=tok)
+
+    if isinstance(layer, (Conv, Depthwise)):
+        if len(shape) != 3:
+            fail(f"a convolution needs an image map, but meets a vector of "
+                 f"{shape[0]} features (after gap or dense); move it earlier")
+        h, w, c = shape
+        k, s = layer.kernel, layer.stride
+        if layer.valid and (k > h or k > w):
+            fail(f"kernel {k} is larger than the input map {h}x{w}; "
+                 "use a smaller kernel or same padding")
+        oh, pt, pb = conv_output(h, k, s, layer.valid)
+        ow, pl, pr = conv_output(w, k, s, layer.valid)
+        f = layer.filters if isinstance(layer, Conv) else c
+        kind = "conv" if isinstance(layer, Conv) else "dwconv"
+        ops.append(Op(kind, shape, (oh, ow, f), pos, tok, filters=f, kernel=k, stride=s,
+                      padding="valid" if layer.valid else "same", pads=(pt, pb, pl, pr)))
+        shape = (oh, ow, f)
+        if not follows_bn:
+            ops.append(Op("relu", shape, shape, pos, tok))
+    elif isinstance(layer, Pool):
+        if len(shape) != 3:
+            fail(f"pooling needs an image map, but meets a vector of "
+                 f"{shape[0]} features; move it before gap or dense")
+        h, w, c = shape
+        if layer.size > h or layer.size > w:
+            fail(f"pool size {layer.size} is larger than the map {h}x{w} it "
+                 "meets (it would shrink it below 1x1); use a smaller pool "
+                 "or fewer pooling layers")
+        out = (h // layer.size, w // layer.size, c)
+        ops.append(Op("maxpool" if layer.kind == "max" else "avgpool", shape, out, pos,
+                      tok, size=layer.size, stride=layer.size))
+        shape = out
+    elif isinstance(layer, GlobalPool):
+        if len(shape) != 3:
+            fail(f"global pooling needs an image map, but meets a vector of "
+                 f"{shape[0]} features; keep one gap, before any dense layer")
+        ops.append(Op("gap", shape, (shape[2],), pos, tok))
+        shape = (shape[2],)
+    elif isinstance(layer, Dense):
+        if len(shape) == 3:
+            flat = (shape[0] * shape[1] * shape[2],)
+            ops.append(Op("flatten", shape, flat, pos, tok))
+            shape = flat
+        ops.append(Op("dense", shape, (layer.units,), pos, tok, units=layer.units))
+        shape = (layer.units,)
+        if not follows_bn:
+            ops.append(Op("relu", shape, shape, pos, tok))
+    elif isinstance(layer, BatchNorm):
+        ops.append(Op("bn", shape, shape, pos, tok))
+        if isinstance(prev, (Conv, Depthwise, Dense)):
+            ops.append(Op("relu", shape, shape, pos, tok))
+    elif isinstance(layer, Dropout):
+        ops.append(Op("dropout", shape, shape, pos, tok, rate=layer.rate))
+    else:  # pragma: no cover - the parser makes only the types above
+        raise TypeError(f"unknown layer spec {layer!r}")
+    return ops, shape

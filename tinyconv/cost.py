@@ -39,7 +39,8 @@ from typing import Union
 
 import pandas as pd
 
-from tinyconv.arch import Arch, Op, expand, parse
+from tinyconv.arch import (Arch, BatchNorm, Conv, Dense, Depthwise, Op, check_classes, expand,
+                           expand_head, expand_layer, parse)
 from tinyconv.errors import InputError
 
 #: op kinds that write a new activation buffer (the others work in place)
@@ -283,30 +284,67 @@ class Totals:
         return self.peak_int8_bytes / KB
 
 
-def totals_of(arch: Union[Arch, str], n_classes: int) -> Totals:
+def totals_of(arch: Union[Arch, str], n_classes: int, cache: dict | None = None) -> Totals:
     """The totals of :func:`cost_of` without building its rows (for filtering many).
 
-    Uses the same per-op rule as :func:`cost_of`; a test checks they agree.
+    Parameters
+    ----------
+    arch : Arch or str
+    n_classes : int
+    cache : dict, optional
+        Reused between calls on many candidates (e.g. a whole space): one
+        layer meeting the same map after the same kind of layer yields the same
+        ops, so their figures are summed once. Keep one dict per batch of work.
+
+    Notes
+    -----
+    Same ops (:func:`tinyconv.arch.expand_layer`, the steps of ``expand``) and
+    the same per-op rule as :func:`cost_of`; a test checks that they agree.
     """
     arch = _as_arch(arch)
-    ops = expand(arch, n_classes)
+    check_classes(n_classes)
+    cache = {} if cache is None else cache
     shape = arch.input.shape
-    n = shape[0] * shape[1] * shape[2]
-    params = macs = 0
-    flash, peak = INPUT_TABLE_ROWS * shape[2], 2 * n
+    params, macs = 0, 0
+    flash, peak = INPUT_TABLE_ROWS * shape[2], 2 * shape[0] * shape[1] * shape[2]
     exportable = True
-    prev = "input"
+    layers = arch.layers
+    prev = None
+    for i, layer in enumerate(layers):
+        follows_bn = i + 1 < len(layers) and type(layers[i + 1]) is BatchNorm
+        after_weights = isinstance(prev, _WEIGHTED_SPECS)
+        key = (layer, shape, after_weights, follows_bn)
+        hit = cache.get(key)
+        if hit is None:
+            ops, out = expand_layer(layer, shape, i + 1, prev, follows_bn,
+                                    lambda: str(arch))
+            hit = _summed(ops) + (after_weights or type(layer) is not BatchNorm, out)
+            cache[key] = hit
+        params += hit[0]
+        macs += hit[1]
+        flash += hit[2]
+        peak = max(peak, hit[3])
+        exportable = exportable and hit[4]
+        shape = hit[5]
+        prev = layer
+    key = ("head", shape, n_classes)
+    hit = cache.get(key)
+    if hit is None:
+        hit = cache[key] = _summed(expand_head(shape, n_classes))
+    return Totals(str(arch), n_classes, params + hit[0], macs + hit[1], flash + hit[2],
+                  max(peak, hit[3]), exportable)
+
+
+_WEIGHTED_SPECS = (Conv, Depthwise, Dense)
+
+
+def _summed(ops) -> tuple[int, int, int, int]:
+    """(params, macs, flash_bytes, largest live_elements) over ``ops``."""
+    params = macs = flash = peak = 0
     for op in ops:
         p, _, m, _, f, live = _numbers(op)
-        params += p
-        macs += m
-        flash += f
-        if live > peak:
-            peak = live
-        if op.kind == "bn" and prev not in WEIGHT_KINDS:
-            exportable = False
-        prev = op.kind
-    return Totals(str(arch), n_classes, params, macs, flash, peak, exportable)
+        params, macs, flash, peak = params + p, macs + m, flash + f, max(peak, live)
+    return params, macs, flash, peak
 
 
 # ---------------------------------------------------------------- training memory
