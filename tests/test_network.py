@@ -166,3 +166,13 @@ def test_forward_refuses_the_wrong_image_shape():
     with pytest.raises(DataError, match=r"images have shape \(1, 8, 8, 3\), but the network "
                                         r"8x8gray/c2k3 reads \(n, 8, 8, 1\)"):
         net.forward(np.zeros((1, 8, 8, 3), np.float32))
+
+
+def test_unsaveable_meta_and_arrays_are_refused(tmp_path):
+    """Meta that JSON cannot hold, or an object array, is refused before anything is written."""
+    net = Network.from_arch("8x8gray", 2)
+    with pytest.raises(DataError, match=r"meta for .*m\.npz is not JSON-serialisable: .*set"):
+        net.save(tmp_path / "m.npz", meta={"classes": {"a", "b"}})
+    with pytest.raises(DataError, match=r"extra array 'names' for .*m\.npz has dtype object"):
+        net.save(tmp_path / "m.npz", arrays={"names": np.array([None, 1], dtype=object)})
+    assert not list(tmp_path.iterdir())
