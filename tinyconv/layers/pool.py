@@ -73,7 +73,11 @@ class GlobalAvgPool(Layer):
     def forward(self, x: np.ndarray, training: bool = False) -> np.ndarray:
         if training:
             self._x_shape = x.shape
-        return x.mean(axis=(1, 2))
+        n, h, w, c = x.shape
+        # ones (h*w,) @ (n, h*w, c): a batched BLAS product, several times faster
+        # than mean over the two middle axes.
+        ones = np.full(h * w, 1.0 / (h * w), dtype=x.dtype)
+        return ones @ np.ascontiguousarray(x).reshape(n, h * w, c)
 
     def backward(self, grad_out: np.ndarray) -> np.ndarray:
         n, h, w, c = self._x_shape
