@@ -51,3 +51,25 @@ def build_run(run_dir: Path) -> Path:
                                     n_classes, tuple(sorted(TRAINING.items())))
                     store.record(run_unit(task, unit_data))
     return Path(run_dir)
+
+
+_BUILT: dict[str, object] = {}
+
+
+def shared_report(tmp_path_factory) -> tuple[Path, int, str]:
+    """The run folder with its report written by ``tinyconv report DIR``, once per session.
+
+    Returns (run folder, the command's exit code, what it printed).
+    """
+    if "run" not in _BUILT:
+        import contextlib
+        import io
+
+        from tinyconv.cli import main
+
+        run_dir = build_run(tmp_path_factory.mktemp("report_run") / "run")
+        out = io.StringIO()
+        with contextlib.redirect_stdout(out):
+            code = main(["report", str(run_dir)])
+        _BUILT["run"] = (run_dir, code, out.getvalue())
+    return _BUILT["run"]  # type: ignore[return-value]

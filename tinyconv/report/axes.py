@@ -28,12 +28,19 @@ def spans_decades(values: Sequence[float]) -> bool:
 def si(x: float, _pos: object = None) -> str:
     """Compact count: 950, 1.2k, 34k, 1.5M (for ticks and labels)."""
     x = float(x)
+    if not math.isfinite(x):
+        return str(x)
+    if x and abs(x - round(x)) <= 1e-9 * abs(x):  # 199.99999999 from 10**log10(200)
+        x = float(round(x))
     a = abs(x)
     for div, suffix in ((1e9, "G"), (1e6, "M"), (1e3, "k")):
-        if a >= div:
+        if a >= div * 0.9995:
             v = x / div
-            return f"{v:.0f}{suffix}" if abs(v) >= 10 or v == int(v) else f"{v:.1f}{suffix}"
-    return f"{x:.0f}" if x == int(x) else f"{x:.2g}"
+            return (f"{v:.0f}{suffix}" if abs(v) >= 10 or abs(v - round(v)) < 0.05
+                    else f"{v:.1f}{suffix}")
+    if x == int(x):
+        return f"{x:.0f}"
+    return f"{x:.2f}".rstrip("0").rstrip(".")
 
 
 SI_FORMAT = FuncFormatter(si)

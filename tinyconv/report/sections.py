@@ -33,6 +33,11 @@ CAUTIONS = (
 )
 
 
+def _count(n: int, noun: str) -> str:
+    """'1 candidate', '3 candidates'."""
+    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
+
+
 def _code(v: object) -> str:
     return f"<code>{esc(str(v))}</code>"
 
@@ -105,8 +110,8 @@ def ranking_section(data: RunData) -> Section:
                    .astype(bool)).sum())
     extra = []
     if n_lower:
-        extra.append(f"{n_lower} candidates were stopped at a lower rung (fewer epochs): they are "
-                     "listed after the finalists and take no part in the pick.")
+        extra.append(f"{_count(n_lower, 'candidate')} stopped at a lower rung (fewer epochs): "
+                     "listed after the finalists, taking no part in the pick.")
     extra.append(f"Chance accuracy with {len(data.classes)} classes is {pct(data.chance)}; "
                  "accuracy per thousand parameters counts only the part above chance.")
     return Section("ranking", "Ranking", body + "".join(paragraph(t) for t in extra),
@@ -176,10 +181,25 @@ def pick_section(data: RunData, a: Assembled) -> Section:
                         "fold model that held it out.")
 
 
+def budget_summary(data: RunData) -> str:
+    """One sentence: how many candidates the space had and what the budgets removed."""
+    cands = data.candidates
+    if cands is None or cands.empty:
+        return ""
+    n = len(cands)
+    within = int(cands["within_budget"].astype(bool).sum())
+    over = ", ".join(f"{k}: {v}" for k, v in data.removed.items() if v)
+    text = (f"The space held {_count(n, 'candidate')}; {within} fit every budget"
+            + (f" (removed, per budget: {over}; a candidate over two budgets counts twice)"
+               if over else "") + f". {_count(len(data.ranking), 'candidate')} finished every "
+            "fold of a rung and are ranked.")
+    return paragraph(text)
+
+
 def budget_section(data: RunData, a: Assembled) -> Section:
     b = a.tables["budgets.csv"]
     if b.empty:
-        body = paragraph("The run set no budgets.")
+        body = paragraph("The run set no device budgets.")
     else:
         def share(v: object) -> str:
             return pct(v, 0)
@@ -187,12 +207,19 @@ def budget_section(data: RunData, a: Assembled) -> Section:
         def within(v: object) -> str:
             return "\u2013" if v is None or (isinstance(v, float) and math.isnan(v)) else (
                 "yes" if v else "<strong>no</strong>")
-        body = table(b, (Column("budget", "budget", _code, numeric=False),
-                         Column("limits", "limits", esc, numeric=False),
-                         Column("limit", "limit", num), Column("pick", "pick", lambda v: num(v, 1)),
-                         Column("unit", "unit", esc, numeric=False),
-                         Column("share used", "share", share),
-                         Column("within", "within", within, numeric=False)))
+        shown = b.copy()
+        shown["_limit"] = [num(v, 0 if u in ("count", "MACs") else 1)
+                           for v, u in zip(b["limit"], b["unit"])]
+        shown["_pick"] = [num(v, 0 if u in ("count", "MACs") else 1)
+                          for v, u in zip(b["pick"], b["unit"])]
+        body = table(shown, (Column("budget", "budget", _code, numeric=False),
+                             Column("limits", "limits", esc, numeric=False),
+                             Column("limit", "_limit", esc), Column("pick", "_pick", esc),
+                             Column("unit", "unit", esc, numeric=False),
+                             Column("share used", "share", share),
+                             Column("pick within", "within", within, numeric=False),
+                             Column("candidates removed", "removed", num)))
+    body += budget_summary(data)
     cfg = definitions((k, _config_value(v)) for k, v in data.config.items())
     files = "".join(f"<li><code>{esc(n)}</code>: {esc(d)}</li>" for n, d in TABLE_FILES.items()
                     if n in a.tables)
@@ -204,11 +231,19 @@ def budget_section(data: RunData, a: Assembled) -> Section:
 
 
 def _config_value(v: Any) -> str:
+    """A configuration value as markup: texts in code, lists inline, tables as key = value."""
+    if v is None:
+        return "\u2013"
     if isinstance(v, str):
-        return f"<pre>{esc(v)}</pre>" if "\n" in v else _code(v)
-    if isinstance(v, (dict, list, tuple)):
-        return f"<pre>{esc(json.dumps(v, indent=1, default=str))}</pre>"
-    return esc(str(v))
+        return f"<pre>{esc(v.rstrip())}</pre>" if "\n" in v else _code(v)
+    if isinstance(v, (list, tuple)) and all(not isinstance(x, (dict, list)) for x in v):
+        return esc(", ".join(str(x) for x in v))
+    if isinstance(v, dict):
+        if not v:
+            return "\u2013"
+        return "<pre>" + esc("\n".join(f"{k} = {'no limit' if x is None else x}"
+                                       for k, x in v.items())) + "</pre>"
+    return f"<pre>{esc(json.dumps(v, indent=1, default=str))}</pre>"
 
 
 def cautions_section() -> Section:

@@ -1,0 +1,240 @@
+"""Tests of the report's figure functions and their numbers, on plain data."""
+
+from __future__ import annotations
+
+import io
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+from matplotlib.figure import Figure
+from PIL import Image
+
+from tinyconv.report.axes import png_bytes, si, spans_decades
+from tinyconv.report.boxes import fold_boxes
+from tinyconv.report.budgets import axis_budget, budget_rows
+from tinyconv.report.confusion import (confusion_counts, confusion_figure, per_class_table,
+                                       row_rates, top_confusions)
+from tinyconv.report.curves import history_of, learning_curves, mean_curves
+from tinyconv.report.gallery import (confident_mistakes, confusion_examples,
+                                     confusion_gallery, mistakes_gallery)
+from tinyconv.report.html import png_size
+from tinyconv.report.pareto import pareto_plot
+
+K = 4
+CLASSES = ("ring", "cross", "bar", "star")
+
+
+def _valid_png(fig: Figure) -> tuple[int, int]:
+    """Render with Agg, decode with Pillow, return the pixel size."""
+    assert isinstance(fig, Figure)
+    data = png_bytes(fig)
+    with Image.open(io.BytesIO(data)) as im:
+        im.verify()  # Pillow's own PNG integrity check (chunk CRCs)
+    with Image.open(io.BytesIO(data)) as im:
+        assert im.format == "PNG"
+        return im.size
+
+
+def _ranking(params=(300, 2_000, 15_000, 90_000), macs=(5e4, 3e5, 2e6, 1e7)) -> pd.DataFrame:
+    acc = np.array([0.55, 0.82, 0.86, 0.87])
+    se = np.array([0.02, 0.015, 0.01, 0.012])
+    return pd.DataFrame({
+        "candidate": [f"16x16rgb/c{i}k3" for i in range(len(params))],
+        "params": params, "macs": macs, "acc_mean": acc, "acc_se": se,
+        "pareto_params": [True, True, True, True], "pareto_macs": [True, True, False, True],
+        "pick": [False, False, True, False], "within_1se": [False, False, True, True],
+    })
+
+
+def _folds(ranking: pd.DataFrame, k: int = 3, seed: int = 0) -> pd.DataFrame:
+    rng = np.random.default_rng(seed)
+    rows = []
+    for _, r in ranking.iterrows():
+        for f in range(k):
+            v = r["acc_mean"] + rng.normal(0, 0.01)
+            rows.append({"candidate": r["candidate"], "params": r["params"], "fold": f,
+                         "val_acc": v, "train_acc": v + 0.05})
+    return pd.DataFrame(rows)
+
+
+def test_fold_boxes_renders_and_uses_log_axis_when_counts_span_decades():
+    """Fold boxes render to a valid PNG; a 300x spread of counts gets a log parameter axis."""
+    r = _ranking()
+    fig = fold_boxes(_folds(r), chance=1 / K, pick=r["candidate"][2])
+    w, h = _valid_png(fig)
+    assert w > 600 and h > 400
+    assert "log scale" in fig.axes[0].get_xlabel()
+
+
+def test_fold_boxes_falls_back_to_even_spacing_for_close_counts():
+    """Counts within one decade are spaced evenly, labelled by count, in parameter order."""
+    r = _ranking(params=(900, 1_000, 1_200, 3_000))
+    fig = fold_boxes(_folds(r.iloc[::-1]), chance=1 / K)
+    ax = fig.axes[0]
+    assert "log" not in ax.get_xlabel()
+    assert [t.get_text() for t in ax.get_xticklabels()] == ["900", "1k", "1.2k", "3k"]
+    _valid_png(fig)
+
+
+def test_fold_boxes_refuses_empty_input():
+    """No fold rows is an error saying what is needed."""
+    with pytest.raises(ValueError, match="at least one"):
+        fold_boxes(pd.DataFrame(columns=["candidate", "params", "fold", "val_acc", "train_acc"]))
+
+
+@pytest.mark.parametrize("axis,budget", [("params", 50_000.0), ("macs", 5e6)])
+def test_pareto_plot_draws_budget_band_and_chance(axis, budget):
+    """The Pareto plot has a vertical budget line at the budget and a chance line at 1/K."""
+    fig = pareto_plot(_ranking(), axis, budget=budget, chance=1 / K)
+    ax = fig.axes[0]
+    vertical = [ln for ln in ax.lines if len(set(ln.get_xdata())) == 1]
+    horizontal = [ln for ln in ax.lines if len(set(ln.get_ydata())) == 1
+                  and len(set(ln.get_xdata())) > 1]
+    assert any(float(ln.get_xdata()[0]) == budget for ln in vertical)
+    assert any(float(ln.get_ydata()[0]) == pytest.approx(1 / K) for ln in horizontal)
+    # the one-SE threshold (best mean minus its SE) is drawn too
+    assert any(float(ln.get_ydata()[0]) == pytest.approx(0.87 - 0.012) for ln in horizontal)
+    assert ax.get_xscale() == "log"
+    _valid_png(fig)
+
+
+def test_pareto_plot_rejects_unknown_axis():
+    """Only params and MACs are size axes."""
+    with pytest.raises(ValueError, match="'params' or 'macs'"):
+        pareto_plot(_ranking(), "flash")
+
+
+def test_history_of_reads_stored_json_and_tolerates_gaps():
+    """Stored JSON histories parse to lists; missing or broken ones give an empty dict."""
+    text = json.dumps({"val_acc": [0.1, 0.2], "train_acc": [0.2, None]})
+    h = history_of(text)
+    assert h["val_acc"] == [0.1, 0.2] and np.isnan(h["train_acc"][1])
+    assert history_of(None) == {} and history_of("not json") == {} and history_of(3) == {}
+
+
+def test_mean_curves_average_over_folds_and_align_resumed_units():
+    """Rung curves are per-epoch means over folds; a shorter stored history ends at its epochs."""
+    units = pd.DataFrame([
+        {"rung": 0, "epochs": 2, "history": {"val_acc": [0.2, 0.4]}},
+        {"rung": 0, "epochs": 2, "history": {"val_acc": [0.4, 0.6]}},
+        {"rung": 1, "epochs": 6, "history": {"val_acc": [0.7, 0.8]}},   # resumed: epochs 5-6
+    ])
+    out = mean_curves(units, "val_acc")
+    np.testing.assert_array_equal(out[0][0], [1, 2])
+    np.testing.assert_allclose(out[0][1], [0.3, 0.5])
+    np.testing.assert_array_equal(out[1][0], [5, 6])
+
+
+def test_learning_curves_render_with_and_without_history():
+    """Learning curves render; a finalist without stored history gets a visible note."""
+    hist = json.dumps({"val_acc": [0.3, 0.5, 0.6], "train_acc": [0.3, 0.6, 0.8]})
+    units = pd.DataFrame([{"candidate": "a", "fold": f, "rung": r, "epochs": 3, "history": hist}
+                          for f in range(3) for r in (0, 1)]
+                         + [{"candidate": "b", "fold": 0, "rung": 0, "epochs": 3,
+                             "history": "{}"}])
+    fig = learning_curves(units, ["a", "b"], chance=1 / K, pick="a")
+    texts = [t.get_text() for ax in fig.axes for t in ax.texts]
+    assert "no per-epoch history stored" in texts
+    _valid_png(fig)
+    with pytest.raises(ValueError, match="at least one finalist"):
+        learning_curves(units, [])
+
+
+def _predictions(n=200, seed=1):
+    rng = np.random.default_rng(seed)
+    labels = rng.integers(0, K, n)
+    preds = np.where(rng.random(n) < 0.3, rng.integers(0, K, n), labels)
+    probs = rng.dirichlet(np.ones(K), n)
+    return labels, preds, probs
+
+
+def test_confusion_counts_and_per_class_match_scikit_learn():
+    """Counts, precision and recall equal scikit-learn's confusion_matrix and scores."""
+    from sklearn.metrics import confusion_matrix, precision_score, recall_score
+
+    labels, preds, _ = _predictions()
+    counts = confusion_counts(labels, preds, K)
+    # reference: sklearn.metrics.confusion_matrix (rows true, columns predicted)
+    np.testing.assert_array_equal(counts, confusion_matrix(labels, preds, labels=range(K)))
+    table = per_class_table(counts, CLASSES)
+    np.testing.assert_allclose(table["precision"], precision_score(labels, preds, average=None,
+                                                                   labels=range(K)))
+    np.testing.assert_allclose(table["recall"], recall_score(labels, preds, average=None,
+                                                             labels=range(K)))
+    np.testing.assert_allclose(row_rates(counts).sum(axis=1), 1.0)
+    _valid_png(confusion_figure(counts, CLASSES))
+
+
+def test_per_class_precision_of_a_never_predicted_class_is_undefined():
+    """A class nobody predicts has precision NaN (undefined), not zero."""
+    counts = confusion_counts(np.array([0, 1, 2]), np.array([0, 0, 0]), 3)
+    table = per_class_table(counts, ("a", "b", "c"))
+    assert np.isnan(table["precision"][1]) and table["recall"][1] == 0.0
+
+
+def test_confusion_counts_refuse_out_of_range_classes():
+    """A prediction outside 0..K-1 is refused with the range."""
+    with pytest.raises(ValueError, match=r"outside 0\.\.2"):
+        confusion_counts(np.array([0, 1]), np.array([0, 3]), 3)
+
+
+def test_top_confusions_worked_example():
+    """Off-diagonal cells come largest first, ties by (true, predicted)."""
+    counts = np.array([[9, 3, 1], [3, 7, 0], [0, 5, 4]])
+    assert top_confusions(counts, 3) == [(2, 1, 5), (0, 1, 3), (1, 0, 3)]
+
+
+def test_confident_mistakes_are_the_most_probable_wrong_answers():
+    """The mistakes list equals a brute-force sort of wrong answers by confidence."""
+    labels, preds, probs = _predictions()
+    conf = probs[np.arange(len(preds)), preds]
+    got = confident_mistakes(labels, preds, conf, 10)
+    wrong = [i for i in range(len(labels)) if labels[i] != preds[i]]
+    expect = sorted(wrong, key=lambda i: (-conf[i], i))[:10]
+    assert list(got) == expect
+
+
+def test_galleries_render_real_pixels():
+    """Both galleries render; grey and colour images are both accepted."""
+    labels, preds, probs = _predictions(60)
+    conf = probs[np.arange(60), preds]
+    rng = np.random.default_rng(2)
+    for c in (1, 3):
+        images = rng.integers(0, 256, (60, 8, 8, c), dtype=np.uint8)
+        pairs = top_confusions(confusion_counts(labels, preds, K), 3)
+        ex = confusion_examples(labels, preds, conf, pairs, 4)
+        assert all(len(e[3]) <= 4 and np.all(labels[e[3]] == e[0]) for e in ex)
+        _valid_png(confusion_gallery(images, ex, CLASSES, confidence=conf))
+        _valid_png(mistakes_gallery(images, confident_mistakes(labels, preds, conf, 7),
+                                    labels, preds, conf, CLASSES))
+
+
+def test_png_size_reads_the_header_like_pillow():
+    """The PNG header reader gives Pillow's size and refuses other bytes."""
+    data = png_bytes(fold_boxes(_folds(_ranking())))
+    with Image.open(io.BytesIO(data)) as im:
+        assert png_size(data) == im.size
+    with pytest.raises(ValueError, match="not a PNG"):
+        png_size(b"GIF89a" + bytes(30))
+
+
+def test_number_format_and_log_decision():
+    """Tick labels are compact and round; log scale starts at one decade of spread."""
+    assert [si(v) for v in (152, 199.99999999, 1000, 1500, 46_000, 1.2e6)] == [
+        "152", "200", "1k", "1.5k", "46k", "1.2M"]
+    assert spans_decades([100, 1000]) and not spans_decades([100, 999])
+
+
+def test_budget_rows_compare_the_pick_in_the_budget_unit():
+    """Budgets are listed with the pick's figure, its share and whether it fits."""
+    pick = pd.Series({"params": 1_500, "macs": 2e5, "peak_kb": 10.0, "flash_kb": 80.0})
+    rows = budget_rows({"max_params": 2_000, "max_flash_kb": 64.0, "max_macs": None},
+                       pick, {"max_params": 3})
+    assert list(rows["budget"]) == ["max_params", "max_flash_kb"]
+    assert rows["share"].tolist() == pytest.approx([0.75, 1.25])
+    assert rows["within"].tolist() == [True, False]
+    assert rows["removed"].tolist() == [3, 0]
+    assert axis_budget({"max_macs": 5_000}, "macs") == 5_000
+    assert axis_budget({"max_flash_kb": 64}, "params") is None
