@@ -66,6 +66,7 @@ def test_forward_matches_scipy_correlate(shape):
 def test_gradients_match_central_differences(shape):
     """Input, weight and bias gradients agree with central finite differences (< 1e-6, float64)."""
     op, layer = _layer(shape)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     rows = check_layer(layer, randn((2,) + op.in_shape, 2), seed=3, max_coords=None)
     assert [r.tensor for r in rows] == ["x", "w", "b"]
     for row in rows:

@@ -19,6 +19,7 @@ def test_dense_forward_and_gradients(n_in, n_out):
     layer.params["b"][...] = randn((n_out,), 4)
     x = randn((5, n_in), 1)
     np.testing.assert_allclose(layer.forward(x), x @ layer.params["w"] + layer.params["b"])
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     rows = check_layer(layer, x, max_coords=None)
     assert [r.tensor for r in rows] == ["x", "w", "b"]
     assert all(r.passed and r.max_rel_error < 1e-6 for r in rows), rows
@@ -27,6 +28,7 @@ def test_dense_forward_and_gradients(n_in, n_out):
 def test_relu_gradient_away_from_kinks():
     """ReLU's input gradient agrees with central differences when no input is near 0."""
     layer = build(simple_op("relu", (3, 4, 2)), np.random.default_rng(0), np.float64)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     (row,) = check_layer(layer, distinct((2, 3, 4, 2), 1), max_coords=None)
     assert row.passed and row.max_rel_error < 1e-6 and "skipped" not in row.note, row
 
@@ -35,6 +37,7 @@ def test_relu_kink_is_skipped_and_said():
     """An input at ReLU's kink is skipped by the checker and the note says so."""
     layer = build(simple_op("relu", (3,)), np.random.default_rng(0), np.float64)
     x = np.array([[0.0, 1.0, -2.0]])
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     (row,) = check_layer(layer, x, max_coords=None)
     assert row.passed
     assert "1 of 3 coordinates skipped" in row.note
@@ -47,6 +50,7 @@ def test_flatten_is_c_order_and_reversible():
     y = layer.forward(x, training=True)
     np.testing.assert_array_equal(y[1], x[1].ravel(order="C"))
     np.testing.assert_array_equal(layer.backward(y), x)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     (row,) = check_layer(layer, x, max_coords=None)
     assert row.passed
 
@@ -74,6 +78,7 @@ def test_fused_relu_option_matches_separate_layers():
     g = randn(y.shape, 2)
     np.testing.assert_allclose(fused.backward(g), plain.backward(g * (y > 0)))
     dense = Dense(4, 3, rng=np.random.default_rng(0), dtype=np.float64, relu=True)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     rows = check_layer(dense, randn((6, 4), 5), max_coords=None)
     assert all(r.passed for r in rows), rows
 

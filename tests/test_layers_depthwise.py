@@ -51,6 +51,7 @@ def test_forward_matches_scipy_per_channel(shape):
 def test_gradients_match_central_differences(shape):
     """Depthwise input, weight and bias gradients agree with central differences (< 1e-6)."""
     op, layer = _layer(shape)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     rows = check_layer(layer, randn((2,) + op.in_shape, 2), seed=1, max_coords=None)
     assert [r.tensor for r in rows] == ["x", "w", "b"]
     for row in rows:
@@ -82,3 +83,27 @@ def test_float32_stays_float32():
     y = layer.forward(x, training=True)
     gx = layer.backward(np.ones_like(y))
     assert y.dtype == gx.dtype == layer.grads["w"].dtype == layer.grads["b"].dtype == np.float32
+
+
+@pytest.mark.parametrize("seed", range(4))
+def test_kernels_on_seeded_random_shapes(seed):
+    """Depthwise kernels equal the loop references on seeded random shapes, strides and pads."""
+    from tinyconv.layers import kernels_dw as kd
+
+    rng = np.random.default_rng(seed)
+    k, s = int(rng.choice([1, 3, 5])), int(rng.integers(1, 3))
+    n, h, w, c = 2, int(rng.integers(k, 10)), int(rng.integers(k, 10)), int(rng.integers(1, 6))
+    pads = tuple(int(v) for v in rng.integers(0, 3, size=4))
+    x = rng.standard_normal((n, h, w, c))
+    wt, b = rng.standard_normal((k, k, c)), rng.standard_normal(c)
+    top, bottom, left, right = pads
+    xp = np.pad(x, ((0, 0), (top, bottom), (left, right), (0, 0)))
+    y = kd.dw_forward(xp, wt, b, s)
+    np.testing.assert_allclose(y, reference.depthwise_forward(x, wt, b, s, pads), rtol=1e-12,
+                               atol=1e-12)
+    g = rng.standard_normal(y.shape)
+    gxp, gw, gb = kd.dw_backward(g, xp, wt, s)
+    rgx, rgw, rgb = reference.depthwise_backward(g, x, wt, s, pads)
+    np.testing.assert_allclose(gxp[:, top:top + h, left:left + w], rgx, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(gw, rgw, rtol=1e-12, atol=1e-12)
+    np.testing.assert_allclose(gb, rgb, rtol=1e-12, atol=1e-12)

@@ -24,6 +24,7 @@ def test_identity_in_evaluation():
 @pytest.mark.parametrize("rate", [0.2, 0.5])
 def test_inverted_scaling_in_training(rate):
     """Training zeroes about `rate` of the values and scales the rest by 1/(1-rate)."""
+    # Inverted dropout scales kept values by 1 / (1 - rate) in training (common practice).
     layer = _dropout(rate)
     x = np.ones((50, 10, 10, 4))
     y = layer.forward(x, training=True)
@@ -49,6 +50,7 @@ def test_masks_come_from_the_generator():
 def test_gradient_check_uses_a_fixed_mask():
     """The checker holds one dropout mask, passes, and says so in the note."""
     layer = _dropout(0.4)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     (row,) = check_layer(layer, randn((2, 10, 10, 4), 3), max_coords=200)
     assert row.passed and row.max_rel_error < 1e-6, row
     assert "fixed dropout mask" in row.note

@@ -27,6 +27,7 @@ def test_training_forward_matches_reference_and_gradients(shape):
     np.testing.assert_allclose(y, reference.batchnorm_train(x, layer.params["gamma"],
                                                             layer.params["beta"], layer.eps),
                                rtol=1e-10, atol=1e-12)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     rows = check_layer(layer, x, max_coords=None)
     assert [r.tensor for r in rows] == ["x", "gamma", "beta"]
     assert all(r.passed and r.max_rel_error < 1e-6 for r in rows), rows
@@ -34,6 +35,7 @@ def test_training_forward_matches_reference_and_gradients(shape):
 
 def test_training_normalises_each_channel():
     """In training each channel of the output has mean beta and std gamma (to eps)."""
+    # Definition of batch normalisation (Ioffe & Szegedy, ICML 2015 [from memory]).
     layer = _bn((4, 4, 3))
     y = layer.forward(3.0 * randn((8, 4, 4, 3), 2) - 1.0, training=True)
     np.testing.assert_allclose(y.mean(axis=(0, 1, 2)), layer.params["beta"], atol=1e-10)
@@ -45,7 +47,8 @@ def test_running_statistics_and_evaluation():
     layer = _bn((5,))
     x = 2.0 * randn((50, 5), 3) + 4.0
     layer.forward(x, training=True)
-    # r = 0.9 r + 0.1 batch, from mean 0 and var 1; the running variance is unbiased (ddof=1).
+    # r = 0.9 r + 0.1 batch from mean 0 and var 1, the running variance unbiased (ddof=1):
+    # common practice.
     np.testing.assert_allclose(layer.state["mean"], 0.1 * x.mean(axis=0), rtol=1e-12)
     np.testing.assert_allclose(layer.state["var"], 0.9 + 0.1 * x.var(axis=0, ddof=1), rtol=1e-12)
     for _ in range(200):
