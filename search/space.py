@@ -9,7 +9,8 @@ said otherwise. Example, with the defaults of the optional keys shown::
 
     [input]
     sizes = [32, "32x24"]           # a side (square) or "HxW"
-    modes = ["rgb", "gray"]         # rgb, gray, ycc, hsv
+    modes = ["rgb", "gray"]         # rgb, gray, ycc, hsv: every size in every mode
+    # specs = ["32x32rgb", "16x16gray"]  # instead of sizes and modes: just these
 
     [stages]
     count = [0, 1, 2]               # how many conv stages a candidate has
@@ -71,7 +72,8 @@ import numpy as np
 import pandas as pd
 
 from tinyconv.arch import (MAX_SIDE, MAX_WIDTH, MODES, Arch, ArchError, BatchNorm, Conv,
-                           Dense, Depthwise, Dropout, GlobalPool, InputSpec, Pool, expand)
+                           Dense, Depthwise, Dropout, GlobalPool, InputSpec, Pool, expand,
+                           parse_input)
 from tinyconv.cost import KB, Totals, totals_of
 from tinyconv.errors import BudgetError, InputError
 
@@ -86,7 +88,7 @@ MAX_STAGES = 8
 
 _KNOWN = {
     "": ("format", "description", "input", "stages", "head", "options", "budget"),
-    "input": ("sizes", "modes"),
+    "input": ("sizes", "modes", "specs"),
     "stages": ("count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
                "shared", "widening"),
     "head": ("kind", "hidden"),
@@ -99,10 +101,10 @@ class SpaceError(InputError):
     """A search-space file that cannot be used; the message names key, value and rule."""
 
 
-# budget name -> (field of Totals, bytes per unit, how the figure is shown)
-_BUDGETS = {"max_params": ("params", 1, "parameters"), "max_macs": ("macs", 1, "MACs"),
-            "max_peak_kb": ("peak_int8_bytes", KB, "KB peak"),
-            "max_flash_kb": ("flash_bytes", KB, "KB flash")}
+# budget name -> (field of Totals, bytes per unit, name of the figure, unit shown)
+_BUDGETS = {"max_params": ("params", 1, "params", ""), "max_macs": ("macs", 1, "MACs", ""),
+            "max_peak_kb": ("peak_int8_bytes", KB, "peak", " KB"),
+            "max_flash_kb": ("flash_bytes", KB, "flash", " KB")}
 
 
 @dataclass(frozen=True)
@@ -160,15 +162,15 @@ class Budget:
     def describe(self, totals: Totals) -> str:
         """Each figure of ``totals`` against its budget, e.g. ``MACs 1,200 (max 1,000: over)``."""
         parts = []
-        for name, (attr, unit, label) in _BUDGETS.items():
+        for name, (attr, unit, label, suffix) in _BUDGETS.items():
             value = getattr(totals, attr)
-            shown = f"{value:,}" if unit == 1 else f"{value / unit:,.1f}"
+            shown = (f"{value:,}" if unit == 1 else f"{value / unit:,.1f}") + suffix
             limit = getattr(self, name)
             if limit is None:
                 parts.append(f"{label} {shown} (no limit)")
             else:
-                verdict = "over" if value > limit * unit else "ok"
-                parts.append(f"{label} {shown} (max {limit:,}: {verdict})")
+                verdict = "over" if name in self.over(totals) else "ok"
+                parts.append(f"{label} {shown} (max {limit:,}{suffix}: {verdict})")
         return ", ".join(parts)
 
 
@@ -300,6 +302,15 @@ def _input_spec(item: Any, mode: str) -> InputSpec | None:
     return None
 
 
+def _parsed_spec(item: Any) -> InputSpec | None:
+    if not isinstance(item, str):
+        return None
+    try:
+        return parse_input(item)
+    except ArchError:
+        return None
+
+
 def load_space(spec: Union[str, Path]) -> Space:
     """Read a search-space file, its text, or a space shipped with the package.
 
@@ -358,15 +369,24 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
         raise r.fail("description", description, "must be a string")
 
     inp = r.table(data, "input")
-    for key in ("sizes", "modes"):
-        if key not in inp:
-            raise SpaceError(f"{source}: missing key input.{key}; e.g. sizes = [32], "
-                             "modes = [\"rgb\"]")
-    modes = r.choices(inp["modes"], "input.modes", lambda m: m in MODES,
-                      f"a colour mode ({', '.join(MODES)})")
-    sizes = r.choices(inp["sizes"], "input.sizes", lambda s: _input_spec(s, "rgb"),
-                      f"a side from 1 to {MAX_SIDE} or a string \"HxW\"")
-    inputs = tuple(_input_spec(s, m) for s in sizes for m in modes)
+    if "specs" in inp:
+        if "sizes" in inp or "modes" in inp:
+            raise SpaceError(f"{source}: [input] gives specs and also sizes/modes; give "
+                             "either specs = [\"32x32rgb\", ...] or sizes and modes")
+        inputs = r.choices(inp["specs"], "input.specs", _parsed_spec,
+                           "an input spec such as \"32x32rgb\" (modes: "
+                           f"{', '.join(MODES)})")
+        inputs = tuple(_parsed_spec(x) for x in inputs)
+    else:
+        for key in ("sizes", "modes"):
+            if key not in inp:
+                raise SpaceError(f"{source}: missing key input.{key}; e.g. sizes = [32], "
+                                 "modes = [\"rgb\"] (or specs = [\"32x32rgb\"])")
+        modes = r.choices(inp["modes"], "input.modes", lambda m: m in MODES,
+                          f"a colour mode ({', '.join(MODES)})")
+        sizes = r.choices(inp["sizes"], "input.sizes", lambda s: _input_spec(s, "rgb"),
+                          f"a side from 1 to {MAX_SIDE} or a string \"HxW\"")
+        inputs = tuple(_input_spec(s, m) for s in sizes for m in modes)
 
     st = r.table(data, "stages")
     counts = r.choices(st.get("count", [0]), "stages.count",
