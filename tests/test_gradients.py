@@ -186,3 +186,21 @@ def test_all_kinks_means_nothing_checked():
     (row,) = check_layer(layer, np.zeros((1, 3)))
     assert not row.passed
     assert "nothing checked" in row.note and "3 of 3 coordinates skipped" in row.note
+
+
+@pytest.mark.parametrize("text", ["9x9rgb/c4k2v-bn-dw3s2-a2-x25-d6-bn",
+                                  "15x13gray/c3k5s2-p2-c5k1-dw3v-gap-d4-x10"])
+def test_network_of_every_layer_kind_passes(text):
+    """Networks using every layer kind (even kernel, stride 2, valid, BN on vectors) pass."""
+    net = Network.from_arch(text, 3, seed=1, dtype=np.float64)
+    # Biases off zero, so no pre-activation sits exactly on a ReLU kink.
+    bias_rng = np.random.default_rng(9)
+    for name, array in net.param_list():
+        if name.endswith("/b") or name.endswith("/beta"):
+            array[...] = bias_rng.normal(0.0, 0.1, array.shape)
+    rng = np.random.default_rng(2)
+    x = rng.standard_normal((4,) + net.arch.input.shape)
+    y = rng.integers(0, 3, 4)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
+    rows = check_network(net, x, y, max_coords=120)
+    assert all_passed(rows), [r for r in rows if not r.passed]
