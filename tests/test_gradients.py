@@ -204,3 +204,19 @@ def test_network_of_every_layer_kind_passes(text):
     # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     rows = check_network(net, x, y, max_coords=120)
     assert all_passed(rows), [r for r in rows if not r.passed]
+
+
+def test_non_finite_gradient_fails_with_note():
+    """A NaN in an analytic gradient fails the row, says so, and reports nan."""
+
+    class _NanGrad(Dense):
+        def backward(self, grad_out):
+            gx = super().backward(grad_out)
+            self.grads["w"] = self.grads["w"].copy()
+            self.grads["w"][0, 0] = np.nan
+            return gx
+
+    layer = _NanGrad(3, 2, rng=np.random.default_rng(0), dtype=np.float64)
+    row = [r for r in check_layer(layer, randn((4, 3), 1)) if r.tensor == "w"][0]
+    assert not row.passed and np.isnan(row.max_rel_error)
+    assert "non-finite gradient: analytic has 1, numeric 0 non-finite values" in row.note

@@ -149,13 +149,17 @@ def _check_tensor(array: np.ndarray, analytic: np.ndarray | None, evaluate: Call
         got = "nothing" if analytic is None else f"shape {tuple(np.shape(analytic))}"
         return GradRow(layer, tensor, shape, float("nan"), False,
                        f"backward gave {got} for a tensor of shape {shape}")
+    if not array.flags.c_contiguous:
+        raise ValueError(f"{layer}/{tensor}: the checker perturbs tensors in place through a "
+                         "flat view, so they must be C-contiguous; this one is not")
     size = array.size
     coords = np.arange(size)
     if max_coords is not None and size > max_coords:
         coords = np.sort(rng.choice(size, size=max_coords, replace=False))
         note.append(f"sampled {max_coords} of {size} coordinates")
     flat = array.reshape(-1)  # a view: writes perturb the live tensor
-    numeric = np.full(coords.size, np.nan)
+    numeric = np.zeros(coords.size)
+    checked = np.zeros(coords.size, dtype=bool)
     skipped = 0
     for k, idx in enumerate(coords):
         old = flat[idx]
@@ -171,7 +175,8 @@ def _check_tensor(array: np.ndarray, analytic: np.ndarray | None, evaluate: Call
             skipped += 1
             continue
         numeric[k] = np.sum((y_plus - y_minus) * weight) / (2.0 * step)
-    ok = ~np.isnan(numeric)
+        checked[k] = True
+    ok = checked
     if skipped:
         note.append(f"{skipped} of {coords.size} coordinates skipped: +h/-h straddle a "
                     "ReLU or max-pool kink")
@@ -180,6 +185,11 @@ def _check_tensor(array: np.ndarray, analytic: np.ndarray | None, evaluate: Call
         return GradRow(layer, tensor, shape, float("nan"), False, "; ".join(note))
     a = np.asarray(analytic, dtype=np.float64).reshape(-1)[coords][ok]
     n = numeric[ok]
+    if not (np.isfinite(a).all() and np.isfinite(n).all()):
+        note.append("non-finite gradient: analytic has "
+                    f"{int((~np.isfinite(a)).sum())}, numeric {int((~np.isfinite(n)).sum())} "
+                    "non-finite values")
+        return GradRow(layer, tensor, shape, float("nan"), False, "; ".join(note))
     own = max(float(np.max(np.abs(a))), float(np.max(np.abs(n))))
     if own < FLOOR_FRACTION * scale:
         note.append(f"gradient is round-off small (max {own:.1e} against {scale:.1e} "
