@@ -1,11 +1,12 @@
 """Search-space files: which networks to try, and the budgets they must fit.
 
-A space file is TOML (read with the standard library's :mod:`tomllib`). Every
-table is optional except ``[input]``; every key is a list of choices unless
-said otherwise. Example, with the defaults of the optional keys shown::
+A space file is TOML (read with the standard library's :mod:`tomllib`). Only
+``[input]`` is required; every other table and key is optional, and every key
+is a list of choices unless its comment says "one value". An example, whose
+comments give the default of each optional key::
 
-    format = 1                      # the version of this format (optional)
-    description = "tiles, 8 marks"  # free text (optional)
+    format = 1                      # one value: the version of this format (1)
+    description = "tiles, 8 marks"  # one value: free text ("")
 
     [input]
     sizes = [32, "32x24"]           # a side (square) or "HxW"
@@ -13,30 +14,32 @@ said otherwise. Example, with the defaults of the optional keys shown::
     # specs = ["32x32rgb", "16x16gray"]  # instead of sizes and modes: just these
 
     [stages]
-    count = [0, 1, 2]               # how many conv stages a candidate has
-    filters = [[4, 8], [8, 16]]     # choices per stage (a list per stage), or
-                                    # one list used by every stage: [8, 16]
-    # widths = [[4, 8], [16, 32]]   # instead of filters: whole plans, stage by
-                                    # stage; n stages use a plan's first n
-    kernel = [3]                    # odd sizes; one list, or a list per stage
-    conv = ["standard"]             # standard | separable
-    pool = ["max"]                  # max | avg | none | stride
-    pool_size = 2                   # one value: size and stride of the pooling
-    shared = ["kernel", "conv", "pool"]  # chosen once per candidate, not per stage
-    widening = true                 # filters never decrease from stage to stage
+    count = [0, 1, 2]               # how many conv stages a candidate has ([0])
+    filters = [[4, 8], [8, 16]]     # filter choices per stage (a list per stage),
+                                    # or one list for every stage: [8, 16]
+    # widths = [[4, 8], [16, 32]]   # instead of filters: whole plans; a candidate
+                                    # with n stages uses a plan's first n widths
+    kernel = [3]                    # odd sizes; one list, or a list per stage ([3])
+    conv = ["standard", "separable"]  # standard | separable (["standard"])
+    pool = ["max"]                  # max | avg | none | stride (["max"])
+    pool_size = 2                   # one value: size and stride of the pooling (2)
+    shared = ["kernel", "conv", "pool"]  # chosen once per candidate for all its
+                                    # stages, not stage by stage (all three)
+    widening = true                 # one value: filters never decrease from a
+                                    # stage to the next (true)
 
     [head]
-    kind = ["flatten"]              # gap | flatten
-    hidden = [0]                    # hidden dense widths; 0 = none
+    kind = ["gap", "flatten"]       # gap | flatten (["flatten"])
+    hidden = [0, 32]                # hidden dense widths; 0 = none ([0])
 
     [options]
-    batch_norm = [false]            # true: batch norm after every conv and hidden dense
-    dropout = [0]                   # percent before the classifier; 0 = none
+    batch_norm = [false, true]      # true: bn after every conv and hidden dense ([false])
+    dropout = [0, 20]               # percent, before the classifier; 0 = none ([0])
 
     [budget]                        # one value each; leave a key out for no limit
-    max_params = 50000
-    max_macs = 1000000
-    max_peak_kb = 64                # int8 peak activation memory (KB = 1,024 bytes)
+    max_params = 50000              # trained parameters
+    max_macs = 1000000              # multiply-accumulates per image
+    max_peak_kb = 32                # int8 peak activation memory (KB = 1,024 bytes)
     max_flash_kb = 256              # int8 deployment layout
 
 What a stage is, in the architecture text form (:mod:`tinyconv.arch`), for
@@ -52,11 +55,22 @@ The head: ``gap`` appends global average pooling (only when a stage exists and
 the map is larger than 1x1: otherwise it is the same network as ``flatten``,
 which is the implicit head); a hidden width ``n > 0`` appends ``d{n}``; dropout
 ``p > 0`` appends ``x{p}``. The final dense layer to the classes is implicit.
+For example ``count = 2``, filters 8 then 16, separable, max pooling, gap,
+hidden 32 and batch norm give ``dw3-bn-c8k1-bn-p2-dw3-bn-c16k1-bn-p2-gap-d32-bn``.
 
-Enumeration order is deterministic: inputs (sizes, then modes, in file order),
-stage count, the shared choices, the per-stage choices (stage 1 slowest), head
-kind, hidden width, batch norm, dropout. Texts seen before are dropped, and so
-are combinations that do not fit their input (e.g. pooling a 2x2 map by 4).
+Enumeration (:func:`enumerate_space`) is deterministic: inputs (sizes, then
+modes, in file order; or specs in order), stage count, the shared choices, the
+width plans, the per-stage choices (stage 1 slowest), head kind, hidden width,
+batch norm, dropout. A text seen before is dropped (equivalent candidates
+appear once), and so are combinations that do not fit their input (e.g.
+pooling a 2x2 map by 4). :func:`subsample` draws a seeded subset when there are
+more candidates than wanted, and :func:`filter_budget` keeps those within a
+:class:`Budget`, counting what each limit removed. A budget given on the
+command line replaces the file's with :func:`dataclasses.replace`, e.g.
+``replace(space.budget, max_macs=500_000)``.
+
+Errors (:class:`SpaceError`, an ``InputError``) name the file, the key, its
+value and the rule; unknown keys are refused with the list of known ones.
 """
 
 from __future__ import annotations
@@ -265,8 +279,8 @@ class _Reader:
     def choices(self, value: Any, key: str, check, what: str, unique: bool = True) -> tuple:
         """A non-empty list (without repeats if ``unique``) whose items pass ``check``."""
         if not isinstance(value, list) or not value:
-            raise self.fail(key, value, f"must be a non-empty list of {what}, e.g. "
-                                        f"{key.split('.')[-1]} = [...]")
+            raise self.fail(key, value, f"must be a non-empty list, each item {what} "
+                                        "(write [x] for a single choice)")
         for item in value:
             if not check(item):
                 raise self.fail(key, value, f"{item!r} is not {what}")

@@ -159,6 +159,21 @@ def test_demo_space_has_the_variety_and_size_the_demo_needs():
     assert sum(t.macs < 1_000_000 for t in result.totals if t.arch in set(names)) == len(names)
 
 
+def test_documented_example_reads_and_its_worked_text_comes_out():
+    """The example file in the module docstring reads; its worked stage example is produced."""
+    import search.space as module
+    doc = module.__doc__
+    block = doc[doc.index("    format = 1"):doc.index("What a stage is")]
+    space = load_space("\n".join(line[4:] for line in block.splitlines()))
+    assert space.counts == (0, 1, 2) and space.budget.max_peak_kb == 32
+    assert len(enumerate_space(space)) <= space.size_bound()
+    got = texts('[input]\nspecs = ["32x32rgb"]\n[stages]\ncount = [2]\nfilters = [[8], [16]]\n'
+                'conv = ["separable"]\n[head]\nkind = ["gap"]\nhidden = [32]\n[options]\n'
+                'batch_norm = [true]')
+    assert got == ["32x32rgb/dw3-bn-c8k1-bn-p2-dw3-bn-c16k1-bn-p2-gap-d32-bn"]
+    assert "dw3-bn-c8k1-bn-p2-dw3-bn-c16k1-bn-p2-gap-d32-bn" in doc
+
+
 # ---------------------------------------------------------------- reading errors
 
 
@@ -193,7 +208,8 @@ def test_demo_space_has_the_variety_and_size_the_demo_needs():
     ("[input]\nspecs = ['8x8gray']\n[stages]\ncount = [1]\nfilters = [8]\npool = ['min']",
      r"stages.pool = \['min'\]: 'min' is not one of max, avg, none, stride"),
     ("[input]\nspecs = ['8x8gray']\n[head]\nkind = 'gap'",
-     "head.kind = 'gap': must be a non-empty list of one of gap, flatten"),
+     r"head.kind = 'gap': must be a non-empty list, each item one of gap, flatten \(write "
+     r"\[x\] for a single choice\)"),
     ("[input]\nspecs = ['8x8gray']\n[options]\ndropout = [100]",
      r"options.dropout = \[100\]: 100 is not a percent 0..99"),
     ("format = 2\n[input]\nspecs = ['8x8gray']", "reads format 1 only"),
