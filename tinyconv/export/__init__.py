@@ -25,8 +25,9 @@ SUMMARY_FILE = "summary.json"
 
 def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
                    prefix: str = "tc", classes=None, eval_images: np.ndarray | None = None,
-                   eval_labels: np.ndarray | None = None,
-                   meta: dict | None = None) -> ExportSummary:
+                   eval_labels: np.ndarray | None = None, eval_set: str = "held-out",
+                   meta: dict | None = None, cv_accuracy: tuple[float, float] | None = None
+                   ) -> ExportSummary:
     """Quantise ``net`` and write everything a device build needs.
 
     Parameters
@@ -47,8 +48,12 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         Class names in logit order (default ``"0"``, ``"1"``, ...).
     eval_images, eval_labels : optional
         Held-out uint8 images (and labels) for the float/int8 comparison.
+    eval_set : str
+        What the evaluation images are, for the summary.
     meta : dict, optional
         Extra JSON-ready facts stored in ``network.npz``.
+    cv_accuracy : (mean, se), optional
+        The search's cross-validated accuracy, recorded in the summary.
 
     Returns
     -------
@@ -97,6 +102,8 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         n_calib=qnet.n_calib, calibration=qnet.calibration,
         logits_scale=float(qnet.logits_scale), logits_zero_point=int(qnet.logits_zp),
         n_eval=n_eval, agreement=agreement, float_accuracy=f_acc, int8_accuracy=q_acc,
+        eval_set=eval_set, cv_accuracy=None if cv_accuracy is None else float(cv_accuracy[0]),
+        cv_accuracy_se=None if cv_accuracy is None else float(cv_accuracy[1]),
         files=tuple(str(f) for f in files))
     files[3].write_text(summary.to_json() + "\n")
     return summary

@@ -139,6 +139,34 @@ static void @P@_dense(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
 }
 """
 
+HEAD = r"""
+/* The classifier head: a dense layer writing the int8 logits, returning the
+   arg-max of the same outputs requantised with 8 more fractional bits, so that
+   equal int8 logits are still told apart (the first of equal values wins). */
+static int32_t @P@_head(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
+                        int32_t xz, const int8_t *wt, const int32_t *bias,
+                        const int32_t *mult, const int32_t *shift, int32_t yz)
+{
+    int32_t o, i, best = 0;
+    int64_t best_value = 0;
+    for (o = 0; o < n_out; ++o) {
+        const int8_t *row = wt + o * n_in;
+        int32_t acc = bias[o];
+        int64_t value;
+        for (i = 0; i < n_in; ++i) {
+            acc += ((int32_t)x[i] - xz) * (int32_t)row[i];
+        }
+        y[o] = @P@_out(acc, mult[o], shift[o], yz, INT8_MIN, INT8_MAX);
+        value = (int64_t)@P@_scale(acc, mult[o], shift[o] - 8) + (int64_t)yz * 256;
+        if (o == 0 || value > best_value) {
+            best = o;
+            best_value = value;
+        }
+    }
+    return best;
+}
+"""
+
 MAXPOOL = r"""
 /* Max pooling, size = stride = s, ragged edge dropped; int8 in, int8 out. */
 static void @P@_maxpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
@@ -204,13 +232,14 @@ NEEDS = {
     "conv": ("SCALE", "CONV"),
     "dwconv": ("SCALE", "DWCONV"),
     "dense": ("SCALE", "DENSE"),
+    "head": ("SCALE", "HEAD"),
     "maxpool": ("MAXPOOL",),
     "avgpool": ("RDIV", "AVGPOOL"),
     "gap": ("RDIV", "GAP"),
 }
-ORDER = ("SCALE", "RDIV", "CONV", "DWCONV", "DENSE", "MAXPOOL", "AVGPOOL", "GAP")
+ORDER = ("SCALE", "RDIV", "CONV", "DWCONV", "DENSE", "HEAD", "MAXPOOL", "AVGPOOL", "GAP")
 TEMPLATES = {"SCALE": SCALE, "RDIV": RDIV, "CONV": CONV, "DWCONV": DWCONV, "DENSE": DENSE,
-             "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
+             "HEAD": HEAD, "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
 
 
 def kernels_for(kinds, prefix: str) -> str:

@@ -14,8 +14,10 @@ C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
 * ``int32_t {prefix}_classify(const uint8_t *image, int8_t *logits)``: the
   image is ``h x w x c`` uint8 in row-major HWC order, already in the
   network's input size and colour mode; it writes the K int8 logits and
-  returns the arg-max class (the first of equal logits). It uses the one
-  static arena, so it is not re-entrant.
+  returns the class: the arg-max of the last layer's outputs requantised with
+  8 more fractional bits than the int8 logits, so that classes whose logits
+  round to the same int8 value are still told apart (the first of equal
+  values wins). It uses the one static arena, so it is not re-entrant.
 """
 
 from __future__ import annotations
@@ -145,9 +147,13 @@ def _c_weights(layer: QuantLayer) -> np.ndarray:
     return w  # dwconv (k, k, c), read as [k][k][c]
 
 
-def _call(layer: QuantLayer, j: int, p: str, src: str, dst: str) -> str:
-    """The kernel call of one step."""
+def _call(layer: QuantLayer, p: str, src: str, dst: str, head: bool = False) -> str:
+    """The kernel call of one step (``head``: the last layer, which gives the class)."""
     op = layer.op
+    if head:
+        return (f"    best = {p}_head({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
+                f"{layer.in_zp},\n        {p}_l{layer.index}_w, {p}_l{layer.index}_bias, "
+                f"{p}_l{layer.index}_mult, {p}_l{layer.index}_shift, {layer.out_zp});\n")
     if layer.kind in ("conv", "dwconv", "dense"):
         tail = (f"{p}_l{layer.index}_w, {p}_l{layer.index}_bias, {p}_l{layer.index}_mult, "
                 f"{p}_l{layer.index}_shift, {layer.out_zp}, {layer.lo}, {layer.hi}")
@@ -231,14 +237,11 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
             f"    for (i = 0; i < {h * w * c}; ++i) {{\n",
             f"        {p}_arena[i] = {p}_input_table[(int32_t)image[i] * {c} + i % {c}];\n",
             "    }\n"]
+    last = len(qnet.layers) - 1
     for j, (layer, (src, dst)) in enumerate(zip(qnet.layers, offsets)):
         body.append(f"    /* {_comment_safe(_describe(layer))} */\n")
-        body.append(_call(layer, j, p, f"{p}_arena + {src}", f"{p}_arena + {dst}"))
+        body.append(_call(layer, p, f"{p}_arena + {src}", f"{p}_arena + {dst}", j == last))
     body += [f"    memcpy(logits, {p}_arena + {last_dst}, {k});\n",
-             "    best = 0;\n",
-             f"    for (i = 1; i < {k}; ++i) {{\n",
-             "        if (logits[i] > logits[best]) best = i;\n",
-             "    }\n",
              "    return best;\n}\n"]
 
     info = _info_comment(qnet, classes, flash, arena, macs)
@@ -246,7 +249,7 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
               f'#include "{p}.h"\n\n' + "\n".join(blocks) + "\n"
               f"/* activations: each step reads one end and writes the other */\n"
               f"static int8_t {p}_arena[{P}_ARENA_BYTES];\n"
-              + kernels_for([layer.kind for layer in qnet.layers], p) + "\n" + "".join(body))
+              + kernels_for([layer.kind for layer in qnet.layers[:-1]] + ["head"], p) + "\n" + "".join(body))
     header = (info + f"\n#ifndef {P}_H\n#define {P}_H\n\n#include <stdint.h>\n\n"
               f"#define {P}_INPUT_H {h}\n#define {P}_INPUT_W {w}\n#define {P}_INPUT_C {c}\n"
               f"#define {P}_INPUT_BYTES {h * w * c}\n#define {P}_CLASSES {k}\n"
@@ -254,7 +257,8 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
               f"#define {P}_LOGIT_ZERO_POINT {qnet.logits_zp}\n\n"
               f"/* Classify one image: {P}_INPUT_BYTES uint8 values in row-major HWC order,\n"
               f"   already in the network's input size and colour mode. Writes {P}_CLASSES\n"
-              "   int8 logits and returns the arg-max class (the first of equal logits).\n"
+              "   int8 logits and returns the class: the arg-max of the last layer's outputs\n"
+              "   at 8 more fractional bits than the logits (the first of equal values).\n"
               "   Uses one static arena: not re-entrant. */\n"
               f"int32_t {p}_classify(const uint8_t *image, int8_t *logits);\n\n#endif\n")
     return CCode(p, source, header, tuple(arrays), arena, flash)

@@ -36,6 +36,11 @@ class ExportSummary:
         Fraction of them where the int8 and float arg-max agree.
     float_accuracy, int8_accuracy : float or None
         Accuracies on them, when labels were given.
+    eval_set : str
+        What those images are (e.g. ``held-out``).
+    cv_accuracy, cv_accuracy_se : float or None
+        The search's cross-validated float accuracy of this candidate and its
+        standard error, when exported from a run.
     files : tuple of str
         Paths written (weights .npz, .c, .h, summary.json).
     """
@@ -56,6 +61,9 @@ class ExportSummary:
     agreement: float | None = None
     float_accuracy: float | None = None
     int8_accuracy: float | None = None
+    eval_set: str = "held-out"
+    cv_accuracy: float | None = None
+    cv_accuracy_se: float | None = None
     files: tuple[str, ...] = ()
 
     def to_dict(self) -> dict:
@@ -84,8 +92,12 @@ class ExportSummary:
                "of activations",
                f"MACs          {self.macs:,} per image; {self.params:,} parameters",
                f"calibration   {self.calibration} over {self.n_calib} images"]
+        if self.cv_accuracy is not None:
+            out.append(f"search        cross-validated float accuracy {self.cv_accuracy:.2%} "
+                       f"+- {self.cv_accuracy_se or 0.0:.2%} (SE)")
         if self.n_eval:
-            line = f"int8 vs float {self.agreement:.2%} top-1 agreement on {self.n_eval} images"
+            line = (f"int8 vs float {self.agreement:.2%} top-1 agreement on {self.n_eval} "
+                    f"{self.eval_set} images")
             if self.float_accuracy is not None:
                 line += (f"; accuracy float {self.float_accuracy:.2%}, "
                          f"int8 {self.int8_accuracy:.2%}")

@@ -7,7 +7,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from tinyconv.errors import DataError
-from tinyconv.quant.integer import int8_logits
+from tinyconv.quant.integer import int8_predict
 from tinyconv.quant.quantize import QuantizedNetwork, check_images, check_normalisation, normalised
 
 
@@ -48,7 +48,7 @@ def compare(net, qnet: QuantizedNetwork, mean, std, images: np.ndarray,
             labels: np.ndarray | None = None) -> Agreement:
     """Top-1 agreement (and accuracies when ``labels`` are given) of float and int8."""
     f_pred = float_logits(net, images, mean, std).argmax(axis=1)
-    q_pred = int8_logits(qnet, images).argmax(axis=1)
+    q_pred = int8_predict(qnet, images)
     n = int(images.shape[0])
     if labels is None:
         return Agreement(n, float(np.mean(f_pred == q_pred)))

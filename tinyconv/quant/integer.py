@@ -101,8 +101,33 @@ def run_layer(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
     raise ValueError(f"unknown layer kind {kind!r}")
 
 
-def int8_logits(qnet: QuantizedNetwork, images: np.ndarray, batch: int = 128) -> np.ndarray:
-    """int8 logits of raw images.
+#: extra fractional bits of the outputs the arg-max is taken on
+WIDE_BITS = 8
+
+
+def head_classes(layer: QuantLayer, acc: np.ndarray) -> np.ndarray:
+    """Arg-max of the classifier head's outputs with :data:`WIDE_BITS` more bits.
+
+    The int8 logits round the head's outputs to one output step, so two close
+    classes often get equal logits; the class is therefore taken on the same
+    requantisation with the shift reduced by ``WIDE_BITS`` (a grid 256 times
+    finer, in int32), which the C does too. Among equal values the first wins.
+
+    Parameters
+    ----------
+    layer : QuantLayer
+        The last (dense) layer.
+    acc : ndarray of int64, shape (n, K)
+        Its accumulators.
+    """
+    wide = (multiply_by_quantized_multiplier(acc, layer.multiplier, layer.shift - WIDE_BITS)
+            + layer.out_zp * (1 << WIDE_BITS))
+    return wide.argmax(axis=1)
+
+
+def int8_outputs(qnet: QuantizedNetwork, images: np.ndarray,
+                 batch: int = 128) -> tuple[np.ndarray, np.ndarray]:
+    """int8 logits and classes of raw images.
 
     Parameters
     ----------
@@ -113,18 +138,28 @@ def int8_logits(qnet: QuantizedNetwork, images: np.ndarray, batch: int = 128) ->
 
     Returns
     -------
-    ndarray of int8, shape (n, K)
+    logits : ndarray of int8, shape (n, K)
+    classes : ndarray of int64, shape (n,)
+        See :func:`head_classes`.
     """
     images = check_images(images, qnet.input_shape)
-    out = []
+    logits, classes = [], []
+    head = qnet.layers[-1]
     for start in range(0, images.shape[0], batch):
         x = quantize_input(qnet, images[start:start + batch])
-        for layer in qnet.layers:
+        for layer in qnet.layers[:-1]:
             x = run_layer(layer, x)
-        out.append(x)
-    return np.concatenate(out)
+        acc = accumulate(head, x)
+        logits.append(requantize(acc, head))
+        classes.append(head_classes(head, acc))
+    return np.concatenate(logits), np.concatenate(classes)
+
+
+def int8_logits(qnet: QuantizedNetwork, images: np.ndarray) -> np.ndarray:
+    """int8 logits, shape (n, K), of raw uint8 images (n, h, w, c)."""
+    return int8_outputs(qnet, images)[0]
 
 
 def int8_predict(qnet: QuantizedNetwork, images: np.ndarray) -> np.ndarray:
-    """Arg-max class per image (the first index among equal logits, as the C does)."""
-    return int8_logits(qnet, images).argmax(axis=1)
+    """The class of each image, as the C returns it (see :func:`head_classes`)."""
+    return int8_outputs(qnet, images)[1]
