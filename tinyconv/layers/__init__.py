@@ -4,6 +4,23 @@ One module per layer family; the contract every layer keeps is in
 :mod:`tinyconv.layers.base`. Fast kernels are module-level functions in the
 ``kernels_*`` modules; their slow loop references are in
 :mod:`tinyconv.layers.reference`.
+
+Beyond the contract, a few layers offer optional hooks (all off by default,
+so a network built by :func:`build` follows the contract exactly):
+
+* ``input_grad`` (conv, dense): set False on a first layer to skip its input
+  gradient; ``backward`` then returns None.
+* ``relu=True`` (conv, depthwise, dense constructors): ReLU fused into the
+  bias pass, for a network that merges a layer with the ReLU Op after it.
+* ``hold_mask`` (dropout): reuse the last mask, for gradient checks.
+* ``kink_state()`` (ReLU, max pool, fused-ReLU layers): the sign mask or the
+  max-pool winners of the last training forward, so the gradient checker can
+  tell when a finite-difference step crosses a kink.
+
+Training forwards reuse scratch buffers (padded input, column matrices)
+between calls; inference forwards allocate and keep nothing. No layer
+modifies its input, and none may have its output modified in place by the
+caller (ReLU keeps its output as the mask).
 """
 
 from __future__ import annotations
