@@ -86,3 +86,27 @@ def test_unknown_kind_and_dtype_are_refused():
         build(simple_op("softmax", (4,)), rng, np.float32)
     with pytest.raises(ValueError, match="layer dtype must be float32 or float64, got int32"):
         build(simple_op("relu", (4,)), rng, np.int32)
+
+
+@pytest.mark.parametrize("text", ["12x11rgb/c8k3s2-bn-dw5-p2-x20-c4k1-a2-d6", "9x9gray/dw3s2v-gap"])
+def test_float32_gradients_close_to_float64(text):
+    """Every layer's float32 output and gradients match float64 to float32 precision."""
+    ops = expand(parse(text), n_classes=3)
+    x64 = np.random.default_rng(1).standard_normal((16,) + ops[0].in_shape)
+    x32 = x64.astype(np.float32)
+    for i, op in enumerate(ops):
+        l64 = build(op, np.random.default_rng(i), np.float64)
+        l32 = build(op, np.random.default_rng(i), np.float32)
+        y64, y32 = l64.forward(x64, training=True), l32.forward(x32, training=True)
+        assert y32.dtype == np.float32
+        scale = np.abs(y64).max() + 1e-30
+        assert np.abs(y32 - y64).max() / scale < 1e-5, op.name
+        g = np.random.default_rng(100 + i).standard_normal(y64.shape)
+        gx64, gx32 = l64.backward(g), l32.backward(g.astype(np.float32))
+        assert gx32.dtype == np.float32
+        assert np.abs(gx32 - gx64).max() / (np.abs(gx64).max() + 1e-30) < 1e-5, op.name
+        for key in l64.params:
+            a, b = l64.grads[key], l32.grads[key]
+            assert b.dtype == np.float32, (op.name, key)
+            assert np.abs(b - a).max() / (np.abs(a).max() + 1e-30) < 1e-5, (op.name, key)
+        x64, x32 = y64, y32
