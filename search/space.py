@@ -396,7 +396,7 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
             if key not in inp:
                 raise SpaceError(f"{source}: missing key input.{key}; e.g. sizes = [32], "
                                  "modes = [\"rgb\"] (or specs = [\"32x32rgb\"])")
-        modes = r.choices(inp["modes"], "input.modes", lambda m: m in MODES,
+        modes = r.choices(inp["modes"], "input.modes", lambda m: isinstance(m, str) and m in MODES,
                           f"a colour mode ({', '.join(MODES)})")
         sizes = r.choices(inp["sizes"], "input.sizes", lambda s: _input_spec(s, "rgb"),
                           f"a side from 1 to {MAX_SIDE} or a string \"HxW\"")

@@ -350,3 +350,47 @@ def test_subsample_is_seeded_ordered_and_without_repeats():
         subsample(enumerate_space(load_space("builtin:demo")), 7, seed=1)
     with pytest.raises(InputError, match="max candidates must be a positive integer, got 0"):
         subsample(pool, 0)
+
+
+_VALUES = st.recursive(
+    st.one_of(st.booleans(), st.integers(-3, 70), st.floats(-1, 70, allow_nan=False),
+              st.sampled_from(["rgb", "gray", "8x8", "8x8gray", "standard", "separable",
+                               "max", "avg", "none", "stride", "gap", "flatten", "kernel",
+                               "conv", "pool", ""])),
+    lambda inner: st.lists(inner, max_size=4), max_leaves=8)
+_TABLES = {"input": ["sizes", "modes", "specs"],
+           "stages": ["count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
+                      "shared", "widening", "colour"],
+           "head": ["kind", "hidden"], "options": ["batch_norm", "dropout"],
+           "budget": ["max_params", "max_macs", "max_peak_kb", "max_flash_kb"]}
+
+
+@st.composite
+def space_data(draw) -> dict:
+    """Random tables of known (and a few unknown) keys with values of any TOML shape."""
+    data: dict = {"input": {"specs": ["8x8gray"]}} if draw(st.booleans()) else {}
+    for table, keys in _TABLES.items():
+        if draw(st.booleans()):
+            chosen = draw(st.lists(st.sampled_from(keys), max_size=4, unique=True))
+            data[table] = {k: draw(_VALUES) for k in chosen}
+    return data
+
+
+@settings(max_examples=100, deadline=None)
+@given(space_data())
+def test_fuzz_space_files_raise_only_our_errors(data):
+    """Any mix of keys and values gives a Space or a SpaceError/BudgetError, nothing else."""
+    from search.space import _space_from_data
+    try:
+        space = _space_from_data(data, "", "<fuzz>")
+    except (SpaceError, BudgetError) as exc:
+        assert str(exc).startswith("<fuzz>: ")
+        return
+    if space.size_bound() > 500:  # keep the test quick; big spaces are tested above
+        return
+    try:
+        candidates = enumerate_space(space)
+    except SpaceError as exc:
+        assert "no combination of the space fits its input" in str(exc)
+        return
+    assert len({str(a) for a in candidates}) == len(candidates)
