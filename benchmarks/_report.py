@@ -31,20 +31,30 @@ def _plan(results: list[dict]) -> str:
     return f"{reps} repeat{'s' if reps != 1 else ''} of at least {least} steps"
 
 
-def _header(results: list[dict], started: dt.datetime, cpu: str, quick: bool) -> list[str]:
+def _header(results: list[dict], started: dt.datetime, cpu: str, quick: bool,
+            revision: str) -> list[str]:
     meta = results[0]["meta"]
     v = meta["versions"]
     blas = next((p for p in meta["pools"] if p.get("user_api") == "blas"), {})
     hints = ", ".join(f"{k}={val if val is not None else '(unset)'}"
                       for k, val in meta["blas_hints"].items())
     kernels = sorted({str(r["meta"]["blas_kernel"]) for r in results})
-    lines = [f"tinyconv engine speed, {started:%Y-%m-%d %H:%M} UTC",
+    lines = [f"tinyconv engine speed, {started:%Y-%m-%d %H:%M} UTC, engine at {revision}",
              f"machine: {cpu}; Python {v['python']}, numpy {v['numpy']}, numba {v['numba']}, "
              f"torch {v['torch'] or 'not installed'}",
              f"BLAS: {blas.get('internal_api', '?')} {blas.get('version', '')}, kernel "
              f"{'/'.join(kernels)}; {hints}",
              f"protocol: warm-up, then the median of {_plan(results)} [min-max]; ours and "
              "peer interleaved A B A B in one process per thread count"]
+    loads = [(r["meta"]["threads"], r["meta"].get("load_before"), r["meta"].get("load_after"))
+             for r in results]
+    cpus = meta.get("cpus") or 0
+    if any(b is not None for _, b, _ in loads):
+        lines.append("load average (1 min) around each child: " + "; ".join(
+            f"{t} thr {_n(b, 1)} -> {_n(a, 1)}" for t, b, a in loads) + f" on {cpus} CPUs")
+        if any(v is not None and v > cpus + 0.5 for _, b, a in loads for v in (b, a)):
+            lines.append("WARNING: other work shared the CPUs during the run; absolute figures "
+                         "are low (2-thread ones most); ratios within one child hold better")
     if quick:
         lines.append("QUICK RUN: 1 repeat of 2 steps; these figures check the machinery, "
                      "they measure nothing")
@@ -157,14 +167,14 @@ def _startup(s: dict | None) -> list[str]:
 
 
 def render(results: list[dict], startup: dict | None, started: dt.datetime, cpu: str,
-           quick: bool, notes: dict[str, str] | None = None) -> str:
+           quick: bool, notes: dict[str, str] | None = None, revision: str = "") -> str:
     """The whole printed report."""
     records = [r for res in results for r in res["records"]]
     nets = list(dict.fromkeys(r["net"] for r in records))
     modes = list(dict.fromkeys(r["mode"] for r in records))
     threads = [res["meta"]["threads"] for res in results]
     notes = notes if notes is not None else {r["net"]: r.get("note", "") for r in records}
-    lines = _header(results, started, cpu, quick)
+    lines = _header(results, started, cpu, quick, revision or "unknown revision")
     lines += _ratios(records, nets, modes, threads)
     lines += _rates(records)
     lines += _shares(results, records)

@@ -146,6 +146,18 @@ def cpu_model() -> str:
     return platform.processor() or platform.machine()
 
 
+def load_average() -> float | None:
+    """The 1-minute load average (runnable processes), or None where the OS has none.
+
+    Above the CPU count means other work competed for the cores while we
+    measured: absolute figures are then low, and 2-thread figures worst hit.
+    """
+    try:
+        return float(os.getloadavg()[0])
+    except (AttributeError, OSError):
+        return None
+
+
 def blas_pools() -> list[dict]:
     """threadpoolctl's view of the loaded BLAS/OpenMP pools (empty if it is missing)."""
     try:

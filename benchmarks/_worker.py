@@ -150,6 +150,7 @@ def run(threads: int, nets: tuple[str, ...], modes: tuple[str, ...], plan: Plan,
         measured here at the same thread count.
     """
     peer = peer and _nets.peer_available()
+    load_before = _timing.load_average()
     seen = check_threads(threads, peer)
     before = _timing.gemm_rate(plan.gemm_n, plan.gemm_repeats)
     log(f"  [{threads} thr] matrix multiply {plan.gemm_n}^2 float32: "
@@ -166,13 +167,15 @@ def run(threads: int, nets: tuple[str, ...], modes: tuple[str, ...], plan: Plan,
                                         else rec["peer_gflops"] / gemm.median)
         rec["blas_kernel"] = seen["blas_kernel"]
         rec["hints_unset"] = hints_unset
+        rec["load_before"] = load_before
         for key in ("numba_threads", "blas_threads", "torch_threads"):
             rec[key] = seen[key]
     hints = {k: os.environ.get(k) for k in _timing.BLAS_HINTS}
     meta = {"threads": threads, "gemm": {"median": gemm.median, "min": gemm.low,
                                          "max": gemm.high, "before": before.median,
                                          "after": after.median, "n": plan.gemm_n},
-            "peer": peer, "blas_hints": hints, **seen, "versions": _timing.versions()}
+            "peer": peer, "blas_hints": hints, "cpus": os.cpu_count(),
+            "load_before": load_before, "load_after": _timing.load_average(), **seen, "versions": _timing.versions()}
     return {"meta": meta, "records": records}
 
 

@@ -151,16 +151,32 @@ def main(argv: list[str] | None = None) -> int:
     started = dt.datetime.now(dt.timezone.utc)
     results = run_children(args)
     startup = None if args.no_startup else _startup_figures(args)
-    print(_report.render(results, startup, started, _timing.cpu_model(), args.quick))
+    revision = engine_revision()
+    print(_report.render(results, startup, started, _timing.cpu_model(), args.quick,
+                         revision=revision))
     if args.json:
         records = [dict(rec, date=started.isoformat(timespec="seconds"),
-                        cpu=_timing.cpu_model(), quick=args.quick,
+                        cpu=_timing.cpu_model(), quick=args.quick, revision=revision,
                         **{f"{k}_version": v for k, v in r["meta"]["versions"].items()
                            if k in ("numpy", "numba", "torch")})
                    for r in results for rec in r["records"]]
         Path(args.json).write_text(json.dumps(records, indent=1) + "\n", encoding="utf-8")
         _log(f"wrote {len(records)} records to {args.json}")
     return 0
+
+
+def engine_revision() -> str:
+    """The repository's commit, with '+ local changes' when tracked files differ from it."""
+    def git(*cmd: str) -> str:
+        proc = subprocess.run(["git", *cmd], cwd=HERE.parent, capture_output=True, text=True,
+                              check=False)
+        return proc.stdout.strip() if proc.returncode == 0 else ""
+
+    rev = git("rev-parse", "--short", "HEAD")
+    if not rev:
+        return "unknown (not a git checkout)"
+    return rev + (" + local changes" if git("status", "--porcelain", "--untracked-files=no")
+                  else "")
 
 
 def _startup_figures(args: argparse.Namespace) -> dict:
