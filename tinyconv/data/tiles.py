@@ -4,29 +4,34 @@ A ceramics workshop stamps one of eight marks on each tile: ring, cross, bar,
 chevron, dot pair, triangle, square, star. :func:`make_tiles` draws such tiles
 as a camera over the conveyor would see them:
 
-* the mark, anti-aliased, at a random position, rotation, scale and stroke
-  width, drawn from a signed distance to its strokes (one pixel of coverage
-  ramp: ``coverage = clip(0.5 - distance_px, 0, 1)``);
-* on a random glaze colour, the mark darker (glaze pooled in the stamp) or
-  lighter (a bare rim) than the glaze;
+* the mark, anti-aliased, anywhere in a band around the centre, tilted by up
+  to :data:`MAX_TURN` (the conveyor's guides keep the tiles square, the stamp
+  is set by hand), at a random scale and stroke width; it is drawn from the
+  distance to its strokes with one pixel of coverage ramp,
+  ``coverage = clip(0.5 - distance_px, 0, 1)`` (anti-aliasing);
+* on one of the workshop's :data:`GLAZES`, each fired a little differently,
+  the mark darker than the glaze (glaze pools in the stamped hollow);
 * a lighting gradient in a random direction, glaze speckle, lens blur of
   random strength and sensor noise.
 
 Every image of a batch is computed at once over the pixel grid (NumPy, no
-per-pixel loops), deterministically from the seed. A mark can sit anywhere
-in a band around the centre, so a classifier that looks at fixed pixels
-(a dense network) does poorly, while a small convolutional one, which finds
-the same stroke pattern anywhere, does well.
+per-pixel loops), deterministically from the seed. Because the mark moves
+by about a third of the tile, a classifier that weighs fixed pixels (a
+dense network) does poorly, while a small convolutional one, which finds the
+same stroke pattern anywhere, does well; the tests train both briefly.
 """
 
 from __future__ import annotations
 
 import numpy as np
 
+from tinyconv.errors import DataError
+
 from .dataset import Dataset
 
 CLASSES = ("ring", "cross", "bar", "chevron", "dot-pair", "triangle", "square", "star")
 SPEC = "builtin:tiles"
+MAX_TURN = np.deg2rad(25.0)  # the conveyor's guides keep tiles square; the stamp is tilted by hand
 _CHUNK = 512  # images computed together (bounds memory; results do not depend on it)
 
 
@@ -48,6 +53,10 @@ _SEGMENTS: dict[str, np.ndarray] = {
     "star": _polygon(np.tile([1.0, 0.45], 5), 90.0),
 }
 _RING_RADIUS = 0.75
+# glaze colours as (hue, saturation, value): celadon, cobalt, ochre, oxblood, cream,
+# tenmoku, turquoise, slate
+GLAZES = ((0.36, 0.30, 0.75), (0.62, 0.75, 0.65), (0.11, 0.70, 0.80), (0.99, 0.75, 0.55),
+          (0.13, 0.18, 0.93), (0.07, 0.65, 0.45), (0.49, 0.55, 0.75), (0.58, 0.15, 0.55))
 _DOT_CENTRES = np.array([[-0.5, 0.0], [0.5, 0.0]])
 _DOT_RADIUS = 0.26
 
@@ -93,26 +102,26 @@ def _hsv_to_rgb(h: np.ndarray, s: np.ndarray, v: np.ndarray) -> np.ndarray:
 def _draw_params(rng: np.random.Generator, n: int, size: int) -> dict[str, np.ndarray]:
     """Every per-image random choice, drawn up front (shapes (n,) or (n, 3))."""
     half = size / 2.0
-    glaze = _hsv_to_rgb(rng.random(n), rng.uniform(0.2, 0.85, n), rng.uniform(0.45, 0.92, n))
-    darker = rng.random(n) < 0.75
-    dark = glaze * rng.uniform(0.2, 0.55, (n, 1))
-    light = glaze + (1.0 - glaze) * rng.uniform(0.4, 0.8, (n, 1))
-    tint = rng.random((n, 3))
-    mark = np.where(darker[:, None], dark, light)
-    mark = 0.85 * mark + 0.15 * tint
+    # the workshop's glazes, each fired a little differently
+    pick = rng.integers(0, len(GLAZES), n)
+    hsv = np.array(GLAZES)[pick] + rng.uniform(-1.0, 1.0, (n, 3)) * [0.03, 0.12, 0.12]
+    glaze = _hsv_to_rgb(hsv[:, 0] % 1.0, np.clip(hsv[:, 1], 0.0, 1.0),
+                        np.clip(hsv[:, 2], 0.35, 1.0))
+    # the stamp leaves a hollow where the glaze pools: the mark is darker
+    mark = glaze * rng.uniform(0.2, 0.55, (n, 1))
     return {
-        "cx": rng.uniform(-0.32, 0.32, n) * half,        # mark centre, pixels from middle
-        "cy": rng.uniform(-0.32, 0.32, n) * half,
-        "angle": rng.uniform(0.0, 2.0 * np.pi, n),
-        "radius": rng.uniform(0.30, 0.55, n) * half,     # mark radius, pixels
-        "stroke": rng.uniform(0.55, 1.5, n) * (size / 32.0),  # half stroke width, pixels
+        "cx": rng.uniform(-0.35, 0.35, n) * half,        # mark centre, pixels from middle
+        "cy": rng.uniform(-0.35, 0.35, n) * half,
+        "angle": rng.uniform(-1.0, 1.0, n) * MAX_TURN,   # radians; stamped by hand
+        "radius": rng.uniform(0.35, 0.6, n) * half,      # mark radius, pixels
+        "stroke": rng.uniform(0.7, 1.4, n) * (size / 32.0),  # half stroke width, pixels
         "glaze": glaze,
         "mark": mark,
-        "light_gain": rng.uniform(0.0, 0.35, n),
+        "light_gain": rng.uniform(0.0, 0.3, n),
         "light_angle": rng.uniform(0.0, 2.0 * np.pi, n),
-        "speckle": rng.uniform(0.005, 0.05, n),
+        "speckle": rng.uniform(0.005, 0.03, n),
         "blur": rng.uniform(0.0, 1.0, n),
-        "noise": rng.uniform(0.005, 0.035, n),
+        "noise": rng.uniform(0.005, 0.025, n),
     }
 
 
@@ -212,7 +221,6 @@ def make_tiles(n_per_class: int, size: int = 32, seed: int = 0) -> Dataset:
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
             raise TypeError(f"{name} must be an int, got {type(value).__name__}")
         if not lo <= value <= hi:
-            from tinyconv.errors import DataError
             raise DataError(f"tiles: {name} must be between {lo} and {hi}, got {value}")
     n_per_class, size, seed = int(n_per_class), int(size), int(seed)
     seq = np.random.SeedSequence(seed)
