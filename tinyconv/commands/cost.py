@@ -9,6 +9,7 @@ which then read the input given by ``--input`` (32x32rgb when not given).
 from __future__ import annotations
 
 import argparse
+import dataclasses
 import json
 import sys
 
@@ -85,7 +86,7 @@ def run(args: argparse.Namespace) -> int:
     memory = training_memory(arch, args.classes, args.batch)
     if args.json:
         data = cost.as_dict()
-        data["training_memory"] = memory.__dict__.copy()
+        data["training_memory"] = dataclasses.asdict(memory)
         json.dump(data, sys.stdout, indent=2)
         print()
         return 0
