@@ -129,37 +129,44 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
 
 
 class BarProgress(Progress):
-    """Two tqdm bars on stderr: the budget (or the plan) and the current rung."""
+    """Two tqdm bars on stderr: the budget (or the plan) and the current rung.
+
+    When stderr is not a terminal the bars are off and each rung prints one line.
+    """
 
     def __init__(self, settings_budget_cpu: float | None, budget_epochs: int | None):
         self.cpu_budget, self.epoch_budget = settings_budget_cpu, budget_epochs
         self.main = self.rung_bar = None
+        self.live = sys.stderr.isatty()
+
+    @staticmethod
+    def _bar(**kw):
+        from tqdm import tqdm
+        return tqdm(file=sys.stderr, dynamic_ncols=True, disable=None, **kw)
 
     def start(self, plan_units, done_units, cpu_s, epochs):
-        from tqdm import tqdm
         if self.cpu_budget:
-            self.main = tqdm(total=round(self.cpu_budget), initial=min(round(cpu_s),
-                             round(self.cpu_budget)), unit="cpu-s", desc="CPU budget",
-                             file=sys.stderr, position=0, dynamic_ncols=True, disable=None)
+            total = round(self.cpu_budget)
+            self.main = self._bar(total=total, initial=min(round(cpu_s), total),
+                                  unit="cpu-s", desc="CPU budget", position=0)
         elif self.epoch_budget:
-            self.main = tqdm(total=self.epoch_budget, initial=min(epochs, self.epoch_budget),
-                             unit="epoch", desc="epoch budget", file=sys.stderr, position=0,
-                             dynamic_ncols=True)
+            self.main = self._bar(total=self.epoch_budget,
+                                  initial=min(epochs, self.epoch_budget), unit="epoch",
+                                  desc="epoch budget", position=0)
         else:
-            self.main = tqdm(total=plan_units, initial=min(done_units, plan_units),
-                             unit="unit", desc="plan (at most)", file=sys.stderr, position=0,
-                             dynamic_ncols=True)
-        self._last = (cpu_s, epochs)
+            self.main = self._bar(total=plan_units, initial=min(done_units, plan_units),
+                                  unit="unit", desc="plan (at most)", position=0)
 
     def rung(self, bracket, n_brackets, rung, n_rungs, candidates, folds, epochs, done):
-        from tqdm import tqdm
         if self.rung_bar is not None:
             self.rung_bar.close()
-        self.rung_bar = tqdm(total=candidates * folds, initial=done, unit="unit",
-                             desc=f"bracket {bracket + 1}/{n_brackets} rung {rung + 1}/"
-                                  f"{n_rungs}: {candidates} x {folds} folds, {epochs} ep",
-                             file=sys.stderr, position=1, leave=False, dynamic_ncols=True,
-                             disable=None)
+        desc = (f"bracket {bracket + 1}/{n_brackets} rung {rung + 1}/{n_rungs}: "
+                f"{candidates} x {folds} folds, {epochs} ep")
+        if not self.live:
+            print(f"{desc} ({done} of {candidates * folds} units stored)", file=sys.stderr,
+                  flush=True)
+        self.rung_bar = self._bar(total=candidates * folds, initial=done, unit="unit",
+                                  desc=desc, position=1, leave=False)
 
     def unit(self, result, cpu_s, epochs):
         if self.rung_bar is not None:

@@ -1,0 +1,81 @@
+"""Tests of the ``tinyconv search`` command line: output, exit codes, refusals."""
+
+from __future__ import annotations
+
+import pandas as pd
+import pytest
+
+from tinyconv.cli import main
+
+DATA = "builtin:tiles?n=6&size=8&seed=1"
+SPACE = """
+[input]
+sizes = [8]
+modes = ["gray"]
+
+[stages]
+count = [0, 1]
+filters = [2, 4]
+
+[head]
+kind = ["flatten"]
+hidden = [0, 8]
+"""
+
+
+def _args(space, out, *extra):
+    return ["search", DATA, "--space", str(space), "--out", str(out), "--max-epochs", "3",
+            "--workers", "0", "--batch-size", "16", "--lr", "0.01", *extra]
+
+
+@pytest.fixture()
+def space(tmp_path):
+    path = tmp_path / "space.toml"
+    path.write_text(SPACE)
+    return path
+
+
+def test_search_prints_summary_and_pick(space, tmp_path, capsys, monkeypatch):
+    """A search prints the candidates, the ranking, the pick and where the files are."""
+    import tinyconv.commands.search as cmd
+    monkeypatch.setattr(cmd, "write_report_if_available", lambda d: ("missing", "skipped"))
+    out = tmp_path / "run"
+    assert main(_args(space, out, "--rank-by", "accuracy")) == 0
+    text = capsys.readouterr().out
+    assert "candidates: 6 in the space, 6 within budget, 6 searched" in text
+    assert "end: the whole plan ran" in text
+    table = pd.read_csv(out / "ranking.csv")
+    pick = table[table["pick"]].iloc[0]
+    assert f"pick: {pick.candidate}" in text
+    assert list(table["rank_accuracy"]) == list(range(1, len(table) + 1))
+    assert f"ranking: {out / 'ranking.csv'}" in text
+
+
+def test_other_settings_exit_2(space, tmp_path, capsys, monkeypatch):
+    """The same folder with other folds exits 2 with the difference and the fix."""
+    import tinyconv.commands.search as cmd
+    monkeypatch.setattr(cmd, "write_report_if_available", lambda d: ("missing", "skipped"))
+    out = tmp_path / "run"
+    assert main(_args(space, out, "--budget-epochs", "3")) == 0
+    capsys.readouterr()
+    assert main(_args(space, out, "--folds", "2")) == 2
+    err = capsys.readouterr().err
+    assert "folds: 3 in the run folder, 2 now" in err and "another --out folder" in err
+
+
+@pytest.mark.parametrize("extra,message", [
+    (["--budget-cpu", "ten minutes"], "CPU budget 'ten minutes' is not a duration"),
+    (["--folds", "1"], "folds must be an integer >= 2, got 1; set --folds"),
+    (["--max-params", "3"], "budget"),
+    (["--eta", "1"], "eta must be an integer >= 2"),
+])
+def test_bad_options_exit_2(space, tmp_path, capsys, extra, message):
+    """Unusable options exit 2 with a message naming the value and the rule."""
+    assert main(_args(space, tmp_path / "run", *extra)) == 2
+    assert message in capsys.readouterr().err
+
+
+def test_missing_space_file_exit_2(tmp_path, capsys):
+    """A space file that does not exist exits 2 naming the path."""
+    assert main(_args(tmp_path / "nope.toml", tmp_path / "run")) == 2
+    assert "nope.toml" in capsys.readouterr().err
