@@ -244,3 +244,22 @@ def test_missing_path_refused(tmp_path):
     with pytest.raises(DataError, match=r"nope: no such file or folder; give a folder with one "
                        r"sub-folder per class, a \.npz file"):
         load_data(tmp_path / "nope")
+
+
+def test_alpha_composited_over_white(tmp_path):
+    """RGBA and grey+alpha pixels are composited over white: out = a*c + (1-a)*255."""
+    rgba = np.zeros((2, 2, 4), dtype=np.uint8)
+    rgba[..., 0] = 200
+    rgba[..., 3] = [[255, 0], [128, 64]]
+    Image.fromarray(rgba, "RGBA").save(tmp_path / "a.png")
+    pixels, kind = read_image(tmp_path / "a.png")
+    alpha = rgba[..., 3] / 255.0
+    # alpha compositing "over" a white background (Porter & Duff 1984)
+    np.testing.assert_array_equal(pixels[..., 0], np.rint(200 * alpha + 255 * (1 - alpha)))
+    np.testing.assert_array_equal(pixels[..., 1], np.rint(255 * (1 - alpha)))
+    assert kind == "RGB+alpha"
+    la = np.stack([np.full((2, 2), 10, np.uint8), rgba[..., 3]], axis=-1)
+    Image.fromarray(la, "LA").save(tmp_path / "g.png")
+    pixels, kind = read_image(tmp_path / "g.png")
+    assert kind == "grey+alpha" and pixels.shape == (2, 2, 1)
+    np.testing.assert_array_equal(pixels[..., 0], np.rint(10 * alpha + 255 * (1 - alpha)))
