@@ -25,8 +25,12 @@ def spans_decades(values: Sequence[float]) -> bool:
     return v.size >= 2 and float(v.max() / v.min()) >= LOG_SPAN
 
 
-def si(x: float, _pos: object = None) -> str:
-    """Compact count: 950, 1.2k, 34k, 1.5M (for ticks and labels)."""
+def si(x: float, _pos: object = None, *, digits: int = 2) -> str:
+    """Compact count: 950, 1.2k, 34k, 1.5M (for ticks and labels).
+
+    ``digits=3`` keeps three significant digits (1.37k, 1.42k) where nearby
+    values must stay apart, e.g. as category labels.
+    """
     x = float(x)
     if not math.isfinite(x):
         return str(x)
@@ -36,6 +40,8 @@ def si(x: float, _pos: object = None) -> str:
     for div, suffix in ((1e9, "G"), (1e6, "M"), (1e3, "k")):
         if a >= div * 0.9995:
             v = x / div
+            if digits >= 3:
+                return f"{float(f'{v:.{digits}g}'):g}{suffix}"
             return (f"{v:.0f}{suffix}" if abs(v) >= 10 or abs(v - round(v)) < 0.05
                     else f"{v:.1f}{suffix}")
     if x == int(x):

@@ -58,7 +58,7 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
         width = 0.32
 
     with mpl.rc_context(style()):
-        fig = new_figure(max(6.5, min(12.0, 1.0 + 0.55 * n)), 4.6)
+        fig = new_figure(max(7.5, min(12.0, 1.0 + 0.6 * n)), 4.8)
         ax = fig.add_subplot()
         final = (folds.groupby("candidate", sort=False)["finalist"].first().reindex(names)
                  .fillna(True).to_numpy(dtype=bool) if "finalist" in folds.columns
@@ -102,7 +102,8 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
             ax.set_xlim(pos[0] - 3 * width, pos[-1] + 3 * width)
             ax.set_xlabel("parameters (count, log scale)")
         else:
-            labels = [si(p) + ("\u2605" if c == pick else "") for c, p in zip(names, params)]
+            labels = [si(p, digits=3) + ("\u2605" if c == pick else "")
+                      for c, p in zip(names, params)]
             ax.set_xticks(pos, labels, rotation=45 if n > 10 else 0)
             ax.set_xlim(-0.7, n - 0.3)
             ax.set_xlabel("candidates ordered by parameters (count)")

@@ -52,6 +52,7 @@ def collect(run_dir: str | Path) -> RunData:
         units = store.units()
         candidates = store.candidates()
         removed = {str(k): int(v) for k, v in (store.removed() or {}).items()}
+        outcome = store.outcome()
         pick = ranking[ranking["pick"].astype(bool)].iloc[0]
         frame = store.predictions(pick["candidate"], int(pick["rung"]))
         probs = store.prediction_probs(pick["candidate"], int(pick["rung"]))
@@ -65,7 +66,8 @@ def collect(run_dir: str | Path) -> RunData:
     images, paths, notes = _images(config, predictions)
     return RunData(run_dir=run_dir, config=config, classes=classes, ranking=ranking,
                    units=units, predictions=predictions, images=images, paths=paths,
-                   candidates=candidates, removed=removed, notices=tuple(notes))
+                   candidates=candidates, removed=removed, outcome=outcome,
+                   notices=tuple(notes))
 
 
 def _images(config: dict, predictions: PickPredictions | None

@@ -16,7 +16,7 @@ import matplotlib as mpl
 
 from tinyconv.report.palette import PALETTE, style
 
-THUMB = 56     # displayed thumbnail side, in mosaic pixels (at least)
+THUMB = 72     # displayed thumbnail side, in mosaic pixels (at least)
 GAP = 10       # pixels between thumbnails
 CAPTION = 30   # pixels under each thumbnail for its caption
 

@@ -53,6 +53,7 @@ class RunData:
     candidates : every candidate of the space with its costs and
         ``within_budget`` (``RunStore.candidates()``), when known
     removed : budget name -> candidates of the space it removed
+    outcome : how the last search session ended (``RunStore.outcome()``), if known
     notices : plain sentences about what the report had to leave out
     """
 
@@ -66,6 +67,7 @@ class RunData:
     paths: tuple[str, ...] | None = None
     candidates: pd.DataFrame | None = None
     removed: dict[str, int] = field(default_factory=dict)
+    outcome: dict[str, Any] | None = None
     notices: tuple[str, ...] = field(default=())
 
     @property

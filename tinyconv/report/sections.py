@@ -161,10 +161,18 @@ def pick_section(data: RunData, a: Assembled) -> Section:
                               "held-out folds (each image predicted once, by the network that "
                               "did not train on it).", wide=True) + "</div>")
         pc = a.tables["per_class.csv"]
-        parts.append("<h3>Per-class precision and recall</h3>" + table(pc, (
+        per_class = "<div><h3>Per-class precision and recall</h3>" + table(pc, (
             Column("class", "class", esc, numeric=False), Column("images", "images", num),
             Column("predicted as it", "predicted", num), Column("correct", "correct", num),
-            Column("precision", "precision", pct), Column("recall", "recall", pct))))
+            Column("precision", "precision", pct), Column("recall", "recall", pct))) + "</div>"
+        cf = a.tables["confusions.csv"]
+        pairs = "<div><h3>Most frequent confusions</h3>" + (table(cf, (
+            Column("true class", "true", esc, numeric=False),
+            Column("taken for", "predicted", esc, numeric=False),
+            Column("images", "images", num),
+            Column("share of the true class", "share_of_true_class", pct)))
+            if len(cf) else paragraph("No held-out image was misclassified.")) + "</div>"
+        parts.append(f'<div class="two">{per_class}{pairs}</div>')
     if "confusions_gallery.png" in a.figures:
         parts.append("<h3>What it confuses</h3>" + '<div class="figs">' + figure(
             a.figures["confusions_gallery.png"], "gallery of confused images",
@@ -191,8 +199,16 @@ def budget_summary(data: RunData) -> str:
     over = ", ".join(f"{k}: {v}" for k, v in data.removed.items() if v)
     text = (f"The space held {_count(n, 'candidate')}; {within} fit every budget"
             + (f" (removed, per budget: {over}; a candidate over two budgets counts twice)"
-               if over else "") + f". {_count(len(data.ranking), 'candidate')} finished every "
-            "fold of a rung and are ranked.")
+               if over else ""))
+    if "scheduled" in cands.columns:
+        scheduled = int(cands["scheduled"].astype(bool).sum())
+        if scheduled != within:
+            text += f", and {scheduled} of those were taken into the search"
+    text += (f". {_count(len(data.ranking), 'candidate')} finished every fold of a rung "
+             "and are ranked.")
+    if data.outcome:
+        how = ", ".join(f"{k}: {v}" for k, v in data.outcome.items())
+        text += f" The last search session ended with {how}."
     return paragraph(text)
 
 
