@@ -11,6 +11,8 @@ after a warm-up.
 from __future__ import annotations
 
 import cProfile
+import contextlib
+import importlib
 import io
 import pstats
 import time
@@ -22,23 +24,150 @@ import _nets
 import _timing
 
 
-def _wrap(layer, key: str, acc: dict) -> None:
-    """Replace ``layer.forward``/``backward`` with timed calls adding seconds to ``acc``."""
+#: layer modules whose kernel helpers (functions from ``tinyconv.layers.kernels_*``) are timed
+LAYER_MODULES = ("activation", "conv", "dense", "depthwise", "pool", "norm")
+
+
+def _wrap(layer, key: str, acc: dict, where: dict | None = None) -> None:
+    """Replace ``layer.forward``/``backward`` with timed calls adding seconds to ``acc``.
+
+    ``where["at"]`` is set to ``(key, "fwd"|"bwd")`` during each call, so kernel
+    timers (see :func:`timed_kernels`) know which layer called them.
+    """
     fwd, bwd = layer.forward, layer.backward
+    where = {} if where is None else where
 
     def forward(x, training=False):
+        where["at"] = (key, "fwd")
         t = time.perf_counter()
         out = fwd(x, training)
         acc[key]["fwd"] += time.perf_counter() - t
         return out
 
     def backward(g):
+        where["at"] = (key, "bwd")
         t = time.perf_counter()
         out = bwd(g)
         acc[key]["bwd"] += time.perf_counter() - t
         return out
 
     layer.forward, layer.backward = forward, backward
+
+
+@contextlib.contextmanager
+def timed_kernels(where: dict, acc: dict):
+    """Time every kernel helper the layer modules call, per calling layer and pass.
+
+    The helpers are replaced in the layer modules' namespaces for the duration
+    of the ``with`` block only (the engine's files are not changed); seconds go
+    to ``acc[(layer key, pass, function name)]``.
+    """
+    saved = []
+    for short in LAYER_MODULES:
+        mod = importlib.import_module(f"tinyconv.layers.{short}")
+        for name, fn in list(vars(mod).items()):
+            if not (callable(fn) and getattr(fn, "__module__", "").startswith(
+                    "tinyconv.layers.kernels")):
+                continue
+
+            def timed(*a, _fn=fn, _name=name, **k):
+                t = time.perf_counter()
+                out = _fn(*a, **k)
+                key, pas = where.get("at", ("?", "?"))
+                acc[(key, pas, _name)] += time.perf_counter() - t
+                return out
+
+            saved.append((mod, name, fn))
+            setattr(mod, name, timed)
+    try:
+        yield
+    finally:
+        for mod, name, fn in saved:
+            setattr(mod, name, fn)
+
+
+def kernel_times(name: str, steps: int = 20) -> dict:
+    """Per layer of one training step: seconds in each kernel helper, and the rest.
+
+    "rest" is the layer's time outside the helpers: the BLAS matrix products
+    written as ``@`` / ``np.matmul`` and NumPy calls in the layer's own code.
+
+    Returns
+    -------
+    dict
+        ``rows``: (index, op name, kind, pass, {helper: s}, rest s, total s) per step.
+    """
+    text = _nets.REFERENCE[name][0]
+    x, y = _nets.random_batch(text, _nets.TRAIN_BATCH, seed=1)
+    net = _nets.ours_network(text)
+    layer_acc: dict = defaultdict(lambda: {"fwd": 0.0, "bwd": 0.0})
+    kern_acc: dict = defaultdict(float)
+    where: dict = {}
+    for i, layer in enumerate(net.layers):
+        _wrap(layer, str(i), layer_acc, where)
+    step = _nets.ours_train_step(net, x, y)
+    with timed_kernels(where, kern_acc):
+        _timing.warm_up(step, 3, 0.2)
+        layer_acc.clear()
+        kern_acc.clear()
+        _timing.time_block(step, steps)
+    rows = []
+    for i, op in enumerate(net.ops):
+        for pas in ("fwd", "bwd"):
+            total = layer_acc[str(i)][pas] / steps
+            parts = {fn: sec / steps for (k, p, fn), sec in kern_acc.items()
+                     if k == str(i) and p == pas}
+            rows.append((i, op.name, op.kind, pas, parts, total - sum(parts.values()), total))
+    return {"net": name, "rows": rows}
+
+
+def _kernel_table(t: dict) -> list[str]:
+    lines = [f"{t['net']} train, inside each layer (ms per step; rest = BLAS products and "
+             "NumPy in the layer's own code):"]
+    for i, name, kind, pas, parts, rest, total in t["rows"]:
+        if total < 5e-5:
+            continue
+        inner = ", ".join(f"{fn} {sec * 1000:.2f}" for fn, sec in
+                          sorted(parts.items(), key=lambda kv: -kv[1]))
+        lines.append(f"  {i:>3} {name:<14}{kind:<9}{pas}  {total * 1000:7.2f} = "
+                     + (inner + ", " if inner else "") + f"rest {rest * 1000:.2f}")
+    return lines
+
+
+def conv_gemm_shapes(name: str, repeats: int = 7) -> list[str]:
+    """Each conv's three matrix products, timed alone at the training batch's shapes.
+
+    Forward ``cols (M, K) @ w (K, f)``, weight gradient ``cols.T @ g`` and
+    column gradient ``g @ w.T``, with ``M = n oh ow`` rows and ``K = k k c_in``,
+    the shapes the im2col convolution hands to BLAS; median milliseconds and
+    GFLOP/s (``2 M K f`` FLOPs each).
+    """
+    from tinyconv.arch import expand, parse
+
+    rng = np.random.default_rng(0)
+    lines = [f"{name} conv matrix products alone (batch {_nets.TRAIN_BATCH}, median of {repeats}):"]
+    for op in expand(parse(_nets.REFERENCE[name][0]), _nets.N_CLASSES):
+        if op.kind != "conv":
+            continue
+        (oh, ow, f), k, c = op.out_shape, op.kernel, op.in_shape[2]
+        m, kk = _nets.TRAIN_BATCH * oh * ow, k * k * c
+        cols = rng.standard_normal((m, kk), dtype=np.float32)
+        w = rng.standard_normal((kk, f), dtype=np.float32)
+        g = rng.standard_normal((m, f), dtype=np.float32)
+        flops = 2.0 * m * kk * f
+        parts = []
+        for label, fn in (("fwd cols@w", lambda: cols @ w), ("wgrad cols.T@g", lambda: cols.T @ g),
+                          ("colgrad g@w.T", lambda: g @ w.T)):
+            fn()
+            secs = []
+            for _ in range(repeats):
+                t = time.perf_counter()
+                fn()
+                secs.append(time.perf_counter() - t)
+            sec = float(np.median(secs))
+            parts.append(f"{label} {sec * 1000:.2f} ms ({flops / sec / 1e9:.0f} GFLOP/s)")
+        lines.append(f"  {op.name:<9} M={m:,} K={kk} f={f}: " + "; ".join(parts))
+    return lines
 
 
 def layer_times(name: str, steps: int = 20, mode: str = "train") -> dict:
@@ -149,5 +278,7 @@ def report(name: str, steps: int = 20) -> str:
     """The printed profile of one network: training and inference per layer, then cProfile."""
     lines = _table(layer_times(name, steps, "train")) + [""]
     lines += _table(layer_times(name, max(steps // 4, 2), "infer")) + [""]
+    lines += _kernel_table(kernel_times(name, steps)) + [""]
+    lines += conv_gemm_shapes(name) + [""]
     lines += [f"{name} training, cProfile of 5 steps (own time first):", top_functions(name), ""]
     return "\n".join(lines)

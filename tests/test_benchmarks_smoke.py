@@ -90,3 +90,17 @@ def test_bad_net_name_is_refused():
                           text=True, timeout=60, cwd=ROOT)
     assert proc.returncode == 2
     assert "'N9'" in proc.stderr and "N1, N2, N3, N4" in proc.stderr
+
+
+@pytest.mark.slow  # one child process importing numpy and numba: ~3-10 s
+def test_profile_lists_every_layer_of_n2():
+    """The per-layer profile of N2 names each of its ops, the loss, the update and the products."""
+    proc = subprocess.run([sys.executable, str(SCRIPT), "--profile", "N2", "--quick"],
+                          capture_output=True, text=True, timeout=300, cwd=ROOT)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    out = proc.stdout
+    # The op names are those of tinyconv.arch.expand for N2 (DEVELOPERS.md: 'position:token').
+    for name in ("1:c8k3", "2:p2", "3:c16k3", "4:p2", "head:flatten", "head:dense"):
+        assert name in out
+    # First conv's product shape, computed: 64 x 32 x 32 rows, 3 x 3 x 3 columns, 8 filters.
+    assert "SGD update" in out and "M=65,536 K=27 f=8" in out and "im2col" in out
