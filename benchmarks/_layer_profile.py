@@ -275,10 +275,13 @@ def _table(t: dict) -> list[str]:
 
 
 def report(name: str, steps: int = 20) -> str:
-    """The printed profile of one network: training and inference per layer, then cProfile."""
+    """The printed profile of one network: per layer, per kernel, products, variants, cProfile."""
+    import _whatif
+
     lines = _table(layer_times(name, steps, "train")) + [""]
     lines += _table(layer_times(name, max(steps // 4, 2), "infer")) + [""]
     lines += _kernel_table(kernel_times(name, steps)) + [""]
     lines += conv_gemm_shapes(name) + [""]
+    lines += _whatif.compare(name, repeats=5 if steps >= 20 else 1, min_steps=steps) + [""]
     lines += [f"{name} training, cProfile of 5 steps (own time first):", top_functions(name), ""]
     return "\n".join(lines)

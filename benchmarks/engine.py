@@ -131,7 +131,7 @@ def profile_main(args: argparse.Namespace) -> int:
     """Per-layer profile in a 1-thread child (so the pools really hold one thread)."""
     if args.worker is None:
         cmd = [sys.executable, str(Path(__file__).resolve()), "--worker", "1",
-               "--profile", ",".join(args.profile)]
+               "--profile", ",".join(args.profile)] + (["--quick"] if args.quick else [])
         return subprocess.run(cmd, env=_timing.thread_env(1), check=False).returncode
     import _layer_profile
 
