@@ -130,6 +130,22 @@ def test_page_ranking_table_shows_the_ranking_values(run_dir):
         assert (cls == "pick") == bool(r["pick"])
 
 
+def test_report_keeps_the_row_order_the_search_saved(run_dir, tmp_path):
+    """A ranking.csv saved in accuracy order makes the report rank by accuracy too."""
+    import shutil
+
+    from search.rank import save_ranking
+
+    shutil.copy(run_dir / "run.sqlite", tmp_path / "run.sqlite")
+    with RunStore(tmp_path) as store:
+        by_acc, by_param = rank_run(store, by="accuracy"), rank_run(store)
+    assert list(by_acc["candidate"]) != list(by_param["candidate"])   # the orders differ here
+    save_ranking(by_acc, tmp_path)
+    assert list(collect(tmp_path).ranking["candidate"]) == list(by_acc["candidate"])
+    save_ranking(by_param, tmp_path)
+    assert list(collect(tmp_path).ranking["candidate"]) == list(by_param["candidate"])
+
+
 def test_folds_csv_are_the_stored_unit_accuracies(run_dir):
     """folds.csv lists each ranked candidate's stored per-fold accuracies at its ranked rung."""
     folds = pd.read_csv(run_dir / "folds.csv")
@@ -210,7 +226,11 @@ def test_missing_and_empty_run_folders_are_clear_errors(tmp_path, capsys):
     with pytest.raises(RunError, match=r"no run here \(no run.sqlite\)"):
         write_report(tmp_path)
     assert main(["report", str(tmp_path / "nowhere")]) == 2
-    assert "error: " in capsys.readouterr().err
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and "no such run folder" in err
+    assert main(["report", str(tmp_path)]) == 2
+    err = capsys.readouterr().err
+    assert err.startswith("error: ") and "no run here" in err
 
 
 def test_store_without_finished_rung_is_a_clear_error(tmp_path):
@@ -240,3 +260,15 @@ def test_changed_data_leaves_out_the_galleries_with_a_notice(run_dir, monkeypatc
     assert "has changed since the run" in data.notices[0]
     section = pick_section(data, Assembled(notices=list(data.notices)))
     assert "has changed since the run" in section.body and "<img" not in section.body
+
+
+def test_box_plot_keeps_the_pick_when_candidates_are_many(run_dir, monkeypatch):
+    """With more candidates than fit one axis, the box plot keeps finalists first and the pick."""
+    import tinyconv.report.assemble as assemble
+
+    data = collect(run_dir)
+    assert assemble.box_candidates(data) == list(
+        data.ranking.sort_values(["finalist", "rank_per_param"], ascending=[False, True])
+        ["candidate"])
+    monkeypatch.setattr(assemble, "MAX_BOXES", 1)
+    assert assemble.box_candidates(data) == [data.pick["candidate"]]

@@ -20,6 +20,7 @@ from tinyconv.report.pareto import pareto_plot
 from tinyconv.report.rundata import RunData, fold_scores
 
 MAX_FINALIST_CURVES = 6
+MAX_BOXES = 40   # more pairs of boxes than this are unreadable on one axis
 N_CONFUSIONS = 6
 PER_CONFUSION = 6
 N_MISTAKES = 12
@@ -33,6 +34,7 @@ class Assembled:
     tables: dict[str, pd.DataFrame] = field(default_factory=dict)
     counts: np.ndarray | None = None
     curve_candidates: list[str] = field(default_factory=list)
+    boxes_left_out: int = 0
     notices: list[str] = field(default_factory=list)
 
 
@@ -53,6 +55,22 @@ def curve_finalists(data: RunData) -> list[str]:
     return seen[:MAX_FINALIST_CURVES]
 
 
+def box_candidates(data: RunData) -> list[str]:
+    """Candidates in the fold box plot: all, or the finalists then the best-ranked others.
+
+    At most :data:`MAX_BOXES`; the pick is always among them.
+    """
+    r = data.ranking
+    final = (r["finalist"].astype(bool) if "finalist" in r.columns
+             else pd.Series(True, index=r.index))
+    order = (r.assign(_later=~final)
+             .sort_values(["_later", "rank_per_param"], kind="stable")["candidate"].tolist())
+    shown = order[:MAX_BOXES]
+    if data.pick["candidate"] not in shown:
+        shown[-1] = data.pick["candidate"]
+    return shown
+
+
 def assemble(data: RunData) -> Assembled:
     """Render every figure and build every table of the report.
 
@@ -70,7 +88,10 @@ def assemble(data: RunData) -> Assembled:
 
     folds = fold_scores(ranking, data.units)
     out.tables["folds.csv"] = folds
-    _keep(out, "folds.png", fold_boxes(folds, chance=chance, pick=pick["candidate"]))
+    shown = box_candidates(data)
+    out.boxes_left_out = len(ranking) - len(shown)
+    _keep(out, "folds.png", fold_boxes(folds[folds["candidate"].isin(shown)], chance=chance,
+                                       pick=pick["candidate"]))
 
     fin = data.finalists
     for axis in ("params", "macs"):

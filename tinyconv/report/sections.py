@@ -47,7 +47,8 @@ def _acc_pm(row: pd.Series) -> str:
 
 
 RANKING_COLUMNS = (
-    Column("rank", "rank_per_param", num, title="rank by accuracy over chance per 1000 parameters"),
+    Column("rank per kparam", "rank_per_param", num,
+           title="rank by accuracy over chance per 1000 parameters"),
     Column("candidate", "candidate", _code, numeric=False),
     Column("params", "params", num),
     Column("MACs", "macs", num, title="multiply-accumulates per image"),
@@ -60,7 +61,7 @@ RANKING_COLUMNS = (
     Column("acc / kparam", "acc_per_kparam", lambda v: num(v, 3),
            title="(accuracy - 1/K) per 1000 parameters"),
     Column("p vs best", "p_vs_best", pvalue, title="corrected resampled t-test against the best"),
-    Column("rank (acc)", "rank_accuracy", num, title="rank by mean held-out accuracy"),
+    Column("rank by accuracy", "rank_accuracy", num, title="rank by mean held-out accuracy"),
 )
 
 
@@ -125,8 +126,12 @@ def folds_section(a: Assembled) -> Section:
                  "Each pair of boxes is one candidate: the dark box its held-out accuracy on "
                  "each fold, the light box its training accuracy. A wide gap between them is "
                  "over-fitting; a tall box is an unstable result.", wide=True)
+    lead = "Per-fold accuracy, ordered by parameter count."
+    if a.boxes_left_out:
+        lead += (f" Only the finalists and the best-ranked others are drawn; "
+                 f"{_count(a.boxes_left_out, 'candidate')} more are in folds.csv.")
     return Section("folds", "Spread and over-fitting", f'<div class="figs">{fig}</div>',
-                   lead="Per-fold accuracy, ordered by parameter count.")
+                   lead=lead)
 
 
 def pareto_section(a: Assembled) -> Section:
