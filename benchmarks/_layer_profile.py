@@ -34,24 +34,21 @@ def _wrap(layer, key: str, acc: dict, where: dict | None = None) -> None:
     ``where["at"]`` is set to ``(key, "fwd"|"bwd")`` during each call, so kernel
     timers (see :func:`timed_kernels`) know which layer called them.
     """
-    fwd, bwd = layer.forward, layer.backward
     where = {} if where is None else where
 
-    def forward(x, training=False):
-        where["at"] = (key, "fwd")
-        t = time.perf_counter()
-        out = fwd(x, training)
-        acc[key]["fwd"] += time.perf_counter() - t
-        return out
+    def timed(method, pas: str):
+        def call(*args, **kwargs):
+            where["at"] = (key, pas)
+            t = time.perf_counter()
+            out = method(*args, **kwargs)
+            acc[key][pas] += time.perf_counter() - t
+            return out
+        return call
 
-    def backward(g):
-        where["at"] = (key, "bwd")
-        t = time.perf_counter()
-        out = bwd(g)
-        acc[key]["bwd"] += time.perf_counter() - t
-        return out
-
-    layer.forward, layer.backward = forward, backward
+    # adopt: a ReLU taking the output of a fused layer before it (forward time).
+    for attr, pas in (("forward", "fwd"), ("adopt", "fwd"), ("backward", "bwd")):
+        if hasattr(layer, attr):
+            setattr(layer, attr, timed(getattr(layer, attr), pas))
 
 
 @contextlib.contextmanager
@@ -201,6 +198,7 @@ def layer_times(name: str, steps: int = 20, mode: str = "train") -> dict:
         keys.append((key, op))
         _wrap(layer, key, acc)
     opt = SGD(net.param_list(), momentum=_nets.MOMENTUM)
+    backward = _nets.training_backward(net)
     extra = {"loss": 0.0, "update": 0.0}
 
     def step():
@@ -210,7 +208,7 @@ def layer_times(name: str, steps: int = 20, mode: str = "train") -> dict:
         t = time.perf_counter()
         _, grad = softmax_cross_entropy(logits, y)
         extra["loss"] += time.perf_counter() - t
-        net.backward(grad)
+        backward(grad)
         t = time.perf_counter()
         opt.update([g for _, g in net.grad_list()], _nets.LR)
         extra["update"] += time.perf_counter() - t

@@ -9,6 +9,7 @@ one inference step is a forward pass only.
 
 from __future__ import annotations
 
+import inspect
 from dataclasses import dataclass
 from typing import Callable
 
@@ -117,17 +118,34 @@ def ours_param_count(net) -> int:
     return int(sum(a.size for _, a in net.param_list()))
 
 
+def skips_input_grad(net) -> bool:
+    """True when ``net.backward`` takes ``input_grad`` (so training can skip the images' gradient)."""
+    return "input_grad" in inspect.signature(net.backward).parameters
+
+
+def training_backward(net) -> Callable[[np.ndarray], object]:
+    """``net.backward`` as training calls it: without the images' gradient when the engine allows.
+
+    The peer does not compute that gradient either (its input needs none), so
+    this is the like-for-like step.
+    """
+    if skips_input_grad(net):
+        return lambda grad: net.backward(grad, input_grad=False)
+    return net.backward
+
+
 def ours_train_step(net, x: np.ndarray, y: np.ndarray) -> Callable[[], float]:
     """One training step of our engine on the fixed batch ``(x, y)``; returns the loss."""
     from tinyconv.losses import softmax_cross_entropy
     from tinyconv.optim import SGD
 
     opt = SGD(net.param_list(), momentum=MOMENTUM)
+    backward = training_backward(net)
 
     def step() -> float:
         logits = net.forward(x, training=True)
         loss, grad = softmax_cross_entropy(logits, y)
-        net.backward(grad)
+        backward(grad)
         opt.update([g for _, g in net.grad_list()], LR)
         return loss
 

@@ -9,7 +9,7 @@ files are not changed. Variants:
   reads the gradient with respect to the images);
 * ``fused ReLU``: conv/dense built with ``relu=True`` semantics (bias and ReLU
   in one pass, mask applied in the layer's backward) and the ReLU layer after
-  it replaced by a pass-through;
+  it replaced by a pass-through (no change where the engine already fuses);
 * ``pool before ReLU``: a ReLU directly followed by a max pool swapped, since
   ``maxpool(relu(x)) == relu(maxpool(x))`` (max is monotone), so ReLU runs on
   a map s^2 times smaller;

@@ -122,6 +122,7 @@ def measure_net(name: str, threads: int, modes: tuple[str, ...], plan: Plan, pee
             "ours_gflops": ours.median * flops / 1e9,
             "peer_gflops": None,
             "note": _nets.relu_note(text),
+            "ours_skips_input_grad": _nets.skips_input_grad(net) if mode == "train" else None,
             "final_loss": float(runs["ours"]()) if mode == "train" else None,
         }
         if peer:
