@@ -1,0 +1,121 @@
+"""Tests of the page's words and markup, from plain run data (no store)."""
+
+from __future__ import annotations
+
+import json
+from html.parser import HTMLParser
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from tinyconv.report.html import Column, esc, page, pct, pvalue, table
+from tinyconv.report.rundata import PickPredictions, RunData
+from tinyconv.report.sections import why_pick
+from tinyconv.report.writer import render_report
+
+CLASSES = ("ring", "<b>cross</b> & co", "bar")
+
+
+def _run(pick_is_best: bool) -> RunData:
+    """Three finalists; the pick is the smallest within one SE of the best."""
+    accs = {"a": [0.80, 0.82, 0.81], "b": [0.86, 0.88, 0.87], "c": [0.85, 0.89, 0.93]}
+    params = {"a": 500, "b": 2_000, "c": 9_000}
+    if pick_is_best:
+        accs["b"] = [0.95, 0.96, 0.97]
+    rows, units = [], []
+    for name, acc in accs.items():
+        a = np.array(acc)
+        rows.append({"candidate": f"8x8gray/{name}", "params": params[name], "macs": 10 * params[name],
+                     "peak_kb": 1.0, "flash_kb": params[name] / 1024, "rung": 1, "epochs": 4,
+                     "folds": 3, "acc_mean": a.mean(), "acc_se": a.std(ddof=1) / np.sqrt(3),
+                     "train_acc_mean": a.mean() + 0.05, "gap": 0.05,
+                     "acc_per_kparam": (a.mean() - 1 / 3) / (params[name] / 1000),
+                     "p_vs_best": 0.04, "finalist": True})
+        for f, v in enumerate(acc):
+            units.append({"candidate": f"8x8gray/{name}", "fold": f, "rung": 1, "epochs": 4,
+                          "status": "done", "val_acc": v, "train_acc": v + 0.05,
+                          "history": json.dumps({"val_acc": [v / 2, v], "train_acc": [v / 2, v]})})
+    r = pd.DataFrame(rows)
+    best = int(r["acc_mean"].idxmax())
+    r.loc[best, "p_vs_best"] = np.nan
+    r["within_1se"] = r["acc_mean"] >= r["acc_mean"][best] - r["acc_se"][best]
+    r["pick"] = False
+    r.loc[r[r["within_1se"]]["params"].idxmin(), "pick"] = True
+    r["pareto_params"] = r["pareto_macs"] = True
+    r["rank_per_param"] = r["acc_per_kparam"].rank(ascending=False).astype(int)
+    r["rank_accuracy"] = r["acc_mean"].rank(ascending=False).astype(int)
+    rng = np.random.default_rng(0)
+    n = 30
+    label = np.arange(n) % 3
+    pred = np.where(rng.random(n) < 0.3, (label + 1) % 3, label)
+    probs = rng.dirichlet(np.ones(3), n)
+    preds = PickPredictions(fold=np.arange(n) % 3, index=np.arange(n), label=label, pred=pred,
+                            probs=probs)
+    images = rng.integers(0, 256, (n, 8, 8, 1), dtype=np.uint8)
+    config = {"data": "arrays.npz", "classes": list(CLASSES), "folds": 3,
+              "budget": {"max_params": 10_000, "max_macs": None}}
+    return RunData(run_dir=Path("run"), config=config, classes=CLASSES, ranking=r,
+                   units=pd.DataFrame(units), predictions=preds, images=images)
+
+
+def test_why_pick_gives_the_rule_the_bar_and_the_trade():
+    """The reason names the rule, the best, the bar (best minus SE) and the size saving."""
+    data = _run(pick_is_best=False)
+    best, pick = data.best, data.pick
+    assert pick["candidate"] == "8x8gray/b" and best["candidate"] == "8x8gray/c"
+    text = why_pick(data)
+    bar = best["acc_mean"] - best["acc_se"]
+    assert "one-standard-error rule" in text and f"the bar is {100 * bar:.1f}%" in text
+    assert "4.5 times fewer" in text          # 9,000 / 2,000 parameters
+    assert "2 of the 3 finalists clear it" in text and "p = 0.040" in text
+
+
+def test_why_pick_when_the_best_is_also_the_smallest():
+    """When the best is the only one within one SE, the reason says so."""
+    text = why_pick(_run(pick_is_best=True))
+    assert "the best is itself the smallest of them (2,000 parameters)" in text
+
+
+def test_page_escapes_names_from_the_run(tmp_path):
+    """Class names and texts from the run appear escaped, never as markup."""
+    path = render_report(_run(False), tmp_path)
+    text = path.read_text(encoding="utf-8")
+    assert "<b>cross</b>" not in text
+    assert esc("<b>cross</b> & co") in text
+
+    class Tags(HTMLParser):
+        seen: list[str] = []
+
+        def handle_starttag(self, tag, attrs):
+            self.seen.append(tag)
+    parser = Tags()
+    parser.feed(text)
+    assert "b" not in parser.seen        # the class name's <b> did not become a tag
+
+
+def test_table_highlights_only_the_given_rows():
+    """Highlighted rows carry the pick class; formatters are applied per cell."""
+    frame = pd.DataFrame({"x": [0.5, 0.25], "p": [0.0004, np.nan]})
+    html = table(frame, (Column("x", "x", pct), Column("p", "p", pvalue)),
+                 highlight=[False, True])
+    assert html.count('<tr class="pick">') == 1
+    assert "50.0%" in html and "&lt;0.001" in html and "\u2013" in html
+
+
+def test_page_has_numbered_sections_and_a_matching_contents():
+    """Every contents link points at a section id, numbered in order."""
+    from tinyconv.report.html import Section
+
+    text = page("T", "k", {"a": "b"}, "", [Section("one", "One", ""), Section("two", "Two", "")],
+                "f")
+    assert '<a href="#one"><span>1</span>One</a>' in text and 'id="two"' in text
+    assert '<span class="no">02</span>' in text
+
+
+@pytest.mark.parametrize("value,shown", [(0.9234, "92.3%"), (None, "\u2013"),
+                                         (float("nan"), "\u2013")])
+def test_percent_format(value, shown):
+    """Accuracies show as one-decimal percentages; missing values as a dash."""
+    assert pct(value) == shown
