@@ -263,3 +263,24 @@ def test_alpha_composited_over_white(tmp_path):
     pixels, kind = read_image(tmp_path / "g.png")
     assert kind == "grey+alpha" and pixels.shape == (2, 2, 1)
     np.testing.assert_array_equal(pixels[..., 0], np.rint(10 * alpha + 255 * (1 - alpha)))
+
+
+def test_large_photos_shrunk_while_reading(tmp_path):
+    """Images over 256 pixels are shrunk by a whole factor (block means), with a note."""
+    rng = np.random.default_rng(6)
+    originals = {}
+    for c in ("a", "b"):
+        (tmp_path / c).mkdir()
+        for i in range(2):
+            a = rng.integers(0, 256, (600, 300, 3), dtype=np.uint8)
+            Image.fromarray(a).save(tmp_path / c / f"{i}.png")
+            originals[str(tmp_path / c / f"{i}.png")] = a
+    with pytest.warns(DataNote, match=r"4 images larger than 256 pixels were shrunk by whole "
+                      r"factors while reading"):
+        ds, intake = load_with_intake(tmp_path)
+    assert ds.image_shape == (200, 100, 3)                       # factor ceil(600 / 256) = 3
+    a = originals[ds.paths[0]].astype(float)
+    # 3 x 3 block means, computed independently with numpy
+    ref = np.rint(a.reshape(200, 3, 100, 3, 3).mean(axis=(1, 3)))
+    np.testing.assert_array_equal(ds.images[0], ref)
+    assert dict(intake.sizes) == {"600x300": 4}

@@ -7,7 +7,9 @@ a note; sub-folders inside a class folder are ignored with a note.
 
 Problems are reported all at once: every unreadable file in one error (or,
 with ``skip_bad=True``, skipped and counted), every empty class folder in one
-error. Images of different sizes are resized to the most common size (area
+error. Images with a side over :data:`MAX_SIDE` pixels are shrunk by a whole
+factor as they are read (block means), so folders of camera photos stay small
+in memory. Images of different sizes are resized to the most common size (area
 averaging or bilinear, :mod:`.resize`), with a warning when sizes lie far
 apart. When every image is grey the data set keeps one channel; otherwise
 grey images are repeated to RGB.
@@ -23,11 +25,12 @@ import numpy as np
 from tinyconv.errors import DataError
 
 from .dataset import Dataset, Intake, WarningLog
-from .images import EXTENSIONS, UnreadableImage, read_image
+from .images import EXTENSIONS, UnreadableImage, read_image, reduce_by
 from .resize import resize_uint8
 from .validate import check_classes, listing, warn_duplicates
 
 FAR_APART = 2.0  # a side more than this factor from the common size draws a warning
+MAX_SIDE = 256   # larger images are shrunk by a whole factor while reading (memory)
 
 
 def _scan(root: Path, log: WarningLog) -> dict[str, list[Path]]:
@@ -104,6 +107,8 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
     paths: list[str] = []
     kinds: Counter[str] = Counter()
     bad: list[str] = []
+    large: list[str] = []
+    seen: Counter[str] = Counter()
     names = list(scanned)
     for c, name in enumerate(names):
         for f in scanned[name]:
@@ -112,6 +117,10 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
             except UnreadableImage as exc:
                 bad.append(f"{f} ({exc})")
                 continue
+            seen[f"{im.shape[0]}x{im.shape[1]}"] += 1
+            if max(im.shape[:2]) > MAX_SIDE:
+                large.append(f"{f.parent.name}/{f.name} ({im.shape[0]}x{im.shape[1]})")
+                im = reduce_by(im, -(-max(im.shape[:2]) // MAX_SIDE))
             pixels.append(im)
             labels.append(c)
             paths.append(str(f))
@@ -126,6 +135,9 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
         skipped = tuple(b.split(" (", 1)[0] for b in bad)
         log.warn(f"skipped {len(bad)} unreadable image "
                  f"{'file' if len(bad) == 1 else 'files'}: {listing(bad)}")
+    if large:
+        log.note(f"{len(large)} images larger than {MAX_SIDE} pixels were shrunk by whole "
+                 f"factors while reading (block means) to save memory: {listing(large)}")
     counts = np.bincount(np.array(labels, dtype=np.int64), minlength=len(names))
     empty = [names[i] for i in range(len(names)) if counts[i] == 0]
     if empty:
@@ -134,21 +146,19 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
                         f"images: {listing(repr(e) for e in empty)}; add PNG, JPEG, BMP or "
                         "GIF images to it, or remove the folder")
     check_classes(names, counts, str(root))
-    images, sizes = _stack(pixels, paths, log)
+    images = _stack(pixels, paths, log)
     label_arr = np.array(labels, dtype=np.int64)
     within, across = warn_duplicates(images, label_arr, names, paths, log)
     ds = Dataset(images, label_arr, tuple(names), tuple(paths), str(root), skipped,
                  tuple(log.messages))
-    intake = Intake(tuple(sizes.most_common()), tuple(kinds.most_common()),
+    intake = Intake(tuple(seen.most_common()), tuple(kinds.most_common()),
                     tuple(within), tuple(across))
     return ds, intake
 
 
-def _stack(pixels: list[np.ndarray], paths: list[str], log: WarningLog
-           ) -> tuple[np.ndarray, Counter[str]]:
-    """One (n, h, w, c) uint8 array at the most common size; sizes seen."""
+def _stack(pixels: list[np.ndarray], paths: list[str], log: WarningLog) -> np.ndarray:
+    """One (n, h, w, c) uint8 array at the most common size."""
     shapes = [p.shape[:2] for p in pixels]
-    sizes = Counter(f"{h}x{w}" for h, w in shapes)
     (h, w), _ = Counter(shapes).most_common(1)[0]
     grey = all(p.shape[2] == 1 or (np.array_equal(p[..., 0], p[..., 1])
                                    and np.array_equal(p[..., 0], p[..., 2])) for p in pixels)
@@ -173,4 +183,4 @@ def _stack(pixels: list[np.ndarray], paths: list[str], log: WarningLog
                  "consistently before loading")
     elif n_resized:
         log.note(f"{n_resized} images resized to the most common size {h}x{w}")
-    return out, sizes
+    return out

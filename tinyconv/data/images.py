@@ -76,6 +76,17 @@ def _over_white(rgba: np.ndarray) -> np.ndarray:
     return np.clip(np.rint(out), 0, 255).astype(np.uint8)
 
 
+def reduce_by(pixels: np.ndarray, factor: int) -> np.ndarray:
+    """Shrink (h, w, c) uint8 by a whole factor: the mean of each factor x factor block.
+
+    Rows and columns past the last whole block are dropped (at most factor - 1).
+    """
+    h, w, c = pixels.shape
+    hb, wb = h // factor, w // factor
+    blocks = pixels[: hb * factor, : wb * factor].reshape(hb, factor, wb, factor, c)
+    return np.rint(blocks.mean(axis=(1, 3))).astype(np.uint8)
+
+
 def read_image(path: str | Path) -> tuple[np.ndarray, str]:
     """Pixels and colour kind of one image file.
 
