@@ -1,0 +1,134 @@
+"""Search speed and what successive halving saves, on the tile demo space.
+
+Usage::
+
+    python benchmarks/search.py              # demo-sized data, both parts
+    python benchmarks/search.py --quick      # small data and few candidates (smoke run)
+    python benchmarks/search.py --part sh    # only successive halving vs --full
+
+Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
+
+1. **Throughput**: the same units (``--full`` on a seeded sample of the demo
+   space) with 1 and with 2 local worker processes: units (candidate-folds)
+   per wall-clock hour and per CPU-hour, and the parallel efficiency
+   ``(rate_2 / rate_1) / 2`` on wall-clock time. Worker start-up is included,
+   as a user would see it. The two runs' rankings must be identical.
+2. **Successive halving vs --full**: the demo search (Hyperband brackets) and
+   the exhaustive run with the same final epochs: training CPU time of each
+   and their ratio, and whether the halving run's one-SE pick has, in the
+   full run, a mean accuracy within one standard error of the full run's best.
+   The full run's units at the final epochs use the same seeds as the halving
+   run's, so the pick's full figures are those of an identical training.
+
+The machine is shared: compare the figures within one run only.
+"""
+
+from __future__ import annotations
+
+import argparse
+import os
+import shutil
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+# This file is named like the package it measures: keep its folder off the path.
+_HERE = Path(__file__).resolve().parent
+sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != _HERE]
+
+
+def _run(out: Path, workers: int, **change):
+    from search.session import SearchRequest, run_search
+    settings = dict(space="builtin:demo", folds=3, seed=0, eta=3, workers=workers,
+                    training={"batch_size": 32, "lr": 0.01})
+    settings.update(change)
+    start = time.perf_counter()
+    summary = run_search(SearchRequest(out=out, **settings))
+    return summary, time.perf_counter() - start
+
+
+def throughput(root: Path, data: str, sample: int, epochs: int) -> None:
+    print(f"throughput: --full, {sample} sampled candidates x 3 folds, {epochs} epochs, {data}")
+    print(f"{'workers':>7}  {'units':>5}  {'wall s':>7}  {'CPU s':>7}  {'units/wall-h':>12}  "
+          f"{'units/CPU-h':>11}")
+    rates, tables = {}, {}
+    for workers in (1, 2):
+        summary, wall = _run(root / f"throughput_w{workers}", workers, data=data, full=True,
+                             max_epochs=epochs, max_candidates=sample)
+        o = summary.outcome
+        rates[workers] = o.units_run / wall * 3600
+        tables[workers] = summary.ranking_path.read_bytes()
+        print(f"{workers:>7}  {o.units_run:>5}  {wall:7.1f}  {o.cpu_s:7.1f}  "
+              f"{rates[workers]:12.0f}  {o.units_run / max(o.cpu_s, 1e-9) * 3600:11.0f}")
+    print(f"parallel efficiency with 2 workers: {rates[2] / rates[1] / 2:.2f} "
+          f"(speed-up {rates[2] / rates[1]:.2f}x); rankings identical: "
+          f"{tables[1] == tables[2]}")
+
+
+def halving_vs_full(root: Path, data: str, epochs: int, sample: int | None,
+                    workers: int) -> None:
+    print(f"\nsuccessive halving vs --full: {data}, R = {epochs} epochs, eta = 3, 3 folds, "
+          f"{'all' if sample is None else sample} candidates, {workers} workers")
+    sh, sh_wall = _run(root / "halving", workers, data=data, max_epochs=epochs,
+                       max_candidates=sample)
+    full, full_wall = _run(root / "full", workers, data=data, max_epochs=epochs,
+                           max_candidates=sample, full=True)
+    print(f"{'run':>8}  {'units':>5}  {'epochs':>6}  {'CPU s':>8}  {'wall s':>7}")
+    for name, s, wall in (("halving", sh, sh_wall), ("full", full, full_wall)):
+        print(f"{name:>8}  {s.outcome.units_run:>5}  {s.outcome.epochs:>6}  "
+              f"{s.outcome.cpu_s:8.1f}  {wall:7.1f}")
+    print(f"CPU ratio halving / full: {sh.outcome.cpu_s / full.outcome.cpu_s:.3f}")
+    pick = sh.table[sh.table["pick"]].iloc[0]
+    ft = full.table.set_index("candidate")
+    best = full.table[full.table["finalist"]].sort_values(
+        ["acc_mean", "params"], ascending=[False, True]).iloc[0]
+    got = ft.loc[pick.candidate]
+    within = got.acc_mean >= best.acc_mean - best.acc_se - 1e-12
+    print(f"halving pick (one-SE): {pick.candidate}, {int(pick.params):,} params; "
+          f"in the full run {got.acc_mean:.3f} ± {got.acc_se:.3f}")
+    print(f"full run's best: {best.candidate}, {best.acc_mean:.3f} ± {best.acc_se:.3f}; "
+          f"full run's own pick: {full.table[full.table['pick']].iloc[0].candidate}")
+    print(f"pick within one SE of the full best: {'yes' if within else 'no'} "
+          f"(threshold {best.acc_mean - best.acc_se:.3f})")
+
+
+def main(argv=None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--quick", action="store_true", help="small data, few candidates")
+    parser.add_argument("--part", choices=("all", "throughput", "sh"), default="all")
+    parser.add_argument("--keep", default=None, metavar="DIR",
+                        help="keep the run folders in DIR (must be new or empty)")
+    parser.add_argument("--candidates", type=int, default=None, metavar="N",
+                        help="sample N candidates of the space for part 2 (default: all)")
+    parser.add_argument("--epochs", type=int, default=None, metavar="R",
+                        help="final epochs R for part 2 (default 27, quick 3)")
+    args = parser.parse_args(argv)
+    if args.quick:
+        data, sample, epochs, t_sample, t_epochs = ("builtin:tiles?n=20&size=32", 6, 3, 4, 2)
+    else:
+        data, sample, epochs, t_sample, t_epochs = ("builtin:tiles?n=80&size=32", None, 27,
+                                                    12, 3)
+    sample = args.candidates if args.candidates is not None else sample
+    epochs = args.epochs if args.epochs is not None else epochs
+    load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
+    print(f"machine: {os.cpu_count()} cores, load average {load:.1f} at the start "
+          "(wall-clock figures mean little when it exceeds the core count)")
+    root = Path(args.keep) if args.keep else Path(tempfile.mkdtemp(prefix="tc-bench-"))
+    root.mkdir(parents=True, exist_ok=True)
+    if any(root.iterdir()):
+        print(f"error: {root} is not empty; give a new folder to --keep", file=sys.stderr)
+        return 2
+    try:
+        if args.part in ("all", "throughput"):
+            throughput(root, data, t_sample, t_epochs)
+        if args.part in ("all", "sh"):
+            halving_vs_full(root, data, epochs, sample, workers=2)
+    finally:
+        if not args.keep:
+            shutil.rmtree(root, ignore_errors=True)
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())
