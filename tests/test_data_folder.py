@@ -64,10 +64,10 @@ def make_messy(root: Path, *, bad: bool = True, empty: bool = True) -> Path:
 def test_unreadable_files_all_listed_at_once(tmp_path):
     """A truncated JPEG and a zero-byte PNG are both named in one error, with the fix."""
     root = make_messy(tmp_path / "d", empty=False)
-    with pytest.raises(DataError, match=r"2 unreadable image files: "
-                       r"(?=.*truncated\.jpg \(cannot be decoded, truncated or corrupt)"
-                       r"(?=.*zero\.png \(the file is empty \(0 bytes\)\))"
-                       r".*; fix or remove them, or pass skip_bad"):
+    with pytest.raises(DataError, match=r"(?s)2 unreadable image files; fix or remove them, "
+                       r"or pass skip_bad \(--skip-bad\) to leave them out:"
+                       r"(?=.*\n  \S*truncated\.jpg \(cannot be decoded, truncated or corrupt)"
+                       r"(?=.*\n  \S*zero\.png \(the file is empty \(0 bytes\)\))"):
         load_data(root)
 
 
@@ -284,3 +284,16 @@ def test_large_photos_shrunk_while_reading(tmp_path):
     ref = np.rint(a.reshape(200, 3, 100, 3, 3).mean(axis=(1, 3)))
     np.testing.assert_array_equal(ds.images[0], ref)
     assert dict(intake.sizes) == {"600x300": 4}
+
+
+def test_skipped_paths_kept_whole(tmp_path):
+    """A skipped file whose name holds ' (' is recorded by its full path."""
+    rng = np.random.default_rng(7)
+    for c in ("a", "b"):
+        (tmp_path / c).mkdir()
+        _rgb(rng).save(tmp_path / c / "ok.png")
+    (tmp_path / "a" / "photo (1).png").write_bytes(b"")
+    with pytest.warns(DataWarning, match=r"skipped 1 unreadable image file: .*photo \(1\)\.png "
+                      r"\(the file is empty"):
+        ds = load_data(tmp_path, skip_bad=True)
+    assert ds.skipped == (str(tmp_path / "a" / "photo (1).png"),)

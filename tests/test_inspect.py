@@ -52,7 +52,7 @@ def test_inspect_bad_files_and_skip(tmp_path, capsys):
     root = _folder(tmp_path / "d", {"bowl": 3, "cup": 3})
     (root / "bowl" / "broken.png").write_bytes(b"\x89PNG\r\n\x1a\n garbage")
     assert main(["inspect", str(root)]) == 2
-    assert "1 unreadable image file: " in capsys.readouterr().err
+    assert "1 unreadable image file; fix or remove them" in capsys.readouterr().err
     assert main(["inspect", str(root), "--skip-bad"]) == 0
     out = capsys.readouterr().out
     assert "skipped: 1 unreadable files" in out

@@ -106,7 +106,7 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
     labels: list[int] = []
     paths: list[str] = []
     kinds: Counter[str] = Counter()
-    bad: list[str] = []
+    bad: list[tuple[str, str]] = []          # (path, reason)
     large: list[str] = []
     seen: Counter[str] = Counter()
     names = list(scanned)
@@ -115,7 +115,7 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
             try:
                 im, kind = read_image(f)
             except UnreadableImage as exc:
-                bad.append(f"{f} ({exc})")
+                bad.append((str(f), str(exc)))
                 continue
             seen[f"{im.shape[0]}x{im.shape[1]}"] += 1
             if max(im.shape[:2]) > MAX_SIDE:
@@ -127,14 +127,13 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
             kinds[kind] += 1
     skipped: tuple[str, ...] = ()
     if bad:
+        what = f"{len(bad)} unreadable image {'file' if len(bad) == 1 else 'files'}"
         if not skip_bad:
-            raise DataError(f"{root}: {len(bad)} unreadable image "
-                            f"{'file' if len(bad) == 1 else 'files'}: {listing(bad, 20)}; "
-                            "fix or remove them, or pass skip_bad (--skip-bad) to leave "
-                            "them out")
-        skipped = tuple(b.split(" (", 1)[0] for b in bad)
-        log.warn(f"skipped {len(bad)} unreadable image "
-                 f"{'file' if len(bad) == 1 else 'files'}: {listing(bad)}")
+            every = "".join(f"\n  {path} ({why})" for path, why in bad)
+            raise DataError(f"{root}: {what}; fix or remove them, or pass skip_bad "
+                            f"(--skip-bad) to leave them out:{every}")
+        skipped = tuple(path for path, _ in bad)
+        log.warn(f"skipped {what}: {listing([f'{p} ({why})' for p, why in bad])}")
     if large:
         log.note(f"{len(large)} images larger than {MAX_SIDE} pixels were shrunk by whole "
                  f"factors while reading (block means) to save memory: {listing(large)}")
