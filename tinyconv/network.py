@@ -40,6 +40,20 @@ from tinyconv.errors import DataError
 
 FORMAT = 1
 
+# Layers whose forward can apply the ReLU that follows them in the same pass
+# (these classes exactly: a subclass may override forward or backward).
+_FUSES_RELU = (layers_mod.Conv, layers_mod.Depthwise, layers_mod.Dense)
+
+
+def _first_weighted(layers: list) -> int | None:
+    """Index of the first layer, if only shape-only layers precede it, that can skip its input gradient."""
+    for i, layer in enumerate(layers):
+        if hasattr(layer, "input_grad"):
+            return i
+        if not isinstance(layer, layers_mod.Flatten):
+            return None
+    return None
+
 
 @dataclass(frozen=True)
 class Saved:
@@ -120,9 +134,34 @@ class Network:
         ndarray, shape (n, K)
         """
         out = self.check_images(x)
-        for layer in self.layers:
-            out = layer.forward(out, training)
+        for step in self._plan():
+            layer = self.layers[step[0]]
+            if len(step) == 1:
+                out = layer.forward(out, training)
+            else:  # conv / depthwise / dense with the ReLU after it, in one pass
+                out = self.layers[step[1]].adopt(layer.forward(out, training, relu=True),
+                                                 training)
         return out
+
+    def _plan(self) -> list[tuple[int, ...]]:
+        """The passes: ``(i,)`` runs layer i alone, ``(i, i + 1)`` layer i with its ReLU fused.
+
+        Every layer still keeps what its own ``backward`` needs, so each op
+        stays visible (and checkable) on its own; fusing only saves passes
+        over memory, and ReLU after a bias add gives the same bits either way.
+        """
+        layers, plan, i = self.layers, [], 0
+        while i < len(layers):
+            layer = layers[i]
+            nxt = layers[i + 1] if i + 1 < len(layers) else None
+            if (isinstance(nxt, layers_mod.ReLU) and not getattr(layer, "relu", True)
+                    and type(layer) in _FUSES_RELU and type(nxt) is layers_mod.ReLU):
+                plan.append((i, i + 1))
+                i += 2
+            else:
+                plan.append((i,))
+                i += 1
+        return plan
 
     def check_images(self, x: np.ndarray, what: str = "images") -> np.ndarray:
         """``x`` as an array of the network's dtype, after checking its shape.
@@ -140,16 +179,43 @@ class Network:
                             "input size and colour mode")
         return np.asarray(x, dtype=self.dtype)
 
-    def backward(self, grad_logits: np.ndarray) -> np.ndarray:
+    def backward(self, grad_logits: np.ndarray, input_grad: bool = True) -> np.ndarray | None:
         """Back-propagate ``grad_logits`` (n, K) after a training forward.
 
         Sets every layer's gradients (see :meth:`grad_list`) and returns the
         gradient with respect to the input images, shape (n, h, w, c).
+
+        ``input_grad=False`` (what training does) lets the first layer with
+        weights skip its input gradient, which nobody reads; then None is
+        returned. The parameter gradients are the same either way.
         """
         grad = np.asarray(grad_logits, dtype=self.dtype)
-        for layer in reversed(self.layers):
-            grad = layer.backward(grad)
+        plan = self._plan()
+        skip = None if input_grad else _first_weighted(self.layers)
+        masked = False  # grad already carries the ReLU mask of the fused pass below
+        for at in range(len(plan) - 1, -1, -1):
+            step = plan[at]
+            i = step[0]
+            layer = self.layers[i]
+            if i == skip:
+                saved, layer.input_grad = layer.input_grad, False
+                try:
+                    self._backward_step(layer, step, grad, masked)
+                finally:
+                    layer.input_grad = saved
+                return None
+            grad, masked = self._backward_step(layer, step, grad, masked,
+                                               plan[at - 1] if at else None)
         return grad
+
+    def _backward_step(self, layer, step, grad, masked, below=None):
+        """One pass of :meth:`backward`; returns (input gradient, whether it is ReLU-masked)."""
+        if len(step) == 2:
+            return layer.backward(grad, masked=masked), False
+        if type(layer) is layers_mod.MaxPool and below is not None and len(below) == 2:
+            # The pool reads a fused ReLU output: route and mask in one pass.
+            return layer.backward(grad, relu_mask=True), True
+        return layer.backward(grad), False
 
     # ------------------------------------------------------------ arrays
 

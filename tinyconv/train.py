@@ -310,7 +310,7 @@ def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], o
             loss, grad = softmax_cross_entropy(logits, y[idx], smoothing)
             if not math.isfinite(loss):
                 return loss_sum, correct, False
-            net.backward(grad)
+            net.backward(grad, input_grad=False)  # the images need no gradient
             opt.update([g for _, g in net.grad_list()], lr)
             loss_sum += loss * len(idx)
             correct += int((logits.argmax(axis=1) == y[idx]).sum())

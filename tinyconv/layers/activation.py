@@ -27,6 +27,16 @@ class ReLU(Layer):
             self._y = y
         return y
 
+    def adopt(self, y: np.ndarray, training: bool = False) -> np.ndarray:
+        """Take ``y``, already rectified by the layer before (fused), as this layer's output.
+
+        Keeps it as the mask in training, exactly as :meth:`forward` would
+        have; returns ``y``.
+        """
+        if training:
+            self._y = y
+        return y
+
     def backward(self, grad_out: np.ndarray) -> np.ndarray:
         return relu_backward(grad_out, self._y)
 

@@ -56,8 +56,11 @@ class Conv(Layer):
         self._y: np.ndarray | None = None
         self._buffers: dict[str, np.ndarray] = {}
 
-    def forward(self, x: np.ndarray, training: bool = False) -> np.ndarray:
+    def forward(self, x: np.ndarray, training: bool = False,
+                relu: bool | None = None) -> np.ndarray:
+        """Output ``(n, oh, ow, f)``; ``relu`` (default ``self.relu``) fuses a ReLU into the bias pass."""
         w, b = self.params["w"], self.params["b"]
+        relu = self.relu if relu is None else relu
         if x.ndim != 4 or x.shape[3] != self.c_in:
             raise ValueError(f"{self.name}: expected input (n, h, w, {self.c_in}), "
                              f"got shape {x.shape}")
@@ -74,20 +77,26 @@ class Conv(Layer):
             if not (k == 1 and s == 1):  # else cols is a view of xp, not a buffer
                 buf["cols"] = cols.base
         y = cols @ w.reshape(k * k * self.c_in, f)  # (n*oh*ow, f)
-        if self.relu:
+        if relu:
             bias_relu_(y, b)
         else:
             add_bias_(y, b)
         y = y.reshape(n, oh, ow, f)
         if training:
             self._cols, self._x_shape, self._xp_shape = cols, x.shape, xp.shape
-            self._y = y if self.relu else None
+            self._y = y if relu else None
         return y
 
-    def backward(self, grad_out: np.ndarray) -> np.ndarray | None:
+    def backward(self, grad_out: np.ndarray, masked: bool = False) -> np.ndarray | None:
+        """Input gradient (None when ``input_grad`` is False); sets ``grads``.
+
+        ``masked``: after a fused-ReLU forward, ``grad_out`` is already zero
+        wherever the output was not positive (as a max pool reading it makes
+        it), so the ReLU mask pass is skipped.
+        """
         w = self.params["w"]
         k, s, f, c = self.kernel, self.stride, self.filters, self.c_in
-        if self.relu:
+        if self._y is not None and not masked:
             grad_out = relu_backward(grad_out, self._y)
         g = np.ascontiguousarray(grad_out).reshape(-1, f)  # (n*oh*ow, f)
         self.grads["w"] = (self._cols.T @ g).reshape(w.shape)

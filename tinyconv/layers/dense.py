@@ -39,21 +39,28 @@ class Dense(Layer):
         self._x: np.ndarray | None = None
         self._y: np.ndarray | None = None
 
-    def forward(self, x: np.ndarray, training: bool = False) -> np.ndarray:
+    def forward(self, x: np.ndarray, training: bool = False,
+                relu: bool | None = None) -> np.ndarray:
+        """Output ``(n, n_out)``; ``relu`` (default ``self.relu``) fuses a ReLU into the bias pass."""
+        relu = self.relu if relu is None else relu
         if x.ndim != 2 or x.shape[1] != self.n_in:
             raise ValueError(f"{self.name}: expected input (n, {self.n_in}), got shape {x.shape}")
         y = x @ self.params["w"]  # (n, n_out)
-        if self.relu:
+        if relu:
             bias_relu_(y, self.params["b"])
         else:
             add_bias_(y, self.params["b"])
         if training:
             self._x = x
-            self._y = y if self.relu else None
+            self._y = y if relu else None
         return y
 
-    def backward(self, grad_out: np.ndarray) -> np.ndarray | None:
-        if self.relu:
+    def backward(self, grad_out: np.ndarray, masked: bool = False) -> np.ndarray | None:
+        """Input gradient (None when ``input_grad`` is False); sets ``grads``.
+
+        ``masked``: ``grad_out`` is already zero where a fused ReLU output was not positive.
+        """
+        if self._y is not None and not masked:
             grad_out = relu_backward(grad_out, self._y)
         self.grads["w"] = self._x.T @ grad_out
         self.grads["b"] = column_sum(grad_out)

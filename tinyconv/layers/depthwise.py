@@ -6,7 +6,7 @@ import numpy as np
 
 from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
-from tinyconv.layers.kernels_act import relu_backward, relu_forward
+from tinyconv.layers.kernels_act import relu_backward
 from tinyconv.layers.kernels_conv import crop_nhwc, pad_nhwc
 from tinyconv.layers.kernels_dw import dw_backward, dw_forward
 
@@ -40,21 +40,26 @@ class Depthwise(Layer):
         self._x_shape: tuple[int, ...] | None = None
         self._y: np.ndarray | None = None
 
-    def forward(self, x: np.ndarray, training: bool = False) -> np.ndarray:
+    def forward(self, x: np.ndarray, training: bool = False,
+                relu: bool | None = None) -> np.ndarray:
+        """Output ``(n, oh, ow, c)``; ``relu`` (default ``self.relu``) is fused into the kernel."""
+        relu = self.relu if relu is None else relu
         if x.ndim != 4 or x.shape[3] != self.channels:
             raise ValueError(f"{self.name}: expected input (n, h, w, {self.channels}), "
                              f"got shape {x.shape}")
         xp = pad_nhwc(x, self.pads)
-        y = dw_forward(xp, self.params["w"], self.params["b"], self.stride)
-        if self.relu:
-            y = relu_forward(y)
+        y = dw_forward(xp, self.params["w"], self.params["b"], self.stride, relu)
         if training:
             self._xp, self._x_shape = xp, x.shape
-            self._y = y if self.relu else None
+            self._y = y if relu else None
         return y
 
-    def backward(self, grad_out: np.ndarray) -> np.ndarray:
-        if self.relu:
+    def backward(self, grad_out: np.ndarray, masked: bool = False) -> np.ndarray:
+        """Input gradient; sets ``grads``.
+
+        ``masked``: ``grad_out`` is already zero where a fused ReLU output was not positive.
+        """
+        if self._y is not None and not masked:
             grad_out = relu_backward(grad_out, self._y)
         gxp, gw, gb = dw_backward(grad_out, self._xp, self.params["w"], self.stride)
         self.grads["w"], self.grads["b"] = gw, gb

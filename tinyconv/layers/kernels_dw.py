@@ -11,7 +11,8 @@ import numpy as np
 from numba import njit
 
 
-def dw_forward(xp: np.ndarray, w: np.ndarray, b: np.ndarray, stride: int) -> np.ndarray:
+def dw_forward(xp: np.ndarray, w: np.ndarray, b: np.ndarray, stride: int,
+               relu: bool = False) -> np.ndarray:
     """Depthwise cross-correlation of a padded input.
 
     Parameters
@@ -21,6 +22,8 @@ def dw_forward(xp: np.ndarray, w: np.ndarray, b: np.ndarray, stride: int) -> np.
     w : ndarray, shape (kh, kw, c)
     b : ndarray, shape (c,)
     stride : int
+    relu : bool
+        Apply ``max(., 0)`` to each output as it is finished (fused).
 
     Returns
     -------
@@ -30,7 +33,7 @@ def dw_forward(xp: np.ndarray, w: np.ndarray, b: np.ndarray, stride: int) -> np.
     kh, kw, _ = w.shape
     oh, ow = (hp - kh) // stride + 1, (wp - kw) // stride + 1
     y = np.empty((n, oh, ow, c), dtype=xp.dtype)
-    _dw_forward_kernel(np.ascontiguousarray(xp), np.ascontiguousarray(w), b, stride, y)
+    _dw_forward_kernel(np.ascontiguousarray(xp), np.ascontiguousarray(w), b, stride, relu, y)
     return y
 
 
@@ -63,7 +66,7 @@ def dw_backward(grad_out: np.ndarray, xp: np.ndarray, w: np.ndarray,
 
 
 @njit(cache=True)
-def _dw_forward_kernel(xp, w, bias, s, y):
+def _dw_forward_kernel(xp, w, bias, s, relu, y):
     n, oh, ow, c = y.shape
     kh, kw = w.shape[0], w.shape[1]
     for b in range(n):
@@ -75,6 +78,10 @@ def _dw_forward_kernel(xp, w, bias, s, y):
                     for j in range(kw):
                         for ch in range(c):
                             y[b, oy, ox, ch] += xp[b, oy * s + i, ox * s + j, ch] * w[i, j, ch]
+                if relu:
+                    for ch in range(c):
+                        v = y[b, oy, ox, ch]
+                        y[b, oy, ox, ch] = 0.0 if v <= 0 else v
 
 
 # The backward pass is two sweeps, not one: a loop that writes both the

@@ -32,15 +32,31 @@ def maxpool_forward(x: np.ndarray, s: int) -> tuple[np.ndarray, np.ndarray]:
 
 
 def maxpool_backward(grad_out: np.ndarray, arg: np.ndarray, s: int,
-                     x_shape: tuple[int, int, int, int]) -> np.ndarray:
+                     x_shape: tuple[int, int, int, int],
+                     y: np.ndarray | None = None) -> np.ndarray:
     """Route each output gradient to the input pixel that held the maximum.
+
+    Parameters
+    ----------
+    grad_out, arg : ndarray, shape (n, h // s, w // s, c)
+    s : int
+    x_shape : (n, h, w, c)
+    y : ndarray, shape of grad_out, optional
+        The pooled output. When given, a window whose maximum is not positive
+        passes no gradient: the ReLU mask of a ReLU before the pool, applied in
+        the same pass (``relu`` then ``max`` commute, and the ReLU gradient of
+        the winner is 0 exactly when the maximum is not positive).
 
     Returns
     -------
     ndarray, shape x_shape
     """
     gx = np.empty(x_shape, dtype=grad_out.dtype)
-    _maxpool_backward_kernel(np.ascontiguousarray(grad_out), arg, s, gx)
+    g = np.ascontiguousarray(grad_out)
+    if y is None:
+        _maxpool_backward_kernel(g, arg, s, gx)
+    else:
+        _maxpool_backward_kernel(np.where(y > 0, g, g.dtype.type(0)), arg, s, gx)
     return gx
 
 
@@ -67,6 +83,9 @@ def avgpool_backward(grad_out: np.ndarray, s: int,
 @njit(cache=True)
 def _maxpool_forward_kernel(x, s, y, arg):
     n, oh, ow, c = y.shape
+    if s == 2:
+        _maxpool2_forward(x, y, arg)
+        return
     for b in range(n):
         for oy in range(oh):
             for ox in range(ow):
@@ -87,9 +106,49 @@ def _maxpool_forward_kernel(x, s, y, arg):
 
 
 @njit(cache=True)
+def _maxpool2_forward(x, y, arg):
+    """The 2 x 2 case unrolled: four reads per output, in the generic kernel's order."""
+    n, oh, ow, c = y.shape
+    for b in range(n):
+        for oy in range(oh):
+            r0, r1 = x[b, 2 * oy], x[b, 2 * oy + 1]  # (w, c)
+            yr, ar = y[b, oy], arg[b, oy]
+            for ox in range(ow):
+                p00, p01, p10, p11 = r0[2 * ox], r0[2 * ox + 1], r1[2 * ox], r1[2 * ox + 1]
+                for ch in range(c):
+                    m, at = p00[ch], 0
+                    v = p01[ch]
+                    if v > m or v != v:
+                        m, at = v, 1
+                    v = p10[ch]
+                    if v > m or v != v:
+                        m, at = v, 2
+                    v = p11[ch]
+                    if v > m or v != v:
+                        m, at = v, 3
+                    yr[ox, ch] = m
+                    ar[ox, ch] = at
+
+
+@njit(cache=True)
 def _maxpool_backward_kernel(g, arg, s, gx):
     n, oh, ow, c = g.shape
     h, w = gx.shape[1], gx.shape[2]
+    if s == 2 and h == 2 * oh and w == 2 * ow:
+        for b in range(n):
+            for oy in range(oh):
+                r0, r1 = gx[b, 2 * oy], gx[b, 2 * oy + 1]
+                gr, ar = g[b, oy], arg[b, oy]
+                for ox in range(ow):
+                    p00, p01 = r0[2 * ox], r0[2 * ox + 1]
+                    p10, p11 = r1[2 * ox], r1[2 * ox + 1]
+                    for ch in range(c):
+                        v, at = gr[ox, ch], ar[ox, ch]
+                        p00[ch] = v if at == 0 else 0.0
+                        p01[ch] = v if at == 1 else 0.0
+                        p10[ch] = v if at == 2 else 0.0
+                        p11[ch] = v if at == 3 else 0.0
+        return
     for b in range(n):
         for oy in range(oh):
             for ox in range(ow):

@@ -25,15 +25,18 @@ class MaxPool(Layer):
         self.size = size
         self._arg: np.ndarray | None = None
         self._x_shape: tuple[int, ...] | None = None
+        self._y: np.ndarray | None = None
 
     def forward(self, x: np.ndarray, training: bool = False) -> np.ndarray:
         y, arg = maxpool_forward(x, self.size)
         if training:
-            self._arg, self._x_shape = arg, x.shape
+            self._arg, self._x_shape, self._y = arg, x.shape, y
         return y
 
-    def backward(self, grad_out: np.ndarray) -> np.ndarray:
-        return maxpool_backward(grad_out, self._arg, self.size, self._x_shape)
+    def backward(self, grad_out: np.ndarray, relu_mask: bool = False) -> np.ndarray:
+        """Input gradient; ``relu_mask`` also applies the mask of a ReLU just before the pool."""
+        return maxpool_backward(grad_out, self._arg, self.size, self._x_shape,
+                                self._y if relu_mask else None)
 
     def kink_state(self) -> np.ndarray | None:
         """Which pixel won each window in the last training forward (for gradient checks)."""
