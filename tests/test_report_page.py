@@ -78,8 +78,18 @@ def test_why_pick_when_the_best_is_also_the_smallest():
     assert "the best is itself the smallest of them (2,000 parameters)" in text
 
 
-def test_page_escapes_names_from_the_run(tmp_path):
+def test_page_escapes_names_from_the_run(tmp_path, monkeypatch):
     """Class names and texts from the run appear escaped, never as markup."""
+    import io
+
+    from PIL import Image
+
+    import tinyconv.report.assemble as assemble
+
+    # The figures are checked elsewhere; here a 1x1 PNG stands in for each (no drawing).
+    buf = io.BytesIO()
+    Image.new("RGB", (1, 1)).save(buf, format="PNG")
+    monkeypatch.setattr(assemble, "png_bytes", lambda fig: buf.getvalue())
     path = render_report(_run(False), tmp_path)
     text = path.read_text(encoding="utf-8")
     assert "<b>cross</b>" not in text

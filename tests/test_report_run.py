@@ -13,13 +13,13 @@ import pandas as pd
 import pytest
 from PIL import Image
 
-from report_fixture import CANDIDATES, build_run, shared_report
+from report_fixture import CANDIDATES, shared_report
 from search.rank import rank_run
 from search.store import RunStore
-from tinyconv.cli import main
-from tinyconv.errors import RunError
-from tinyconv.report import write_report
 from tinyconv.report.collect import collect
+
+# Every test here reads the shared real run (about 10-20 s to build and report once).
+pytestmark = pytest.mark.slow
 
 FIGURES = ("folds.png", "pareto_params.png", "pareto_macs.png", "curves.png", "confusion.png",
            "confusions_gallery.png", "mistakes.png")
@@ -217,35 +217,6 @@ def test_report_command_prints_the_path(written):
     run_dir, code, printed = written
     assert code == 0
     assert printed.strip() == str(run_dir / "report.html")
-
-
-def test_missing_and_empty_run_folders_are_clear_errors(tmp_path, capsys):
-    """A missing folder, a folder without a store and a store without results exit 2."""
-    with pytest.raises(RunError, match="no such run folder"):
-        write_report(tmp_path / "nowhere")
-    with pytest.raises(RunError, match=r"no run here \(no run.sqlite\)"):
-        write_report(tmp_path)
-    assert main(["report", str(tmp_path / "nowhere")]) == 2
-    err = capsys.readouterr().err
-    assert err.startswith("error: ") and "no such run folder" in err
-    assert main(["report", str(tmp_path)]) == 2
-    err = capsys.readouterr().err
-    assert err.startswith("error: ") and "no run here" in err
-
-
-def test_store_without_finished_rung_is_a_clear_error(tmp_path):
-    """A run whose units have not finished all folds of any rung cannot be reported yet."""
-    from report_fixture import BUDGET, DATA_SPEC
-    from search.config import SearchSettings
-    from search.space import filter_budget
-    from tinyconv.arch import parse
-
-    filtered = filter_budget([parse(CANDIDATES[0])], BUDGET, 8)
-    settings = SearchSettings(data=DATA_SPEC, fingerprint="0" * 64, classes=tuple("abcdefgh"),
-                              n_images=96, space=CANDIDATES[0], folds=3)
-    RunStore.start(tmp_path, settings.as_dict(), filtered.table()).close()
-    with pytest.raises(RunError, match="nothing to report yet"):
-        write_report(tmp_path)
 
 
 def test_changed_data_leaves_out_the_galleries_with_a_notice(run_dir, monkeypatch):
