@@ -12,10 +12,14 @@ store them.
 
 from __future__ import annotations
 
+import os
+import sys
 import warnings
 from dataclasses import dataclass, field
 
 import numpy as np
+
+_HERE = os.path.dirname(os.path.abspath(__file__)) + os.sep
 
 
 class DataWarning(UserWarning):
@@ -134,6 +138,16 @@ class Intake:
     duplicates_across: tuple[tuple[int, ...], ...] = ()
 
 
+def _outside_level() -> int:
+    """``stacklevel`` for :func:`warnings.warn` that points past this package's frames."""
+    frame = sys._getframe(2)          # the caller of WarningLog.warn
+    level = 2
+    while frame is not None and frame.f_code.co_filename.startswith(_HERE):
+        frame = frame.f_back
+        level += 1
+    return level
+
+
 class WarningLog:
     """Collects warnings while loading, issues each, and hands them to the Dataset."""
 
@@ -141,9 +155,13 @@ class WarningLog:
         self.messages: list[str] = []
 
     def warn(self, message: str, category: type[DataWarning] = DataWarning) -> None:
-        """Issue ``message`` as a warning of ``category`` and record it."""
+        """Issue ``message`` as a warning of ``category`` and record it.
+
+        The warning is attributed to the first caller outside this package
+        (the line that asked for the data), not to the loader's internals.
+        """
         self.messages.append(message)
-        warnings.warn(message, category, stacklevel=3)
+        warnings.warn(message, category, stacklevel=_outside_level())
 
     def note(self, message: str) -> None:
         """Record something ignored on purpose (a :class:`DataNote`)."""
