@@ -12,7 +12,7 @@ import pytest
 
 from tinyconv.report.html import Column, esc, page, pct, pvalue, table
 from tinyconv.report.rundata import PickPredictions, RunData
-from tinyconv.report.sections import why_pick
+from tinyconv.report.sections import units_summary, why_pick
 from tinyconv.report.writer import render_report
 
 CLASSES = ("ring", "<b>cross</b> & co", "bar")
@@ -129,3 +129,18 @@ def test_page_has_numbered_sections_and_a_matching_contents():
 def test_percent_format(value, shown):
     """Accuracies show as one-decimal percentages; missing values as a dash."""
     assert pct(value) == shown
+
+
+def test_units_that_did_not_finish_are_listed_with_their_reason():
+    """Diverged or failed units are counted and listed with their message."""
+    data = _run(False)
+    extra = pd.DataFrame([{"candidate": "8x8gray/d", "fold": 0, "rung": 0, "epochs": 2,
+                           "status": "diverged", "val_acc": None, "train_acc": None,
+                           "message": "loss not finite in epoch 2 of 2; try a smaller lr",
+                           "history": "{}"}])
+    units = pd.concat([data.units.assign(cpu_s=1.5), extra.assign(cpu_s=0.5)],
+                      ignore_index=True)
+    text = units_summary(RunData(**{**data.__dict__, "units": units}))
+    assert "9 done, 1 diverged" in text and "14 CPU seconds" in text
+    assert "Units that did not finish" in text and "try a smaller lr" in text
+    assert units_summary(data).count("<tr>") == 0     # all done: no table

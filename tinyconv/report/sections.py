@@ -217,6 +217,30 @@ def budget_summary(data: RunData) -> str:
     return paragraph(text)
 
 
+def units_summary(data: RunData) -> str:
+    """How the work units went: counts by status, CPU time, and the ones that did not finish."""
+    u = data.units
+    if u is None or u.empty:
+        return ""
+    counts = u["status"].value_counts()
+    parts = ", ".join(f"{int(n)} {esc(str(k))}" for k, n in counts.items())
+    cpu = float(u["cpu_s"].sum()) if "cpu_s" in u.columns else float("nan")
+    spent = (f"{cpu:.0f} CPU seconds" if cpu < 120 else f"{cpu / 60:.1f} CPU minutes")
+    html = paragraph(f"Work units (one candidate, one fold, one rung): {parts}"
+                     + (f"; {spent} in all." if math.isfinite(cpu) else "."))
+    bad = u[u["status"] != "done"]
+    if len(bad):
+        html += "<h3>Units that did not finish</h3>" + table(bad.head(50), (
+            Column("candidate", "candidate", _code, numeric=False),
+            Column("fold", "fold", num), Column("rung", "rung", num),
+            Column("epochs", "epochs", num),
+            Column("status", "status", esc, numeric=False),
+            Column("why", "message", esc, numeric=False)))
+        if len(bad) > 50:
+            html += paragraph(f"and {len(bad) - 50} more.")
+    return html
+
+
 def budget_section(data: RunData, a: Assembled) -> Section:
     b = a.tables["budgets.csv"]
     if b.empty:
@@ -241,6 +265,7 @@ def budget_section(data: RunData, a: Assembled) -> Section:
                              Column("pick within", "within", within, numeric=False),
                              Column("candidates removed", "removed", num)))
     body += budget_summary(data)
+    body += units_summary(data)
     cfg = definitions((k, _config_value(v)) for k, v in data.config.items())
     files = "".join(f"<li><code>{esc(n)}</code>: {esc(d)}</li>" for n, d in TABLE_FILES.items()
                     if n in a.tables)
