@@ -130,6 +130,10 @@ def worker_main(args: argparse.Namespace) -> int:
 def profile_main(args: argparse.Namespace) -> int:
     """Per-layer profile in a 1-thread child (so the pools really hold one thread)."""
     if args.worker is None:
+        load = _timing.load_average()
+        print(f"tinyconv engine profile, {dt.datetime.now(dt.timezone.utc):%Y-%m-%d %H:%M} UTC, "
+              f"engine at {engine_revision()}; {_timing.cpu_model()}; load average "
+              f"{'-' if load is None else f'{load:.1f}'} on {os.cpu_count()} CPUs\n", flush=True)
         cmd = [sys.executable, str(Path(__file__).resolve()), "--worker", "1",
                "--profile", ",".join(args.profile)] + (["--quick"] if args.quick else [])
         return subprocess.run(cmd, env=_timing.thread_env(1), check=False).returncode
