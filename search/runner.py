@@ -20,7 +20,6 @@ the pool again is recorded ``failed``; the others are recorded as usual.
 
 from __future__ import annotations
 
-import math
 from concurrent.futures import FIRST_COMPLETED, Future, wait
 from concurrent.futures.process import BrokenProcessPool
 from dataclasses import dataclass, field
@@ -262,12 +261,3 @@ class SearchLoop:
         self.outcome.diverged += result.status == "diverged"
         self.progress.unit(result, self.cpu_s, self.epochs)
 
-
-def budget_left(settings: dict, cpu_s: float, epochs: int) -> float:
-    """Fraction of the tightest budget still left (``inf`` without budgets)."""
-    left = math.inf
-    if settings.get("budget_cpu_s"):
-        left = min(left, 1 - cpu_s / settings["budget_cpu_s"])
-    if settings.get("budget_epochs"):
-        left = min(left, 1 - epochs / settings["budget_epochs"])
-    return left
