@@ -211,9 +211,9 @@ def budget_summary(data: RunData) -> str:
             text += f", and {scheduled} of those were taken into the search"
     text += (f". {_count(len(data.ranking), 'candidate')} finished every fold of a rung "
              "and are ranked.")
-    if data.outcome:
-        how = ", ".join(f"{k}: {v}" for k, v in data.outcome.items())
-        text += f" The last search session ended with {how}."
+    if data.outcome and data.outcome.get("state"):
+        text += (f" The last search session ended: {data.outcome['state']} (details under "
+                 "search outcome below).")
     return paragraph(text)
 
 
@@ -266,7 +266,10 @@ def budget_section(data: RunData, a: Assembled) -> Section:
                              Column("candidates removed", "removed", num)))
     body += budget_summary(data)
     body += units_summary(data)
-    cfg = definitions((k, _config_value(v)) for k, v in data.config.items())
+    items = list(data.config.items())
+    if data.outcome:
+        items.append(("search outcome", _config_value(data.outcome)))
+    cfg = definitions((k, _config_value(v) if k != "search outcome" else v) for k, v in items)
     files = "".join(f"<li><code>{esc(n)}</code>: {esc(d)}</li>" for n, d in TABLE_FILES.items()
                     if n in a.tables)
     return Section("budgets", "Budgets and configuration",
@@ -287,9 +290,19 @@ def _config_value(v: Any) -> str:
     if isinstance(v, dict):
         if not v:
             return "\u2013"
-        return "<pre>" + esc("\n".join(f"{k} = {'no limit' if x is None else x}"
-                                       for k, x in v.items())) + "</pre>"
+        return "<pre>" + esc("\n".join(f"{k} = {_plain(x)}" for k, x in v.items())) + "</pre>"
     return f"<pre>{esc(json.dumps(v, indent=1, default=str))}</pre>"
+
+
+def _plain(x: Any) -> str:
+    """One value in a key = value list: no limit for None, floats to 4 significant digits."""
+    if x is None:
+        return "no limit"
+    if isinstance(x, float):
+        return f"{x:.4g}"
+    if isinstance(x, (list, tuple)):
+        return ", ".join(_plain(i) for i in x) if x else "none"
+    return str(x)
 
 
 def cautions_section() -> Section:
