@@ -144,3 +144,21 @@ def test_units_that_did_not_finish_are_listed_with_their_reason():
     assert "9 done, 1 diverged" in text and "14 CPU seconds" in text
     assert "Units that did not finish" in text and "try a smaller lr" in text
     assert units_summary(data).count("<tr>") == 0     # all done: no table
+
+
+def test_a_pick_without_mistakes_gets_plain_notes(tmp_path, monkeypatch):
+    """All held-out images right: no confusion rows, and the galleries say there are none."""
+    import dataclasses
+
+    import tinyconv.report.assemble as assemble
+    from tinyconv.report.gallery import confusion_gallery
+
+    monkeypatch.setattr(assemble, "png_bytes", lambda fig: b"")   # tables only here
+    data = _run(False)
+    p = data.predictions
+    perfect = dataclasses.replace(p, pred=p.label.copy())
+    parts = assemble.assemble(dataclasses.replace(data, predictions=perfect))
+    assert parts.tables["confusions.csv"].empty and parts.tables["mistakes.csv"].empty
+    assert parts.counts.trace() == parts.counts.sum()
+    fig = confusion_gallery(data.images, [], CLASSES)
+    assert any("no mistakes" in t.get_text() for ax in fig.axes for t in ax.texts)

@@ -80,6 +80,15 @@ def mean_curves(units: pd.DataFrame, key: str) -> dict[int, tuple[np.ndarray, np
     return out
 
 
+def _rung_label(units: pd.DataFrame, rung: int) -> str:
+    """'rung 1 (9 epochs)' when every unit of the rung trained as long, else 'rung 1'."""
+    epochs = units.loc[units["rung"] == rung, "epochs"].dropna().unique()
+    if len(epochs) == 1:
+        e = int(epochs[0])
+        return f"rung {rung} ({e} epoch{'s' if e != 1 else ''})"
+    return f"rung {rung}"
+
+
 def learning_curves(units: pd.DataFrame, finalists: Sequence[object], *,
                     labels: Mapping[object, str] | None = None,
                     chance: float | None = None, pick: object = None) -> Figure:
@@ -143,7 +152,7 @@ def learning_curves(units: pd.DataFrame, finalists: Sequence[object], *,
         handles = [Line2D([], [], color=PALETTE.held_out, label="held-out"),
                    Line2D([], [], color=PALETTE.training, label="training")]
         handles += [Line2D([], [], color=PALETTE.ink, linestyle=_RUNG_STYLES[r % len(_RUNG_STYLES)],
-                           linewidth=1.2 + 0.5 * min(r, 3), label=f"rung {r}")
+                           linewidth=1.2 + 0.5 * min(r, 3), label=_rung_label(units, r))
                     for r in sorted(rungs_seen)]
         fig.legend(handles=handles, loc="outside lower center", ncols=len(handles))
         fig.suptitle("Learning curves of the finalists (mean over folds)", x=0.01,
