@@ -272,9 +272,14 @@ def _ranks(table: pd.DataFrame, score: str) -> np.ndarray:
     return ranks
 
 
-def rank_run(store, by: str = "per_param") -> pd.DataFrame:
-    """The ranking table of a run store (``search.store.RunStore``)."""
+def rank_run(store, by: str | None = None) -> pd.DataFrame:
+    """The ranking table of a run store (``search.store.RunStore``).
+
+    ``by=None`` takes the order the search was asked for (``--rank-by``),
+    ``per_param`` when none was recorded.
+    """
     cfg = store.config()
+    by = by or store.rank_order() or "per_param"
     return rank_units(store.units(), store.candidates(), len(cfg["classes"]),
                       int(cfg["folds"]), by=by)
 

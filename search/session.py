@@ -152,7 +152,8 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
         outcome = loop.run()
     finally:
         executor.shutdown()
-    ranking = rank_run(store, by=request.rank_by)
+    store.set_rank_order(request.rank_by)
+    ranking = rank_run(store)
     path = save_ranking(ranking, request.out)
     return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
                          len(filtered.survivors), len(texts), dict(filtered.over),

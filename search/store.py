@@ -194,7 +194,17 @@ class RunStore:
         _put_meta(self._con, "outcome", outcome)
         self._con.execute("COMMIT")
 
+    def set_rank_order(self, by: str) -> None:
+        """Remember the order the user asked for (``per_param`` or ``accuracy``)."""
+        self._con.execute("BEGIN IMMEDIATE")
+        _put_meta(self._con, "rank_by", by)
+        self._con.execute("COMMIT")
+
     # ------------------------------------------------------------ reading
+
+    def rank_order(self) -> str | None:
+        """The ranking order of the last search command (None if never set)."""
+        return self._meta("rank_by")
 
     def _meta(self, key: str) -> Any:
         row = self._con.execute("SELECT value FROM meta WHERE key=?", (key,)).fetchone()

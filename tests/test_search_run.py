@@ -166,3 +166,9 @@ def test_rank_by_accuracy(finished):
     fin = summary.table[summary.table["finalist"]]
     assert list(fin["acc_mean"]) == sorted(fin["acc_mean"], reverse=True)
     assert list(summary.table["rank_accuracy"]) == list(range(1, len(summary.table) + 1))
+    # The report and export call rank_run(store) and get the order asked for.
+    from search.rank import rank_run
+    assert list(rank_run(RunStore(out))["candidate"]) == list(summary.table["candidate"])
+    run_search(request(out))
+    table = rank_run(RunStore(out))
+    assert list(table["rank_per_param"]) == list(range(1, len(table) + 1))
