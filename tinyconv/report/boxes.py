@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import math
 
+import matplotlib as mpl
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
@@ -12,8 +13,6 @@ from matplotlib.patches import Patch
 
 from tinyconv.report.axes import PERCENT_FORMAT, chance_line, new_figure, si, spans_decades
 from tinyconv.report.palette import PALETTE, style
-
-import matplotlib as mpl
 
 
 def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
@@ -25,7 +24,8 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
     folds : DataFrame
         One row per (candidate, fold) at the candidate's ranked rung, with
         columns ``candidate``, ``params``, ``fold``, ``val_acc``, ``train_acc``
-        (accuracies in [0, 1]).
+        (accuracies in [0, 1]) and optionally ``finalist`` (bool): candidates
+        stopped at a lower rung are drawn faded and hatched.
     chance : float, optional
         Chance accuracy 1/K, drawn as a dotted line.
     pick : optional
@@ -47,12 +47,13 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
     params = order.to_numpy(dtype=float)
     n = len(names)
     logpos = np.log10(np.maximum(params, 1.0))
-    use_log = spans_decades(params) and n > 1 and (
-        np.min(np.diff(logpos)) >= 0.06 * (logpos[-1] - logpos[0]) if n > 1 else True)
+    # A log axis only when no two candidates would overlap on it (closest pair
+    # at least 6% of the span apart); else even spacing, labelled by count.
+    use_log = bool(n > 1 and spans_decades(params)
+                   and np.min(np.diff(logpos)) >= 0.06 * (logpos[-1] - logpos[0]))
     if use_log:
         pos = logpos
-        width = max(0.02, 0.3 * (np.min(np.diff(pos)) if n > 1 else 0.3))
-        width = min(width, 0.12)
+        width = float(np.clip(0.3 * np.min(np.diff(pos)), 0.02, 0.12))
     else:
         pos = np.arange(n, dtype=float)
         width = 0.32

@@ -4,11 +4,10 @@ from __future__ import annotations
 
 from typing import Sequence
 
+import matplotlib as mpl
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
-
-import matplotlib as mpl
 
 from tinyconv.report.axes import new_figure
 from tinyconv.report.palette import PALETTE, sequential_map, style

@@ -6,12 +6,11 @@ import json
 import math
 from typing import Mapping, Sequence
 
+import matplotlib as mpl
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
-
-import matplotlib as mpl
 
 from tinyconv.report.axes import PERCENT_FORMAT, chance_line, new_figure
 from tinyconv.report.palette import PALETTE, style

@@ -9,10 +9,9 @@ from __future__ import annotations
 
 from typing import Sequence
 
+import matplotlib as mpl
 import numpy as np
 from matplotlib.figure import Figure
-
-import matplotlib as mpl
 
 from tinyconv.report.palette import PALETTE, style
 

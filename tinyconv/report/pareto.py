@@ -2,15 +2,15 @@
 
 from __future__ import annotations
 
+import matplotlib as mpl
 import numpy as np
 import pandas as pd
 from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
-import matplotlib as mpl
-
-from tinyconv.report.axes import PERCENT_FORMAT, SI_FORMAT, chance_line, new_figure, si, spans_decades
+from tinyconv.report.axes import (PERCENT_FORMAT, SI_FORMAT, chance_line, new_figure, si,
+                                  spans_decades)
 from tinyconv.report.palette import PALETTE, style
 
 AXIS_LABELS = {"params": "parameters (count)", "macs": "multiply-accumulates per image (MACs)"}
