@@ -10,7 +10,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from tinyconv.report.html import Column, esc, page, pct, pvalue, table
+from tinyconv.report.html import Column, esc, num, page, pct, pvalue, table
 from tinyconv.report.rundata import PickPredictions, RunData
 from tinyconv.report.sections import units_summary, why_pick
 from tinyconv.report.writer import render_report
@@ -162,3 +162,9 @@ def test_a_pick_without_mistakes_gets_plain_notes(tmp_path, monkeypatch):
     assert parts.counts.trace() == parts.counts.sum()
     fig = confusion_gallery(data.images, [], CLASSES)
     assert any("no mistakes" in t.get_text() for ax in fig.axes for t in ax.texts)
+
+
+def test_number_format_drops_the_sign_of_a_rounded_zero():
+    """-0.0001 at three decimals shows as 0.000; real negatives keep their sign."""
+    assert num(-0.0001, 3) == "0.000" and num(-0.018, 3) == "-0.018"
+    assert num(1234567) == "1,234,567" and num(None) == "\u2013"

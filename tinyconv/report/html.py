@@ -124,7 +124,10 @@ def num(v: object, digits: int = 0) -> str:
         f = float(v)  # type: ignore[arg-type]
     except (TypeError, ValueError):
         return "\u2013"
-    return "\u2013" if not math.isfinite(f) else f"{f:,.{digits}f}"
+    if not math.isfinite(f):
+        return "\u2013"
+    text = f"{f:,.{digits}f}"
+    return text[1:] if text.startswith("-") and not text.strip("-0.,") else text  # no "-0.000"
 
 
 def pvalue(v: object) -> str:
