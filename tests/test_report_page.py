@@ -12,7 +12,7 @@ import pytest
 
 from tinyconv.report.html import Column, esc, num, page, pct, pvalue, table
 from tinyconv.report.rundata import PickPredictions, RunData
-from tinyconv.report.sections import units_summary, why_pick
+from tinyconv.report.sections import pick_flags, units_summary, why_pick
 from tinyconv.report.writer import render_report
 
 CLASSES = ("ring", "<b>cross</b> & co", "bar")
@@ -168,3 +168,18 @@ def test_number_format_drops_the_sign_of_a_rounded_zero():
     """-0.0001 at three decimals shows as 0.000; real negatives keep their sign."""
     assert num(-0.0001, 3) == "0.000" and num(-0.018, 3) == "-0.018"
     assert num(1234567) == "1,234,567" and num(None) == "\u2013"
+
+
+def test_pick_flags_warn_of_chance_level_and_over_fitting():
+    """The pick gets a warning when near chance (2 SE) or over-fitting by more than 10 points."""
+    import dataclasses
+
+    data = _run(False)
+    assert pick_flags(data) == []                       # 87% of 3 classes, gap 5 points
+    r = data.ranking.copy()
+    i = r.index[r["pick"]][0]
+    r.loc[i, ["acc_mean", "acc_se", "gap"]] = [0.36, 0.02, 0.30]
+    flags = pick_flags(dataclasses.replace(data, ranking=r))
+    assert len(flags) == 2
+    assert "within two standard errors of chance (33.3%)" in flags[0]
+    assert "30 points above held-out" in flags[1]

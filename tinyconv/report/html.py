@@ -170,7 +170,9 @@ nav.toc a span {{ color: var(--muted); margin-right: 4px; }}
 .decision .arch {{ font: 600 17px/1.35 "DejaVu Sans Mono", "Liberation Mono", monospace;
   word-break: break-all; margin: 0 0 10px; }}
 .decision p {{ margin: 0; font-size: 14px; }}
-.tiles {{ display: grid; grid-template-columns: repeat(auto-fit, minmax(130px, 1fr)); gap: 10px; }}
+.decision p.flag {{ margin-top: 10px; padding: 6px 10px; background: var(--band);
+  border-left: 3px solid var(--pick); }}
+.tiles {{ display: grid; grid-template-columns: repeat(3, minmax(120px, 1fr)); gap: 16px 14px; }}
 .tile {{ border-top: 2px solid var(--held); padding: 6px 2px 0; }}
 .tile .tl {{ font-size: 11px; text-transform: uppercase; letter-spacing: .08em; color: var(--muted); }}
 .tile .tv {{ font-size: 24px; font-weight: 700; line-height: 1.2; }}

@@ -86,6 +86,28 @@ def why_pick(data: RunData) -> str:
                    f"points below the best (corrected paired t-test p = {p}).")
 
 
+# A training accuracy this far above held-out accuracy is worth a warning (common
+# practice: a gap of several points already means the network memorises).
+GAP_WARN = 0.10
+
+
+def pick_flags(data: RunData) -> list[str]:
+    """Plain warnings about the pick: near chance, or over-fitting."""
+    pick = data.pick
+    out = []
+    acc, se, chance = float(pick["acc_mean"]), float(pick["acc_se"]), data.chance
+    if acc - 2 * se <= chance:
+        out.append(f"Its held-out accuracy ({pct(acc)} \u00b1 {pct(se)}) is within two standard "
+                   f"errors of chance ({pct(chance)}): no candidate learned much. Try more "
+                   "images, more epochs or another space before shipping anything.")
+    gap = float(pick["gap"])
+    if gap > GAP_WARN:
+        out.append(f"It over-fits: training accuracy is {100 * gap:.0f} points above held-out "
+                   "accuracy. More images, regularisation (weight decay, "
+                   "dropout) or a smaller network may generalise better.")
+    return out
+
+
 def decision_panel(data: RunData) -> str:
     """The panel under the header: the pick, in words and headline numbers."""
     pick = data.pick
@@ -98,8 +120,9 @@ def decision_panel(data: RunData) -> str:
         ("over-fitting gap", pct(pick["gap"]), f"training {pct(pick['train_acc_mean'])}"),
     ))
     return ('<div class="decision"><div><h2>The pick</h2>'
-            f'<p class="arch">{esc(str(pick["candidate"]))}</p>{paragraph(why_pick(data))}</div>'
-            f"<div>{t}</div></div>")
+            f'<p class="arch">{esc(str(pick["candidate"]))}</p>{paragraph(why_pick(data))}'
+            + "".join(f'<p class="flag">{esc(f)}</p>' for f in pick_flags(data))
+            + f"</div><div>{t}</div></div>")
 
 
 def ranking_section(data: RunData) -> Section:
