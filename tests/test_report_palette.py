@@ -107,3 +107,19 @@ def test_sequential_map_darkens_monotonically():
              for c in rgba]
     assert all(b < a + 1e-6 for a, b in zip(light, light[1:]))
     assert light[0] - light[-1] > 70
+
+
+def _relative_luminance(hex_colour: str) -> float:
+    """WCAG 2.1 relative luminance (sRGB decoding, Rec. 709 weights)."""
+    r, g, b = _linear(hex_colour)
+    return 0.2126 * r + 0.7152 * g + 0.0722 * b
+
+
+@pytest.mark.parametrize("role", ["ink", "muted_text", "held_out", "pick"])
+@pytest.mark.parametrize("ground", ["paper", "white"])
+def test_page_text_colours_meet_the_wcag_contrast_minimum(role, ground):
+    """Text colours used on the page reach WCAG 2.1's 4.5:1 contrast on the page and on white."""
+    fg = _relative_luminance(getattr(PALETTE, role))
+    bg = _relative_luminance("#ffffff" if ground == "white" else PALETTE.paper)
+    # WCAG 2.1 success criterion 1.4.3: (L1 + 0.05) / (L2 + 0.05) >= 4.5 for body text
+    assert (max(fg, bg) + 0.05) / (min(fg, bg) + 0.05) >= 4.5

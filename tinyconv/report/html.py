@@ -146,7 +146,7 @@ def _css() -> str:
     p = PALETTE
     return f"""
 :root {{ --ink:{p.ink}; --paper:{p.paper}; --held:{p.held_out}; --pick:{p.pick};
-  --rule:{p.rule}; --band:{p.band}; --muted:{p.chance}; --train:{p.training}; }}
+  --rule:{p.rule}; --band:{p.band}; --muted:{p.muted_text}; --train:{p.training}; }}
 * {{ box-sizing: border-box; }}
 html {{ background: var(--paper); }}
 body {{ margin: 0; color: var(--ink); font: 15px/1.55 "Liberation Sans", "DejaVu Sans",
@@ -182,7 +182,7 @@ section > h2 {{ font: 700 22px/1.2 "DejaVu Serif", Georgia, serif; margin: 0 0 4
   display: flex; align-items: baseline; gap: 12px; }}
 section > h2 .no {{ font: 600 13px/1 "DejaVu Sans Mono", monospace; color: var(--paper);
   background: var(--ink); padding: 4px 7px; border-radius: 2px; }}
-section > p.lead {{ margin: 0 0 14px; color: #4a4f5c; max-width: 80ch; }}
+section > p.lead {{ margin: 0 0 14px; color: var(--muted); max-width: 80ch; }}
 h3 {{ font-size: 15px; margin: 22px 0 6px; }}
 .tablewrap {{ overflow-x: auto; border: 1px solid var(--rule); background: #fff; }}
 table {{ border-collapse: collapse; width: 100%; font-size: 13px; }}
@@ -191,7 +191,7 @@ td.txt {{ white-space: normal; }}
 table.ranking td.txt {{ min-width: 15em; }}
 th {{ text-align: left; font-size: 11px; text-transform: uppercase; letter-spacing: .03em;
   white-space: normal; vertical-align: bottom;
-  color: #4a4f5c; background: #f3eee3; border-bottom: 1.5px solid var(--ink); }}
+  color: var(--muted); background: #f3eee3; border-bottom: 1.5px solid var(--ink); }}
 td.num, th.num {{ text-align: right; }}
 td.txt code {{ font: 12px "DejaVu Sans Mono", "Liberation Mono", monospace;
   word-break: break-all; }}
@@ -201,12 +201,12 @@ tr.pick td:first-child {{ box-shadow: inset 5px 0 0 var(--pick); }}
 .figs {{ display: grid; grid-template-columns: repeat(auto-fit, minmax(460px, 1fr)); gap: 18px; }}
 figure.fig {{ margin: 0; background: #fff; border: 1px solid var(--rule); padding: 10px; }}
 figure.fig img {{ display: block; width: 100%; height: auto; margin: 0 auto; }}
-figure.fig figcaption {{ font-size: 13px; color: #4a4f5c; padding: 8px 4px 2px; }}
+figure.fig figcaption {{ font-size: 13px; color: var(--muted); padding: 8px 4px 2px; }}
 figure.wide {{ grid-column: 1 / -1; }}
 .notice {{ border: 1px dashed var(--muted); background: #fff; padding: 10px 14px; font-size: 14px; }}
 dl.defs {{ display: grid; grid-template-columns: max-content 1fr; gap: 4px 20px; margin: 0;
   background: #fff; border: 1px solid var(--rule); padding: 14px 18px; font-size: 13.5px; }}
-dl.defs dt {{ color: #4a4f5c; }}
+dl.defs dt {{ color: var(--muted); }}
 dl.defs dd {{ margin: 0; word-break: break-word; }}
 dl.defs pre, pre.space {{ margin: 0; font: 12.5px/1.45 "DejaVu Sans Mono", monospace;
   white-space: pre-wrap; }}

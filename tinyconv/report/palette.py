@@ -36,6 +36,7 @@ class Palette:
     band: str = "#efe4cc"        # the one-standard-error band: very light
     budget: str = "#5b4e6e"      # budget lines (dashed)
     chance: str = "#7d818a"      # chance accuracy 1/K (dotted)
+    muted_text: str = "#5c6069"  # secondary text on the page (captions, notes)
     paper: str = "#fbf8f2"       # page and figure background
     rule: str = "#ddd5c5"        # thin rules and grid lines
 
