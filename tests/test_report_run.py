@@ -130,19 +130,18 @@ def test_page_ranking_table_shows_the_ranking_values(run_dir):
         assert (cls == "pick") == bool(r["pick"])
 
 
-def test_report_keeps_the_row_order_the_search_saved(run_dir, tmp_path):
-    """A ranking.csv saved in accuracy order makes the report rank by accuracy too."""
+def test_report_follows_the_ranking_order_the_search_stored(run_dir, tmp_path):
+    """A run ranked by accuracy (the stored --rank-by) is reported in that order."""
     import shutil
-
-    from search.rank import save_ranking
 
     shutil.copy(run_dir / "run.sqlite", tmp_path / "run.sqlite")
     with RunStore(tmp_path) as store:
-        by_acc, by_param = rank_run(store, by="accuracy"), rank_run(store)
-    assert list(by_acc["candidate"]) != list(by_param["candidate"])   # the orders differ here
-    save_ranking(by_acc, tmp_path)
+        by_acc, by_param = rank_run(store, by="accuracy"), rank_run(store, by="per_param")
+        assert list(by_acc["candidate"]) != list(by_param["candidate"])   # they differ here
+        store.set_rank_order("accuracy")
     assert list(collect(tmp_path).ranking["candidate"]) == list(by_acc["candidate"])
-    save_ranking(by_param, tmp_path)
+    with RunStore(tmp_path) as store:
+        store.set_rank_order("per_param")
     assert list(collect(tmp_path).ranking["candidate"]) == list(by_param["candidate"])
 
 

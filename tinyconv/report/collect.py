@@ -43,7 +43,7 @@ def collect(run_dir: str | Path) -> RunData:
     with RunStore(run_dir) as store:
         config = store.config() or {}
         classes = tuple(str(c) for c in config.get("classes", ()))
-        ranking = rank_run(store, by=_rank_order(run_dir))
+        ranking = rank_run(store)   # in the order the search was asked for
         if ranking.empty:
             n = len(store.units())
             raise RunError(f"{run_dir}: nothing to report yet: {n} units finished, and no "
@@ -68,25 +68,6 @@ def collect(run_dir: str | Path) -> RunData:
                    units=units, predictions=predictions, images=images, paths=paths,
                    candidates=candidates, removed=removed, outcome=outcome,
                    notices=tuple(notes))
-
-
-def _rank_order(run_dir: Path) -> str:
-    """The row order the search wrote ``ranking.csv`` in, so the report keeps it.
-
-    The run's settings do not record it; the saved table does: rows sorted
-    by ``rank_accuracy`` (and not by ``rank_per_param``) mean ``accuracy``.
-    Without a readable table the contract's default, ``per_param``, is used.
-    """
-    import pandas as pd
-
-    path = run_dir / "ranking.csv"
-    try:
-        saved = pd.read_csv(path, usecols=["rank_per_param", "rank_accuracy"])
-    except (OSError, ValueError):
-        return "per_param"
-    by_acc = saved["rank_accuracy"].is_monotonic_increasing
-    by_param = saved["rank_per_param"].is_monotonic_increasing
-    return "accuracy" if by_acc and not by_param else "per_param"
 
 
 def _images(config: dict, predictions: PickPredictions | None
