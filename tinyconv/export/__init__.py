@@ -26,8 +26,8 @@ SUMMARY_FILE = "summary.json"
 def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
                    prefix: str = "tc", classes=None, eval_images: np.ndarray | None = None,
                    eval_labels: np.ndarray | None = None, eval_set: str = "held-out",
-                   meta: dict | None = None, cv_accuracy: tuple[float, float] | None = None
-                   ) -> ExportSummary:
+                   meta: dict | None = None, cv_accuracy: tuple[float, float] | None = None,
+                   rounding: str = "feedback") -> ExportSummary:
     """Quantise ``net`` and write everything a device build needs.
 
     Parameters
@@ -54,6 +54,8 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         Extra JSON-ready facts stored in ``network.npz``.
     cv_accuracy : (mean, se), optional
         The search's cross-validated accuracy, recorded in the summary.
+    rounding : {"feedback", "nearest"}
+        Weight rounding (:mod:`tinyconv.quant.rounding`).
 
     Returns
     -------
@@ -71,7 +73,7 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
     classes = tuple(str(c) for c in classes) if classes is not None else tuple(
         str(i) for i in range(net.n_classes))
     cost = cost_of(net.arch, net.n_classes)
-    qnet = quantize_network(net, norm_mean, norm_std, calib_images)
+    qnet = quantize_network(net, norm_mean, norm_std, calib_images, rounding=rounding)
     code = generate_c(qnet, prefix, classes, macs=cost.macs)
     # The generated code and the cost model are one number each; a difference is a bug.
     if code.arena_bytes != cost.peak_int8_bytes or code.flash_bytes != cost.flash_bytes:
@@ -99,7 +101,7 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         arch=str(net.arch), classes=classes, prefix=prefix,
         input_shape=tuple(qnet.input_shape), flash_bytes=code.flash_bytes,
         arena_bytes=code.arena_bytes, macs=cost.macs, params=cost.params,
-        n_calib=qnet.n_calib, calibration=qnet.calibration,
+        n_calib=qnet.n_calib, calibration=qnet.calibration, rounding=qnet.rounding,
         logits_scale=float(qnet.logits_scale), logits_zero_point=int(qnet.logits_zp),
         n_eval=n_eval, agreement=agreement, float_accuracy=f_acc, int8_accuracy=q_acc,
         eval_set=eval_set, cv_accuracy=None if cv_accuracy is None else float(cv_accuracy[0]),

@@ -276,7 +276,8 @@ def _info_comment(qnet: QuantizedNetwork, classes, flash: int, arena: int,
              f"arena (activations, static): {arena} bytes"]
     if macs is not None:
         lines.append(f"multiply-accumulates per image: {macs}")
-    lines += [f"calibration: {qnet.calibration} over {qnet.n_calib} images",
+    lines += [f"calibration: {qnet.calibration} over {qnet.n_calib} images; weights rounded "
+              f"with {qnet.rounding}",
               f"logit real value = {qnet.logits_scale:.9g} * (q - ({qnet.logits_zp}))"]
     lines += ["steps:"] + [f"  {_describe(layer)}" for layer in qnet.layers]
     return "/*\n" + "".join(f" * {_comment_safe(line)}\n" for line in lines) + " */\n"

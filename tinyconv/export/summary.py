@@ -27,7 +27,8 @@ class ExportSummary:
     macs, params : int
         Multiply-accumulates per image and trained parameters (cost model).
     n_calib : int
-        Calibration images; ``calibration`` names the range rule.
+        Calibration images; ``calibration`` names the range rule and
+        ``rounding`` the weight rounding.
     logits_scale, logits_zero_point : float, int
         Real logit = ``logits_scale * (q - logits_zero_point)``.
     n_eval : int
@@ -55,6 +56,7 @@ class ExportSummary:
     params: int
     n_calib: int
     calibration: str
+    rounding: str
     logits_scale: float
     logits_zero_point: int
     n_eval: int = 0
@@ -91,7 +93,8 @@ class ExportSummary:
                f"arena         {self.arena_bytes:,} bytes ({self.arena_bytes / 1024:.1f} KB) "
                "of activations",
                f"MACs          {self.macs:,} per image; {self.params:,} parameters",
-               f"calibration   {self.calibration} over {self.n_calib} images"]
+               f"calibration   {self.calibration} over {self.n_calib} images; weights "
+               f"rounded with {self.rounding}"]
         if self.cv_accuracy is not None:
             out.append(f"search        cross-validated float accuracy {self.cv_accuracy:.2%} "
                        f"+- {self.cv_accuracy_se or 0.0:.2%} (SE)")

@@ -26,7 +26,8 @@ __all__ = ["quantize_network", "int8_accuracy", "int8_logits", "int8_predict", "
            "float_logits", "Agreement", "QuantizedNetwork", "QuantLayer"]
 
 
-def quantize_network(net, mean, std, calib_images: np.ndarray) -> QuantizedNetwork:
+def quantize_network(net, mean, std, calib_images: np.ndarray,
+                     rounding: str = "feedback") -> QuantizedNetwork:
     """Post-training int8 quantisation of a trained network.
 
     Parameters
@@ -36,6 +37,8 @@ def quantize_network(net, mean, std, calib_images: np.ndarray) -> QuantizedNetwo
         The normalisation it was trained with (``(p / 255 - mean) / std``).
     calib_images : ndarray of uint8, shape (n, h, w, c)
         Raw calibration images in the network's input size and colour mode.
+    rounding : {"feedback", "nearest"}
+        Weight rounding (:mod:`tinyconv.quant.rounding`).
 
     Raises
     ------
@@ -45,11 +48,12 @@ def quantize_network(net, mean, std, calib_images: np.ndarray) -> QuantizedNetwo
         For images or normalisation that do not fit the network.
     """
     return quantize_steps(network_steps(net), str(net.arch), net.n_classes,
-                          tuple(net.arch.input.shape), mean, std, calib_images)
+                          tuple(net.arch.input.shape), mean, std, calib_images,
+                          rounding=rounding)
 
 
 def int8_accuracy(net, mean, std, calib_images: np.ndarray, images: np.ndarray,
-                  labels: np.ndarray) -> float:
+                  labels: np.ndarray, rounding: str = "feedback") -> float:
     """Held-out accuracy of the int8 form of ``net``.
 
     Parameters
@@ -62,13 +66,15 @@ def int8_accuracy(net, mean, std, calib_images: np.ndarray, images: np.ndarray,
         Calibration images (from the training part, never the held-out part).
     images : ndarray of uint8, shape (n, h, w, c)
     labels : ndarray of int, shape (n,)
+    rounding : {"feedback", "nearest"}
+        Weight rounding (:mod:`tinyconv.quant.rounding`).
 
     Returns
     -------
     float
         Fraction of ``images`` whose int8 arg-max equals the label.
     """
-    qnet = quantize_network(net, mean, std, calib_images)
+    qnet = quantize_network(net, mean, std, calib_images, rounding=rounding)
     labels = np.asarray(labels).reshape(-1)
     pred = int8_predict(qnet, images)
     if labels.shape[0] != pred.shape[0]:

@@ -2,7 +2,8 @@
 
 * Real values are ``r = S (q - Z)`` with real 0 exactly representable.
 * Weights: symmetric per output channel, ``S_w = max|w| / 127``,
-  ``q_w = round(w / S_w)`` in [-127, 127] (zero point 0).
+  ``q_w`` in [-127, 127] (zero point 0): ``round(w / S_w)``, or by default
+  rounded with error feedback (:mod:`tinyconv.quant.rounding`).
 * Activations: asymmetric per tensor from calibration (see
   :mod:`tinyconv.quant.calibrate`).
 * Bias: int32 at scale ``S_in S_w``; accumulation in int32.
@@ -23,9 +24,10 @@ import numpy as np
 
 from tinyconv.arch import Op
 from tinyconv.errors import DataError, InputError
-from tinyconv.quant.calibrate import QMAX, QMIN, activation_ranges, scale_zero_point
+from tinyconv.quant.calibrate import QMAX, QMIN, calibrate, scale_zero_point
 from tinyconv.quant.fixed_point import INT32_MAX, quantize_multiplier
 from tinyconv.quant.fold import WEIGHTED, Step
+from tinyconv.quant.rounding import METHODS, round_weights
 
 MAX_PRODUCT = 255 * 127  # |q_in - Z_in| * |q_w| at most
 
@@ -100,7 +102,9 @@ class QuantizedNetwork:
         Quantisation of the input tensor.
     layers : tuple of QuantLayer
     n_calib : int
-        Calibration images used.
+        Calibration images used; ``calibration`` names the range rule.
+    rounding : str
+        How weights were rounded (:mod:`tinyconv.quant.rounding`).
     """
 
     arch: str
@@ -112,6 +116,7 @@ class QuantizedNetwork:
     layers: tuple[QuantLayer, ...]
     n_calib: int
     calibration: str = "minmax"
+    rounding: str = "feedback"
 
     @property
     def logits_scale(self) -> float:
@@ -173,8 +178,12 @@ def _weight_axes(kind: str) -> tuple[int, ...]:
 
 
 def quantize_weighted(step: Step, in_scale: float, in_zp: int, out_scale: float,
-                      out_zp: int) -> QuantLayer:
+                      out_zp: int, moment: np.ndarray | None = None, samples: int = 0,
+                      rounding: str = "nearest") -> QuantLayer:
     """Quantise one conv, dwconv or dense step.
+
+    ``moment`` and ``samples`` (from :func:`~tinyconv.quant.calibrate.calibrate`)
+    feed the error-feedback ``rounding`` (:mod:`tinyconv.quant.rounding`).
 
     Notes
     -----
@@ -196,7 +205,7 @@ def quantize_weighted(step: Step, in_scale: float, in_zp: int, out_scale: float,
     maxabs = np.abs(w).max(axis=_weight_axes(step.kind))  # (f,)
     w_scale = np.where(maxabs > 0, maxabs / 127.0, 1.0)
     w_scale = np.maximum(w_scale, np.abs(b) / (in_scale * headroom))
-    q_w = np.clip(np.round(w / w_scale), -127, 127).astype(np.int8)
+    q_w = round_weights(step.kind, w, w_scale, moment, samples, rounding)
     bias = np.round(b / (in_scale * w_scale)).astype(np.int64)
     mult = np.empty(len(b), np.int32)
     shift = np.empty(len(b), np.int32)
@@ -210,7 +219,8 @@ def quantize_weighted(step: Step, in_scale: float, in_zp: int, out_scale: float,
 
 def quantize_steps(steps: tuple[Step, ...], arch: str, n_classes: int,
                    input_shape: tuple[int, int, int], mean, std,
-                   calib_images: np.ndarray, batch: int = 64) -> QuantizedNetwork:
+                   calib_images: np.ndarray, batch: int = 64,
+                   rounding: str = "feedback") -> QuantizedNetwork:
     """Calibrate on ``calib_images`` and quantise every step.
 
     Parameters
@@ -224,20 +234,28 @@ def quantize_steps(steps: tuple[Step, ...], arch: str, n_classes: int,
         The normalisation the float network was trained with.
     calib_images : ndarray of uint8, shape (n, h, w, c)
         Raw images in the network's input size and colour mode.
+    rounding : {"feedback", "nearest"}
+        How to round the weights (:mod:`tinyconv.quant.rounding`).
     """
+    if rounding not in METHODS:
+        raise InputError(f"weight rounding {rounding!r} is unknown; expected one of "
+                         f"{', '.join(METHODS)}")
     mean, std = check_normalisation(mean, std, input_shape[2])
     calib_images = check_images(calib_images, input_shape, "calibration images")
     table, in_scale, in_zp = input_table(mean, std)
-    ranges = activation_ranges(steps, normalised(calib_images, mean, std), batch=batch)
+    cal = calibrate(steps, normalised(calib_images, mean, std), batch=batch,
+                    moments=rounding == "feedback")
     layers = []
     scale, zp = in_scale, in_zp
-    for step, (lo, hi) in zip(steps, ranges):
+    for step, (lo, hi), moment, samples in zip(steps, cal.ranges, cal.moments, cal.samples):
         if step.kind in WEIGHTED:
             out_scale, out_zp = scale_zero_point(lo, hi)
-            layer = quantize_weighted(step, scale, zp, out_scale, out_zp)
+            layer = quantize_weighted(step, scale, zp, out_scale, out_zp, moment, samples,
+                                      rounding)
             scale, zp = out_scale, out_zp
         else:
             layer = QuantLayer(step.kind, step.op, step.index, step.covers, scale, zp, scale, zp)
         layers.append(layer)
     return QuantizedNetwork(arch, n_classes, tuple(input_shape), table, in_scale, in_zp,
-                            tuple(layers), n_calib=int(calib_images.shape[0]))
+                            tuple(layers), n_calib=int(calib_images.shape[0]),
+                            rounding=rounding)
