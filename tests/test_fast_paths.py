@@ -8,6 +8,8 @@ tested against the loop references and finite differences).
 
 from __future__ import annotations
 
+import math
+
 import numpy as np
 import pytest
 
@@ -104,3 +106,31 @@ def test_fit_is_bit_identical_for_one_seed():
         nets.append(net)
     for (name, a), (_, b) in zip(nets[0].param_list(), nets[1].param_list()):
         np.testing.assert_array_equal(a, b, err_msg=name)
+
+
+
+@pytest.mark.parametrize("kind", ["sgd", "adam"])
+def test_one_pass_optimiser_gives_the_numpy_formula_bits(kind):
+    """The one-pass SGD and Adam kernels give bit for bit the NumPy expressions of the update rules."""
+    from tinyconv.optim import SGD, Adam
+
+    rng = np.random.default_rng(9)
+    theta = rng.standard_normal((3, 3, 2, 5)).astype(np.float32)
+    want = theta.copy()
+    opt = SGD([("0:a/w", theta)], momentum=0.9) if kind == "sgd" else Adam([("0:a/w", theta)])
+    m, v = np.zeros_like(want), np.zeros_like(want)
+    for t in range(1, 5):
+        g = rng.standard_normal(want.shape).astype(np.float32)
+        opt.update([g], lr=0.01)
+        if kind == "sgd":  # Polyak 1964 heavy ball, as written in numpy
+            v *= 0.9
+            v += g
+            want -= 0.01 * v
+        else:  # Kingma & Ba, ICLR 2015, with the corrections folded into step and eps
+            c2 = math.sqrt(1.0 - 0.999 ** t)
+            m *= 0.9
+            m += (1.0 - 0.9) * g
+            v *= 0.999
+            v += (1.0 - 0.999) * np.square(g)
+            want -= (0.01 * c2 / (1.0 - 0.9 ** t)) * m / (np.sqrt(v) + 1e-8 * c2)
+    np.testing.assert_array_equal(theta, want)
