@@ -43,6 +43,7 @@ def build_run(run_dir: Path) -> Path:
     store = RunStore.start(run_dir, settings.as_dict(), filtered.table(), filtered.over)
     folds = assign_folds(data.labels, FOLDS, seed=5)
     unit_data = UnitData(data.images, data.labels, folds)
+    unit_data.save(run_dir)          # as the search does, for its workers
     with store:
         for rung, epochs, who in RUNGS:
             for cand in who:

@@ -242,3 +242,20 @@ def test_box_plot_keeps_the_pick_when_candidates_are_many(run_dir, monkeypatch):
         ["candidate"])
     monkeypatch.setattr(assemble, "MAX_BOXES", 1)
     assert assemble.box_candidates(data) == [data.pick["candidate"]]
+
+
+def test_moved_data_falls_back_to_the_run_folders_copy(run_dir, monkeypatch):
+    """When the data set cannot be reloaded, the galleries use the run folder's checked copy."""
+    import tinyconv.data
+    from tinyconv.errors import DataError
+
+    def gone(spec, **kw):
+        raise DataError(f"{spec}: no such file or folder")
+    monkeypatch.setattr(tinyconv.data, "load_data", gone)
+    data = collect(run_dir)
+    assert data.images is not None and data.paths is None
+    assert "could not be reloaded" in data.notices[0]
+    assert "copy of the images kept in the run folder" in data.notices[0]
+    with RunStore(run_dir) as store:
+        n = store.config()["n_images"]
+    assert data.images.shape[0] == n

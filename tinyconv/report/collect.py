@@ -63,38 +63,74 @@ def collect(run_dir: str | Path) -> RunData:
                                       label=frame["label"].to_numpy(np.int64),
                                       pred=frame["pred"].to_numpy(np.int64),
                                       probs=np.asarray(probs, dtype=np.float64))
-    images, paths, notes = _images(config, predictions)
+    images, paths, notes = _images(config, predictions, run_dir)
     return RunData(run_dir=run_dir, config=config, classes=classes, ranking=ranking,
                    units=units, predictions=predictions, images=images, paths=paths,
                    candidates=candidates, removed=removed, outcome=outcome,
                    notices=tuple(notes))
 
 
-def _images(config: dict, predictions: PickPredictions | None
+def _images(config: dict, predictions: PickPredictions | None, run_dir: Path
             ) -> tuple[np.ndarray | None, tuple[str, ...] | None, list[str]]:
-    """The run's images for the galleries, or None with the reason."""
+    """The run's images for the galleries, or None with the reason.
+
+    First the data set named in the settings, reloaded and checked against
+    the run's fingerprint; failing that, the copy of the images the search
+    keeps in the run folder for its workers (``search.unit.UnitData``),
+    checked the same way.
+    """
     if predictions is None:
         return None, None, []
     from tinyconv.data import fingerprint, load_data
 
     spec = config.get("data")
-    if not spec:
-        return None, None, ["The run's settings name no data set, so the image galleries "
-                            "are left out."]
-    try:
-        data = load_data(spec)
-    except (ValueError, OSError) as exc:
-        return None, None, [f"The data set {spec!r} could not be reloaded ({exc}), so the image "
-                            "galleries are left out; make it available at the same path and "
-                            "write the report again."]
     stored = config.get("fingerprint")
-    now = fingerprint(data)
-    if stored and now != stored:
-        return None, None, [f"The data set at {spec!r} has changed since the run (fingerprint "
-                            f"{now[:12]} now, {str(stored)[:12]} in the run), so its images "
-                            "would not match the predictions: the galleries are left out. "
-                            "Restore the data as it was, or search again."]
-    if predictions.index.size and int(predictions.index.max()) >= len(data.images):
-        return None, None, [f"The predictions point past the {len(data.images)} images of "
-                            f"{spec!r}, so the galleries are left out."]
-    return data.images, data.paths, []
+    problem = None
+    if not spec:
+        problem = "the run's settings name no data set"
+    else:
+        try:
+            data = load_data(spec)
+        except (ValueError, OSError) as exc:
+            problem = f"the data set {spec!r} could not be reloaded ({exc})"
+        else:
+            now = fingerprint(data)
+            if stored and now != stored:
+                problem = (f"the data set at {spec!r} has changed since the run (fingerprint "
+                           f"{now[:12]} now, {str(stored)[:12]} in the run)")
+            else:
+                return _checked(data.images, data.paths, predictions, spec)
+    kept = _kept_images(run_dir, config, stored)
+    if kept is not None:
+        images, _, notes = _checked(kept, None, predictions, "the run folder's copy")
+        return images, None, [f"For the galleries: {problem}; they show the copy of the "
+                              "images kept in the run folder, which matches the run."] + notes
+    return None, None, [f"The image galleries are left out: {problem}, so its images would "
+                        "not match the predictions. Make the data available as it was at the "
+                        "same path and write the report again, or search again."]
+
+
+def _kept_images(run_dir: Path, config: dict, stored: str | None) -> np.ndarray | None:
+    """The images saved in the run folder by the search, if they match the fingerprint."""
+    if not stored or not (run_dir / "images.npy").is_file():
+        return None
+    from search.unit import UnitData
+    from tinyconv.data import fingerprint
+    from tinyconv.data.dataset import Dataset
+
+    try:
+        kept = UnitData.load(run_dir)
+        ds = Dataset(np.asarray(kept.images), np.asarray(kept.labels),
+                     tuple(config.get("classes", ())))
+    except (ValueError, OSError):
+        return None
+    return ds.images if fingerprint(ds) == stored else None
+
+
+def _checked(images: np.ndarray, paths, predictions: PickPredictions, what: str
+             ) -> tuple[np.ndarray | None, tuple[str, ...] | None, list[str]]:
+    """The images when every prediction's index falls inside them."""
+    if predictions.index.size and int(predictions.index.max()) >= len(images):
+        return None, None, [f"The predictions point past the {len(images)} images of {what}, "
+                            "so the galleries are left out."]
+    return images, paths, []
