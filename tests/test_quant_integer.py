@@ -47,10 +47,13 @@ def test_input_table_is_the_quantised_normalised_pixel():
     assert table.shape == (256, 3) and table.dtype == np.int8
     real = (np.arange(256)[:, None] / 255 - mean) / std
     assert np.abs(s * (table.astype(float) - z) - real).max() <= s / 2 + 1e-12
-    # worked value (computed): mean 0.5, std 0.25 spans [-2, 2]; S = 4/255, Z = 0
+    # worked value (computed): mean 0.5, std 0.25 spans [-2, 2]; S = 4/255, Z = 0, and
+    # pixel p sits at p - 127.5 steps: every pixel is a tie, rounded up, so q = p - 127
+    # (p = 255 clips to 127); ties to even would give pairs of equal values
     table, s, z = input_table(np.array([0.5]), np.array([0.25]))
     assert (s, z) == (pytest.approx(4 / 255), 0)
-    assert table[[0, 128, 255], 0].tolist() == [-128, 0, 127]
+    assert table[:255, 0].tolist() == list(range(-127, 128))
+    assert table[255, 0] == 127
 
 
 def test_weights_symmetric_per_channel():
@@ -170,3 +173,11 @@ def test_accumulator_overflow_is_refused():
     with pytest.raises(InputError, match=r"67600 inputs per output can overflow an int32 "
                                          r"accumulator \(at most 66311 fit\)"):
         quantize_network(net, [0.5], [0.25], images)
+
+
+def test_as_pixels_inverts_prepare_of_uint8():
+    """Prepared uint8 images (p / 255 in float32) come back as the same pixels."""
+    from tinyconv.quant import as_pixels
+
+    raw = np.arange(256, dtype=np.uint8).reshape(1, 16, 16, 1)
+    np.testing.assert_array_equal(as_pixels(raw.astype(np.float32) * np.float32(1 / 255)), raw)

@@ -138,6 +138,7 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
     from tinyconv.export import export_network
     from tinyconv.export.c_writer import check_prefix
     from tinyconv.network import Network
+    from tinyconv.quant import as_pixels
     from tinyconv.train import TrainConfig, fit
 
     log = log or (lambda text: None)
@@ -180,7 +181,7 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
                             hist.diverged_epoch)
 
     # the device sees 8-bit pixels in the network's own size and colour mode
-    pixels = np.rint(x * 255.0).astype(np.uint8)
+    pixels = as_pixels(x)
     rng = np.random.default_rng(derive_seed(seed, "export", candidate, "calibration"))
     chosen = np.sort(rng.choice(len(pixels), size=min(int(calib), len(pixels)), replace=False))
     out_dir = Path(out_dir) if out_dir is not None else Path(run_dir) / "export"

@@ -175,11 +175,15 @@ def _call(layer: QuantLayer, p: str, src: str, dst: str, head: bool = False) -> 
     return f"    {p}_{layer.kind}({src}, {dst}, {w}, {c}, {oh}, {ow}, {op.size});\n"
 
 
+def _shape(shape: tuple[int, ...]) -> str:
+    return "x".join(map(str, shape))
+
+
 def _describe(layer: QuantLayer) -> str:
+    """One line per step for comments, e.g. ``1:c8k3 conv + relu: 16x16x3 -> 16x16x8``."""
     op = layer.op
-    shape = lambda s: "x".join(map(str, s))  # noqa: E731
     extra = " + relu" if layer.relu else ""
-    return f"{op.name} {layer.kind}{extra}: {shape(op.in_shape)} -> {shape(op.out_shape)}"
+    return f"{op.name} {layer.kind}{extra}: {_shape(op.in_shape)} -> {_shape(op.out_shape)}"
 
 
 def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,

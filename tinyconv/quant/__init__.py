@@ -22,8 +22,23 @@ from tinyconv.quant.fold import network_steps
 from tinyconv.quant.integer import int8_logits, int8_predict
 from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer, quantize_steps
 
-__all__ = ["quantize_network", "int8_accuracy", "int8_logits", "int8_predict", "compare",
+__all__ = ["quantize_network", "int8_accuracy", "as_pixels", "int8_logits", "int8_predict", "compare",
            "float_logits", "Agreement", "QuantizedNetwork", "QuantLayer"]
+
+
+def as_pixels(x: np.ndarray) -> np.ndarray:
+    """Prepared images in [0, 1] as the 8-bit pixels a device camera gives.
+
+    Parameters
+    ----------
+    x : ndarray, shape (n, h, w, c)
+        Float images in [0, 1] (e.g. from :func:`tinyconv.data.prepare`).
+
+    Returns
+    -------
+    ndarray of uint8, same shape: ``rint(255 x)`` (exact for images that were uint8).
+    """
+    return np.rint(np.clip(np.asarray(x, np.float64), 0.0, 1.0) * 255.0).astype(np.uint8)
 
 
 def quantize_network(net, mean, std, calib_images: np.ndarray,

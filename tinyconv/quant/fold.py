@@ -107,6 +107,8 @@ def build_steps(ops: tuple[Op, ...], params: list[dict[str, np.ndarray]],
     if len(params) != len(ops) or len(eps) != len(ops):
         raise ValueError(f"need one parameter dict and eps per op: {len(ops)} ops, "
                          f"{len(params)} dicts, {len(eps)} eps")
+    # A step is "open" while a batch norm or ReLU may still fold into it: right
+    # after its conv/dwconv/dense op, and after a folded batch norm.
     steps: list[dict] = []
     pending: list[int] = []  # ops seen before the first step (dropout on the input)
     for i, op in enumerate(ops):
@@ -149,8 +151,6 @@ def build_steps(ops: tuple[Op, ...], params: list[dict[str, np.ndarray]],
                 last["covers"].append(i)
         else:
             raise ValueError(f"op {i}: unknown kind {op.kind!r}")
-        if op.kind != "relu" and op.kind != "bn" and op.kind not in WEIGHTED and steps:
-            steps[-1]["open"] = False
     return tuple(Step(kind=s["kind"], op=s["op"], index=s["index"], covers=tuple(s["covers"]),
                       w=s["w"], b=s["b"], relu=s["relu"]) for s in steps)
 

@@ -30,6 +30,7 @@ from tinyconv.quant.fold import WEIGHTED, Step
 from tinyconv.quant.rounding import METHODS, round_weights
 
 MAX_PRODUCT = 255 * 127  # |q_in - Z_in| * |q_w| at most
+TIE = 1e-9  # steps: how close to a half the input table treats as a tie
 
 
 @dataclass(frozen=True, eq=False)
@@ -165,10 +166,18 @@ def normalised(images: np.ndarray, mean: np.ndarray, std: np.ndarray) -> np.ndar
 
 
 def input_table(mean: np.ndarray, std: np.ndarray) -> tuple[np.ndarray, float, int]:
-    """The ``256 x c`` int8 input table and the input (scale, zero point)."""
+    """The ``256 x c`` int8 input table and the input (scale, zero point).
+
+    Notes
+    -----
+    Rounds half up, not half to even, and counts values within ``TIE`` of a
+    half as the half (floating-point noise decides otherwise): when the scale
+    lines up with the pixel grid every pixel sits on a tie, and ties broken
+    any other way map pairs of neighbouring pixels to one value.
+    """
     real = (np.arange(256, dtype=np.float64)[:, None] / 255.0 - mean) / std  # (256, c)
     scale, zp = scale_zero_point(real.min(), real.max())
-    table = np.clip(np.round(real / scale) + zp, QMIN, QMAX).astype(np.int8)
+    table = np.clip(np.floor(real / scale + 0.5 + TIE) + zp, QMIN, QMAX).astype(np.int8)
     return table, scale, zp
 
 
