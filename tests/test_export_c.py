@@ -17,6 +17,8 @@ from tinyconv.quant.integer import int8_outputs
 pytestmark = pytest.mark.skipif(shutil.which("gcc") is None, reason="needs gcc")
 
 GCC = ["gcc", "-std=c99", "-pedantic", "-Wall", "-Wextra", "-Werror", "-O2"]
+# the generated unit alone must also pass the checks embedded builds often add
+STRICT = GCC + ["-Wconversion", "-Wsign-conversion", "-Wshadow", "-Wcast-qual"]
 
 # Each architecture exercises a part of the writer; together: standard and
 # depthwise convolution, stride 2, valid padding, both pooling kinds, global
@@ -81,7 +83,7 @@ def build(tmp_path, code) -> tuple:
     (tmp_path / f"{p}.c").write_text(code.source)
     (tmp_path / f"{p}.h").write_text(code.header)
     # the generated unit alone, with every warning an error
-    subprocess.run(GCC + ["-c", f"{p}.c", "-o", f"{p}.o"], cwd=tmp_path, check=True)
+    subprocess.run(STRICT + ["-c", f"{p}.c", "-o", f"{p}.o"], cwd=tmp_path, check=True)
     sizes = "\n        ".join(f'printf("{a.name} %lu\\n", (unsigned long)sizeof({a.name}));'
                                for a in code.arrays)
     harness = HARNESS.replace("@SIZES@", sizes).replace("@P@", p).replace("@U@", u)
