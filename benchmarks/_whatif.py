@@ -13,7 +13,8 @@ files are not changed. Variants:
 * ``pool before ReLU``: a ReLU directly followed by a max pool swapped, since
   ``maxpool(relu(x)) == relu(maxpool(x))`` (max is monotone), so ReLU runs on
   a map s^2 times smaller;
-* ``all``: the first two together with the third where it applies.
+* ``all``: the first two together with the third where it applies;
+* ``plain again``: the plain network once more (a control for the noise).
 
 Before timing, each variant's loss and gradients after one step from the
 same weights are compared with the plain network's, so a variant that
@@ -28,7 +29,10 @@ import _nets
 import _timing
 from tinyconv.layers.base import Layer
 
-VARIANTS = ("plain", "no first input grad", "fused ReLU", "pool before ReLU", "all")
+#: "plain again" is a second, identical plain network timed last: the control
+#: whose distance from 1.00 shows the noise floor of the comparison.
+VARIANTS = ("plain", "no first input grad", "fused ReLU", "pool before ReLU", "all",
+            "plain again")
 
 
 def build_variant(text: str, variant: str):
