@@ -89,3 +89,12 @@ def test_depthwise_uses_each_channel_moment():
     for ch in range(2):
         alone = feedback_round(w[:, :, ch].reshape(9, 1), scale[ch:ch + 1], h[ch])
         np.testing.assert_array_equal(q[:, :, ch].reshape(9, 1), alone)
+
+
+def test_degenerate_moments_fall_back_to_nearest():
+    """All-zero or non-finite input moments (a dead input) give plain rounding."""
+    rng = np.random.default_rng(11)
+    w = rng.normal(size=(9, 3))
+    scale = np.abs(w).max(axis=0) / 127
+    for h in (np.zeros((9, 9)), np.full((9, 9), np.nan)):
+        np.testing.assert_array_equal(feedback_round(w, scale, h), nearest(w, scale))

@@ -59,7 +59,12 @@ def feedback_round(w: np.ndarray, scale: np.ndarray, h: np.ndarray) -> np.ndarra
     m = w.shape[0]
     h = np.asarray(h, np.float64)
     damp = DAMPING * max(float(np.mean(np.diag(h))), 1e-12)
-    u = np.linalg.cholesky(np.linalg.inv(h + damp * np.eye(m))).T  # upper, U^T U = H^-1
+    try:
+        u = np.linalg.cholesky(np.linalg.inv(h + damp * np.eye(m))).T  # upper, U^T U = H^-1
+    except np.linalg.LinAlgError:  # moments too degenerate to use: plain rounding
+        return nearest(w, scale)
+    if not np.all(np.isfinite(u)):
+        return nearest(w, scale)
     w = np.array(w, np.float64)
     q = np.empty(w.shape, np.int8)
     for i in range(m):
