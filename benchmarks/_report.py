@@ -43,7 +43,10 @@ def _header(results: list[dict], started: dt.datetime, cpu: str, quick: bool,
              f"machine: {cpu}; Python {v['python']}, numpy {v['numpy']}, numba {v['numba']}, "
              f"torch {v['torch'] or 'not installed'}",
              f"BLAS: {blas.get('internal_api', '?')} {blas.get('version', '')}, kernel "
-             f"{'/'.join(kernels)}; {hints}",
+             f"{'/'.join(kernels)} (threadpoolctl); {hints}"
+             + (" (removed by --unset-openblas-hints)"
+                if any(r.get("hints_unset") for res in results for r in res["records"])
+                else " (as the machine sets them)"),
              f"protocol: warm-up, then the median of {_plan(results)} [min-max]; ours and "
              "peer interleaved A B A B in one process per thread count"]
     loads = [(r["meta"]["threads"], r["meta"].get("load_before"), r["meta"].get("load_after"))
