@@ -10,8 +10,14 @@ so a network built by :func:`build` follows the contract exactly):
 
 * ``input_grad`` (conv, dense): set False on a first layer to skip its input
   gradient; ``backward`` then returns None.
-* ``relu=True`` (conv, depthwise, dense constructors): ReLU fused into the
-  bias pass, for a network that merges a layer with the ReLU Op after it.
+* ``relu=True`` (conv, depthwise, dense constructors), or ``relu=True`` in
+  one call of their ``forward``: ReLU fused into the bias pass. The network
+  does the latter for a layer followed by a ReLU Op, and hands the output to
+  the ReLU layer's ``adopt`` (which keeps it as its mask), so both layers stay
+  as they are for any other caller.
+* ``masked=True`` (their ``backward``): the upstream gradient already carries
+  the fused ReLU's mask; ``relu_mask=True`` (max-pool ``backward``) applies the
+  mask of a ReLU just before the pool while routing the gradient.
 * ``hold_mask`` (dropout): reuse the last mask, for gradient checks.
 * ``kink_state()`` (ReLU, max pool, fused-ReLU layers): the sign mask or the
   max-pool winners of the last training forward, so the gradient checker can
