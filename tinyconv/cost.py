@@ -25,8 +25,9 @@ Counting rules (the contract in DEVELOPERS.md, "Cost"):
   flatten work in place and add nothing; the C kernels loop directly, so there
   are no scratch buffers; each op reads from one end of the arena and writes
   to the other, so the arena is exactly the peak. int8 bytes = elements;
-  float32 bytes = 4 x elements. The input quantisation reads the raw pixels
-  (one byte each) and writes the int8 input, so it counts ``2*h*w*c``.
+  float32 bytes = 4 x elements. The input quantisation reads the caller's raw
+  pixels (a buffer outside the arena, e.g. the camera's frame) and writes the
+  int8 input, so it counts ``h*w*c``.
 
 KB in this package means 1,024 bytes.
 """
@@ -210,11 +211,12 @@ def op_cost(op: Op, index: int, folded: bool = False) -> OpCost:
 
 
 def input_cost(arch: Arch) -> OpCost:
-    """The input quantisation: a ``256*c`` int8 table; raw pixels in, int8 out."""
+    """The input quantisation: a ``256*c`` int8 table; raw pixels in (the caller's
+    buffer), int8 out (the arena)."""
     shape = arch.input.shape
     n = prod(shape)
     return OpCost(-1, "input", "input", shape, shape, 0, 0, 0, n,
-                  INPUT_TABLE_ROWS * shape[2], 2 * n)
+                  INPUT_TABLE_ROWS * shape[2], n)
 
 
 def folded_flags(ops: tuple[Op, ...]) -> tuple[bool, ...]:
@@ -306,7 +308,7 @@ def totals_of(arch: Union[Arch, str], n_classes: int, cache: dict | None = None)
     cache = {} if cache is None else cache
     shape = arch.input.shape
     params, macs = 0, 0
-    flash, peak = INPUT_TABLE_ROWS * shape[2], 2 * shape[0] * shape[1] * shape[2]
+    flash, peak = INPUT_TABLE_ROWS * shape[2], shape[0] * shape[1] * shape[2]
     exportable = True
     layers = arch.layers
     prev = None

@@ -97,8 +97,8 @@ def arena_layout(qnet: QuantizedNetwork) -> tuple[int, list[tuple[int, int]]]:
     The input quantisation (step 0) reads the caller's image and writes at
     offset 0; step ``j`` reads where step ``j - 1`` wrote and writes at the
     other end. The size is the largest input + output of any step, with the
-    input quantisation counted as raw pixels + int8 pixels, as the cost model
-    counts it.
+    input quantisation counted as its int8 output only (the raw image stays in
+    the caller's buffer), as the cost model counts it.
 
     Returns
     -------
@@ -107,7 +107,7 @@ def arena_layout(qnet: QuantizedNetwork) -> tuple[int, list[tuple[int, int]]]:
     """
     n_in = prod(qnet.input_shape)
     sizes = [(prod(layer.op.in_shape), prod(layer.op.out_shape)) for layer in qnet.layers]
-    arena = max([2 * n_in] + [a + b for a, b in sizes])
+    arena = max([n_in] + [a + b for a, b in sizes])
     offsets = []
     at_start = True  # where the last written buffer sits
     src = 0
