@@ -134,3 +134,19 @@ def test_one_pass_optimiser_gives_the_numpy_formula_bits(kind):
             v += (1.0 - 0.999) * np.square(g)
             want -= (0.01 * c2 / (1.0 - 0.9 ** t)) * m / (np.sqrt(v) + 1e-8 * c2)
     np.testing.assert_array_equal(theta, want)
+
+
+@pytest.mark.parametrize("mask", [False, True])
+def test_unrolled_2x2_pool_matches_the_references(mask):
+    """The unrolled 2 x 2 max pool (even sizes) gives the loop reference's output, winners and gradient."""
+    rng = np.random.default_rng(11)
+    x = reference.relu(rng.standard_normal((2, 6, 8, 5)))  # exact zeros make ties
+    y, arg = maxpool_forward(x, 2)
+    ry, rarg = reference.maxpool_forward(x, 2)
+    np.testing.assert_array_equal(y, ry)
+    np.testing.assert_array_equal(arg, rarg)
+    g = rng.standard_normal(y.shape)
+    want = reference.maxpool_backward(g, x, 2)
+    if mask:
+        want = reference.relu_backward(want, x)
+    np.testing.assert_array_equal(maxpool_backward(g, arg, 2, x.shape, y if mask else None), want)

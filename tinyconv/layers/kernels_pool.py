@@ -53,7 +53,10 @@ def maxpool_backward(grad_out: np.ndarray, arg: np.ndarray, s: int,
     """
     gx = np.empty(x_shape, dtype=grad_out.dtype)
     g = np.ascontiguousarray(grad_out)
-    if y is None:
+    n, h, w, c = x_shape
+    if s == 2 and h == 2 * g.shape[1] and w == 2 * g.shape[2]:
+        _maxpool2_backward(g, arg, g if y is None else y, y is not None, gx)
+    elif y is None:
         _maxpool_backward_kernel(g, arg, s, gx)
     else:
         _maxpool_backward_kernel(np.where(y > 0, g, g.dtype.type(0)), arg, s, gx)
@@ -111,44 +114,44 @@ def _maxpool2_forward(x, y, arg):
     n, oh, ow, c = y.shape
     for b in range(n):
         for oy in range(oh):
-            r0, r1 = x[b, 2 * oy], x[b, 2 * oy + 1]  # (w, c)
-            yr, ar = y[b, oy], arg[b, oy]
             for ox in range(ow):
-                p00, p01, p10, p11 = r0[2 * ox], r0[2 * ox + 1], r1[2 * ox], r1[2 * ox + 1]
                 for ch in range(c):
-                    m, at = p00[ch], 0
-                    v = p01[ch]
+                    m, at = x[b, 2 * oy, 2 * ox, ch], 0
+                    v = x[b, 2 * oy, 2 * ox + 1, ch]
                     if v > m or v != v:
                         m, at = v, 1
-                    v = p10[ch]
+                    v = x[b, 2 * oy + 1, 2 * ox, ch]
                     if v > m or v != v:
                         m, at = v, 2
-                    v = p11[ch]
+                    v = x[b, 2 * oy + 1, 2 * ox + 1, ch]
                     if v > m or v != v:
                         m, at = v, 3
-                    yr[ox, ch] = m
-                    ar[ox, ch] = at
+                    y[b, oy, ox, ch] = m
+                    arg[b, oy, ox, ch] = at
+
+
+@njit(cache=True)
+def _maxpool2_backward(g, arg, y, masked, gx):
+    """The 2 x 2 case (even sizes): four writes per output; ``masked`` drops windows with ``y <= 0``."""
+    n, oh, ow, c = g.shape
+    for b in range(n):
+        for oy in range(oh):
+            for ox in range(ow):
+                for ch in range(c):
+                    v = g[b, oy, ox, ch]
+                    if masked and not y[b, oy, ox, ch] > 0:
+                        v = 0.0
+                    at = arg[b, oy, ox, ch]
+                    gx[b, 2 * oy, 2 * ox, ch] = v if at == 0 else 0.0
+                    gx[b, 2 * oy, 2 * ox + 1, ch] = v if at == 1 else 0.0
+                    gx[b, 2 * oy + 1, 2 * ox, ch] = v if at == 2 else 0.0
+                    gx[b, 2 * oy + 1, 2 * ox + 1, ch] = v if at == 3 else 0.0
 
 
 @njit(cache=True)
 def _maxpool_backward_kernel(g, arg, s, gx):
     n, oh, ow, c = g.shape
     h, w = gx.shape[1], gx.shape[2]
-    if s == 2 and h == 2 * oh and w == 2 * ow:
-        for b in range(n):
-            for oy in range(oh):
-                r0, r1 = gx[b, 2 * oy], gx[b, 2 * oy + 1]
-                gr, ar = g[b, oy], arg[b, oy]
-                for ox in range(ow):
-                    p00, p01 = r0[2 * ox], r0[2 * ox + 1]
-                    p10, p11 = r1[2 * ox], r1[2 * ox + 1]
-                    for ch in range(c):
-                        v, at = gr[ox, ch], ar[ox, ch]
-                        p00[ch] = v if at == 0 else 0.0
-                        p01[ch] = v if at == 1 else 0.0
-                        p10[ch] = v if at == 2 else 0.0
-                        p11[ch] = v if at == 3 else 0.0
-        return
     for b in range(n):
         for oy in range(oh):
             for ox in range(ow):
