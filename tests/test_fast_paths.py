@@ -150,3 +150,12 @@ def test_unrolled_2x2_pool_matches_the_references(mask):
     if mask:
         want = reference.relu_backward(want, x)
     np.testing.assert_array_equal(maxpool_backward(g, arg, 2, x.shape, y if mask else None), want)
+
+
+@pytest.mark.parametrize("c, k, s", [(2, 3, 1), (3, 3, 2), (12, 3, 1), (5, 7, 2)])
+def test_im2col_both_loop_orders_match_the_reference(c, k, s):
+    """im2col equals the loop reference for short (<= 32) and long kernel-row runs."""
+    from tinyconv.layers import kernels_conv as kc
+
+    xp = randn((2, 9, 10, c), c + k)
+    np.testing.assert_array_equal(kc.im2col(xp, k, k, s), reference.im2col(xp, k, k, s))
