@@ -2,7 +2,7 @@
 
 Usage::
 
-    python benchmarks/search.py              # demo-sized data, both parts
+    python benchmarks/search.py              # the full demo's settings, both parts
     python benchmarks/search.py --quick      # small data and few candidates (smoke run)
     python benchmarks/search.py --part sh    # only successive halving vs --full
 
@@ -40,8 +40,9 @@ sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != _HERE]
 
 def _run(out: Path, workers: int, **change):
     from search.session import SearchRequest, run_search
+    from tinyconv.commands.demo import TRAINING
     settings = dict(space="builtin:demo", folds=3, seed=0, eta=3, workers=workers,
-                    training={"batch_size": 32, "lr": 0.01})
+                    training=dict(TRAINING))
     settings.update(change)
     start = time.perf_counter()
     summary = run_search(SearchRequest(out=out, **settings))
@@ -66,14 +67,14 @@ def throughput(root: Path, data: str, sample: int, epochs: int) -> None:
           f"{tables[1] == tables[2]}")
 
 
-def halving_vs_full(root: Path, data: str, epochs: int, sample: int | None,
+def halving_vs_full(root: Path, data: str, epochs: int, min_epochs: int, sample: int | None,
                     workers: int) -> None:
-    print(f"\nsuccessive halving vs --full: {data}, R = {epochs} epochs, eta = 3, 3 folds, "
-          f"{'all' if sample is None else sample} candidates, {workers} workers")
-    sh, sh_wall = _run(root / "halving", workers, data=data, max_epochs=epochs,
-                       max_candidates=sample)
-    full, full_wall = _run(root / "full", workers, data=data, max_epochs=epochs,
-                           max_candidates=sample, full=True)
+    print(f"\nsuccessive halving vs --full: {data}, R = {epochs} epochs (rungs from "
+          f"{min_epochs}), eta = 3, 3 folds, {'all' if sample is None else sample} "
+          f"candidates, {workers} workers")
+    common = dict(data=data, max_epochs=epochs, min_epochs=min_epochs, max_candidates=sample)
+    sh, sh_wall = _run(root / "halving", workers, **common)
+    full, full_wall = _run(root / "full", workers, full=True, **common)
     print(f"{'run':>8}  {'units':>5}  {'epochs':>6}  {'CPU s':>8}  {'wall s':>7}")
     for name, s, wall in (("halving", sh, sh_wall), ("full", full, full_wall)):
         print(f"{name:>8}  {s.outcome.units_run:>5}  {s.outcome.epochs:>6}  "
@@ -102,15 +103,18 @@ def main(argv=None) -> int:
     parser.add_argument("--candidates", type=int, default=None, metavar="N",
                         help="sample N candidates of the space for part 2 (default: all)")
     parser.add_argument("--epochs", type=int, default=None, metavar="R",
-                        help="final epochs R for part 2 (default 27, quick 3)")
+                        help="final epochs R for part 2 (default: the demo's)")
+    parser.add_argument("--min-epochs", type=int, default=None, metavar="N",
+                        help="shortest rung for part 2 (default: the demo's)")
     args = parser.parse_args(argv)
-    if args.quick:
-        data, sample, epochs, t_sample, t_epochs = ("builtin:tiles?n=20&size=32", 6, 3, 4, 2)
-    else:
-        data, sample, epochs, t_sample, t_epochs = ("builtin:tiles?n=80&size=32", None, 27,
-                                                    12, 3)
+    from tinyconv.commands.demo import FULL, QUICK
+    demo = QUICK if args.quick else FULL
+    data, sample, epochs, min_epochs = (demo["data"], demo["max_candidates"],
+                                        demo["max_epochs"], demo["min_epochs"])
+    t_sample, t_epochs = (4, 2) if args.quick else (12, 3)
     sample = args.candidates if args.candidates is not None else sample
     epochs = args.epochs if args.epochs is not None else epochs
+    min_epochs = args.min_epochs if args.min_epochs is not None else min_epochs
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
     print(f"machine: {os.cpu_count()} cores, load average {load:.1f} at the start "
           "(wall-clock figures mean little when it exceeds the core count)")
@@ -123,7 +127,7 @@ def main(argv=None) -> int:
         if args.part in ("all", "throughput"):
             throughput(root, data, t_sample, t_epochs)
         if args.part in ("all", "sh"):
-            halving_vs_full(root, data, epochs, sample, workers=2)
+            halving_vs_full(root, data, epochs, min_epochs, sample, workers=2)
     finally:
         if not args.keep:
             shutil.rmtree(root, ignore_errors=True)

@@ -83,6 +83,8 @@ class SearchSettings:
         Halving rate (>= 2).
     max_epochs : int
         ``R``: epochs of the final rung (>= 1).
+    min_epochs : int
+        The fewest epochs of any rung (1 .. max_epochs).
     full : bool
         Train every surviving candidate for ``max_epochs`` on every fold.
     max_candidates : int or None
@@ -109,6 +111,7 @@ class SearchSettings:
     eta: int = 3
     max_epochs: int = 9
     full: bool = False
+    min_epochs: int = 1
     max_candidates: int | None = None
     budget: dict = field(default_factory=dict)
     budget_cpu_s: float | None = None
@@ -119,6 +122,10 @@ class SearchSettings:
         _positive_int("folds", self.folds, 2, "--folds")
         _positive_int("eta", self.eta, 2, "--eta")
         _positive_int("max epochs", self.max_epochs, 1, "--max-epochs")
+        _positive_int("min epochs", self.min_epochs, 1, "--min-epochs")
+        if self.min_epochs > self.max_epochs:
+            raise InputError(f"min epochs {self.min_epochs} is more than max epochs "
+                             f"{self.max_epochs}; lower --min-epochs or raise --max-epochs")
         if not isinstance(self.seed, int) or isinstance(self.seed, bool):
             raise InputError(f"seed must be an integer, got {self.seed!r}")
         if self.max_candidates is not None:

@@ -79,12 +79,13 @@ class _BudgetStop(Exception):
 
 
 def plan_brackets(candidates: Sequence[str], max_epochs: int, eta: int, full: bool,
-                  seed: int) -> list[tuple[schedule.Bracket, tuple[str, ...]]]:
+                  seed: int, min_epochs: int = 1
+                  ) -> list[tuple[schedule.Bracket, tuple[str, ...]]]:
     """The brackets and the candidates each starts with."""
     if full:
-        (bracket,) = schedule.full_plan(max_epochs, len(candidates), eta)
+        (bracket,) = schedule.full_plan(max_epochs, len(candidates), eta, min_epochs)
         return [(bracket, tuple(sorted(candidates)))]
-    return schedule.assign(candidates, schedule.hyperband(max_epochs, eta), seed)
+    return schedule.assign(candidates, schedule.hyperband(max_epochs, eta, min_epochs), seed)
 
 
 def plan_size(plan, folds: int) -> int:
@@ -128,7 +129,8 @@ class SearchLoop:
 
     def run(self) -> Outcome:
         plan = plan_brackets(self.candidates, int(self.s["max_epochs"]), int(self.s["eta"]),
-                             bool(self.s["full"]), int(self.s["seed"]))
+                             bool(self.s["full"]), int(self.s["seed"]),
+                             int(self.s.get("min_epochs", 1)))
         self.progress.start(plan_size(plan, self.k), len(self.finished), self.cpu_s,
                             self.epochs)
         try:

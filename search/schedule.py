@@ -13,6 +13,10 @@ JMLR 18(185), 2018). With ``R`` the most epochs any unit trains for:
   epochs; its rung ``i`` keeps ``n_i = floor(n / eta**i)`` candidates at
   ``r_i = r * eta**i`` epochs.
 
+A rung shorter than ``min_epochs`` can be asked to be left out: the ladder
+then starts at ``min_epochs`` or above (fewer levels, fewer brackets), for
+data on which a few epochs say nothing yet about the final ranking.
+
 Here the epochs of every bracket come from one *ladder* of levels,
 ``epochs[j] = R // eta**(s_max - j)`` for ``j = 0..s_max`` (exactly
 ``R / eta**(s_max - j)`` when ``R`` is a power of ``eta``), so bracket ``s``
@@ -79,33 +83,41 @@ def _check(max_epochs: int, eta: int) -> None:
             raise ValueError(f"{name} must be at least {low}, got {value}")
 
 
-def max_bracket(max_epochs: int, eta: int) -> int:
-    """``s_max = floor(log_eta(max_epochs))`` by an integer loop.
+def max_bracket(max_epochs: int, eta: int, min_epochs: int = 1) -> int:
+    """``s_max``: the largest ``s`` with ``min_epochs * eta**s <= max_epochs``.
 
-    >>> max_bracket(81, 3), max_bracket(80, 3), max_bracket(243, 3)
-    (4, 3, 5)
+    With ``min_epochs = 1`` this is ``floor(log_eta(max_epochs))``, by an
+    integer loop.
+
+    >>> max_bracket(81, 3), max_bracket(80, 3), max_bracket(243, 3), max_bracket(27, 3, 9)
+    (4, 3, 5, 1)
     """
     _check(max_epochs, eta)
+    if isinstance(min_epochs, bool) or not isinstance(min_epochs, (int, np.integer)) \
+            or not 1 <= min_epochs <= max_epochs:
+        raise ValueError(f"min_epochs must be an integer from 1 to max_epochs "
+                         f"({max_epochs}), got {min_epochs!r}")
     s, power = 0, eta
-    while power <= max_epochs:
+    while power * min_epochs <= max_epochs:
         s += 1
         power *= eta
     return s
 
 
-def ladder(max_epochs: int, eta: int) -> tuple[int, ...]:
+def ladder(max_epochs: int, eta: int, min_epochs: int = 1) -> tuple[int, ...]:
     """Epochs per level: ``max_epochs // eta**(s_max - j)``, ``j = 0..s_max``.
 
-    The entries strictly increase and the last is ``max_epochs``.
+    The entries strictly increase, none is below ``min_epochs``, and the last
+    is ``max_epochs``.
 
-    >>> ladder(81, 3), ladder(20, 3)
-    ((1, 3, 9, 27, 81), (2, 6, 20))
+    >>> ladder(81, 3), ladder(20, 3), ladder(27, 3, min_epochs=9)
+    ((1, 3, 9, 27, 81), (2, 6, 20), (9, 27))
     """
-    s_max = max_bracket(max_epochs, eta)
+    s_max = max_bracket(max_epochs, eta, min_epochs)
     return tuple(max_epochs // eta ** (s_max - j) for j in range(s_max + 1))
 
 
-def hyperband(max_epochs: int, eta: int = 3) -> tuple[Bracket, ...]:
+def hyperband(max_epochs: int, eta: int = 3, min_epochs: int = 1) -> tuple[Bracket, ...]:
     """The textbook brackets, most aggressive first (``s = s_max, ..., 0``).
 
     Parameters
@@ -114,6 +126,9 @@ def hyperband(max_epochs: int, eta: int = 3) -> tuple[Bracket, ...]:
         ``R``, the most epochs one unit trains for (>= 1).
     eta : int
         The halving rate (>= 2): each rung keeps ``1/eta`` of the previous one.
+    min_epochs : int
+        The fewest epochs of any rung: where held-out accuracy starts to say
+        something about the final ranking (1 gives the textbook brackets).
 
     Returns
     -------
@@ -121,7 +136,7 @@ def hyperband(max_epochs: int, eta: int = 3) -> tuple[Bracket, ...]:
         Rung sizes ``n_i = floor(n / eta**i)`` with
         ``n = ceil((s_max + 1) eta**s / (s + 1))`` (Li et al. 2018, Algorithm 1).
     """
-    epochs = ladder(max_epochs, eta)
+    epochs = ladder(max_epochs, eta, min_epochs)
     s_max = len(epochs) - 1
     brackets = []
     for s in range(s_max, -1, -1):
@@ -132,14 +147,15 @@ def hyperband(max_epochs: int, eta: int = 3) -> tuple[Bracket, ...]:
     return tuple(brackets)
 
 
-def full_plan(max_epochs: int, n_candidates: int, eta: int = 3) -> tuple[Bracket, ...]:
+def full_plan(max_epochs: int, n_candidates: int, eta: int = 3,
+              min_epochs: int = 1) -> tuple[Bracket, ...]:
     """One bracket of one rung: every candidate at ``max_epochs`` (``--full``).
 
     The rung sits at the top level of the ladder, so its units are the same
     (same seeds) as the final rung of a successive-halving run with the same
-    ``max_epochs`` and ``eta``.
+    ``max_epochs``, ``eta`` and ``min_epochs``.
     """
-    s_max = max_bracket(max_epochs, eta)
+    s_max = max_bracket(max_epochs, eta, min_epochs)
     if n_candidates < 1:
         raise ValueError(f"n_candidates must be at least 1, got {n_candidates}")
     return (Bracket(0, (Rung(s_max, max_epochs, n_candidates),)),)

@@ -56,6 +56,7 @@ class SearchRequest:
     seed: int = 0
     eta: int = 3
     max_epochs: int = 9
+    min_epochs: int = 1
     full: bool = False
     max_candidates: int | None = None
     budgets: dict = field(default_factory=dict)
@@ -133,7 +134,7 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
         data=str(request.data), fingerprint=fingerprint(dataset), classes=tuple(dataset.classes),
         n_images=int(dataset.labels.size), space=space.text, space_source=str(space.source),
         folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
-        full=request.full, max_candidates=request.max_candidates,
+        min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
         budget={k: getattr(budget, k) for k in BUDGET_KEYS.values()},
         budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
         training=training)

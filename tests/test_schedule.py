@@ -142,3 +142,16 @@ def test_unit_seed_stable_across_processes():
     assert int(there) == here
     assert schedule.unit_seed(7, "8x8gray/c4k3", 2, 2) != here
     assert 0 <= here < 2 ** 32
+
+
+def test_min_epochs_drops_short_rungs():
+    """A shortest rung of 9 epochs leaves the ladder 9, 27 and two brackets for R = 27."""
+    # Hyperband with r_min = 9 and R = 27: the resource ratio R / r_min = 3, s_max = 1
+    # (Li et al. 2018, with resources counted in units of r_min).
+    assert schedule.ladder(27, 3, min_epochs=9) == (9, 27)
+    assert _table(schedule.hyperband(27, 3, min_epochs=9)) == {1: [(3, 9), (1, 27)],
+                                                                0: [(2, 27)]}
+    assert schedule.ladder(20, 3, min_epochs=5) == (6, 20)
+    assert min(schedule.ladder(100, 3, min_epochs=7)) >= 7
+    with pytest.raises(ValueError, match="min_epochs must be an integer from 1 to max_epochs"):
+        schedule.ladder(9, 3, min_epochs=10)

@@ -68,6 +68,7 @@ def test_other_settings_exit_2(space, tmp_path, capsys, monkeypatch):
     (["--folds", "1"], "folds must be an integer >= 2, got 1; set --folds"),
     (["--max-params", "3"], "budget"),
     (["--eta", "1"], "eta must be an integer >= 2"),
+    (["--min-epochs", "5"], "min epochs 5 is more than max epochs 3"),
 ])
 def test_bad_options_exit_2(space, tmp_path, capsys, extra, message):
     """Unusable options exit 2 with a message naming the value and the rule."""

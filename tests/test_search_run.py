@@ -174,3 +174,11 @@ def test_rank_by_accuracy(finished):
     run_search(request(out))
     table = rank_run(RunStore(out))
     assert list(table["rank_per_param"]) == list(range(1, len(table) + 1))
+
+
+def test_min_epochs_shapes_the_plan(tmp_path):
+    """With the shortest rung at R there is one level: every unit trains R epochs."""
+    run_search(request(tmp_path, max_epochs=3, min_epochs=3))
+    units = RunStore(tmp_path).units()
+    assert set(units["epochs"]) == {3} and set(units["rung"]) == {0}
+    assert RunStore(tmp_path).config()["min_epochs"] == 3

@@ -66,6 +66,9 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                    help="total training epochs summed over all units (default: no limit)")
     g.add_argument("--max-epochs", type=_positive_int, default=9, metavar="R",
                    help="epochs of the final rung (default 9)")
+    g.add_argument("--min-epochs", type=_positive_int, default=1, metavar="N",
+                   help="fewest epochs of any rung: leave out shorter rungs when a few "
+                        "epochs say nothing yet (default 1)")
     g.add_argument("--eta", type=int, default=3, help="halving rate: each rung keeps 1/eta "
                    "(default 3)")
     g.add_argument("--full", action="store_true",
@@ -120,7 +123,7 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
                                   ("weight_decay", args.weight_decay)) if v is not None}
     return SearchRequest(
         data=data, space=space, out=Path(out), folds=args.folds, seed=args.seed, eta=args.eta,
-        max_epochs=args.max_epochs, full=args.full, max_candidates=args.max_candidates,
+        max_epochs=args.max_epochs, min_epochs=args.min_epochs, full=args.full, max_candidates=args.max_candidates,
         budgets={"max_params": args.max_params, "max_macs": args.max_macs,
                  "max_ram_kb": args.max_ram_kb, "max_flash_kb": args.max_flash_kb},
         budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
