@@ -38,11 +38,14 @@ _HERE = Path(__file__).resolve().parent
 sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != _HERE]
 
 
+LR: list[float] = []   # --lr, when given
+
+
 def _run(out: Path, workers: int, **change):
     from search.session import SearchRequest, run_search
     from tinyconv.commands.demo import TRAINING
     settings = dict(space="builtin:demo", folds=3, seed=0, eta=3, workers=workers,
-                    training=dict(TRAINING))
+                    training={**TRAINING, **({"lr": LR[0]} if LR else {})})
     settings.update(change)
     start = time.perf_counter()
     summary = run_search(SearchRequest(out=out, **settings))
@@ -106,7 +109,11 @@ def main(argv=None) -> int:
                         help="final epochs R for part 2 (default: the demo's)")
     parser.add_argument("--min-epochs", type=int, default=None, metavar="N",
                         help="shortest rung for part 2 (default: the demo's)")
+    parser.add_argument("--lr", type=float, default=None,
+                        help="learning rate of every unit (default: the demo's)")
     args = parser.parse_args(argv)
+    if args.lr is not None:
+        LR.append(args.lr)
     from tinyconv.commands.demo import FULL, QUICK
     demo = QUICK if args.quick else FULL
     data, sample, epochs, min_epochs = (demo["data"], demo["max_candidates"],
