@@ -45,3 +45,21 @@ def distinct(shape: tuple[int, ...], seed: int = 0, gap: float = 1e-2) -> np.nda
     size = int(np.prod(shape))
     values = (np.arange(size) - size / 2 + 0.5) * gap
     return np.random.default_rng(seed).permutation(values).reshape(shape)
+
+
+# A tiny search for the search tests: 6 tile images per class at 8x8 and six
+# candidates (8x8gray, 8x8gray/d8, c2k3-p2, c2k3-p2-d8, c4k3-p2, c4k3-p2-d8).
+TINY_DATA = "builtin:tiles?n=6&size=8&seed=1"
+TINY_SPACE = """
+[input]
+sizes = [8]
+modes = ["gray"]
+
+[stages]
+count = [0, 1]
+filters = [2, 4]
+
+[head]
+kind = ["flatten"]
+hidden = [0, 8]
+"""

@@ -5,22 +5,10 @@ from __future__ import annotations
 import pandas as pd
 import pytest
 
+from helpers import TINY_DATA, TINY_SPACE
 from tinyconv.cli import main
 
-DATA = "builtin:tiles?n=6&size=8&seed=1"
-SPACE = """
-[input]
-sizes = [8]
-modes = ["gray"]
-
-[stages]
-count = [0, 1]
-filters = [2, 4]
-
-[head]
-kind = ["flatten"]
-hidden = [0, 8]
-"""
+DATA, SPACE = TINY_DATA, TINY_SPACE
 
 
 def _args(space, out, *extra):

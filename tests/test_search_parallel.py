@@ -13,26 +13,14 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from helpers import TINY_DATA, TINY_SPACE
 from search.session import SearchRequest, run_search
 from search.store import RunStore
 from search.unit import run_unit
 
 pytestmark = pytest.mark.slow
 
-DATA = "builtin:tiles?n=6&size=8&seed=1"
-SPACE = """
-[input]
-sizes = [8]
-modes = ["gray"]
-
-[stages]
-count = [0, 1]
-filters = [2, 4]
-
-[head]
-kind = ["flatten"]
-hidden = [0, 8]
-"""
+DATA, SPACE = TINY_DATA, TINY_SPACE
 CRASHING = "8x8gray/c2k3-p2"
 
 

@@ -9,26 +9,13 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from helpers import TINY_DATA, TINY_SPACE
 from search.session import SearchRequest, run_search
 from search.store import RunStore
 from search.unit import run_unit
 from tinyconv.errors import BudgetError, RunError
 
-DATA = "builtin:tiles?n=6&size=8&seed=1"
-# Six candidates: 8x8gray, 8x8gray/d8, c2k3-p2, c2k3-p2-d8, c4k3-p2, c4k3-p2-d8.
-SPACE = """
-[input]
-sizes = [8]
-modes = ["gray"]
-
-[stages]
-count = [0, 1]
-filters = [2, 4]
-
-[head]
-kind = ["flatten"]
-hidden = [0, 8]
-"""
+DATA, SPACE = TINY_DATA, TINY_SPACE
 DIVERGING = "8x8gray/c4k3-p2"
 
 

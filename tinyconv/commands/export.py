@@ -18,17 +18,9 @@ from typing import Callable
 
 import numpy as np
 
+from tinyconv.commands._args import positive_int
+
 PICKS = ("one-se", "best")
-
-
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"{value} must be at least 1")
-    return value
 
 
 def configure(parser: argparse.ArgumentParser) -> None:
@@ -39,9 +31,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                              "best mean accuracy, or a candidate's architecture text")
     parser.add_argument("--out", default=None, metavar="DIR2",
                         help="folder for the files (default DIR/export)")
-    parser.add_argument("--epochs", type=_positive_int, default=None, metavar="N",
+    parser.add_argument("--epochs", type=positive_int, default=None, metavar="N",
                         help="training epochs (default: those of the candidate's final rung)")
-    parser.add_argument("--calib", type=_positive_int, default=256, metavar="N",
+    parser.add_argument("--calib", type=positive_int, default=256, metavar="N",
                         help="calibration images for the int8 ranges (default 256)")
     parser.add_argument("--prefix", default="tc", metavar="ID",
                         help="prefix of the C symbols and file names (default tc)")

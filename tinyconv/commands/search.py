@@ -16,6 +16,7 @@ from pathlib import Path
 
 from search.config import format_duration, parse_duration
 from search.runner import Progress
+from tinyconv.commands._args import count, positive_float, positive_int
 
 DATA_HELP = ("a folder with one sub-folder per class, a .npz file (x, y), "
              "builtin:tiles[?n=100&size=32&seed=0] or builtin:digits")
@@ -25,36 +26,6 @@ STATE_TEXT = {"complete": "the whole plan ran",
               "interrupted": "interrupted"}
 
 
-def _positive_int(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if value < 1:
-        raise argparse.ArgumentTypeError(f"{value} must be at least 1")
-    return value
-
-
-def _count(text: str) -> int:
-    try:
-        value = int(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a whole number") from None
-    if value < 0:
-        raise argparse.ArgumentTypeError(f"{value} must be 0 or more")
-    return value
-
-
-def _positive_float(text: str) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise argparse.ArgumentTypeError(f"{text!r} is not a number") from None
-    if not value > 0:
-        raise argparse.ArgumentTypeError(f"{value} must be more than 0")
-    return value
-
-
 def add_search_options(parser: argparse.ArgumentParser) -> None:
     """Options shared by ``search`` (and read by ``demo``)."""
     g = parser.add_argument_group("cross-validation and schedule")
@@ -62,46 +33,46 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                    help="stratified folds (default 3)")
     g.add_argument("--budget-cpu", default=None, metavar="T",
                    help="total CPU time for training, e.g. 90s, 20m, 1h (default: no limit)")
-    g.add_argument("--budget-epochs", type=_positive_int, default=None, metavar="N",
+    g.add_argument("--budget-epochs", type=positive_int, default=None, metavar="N",
                    help="total training epochs summed over all units (default: no limit)")
-    g.add_argument("--max-epochs", type=_positive_int, default=9, metavar="R",
+    g.add_argument("--max-epochs", type=positive_int, default=9, metavar="R",
                    help="epochs of the final rung (default 9)")
-    g.add_argument("--min-epochs", type=_positive_int, default=1, metavar="N",
+    g.add_argument("--min-epochs", type=positive_int, default=1, metavar="N",
                    help="fewest epochs of any rung: leave out shorter rungs when a few "
                         "epochs say nothing yet (default 1)")
     g.add_argument("--eta", type=int, default=3, help="halving rate: each rung keeps 1/eta "
                    "(default 3)")
     g.add_argument("--full", action="store_true",
                    help="no halving: every candidate trains R epochs on every fold")
-    g.add_argument("--max-candidates", type=_positive_int, default=None, metavar="N",
+    g.add_argument("--max-candidates", type=positive_int, default=None, metavar="N",
                    help="a seeded sample of N of the candidates within budget")
     g.add_argument("--seed", type=int, default=0, help="run seed (default 0)")
     g.add_argument("--rank-by", choices=("per-param", "accuracy"), default="per-param",
                    help="order of the ranking: accuracy over chance per 1,000 parameters "
                         "(default) or mean held-out accuracy")
     b = parser.add_argument_group("device budgets (override the space file's)")
-    b.add_argument("--max-params", type=_positive_int, default=None, metavar="N")
-    b.add_argument("--max-macs", type=_positive_int, default=None, metavar="N",
+    b.add_argument("--max-params", type=positive_int, default=None, metavar="N")
+    b.add_argument("--max-macs", type=positive_int, default=None, metavar="N",
                    help="multiply-accumulates per image")
-    b.add_argument("--max-ram-kb", type=_positive_float, default=None, metavar="KB",
+    b.add_argument("--max-ram-kb", type=positive_float, default=None, metavar="KB",
                    help="int8 peak activation memory (KB = 1,024 bytes)")
-    b.add_argument("--max-flash-kb", type=_positive_float, default=None, metavar="KB",
+    b.add_argument("--max-flash-kb", type=positive_float, default=None, metavar="KB",
                    help="int8 weights, tables and per-channel constants")
     t = parser.add_argument_group("training of every unit")
-    t.add_argument("--lr", type=_positive_float, default=None,
+    t.add_argument("--lr", type=positive_float, default=None,
                    help="learning rate (default 0.003)")
-    t.add_argument("--batch-size", type=_positive_int, default=None, metavar="N",
+    t.add_argument("--batch-size", type=positive_int, default=None, metavar="N",
                    help="images per mini-batch (default 32)")
     t.add_argument("--optimizer", choices=("adam", "sgd"), default=None,
                    help="optimiser (default adam)")
     t.add_argument("--weight-decay", type=float, default=None, metavar="W",
                    help="decoupled weight decay (default 0)")
     x = parser.add_argument_group("where units run")
-    x.add_argument("--workers", type=_count, default=None, metavar="N",
+    x.add_argument("--workers", type=count, default=None, metavar="N",
                    help="local worker processes (default: the number of cores; 0 runs "
                         "the units in this process)")
     x.add_argument("--cluster", default=None, metavar="ADDR",
-                   help="a Dask scheduler, e.g. tcp://10.0.0.5:8786, instead of local "
+                   help="a Dask scheduler, e.g. tcp://HOST:8786, instead of local "
                         "processes (needs the 'cluster' extra)")
 
 
