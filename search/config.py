@@ -25,7 +25,7 @@ RANK_ORDERS = ("per_param", "accuracy")
 EXTENDABLE = ("budget_cpu_s", "budget_epochs")
 # Keys kept for the record but not compared (the data is compared by fingerprint,
 # the space by its text).
-RECORD_ONLY = ("data", "space_source")
+RECORD_ONLY = ("data", "space_source", "skip_bad")
 
 _DURATION = re.compile(r"(?:(\d+(?:\.\d+)?)h)?(?:(\d+(?:\.\d+)?)m)?(?:(\d+(?:\.\d+)?)s?)?")
 
@@ -98,6 +98,9 @@ class SearchSettings:
         Total training epochs (summed over units, as planned).
     training : dict
         ``TrainConfig`` fields other than ``epochs`` and ``seed``.
+    skip_bad : bool
+        Unreadable images were skipped when the data was read (the report and
+        the export read it the same way).
     """
 
     data: str
@@ -117,6 +120,7 @@ class SearchSettings:
     budget_cpu_s: float | None = None
     budget_epochs: int | None = None
     training: dict = field(default_factory=dict)
+    skip_bad: bool = False
 
     def __post_init__(self) -> None:
         _positive_int("folds", self.folds, 2, "--folds")

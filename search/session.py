@@ -66,6 +66,7 @@ class SearchRequest:
     workers: int | None = None
     cluster: object | None = None
     rank_by: str = "per_param"
+    skip_bad: bool = False
 
 
 @dataclass
@@ -119,7 +120,7 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
 
     if request.rank_by not in RANK_ORDERS:
         raise ValueError(f"rank by {request.rank_by!r}: expected one of {RANK_ORDERS}")
-    dataset = load_data(request.data)
+    dataset = load_data(request.data, skip_bad=request.skip_bad)
     space = load_space(request.space)
     budget = _budget(space, request)
     n_classes = len(dataset.classes)
@@ -131,13 +132,13 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
     texts = [str(a) for a in pool]
     training = {**DEFAULT_TRAINING, **request.training}
     settings = SearchSettings(
-        data=str(request.data), fingerprint=fingerprint(dataset), classes=tuple(dataset.classes),
+        data=_data_spec(request.data), fingerprint=fingerprint(dataset), classes=tuple(dataset.classes),
         n_images=int(dataset.labels.size), space=space.text, space_source=str(space.source),
         folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
         min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
         budget={k: getattr(budget, k) for k in BUDGET_KEYS.values()},
         budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
-        training=training)
+        training=training, skip_bad=request.skip_bad)
     _check_training(training)
     folds = assign_folds(dataset.labels, request.folds, derive_seed(request.seed, "folds"),
                          classes=dataset.classes)
@@ -175,3 +176,12 @@ def _executor(request: SearchRequest, data: UnitData, work):
     if workers == 0:
         return InlineWorkers(data, work)
     return LocalWorkers(request.out, workers, work)
+
+
+def _data_spec(data: str) -> str:
+    """The data spec as stored: a path made absolute, so that the report and the
+    export can read it again from any working folder; built-in specs as given."""
+    text = str(data)
+    if text.startswith("builtin:"):
+        return text
+    return str(Path(text).expanduser().resolve())

@@ -68,3 +68,37 @@ def test_missing_space_file_exit_2(tmp_path, capsys):
     """A space file that does not exist exits 2 naming the path."""
     assert main(_args(tmp_path / "nope.toml", tmp_path / "run")) == 2
     assert "nope.toml" in capsys.readouterr().err
+
+
+def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monkeypatch):
+    """A folder with a corrupt image exits 2 naming it; --skip-bad searches without it."""
+    import json
+
+    from PIL import Image
+
+    import tinyconv.commands.search as cmd
+    from search.store import RunStore
+    from tinyconv.data import DataWarning, load_data
+    monkeypatch.setattr(cmd, "write_report_if_available", lambda d: ("missing", "skipped"))
+    tiles = load_data(DATA)
+    folder = tmp_path / "photos"
+    for i, (image, label) in enumerate(zip(tiles.images, tiles.labels)):
+        (folder / tiles.classes[label]).mkdir(parents=True, exist_ok=True)
+        Image.fromarray(image).save(folder / tiles.classes[label] / f"{i}.png")
+    broken = folder / tiles.classes[0] / "broken.jpg"
+    broken.write_bytes(b"\xff\xd8\xff\xe0 not a picture")
+    space = tmp_path / "space.toml"
+    space.write_text('[input]\nspecs = ["8x8rgb"]\n')
+    args = ["search", str(folder), "--space", str(space), "--max-epochs", "1",
+            "--workers", "0", "--batch-size", "16"]
+    monkeypatch.chdir(tmp_path)
+    assert main(args + ["--out", "first"]) == 2
+    err = capsys.readouterr().err
+    assert "1 unreadable image file" in err and str(broken) in err and "--skip-bad" in err
+    with pytest.warns(DataWarning, match="skipped 1 unreadable image file"):
+        assert main(args + ["--out", "second", "--skip-bad"]) == 0
+    with RunStore(tmp_path / "second") as store:
+        config = store.config()
+    assert config["skip_bad"] is True and config["n_images"] == tiles.labels.size
+    # Stored absolute, so the report and the export can read it from anywhere.
+    assert config["data"] == str(folder.resolve()), json.dumps(config["data"])

@@ -143,7 +143,7 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
     candidate = str(row["candidate"])
     epochs = int(epochs if epochs is not None else row["epochs"])
 
-    data = load_data(cfg["data"])
+    data = load_data(cfg["data"], skip_bad=bool(cfg.get("skip_bad", False)))
     if fingerprint(data) != cfg["fingerprint"]:
         raise RunError(f"the data {cfg['data']!r} changed since the search in {run_dir} "
                        f"(fingerprint {fingerprint(data)} instead of {cfg['fingerprint']}); "

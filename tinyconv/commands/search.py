@@ -83,6 +83,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="search-space file (TOML), or builtin:demo")
     parser.add_argument("--out", required=True, metavar="DIR",
                         help="run folder: created, or resumed when it holds this search")
+    parser.add_argument("--skip-bad", action="store_true",
+                        help="leave out unreadable images (they are counted) instead of "
+                             "stopping with the list of them")
     add_search_options(parser)
 
 
@@ -99,7 +102,8 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
                  "max_ram_kb": args.max_ram_kb, "max_flash_kb": args.max_flash_kb},
         budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
         budget_epochs=args.budget_epochs, training=training, workers=args.workers,
-        cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"))
+        cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"),
+        skip_bad=bool(getattr(args, "skip_bad", False)))
 
 
 class BarProgress(Progress):

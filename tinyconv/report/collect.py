@@ -6,6 +6,8 @@ ranking (``search``); everything after it works on plain values.
 
 from __future__ import annotations
 
+import warnings
+
 from pathlib import Path
 
 import numpy as np
@@ -90,7 +92,9 @@ def _images(config: dict, predictions: PickPredictions | None, run_dir: Path
         problem = "the run's settings name no data set"
     else:
         try:
-            data = load_data(spec)
+            with warnings.catch_warnings():  # the search reported them already
+                warnings.simplefilter("ignore")
+                data = load_data(spec, skip_bad=bool(config.get("skip_bad", False)))
         except (ValueError, OSError) as exc:
             problem = f"the data set {spec!r} could not be reloaded ({exc})"
         else:
