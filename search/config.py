@@ -98,6 +98,9 @@ class SearchSettings:
         Total training epochs (summed over units, as planned).
     training : dict
         ``TrainConfig`` fields other than ``epochs`` and ``seed``.
+    int8 : bool
+        Units of the last rung also report the held-out accuracy of their int8
+        quantised form.
     skip_bad : bool
         Unreadable images were skipped when the data was read (the report and
         the export read it the same way).
@@ -120,6 +123,7 @@ class SearchSettings:
     budget_cpu_s: float | None = None
     budget_epochs: int | None = None
     training: dict = field(default_factory=dict)
+    int8: bool = False
     skip_bad: bool = False
 
     def __post_init__(self) -> None:

@@ -17,7 +17,10 @@ fold. The statistics (all over the ``k`` folds of that rung):
   fewer parameters) or (higher accuracy, fewer MACs);
 * ``within_1se``: mean within one standard error of the best;
   ``pick``: the fewest parameters among those (the one-standard-error rule,
-  Breiman et al., CART, 1984; Hastie, Tibshirani & Friedman, ESL §7.10).
+  Breiman et al., CART, 1984; Hastie, Tibshirani & Friedman, ESL §7.10);
+* ``int8_acc_mean`` / ``int8_drop``: with ``search --int8``, the mean held-out
+  accuracy of the int8 quantised networks of the last rung and what
+  quantisation cost (``acc_mean - int8_acc_mean``); NaN otherwise.
 
 The *finalists* are the rows at the highest rung in the table (with
 ``--full``, every row). A candidate dropped at an earlier rung was measured
@@ -42,7 +45,8 @@ ORDERS = ("per_param", "accuracy")
 COLUMNS = ("candidate", "params", "macs", "peak_kb", "flash_kb", "rung", "epochs", "folds",
            "acc_mean", "acc_se", "acc_min", "acc_max", "train_acc_mean", "gap",
            "acc_per_kparam", "t_vs_best", "p_vs_best", "finalist", "pareto_params",
-           "pareto_macs", "within_1se", "pick", "rank_per_param", "rank_accuracy")
+           "pareto_macs", "within_1se", "pick", "rank_per_param", "rank_accuracy",
+           "int8_acc_mean", "int8_drop")
 # Means of k accuracies that should tie can differ in the last bit.
 _TOL = 1e-12
 
@@ -218,6 +222,10 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
         params = int(cost.at[cand, "params"])
         mean = float(acc.mean())
         train = float(sel["train_acc"].to_numpy(np.float64).mean())
+        # int8 figures (search --int8, last rung only): NaN unless every fold has one
+        int8 = (sel["int8_acc"].to_numpy(np.float64) if "int8_acc" in sel
+                else np.full(acc.size, np.nan))
+        int8_mean = float(int8.mean()) if np.all(np.isfinite(int8)) else math.nan
         rows.append({
             "candidate": cand, "params": params, "macs": int(cost.at[cand, "macs"]),
             "peak_kb": cost.at[cand, "peak_int8_bytes"] / 1024.0,
@@ -227,6 +235,7 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
             "acc_min": float(acc.min()), "acc_max": float(acc.max()),
             "train_acc_mean": train, "gap": train - mean,
             "acc_per_kparam": (mean - 1.0 / n_classes) / (params / 1000.0),
+            "int8_acc_mean": int8_mean, "int8_drop": mean - int8_mean,
         })
     table = pd.DataFrame(rows)
     final = table["rung"] == table["rung"].max()

@@ -177,7 +177,9 @@ class SearchLoop:
     def _task(self, cand: str, fold: int, rung: schedule.Rung) -> UnitTask:
         return UnitTask(cand, fold, rung.level, rung.epochs,
                         schedule.unit_seed(int(self.s["seed"]), cand, fold, rung.level),
-                        self.n_classes, self.training)
+                        self.n_classes, self.training,
+                        # int8 figures for the finalists: units of the last rung only
+                        bool(self.s.get("int8")) and rung.epochs == int(self.s["max_epochs"]))
 
     # ------------------------------------------------------------ one rung
 

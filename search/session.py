@@ -67,6 +67,7 @@ class SearchRequest:
     cluster: object | None = None
     rank_by: str = "per_param"
     skip_bad: bool = False
+    int8: bool = False
 
 
 @dataclass
@@ -138,7 +139,7 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
         min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
         budget={k: getattr(budget, k) for k in BUDGET_KEYS.values()},
         budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
-        training=training, skip_bad=request.skip_bad)
+        training=training, skip_bad=request.skip_bad, int8=request.int8)
     _check_training(training)
     folds = assign_folds(dataset.labels, request.folds, derive_seed(request.seed, "folds"),
                          classes=dataset.classes)

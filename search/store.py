@@ -51,7 +51,7 @@ CREATE TABLE IF NOT EXISTS units (
     id INTEGER PRIMARY KEY, candidate TEXT NOT NULL REFERENCES candidates(candidate),
     fold INTEGER NOT NULL, rung INTEGER NOT NULL, epochs INTEGER NOT NULL,
     seed INTEGER NOT NULL, status TEXT NOT NULL, message TEXT NOT NULL,
-    train_acc REAL, train_loss REAL, val_acc REAL, val_loss REAL,
+    train_acc REAL, train_loss REAL, val_acc REAL, val_loss REAL, int8_acc REAL,
     cpu_s REAL NOT NULL, wall_s REAL NOT NULL, history TEXT NOT NULL,
     finished REAL NOT NULL, UNIQUE (candidate, fold, rung));
 CREATE TABLE IF NOT EXISTS predictions (
@@ -60,8 +60,8 @@ CREATE TABLE IF NOT EXISTS predictions (
 """
 
 UNIT_COLUMNS = ("candidate", "fold", "rung", "epochs", "status", "message", "train_acc",
-                "train_loss", "val_acc", "val_loss", "cpu_s", "wall_s", "history", "seed",
-                "unit_id")
+                "train_loss", "val_acc", "val_loss", "int8_acc", "cpu_s", "wall_s", "history",
+                "seed", "unit_id")
 CANDIDATE_COLUMNS = ("candidate", "params", "macs", "peak_int8_bytes", "flash_bytes",
                      "within_budget", "over", "scheduled")
 
@@ -171,11 +171,11 @@ class RunStore:
         try:
             cur = con.execute(
                 "INSERT INTO units (candidate, fold, rung, epochs, seed, status, message, "
-                "train_acc, train_loss, val_acc, val_loss, cpu_s, wall_s, history, finished) "
-                "VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                "train_acc, train_loss, val_acc, val_loss, int8_acc, cpu_s, wall_s, history, "
+                "finished) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
                 (t.candidate, t.fold, t.rung, t.epochs, t.seed, result.status, result.message,
                  result.train_acc, result.train_loss, result.val_acc, result.val_loss,
-                 float(result.cpu_s), float(result.wall_s), result.history_json(),
+                 result.int8_acc, float(result.cpu_s), float(result.wall_s), result.history_json(),
                  time.time()))
             if result.status == "done":
                 probs = np.ascontiguousarray(result.probs, dtype="<f4")

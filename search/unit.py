@@ -25,13 +25,16 @@ from typing import Any
 import numpy as np
 
 DATA_FILES = ("images.npy", "labels.npy", "folds.npy")
+#: calibration images for ``--int8``, spread evenly over the training part
+CALIB_IMAGES = 256
 
 
 @dataclass(frozen=True)
 class UnitTask:
     """What to compute: train ``candidate`` for ``epochs``, hold out ``fold``.
 
-    ``training`` holds the ``TrainConfig`` fields other than epochs and seed.
+    ``training`` holds the ``TrainConfig`` fields other than epochs and seed;
+    ``int8`` asks for the held-out accuracy of the int8 form as well.
     """
 
     candidate: str
@@ -41,6 +44,7 @@ class UnitTask:
     seed: int
     n_classes: int
     training: tuple[tuple[str, Any], ...] = ()
+    int8: bool = False
 
     @property
     def key(self) -> tuple[str, int, int]:
@@ -70,6 +74,9 @@ class UnitResult:
     label, pred : ndarray, shape (m,), int64
     probs : ndarray, shape (m, K), float32
         Predicted class probabilities (empty unless done).
+    int8_acc : float or None
+        Held-out accuracy of the int8 quantised network (calibrated on the
+        training part), when the task asked for it.
     """
 
     task: UnitTask
@@ -86,6 +93,7 @@ class UnitResult:
     label: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
     pred: np.ndarray = field(default_factory=lambda: np.zeros(0, np.int64))
     probs: np.ndarray = field(default_factory=lambda: np.zeros((0, 0), np.float32))
+    int8_acc: float | None = None
 
     def history_json(self) -> str:
         return json.dumps(self.history, sort_keys=True)
@@ -191,7 +199,13 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     val_loss = float(-logp[np.arange(y_held.size), y_held].astype(np.float64).mean())
     val_acc = float(np.mean(pred == y_held))
     probs = np.exp(logp).astype(np.float32)
+    int8_acc = None
+    if task.int8:
+        from tinyconv.quant import as_pixels, int8_accuracy
+        calib = train[np.linspace(0, train.size - 1, min(CALIB_IMAGES, train.size)).astype(int)]
+        int8_acc = int8_accuracy(net, mean, std, as_pixels(x_all[calib]),
+                                 as_pixels(x_all[held]), y_held)
     return UnitResult(task, "done", "", float(train_acc), float(train_loss), float(val_acc),
                       float(val_loss), time.process_time() - cpu0,
                       time.perf_counter() - wall0, history, held.astype(np.int64),
-                      y_held.astype(np.int64), pred, probs)
+                      y_held.astype(np.int64), pred, probs, int8_acc)

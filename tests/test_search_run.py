@@ -169,3 +169,32 @@ def test_min_epochs_shapes_the_plan(tmp_path):
     units = RunStore(tmp_path).units()
     assert set(units["epochs"]) == {3} and set(units["rung"]) == {0}
     assert RunStore(tmp_path).config()["min_epochs"] == 3
+
+
+def test_int8_scores_the_last_rung_only(tmp_path):
+    """--int8 stores the int8 held-out accuracy of last-rung units and ranks its fold mean."""
+    from search.rank import rank_run
+    summary = run_search(request(tmp_path / "q", int8=True))
+    with RunStore(summary.run_dir) as store:
+        units = store.units(status="done")
+        table = rank_run(store)
+    last = units["epochs"] == units["epochs"].max()
+    assert units.loc[last, "int8_acc"].notna().all()
+    assert units.loc[~last, "int8_acc"].isna().all()
+    assert units.loc[last, "int8_acc"].between(0, 1).all()
+    # int8 tracks the float network (typically within a point; loose on these tiny nets)
+    gap = (units.loc[last, "int8_acc"] - units.loc[last, "val_acc"]).abs()
+    assert gap.mean() < 0.1, gap.describe()
+    fin = table[table["finalist"]]
+    for _, row in fin.iterrows():
+        folds = units[last & (units["candidate"] == row.candidate)]["int8_acc"]
+        assert row.int8_acc_mean == pytest.approx(folds.mean())
+        assert row.int8_drop == pytest.approx(row.acc_mean - row.int8_acc_mean)
+    # Without --int8 there are no int8 figures at all.
+    plain = run_search(request(tmp_path / "p"))
+    assert plain.table["int8_acc_mean"].isna().all()
+    # The float results do not change when int8 is asked for.
+    same = ["candidate", "acc_mean", "acc_se", "train_acc_mean"]
+    pd.testing.assert_frame_equal(
+        plain.table[same].sort_values("candidate").reset_index(drop=True),
+        summary.table[same].sort_values("candidate").reset_index(drop=True))

@@ -42,6 +42,9 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                         "epochs say nothing yet (default 1)")
     g.add_argument("--eta", type=int, default=3, help="halving rate: each rung keeps 1/eta "
                    "(default 3)")
+    g.add_argument("--int8", action="store_true",
+                   help="also score the int8 quantised form of every unit of the last rung, "
+                        "so the ranking shows the accuracy lost to quantisation")
     g.add_argument("--full", action="store_true",
                    help="no halving: every candidate trains R epochs on every fold")
     g.add_argument("--max-candidates", type=positive_int, default=None, metavar="N",
@@ -103,7 +106,7 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
         budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
         budget_epochs=args.budget_epochs, training=training, workers=args.workers,
         cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"),
-        skip_bad=bool(getattr(args, "skip_bad", False)))
+        skip_bad=bool(getattr(args, "skip_bad", False)), int8=bool(args.int8))
 
 
 class BarProgress(Progress):
@@ -198,8 +201,12 @@ def summary_lines(summary, top: int = 10) -> list[str]:
                   f"{pick.acc_se:.3f} over {int(pick.folds)} folds, {int(pick.params):,} "
                   f"parameters, {pick.peak_kb:.1f} KB RAM, {pick.flash_kb:.1f} KB flash",
               f"best: {best.candidate}  {best.acc_mean:.3f} ± {best.acc_se:.3f}, "
-              f"{int(best.params):,} parameters",
-              f"ranking: {summary.ranking_path}"]
+              f"{int(best.params):,} parameters"]
+    if "int8_acc_mean" in t and t["int8_acc_mean"].notna().any():
+        lines.append(f"int8: the pick scores {pick.int8_acc_mean:.3f} held-out as int8 "
+                     f"({pick.int8_drop * 100:+.1f} points lost to quantisation); "
+                     "column int8_acc_mean of the ranking")
+    lines.append(f"ranking: {summary.ranking_path}")
     return lines
 
 

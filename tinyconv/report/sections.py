@@ -63,6 +63,9 @@ RANKING_COLUMNS = (
     Column("p vs best", "p_vs_best", pvalue, title="corrected resampled t-test against the best"),
     Column("rank by accuracy", "rank_accuracy", num, title="rank by mean held-out accuracy"),
 )
+# Shown when the search scored the int8 form (search --int8).
+INT8_COLUMN = Column("int8 acc", "int8_acc_mean", pct,
+                     title="mean held-out accuracy of the int8 quantised network")
 
 
 def why_pick(data: RunData) -> str:
@@ -128,8 +131,10 @@ def decision_panel(data: RunData) -> str:
 def ranking_section(data: RunData) -> Section:
     frame = data.ranking.copy()
     frame["_acc"] = [_acc_pm(r) for _, r in frame.iterrows()]
-    body = table(frame, RANKING_COLUMNS, highlight=list(frame["pick"].astype(bool)),
-                 css="ranking")
+    columns = RANKING_COLUMNS
+    if "int8_acc_mean" in frame and frame["int8_acc_mean"].notna().any():
+        columns = columns[:8] + (INT8_COLUMN,) + columns[8:]
+    body = table(frame, columns, highlight=list(frame["pick"].astype(bool)), css="ranking")
     n_lower = int((~data.ranking.get("finalist", pd.Series(True, index=frame.index))
                    .astype(bool)).sum())
     extra = []
