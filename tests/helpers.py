@@ -63,3 +63,33 @@ filters = [2, 4]
 kind = ["flatten"]
 hidden = [0, 8]
 """
+
+
+def randomise_biases_and_norms(net, rng, *, shift_sd: float, var_range: tuple[float, float],
+                               bias_sd: float):
+    """Give every bias and batch norm non-trivial values (a fresh net has 0 and 1).
+
+    Batch norm: gamma ~ U(0.5, 2), beta and the running mean ~ N(0, shift_sd^2),
+    the running variance ~ U(var_range); biases ~ N(0, bias_sd^2). Draws from
+    ``rng`` (a numpy Generator) in layer order; returns ``net``.
+    """
+    for op, layer in zip(net.ops, net.layers):
+        if op.kind == "bn":
+            c = layer.params["gamma"].shape[0]
+            layer.params["gamma"][:] = rng.uniform(0.5, 2.0, c)
+            layer.params["beta"][:] = rng.normal(0, shift_sd, c)
+            layer.state["mean"][:] = rng.normal(0, shift_sd, c)
+            layer.state["var"][:] = rng.uniform(*var_range, c)
+        if "b" in layer.params:
+            layer.params["b"][:] = rng.normal(0, bias_sd, layer.params["b"].shape)
+    return net
+
+
+def tiny_request(out, **change):
+    """A SearchRequest of the tiny search (TINY_DATA, TINY_SPACE; in-process unless
+    ``workers`` is given) with ``change`` applied."""
+    from search.session import SearchRequest
+    base = dict(data=TINY_DATA, space=TINY_SPACE, out=out, folds=3, seed=2, max_epochs=3,
+                workers=0, training={"batch_size": 16, "lr": 0.01})
+    base.update(change)
+    return SearchRequest(**base)

@@ -7,6 +7,7 @@ import subprocess
 import numpy as np
 import pytest
 
+from helpers import randomise_biases_and_norms
 from tinyconv.cost import cost_of
 from tinyconv.errors import InputError
 from tinyconv.export.c_writer import check_prefix, generate_c
@@ -59,16 +60,8 @@ int main(int argc, char **argv)
 def random_setup(text: str, n_classes: int, seed: int):
     """A random-weight network (random biases and batch norms), normalisation, images."""
     rng = np.random.default_rng(seed)
-    net = Network.from_arch(text, n_classes, seed=seed)
-    for op, layer in zip(net.ops, net.layers):
-        if op.kind == "bn":
-            c = layer.params["gamma"].shape[0]
-            layer.params["gamma"][:] = rng.uniform(0.5, 2.0, c)
-            layer.params["beta"][:] = rng.normal(0, 0.3, c)
-            layer.state["mean"][:] = rng.normal(0, 0.3, c)
-            layer.state["var"][:] = rng.uniform(0.3, 2.0, c)
-        if "b" in layer.params:
-            layer.params["b"][:] = rng.normal(0, 0.1, layer.params["b"].shape)
+    net = randomise_biases_and_norms(Network.from_arch(text, n_classes, seed=seed), rng,
+                                     shift_sd=0.3, var_range=(0.3, 2.0), bias_sd=0.1)
     h, w, c = net.arch.input.shape
     mean, std = rng.uniform(0.3, 0.6, c), rng.uniform(0.15, 0.3, c)
     # smooth-ish images (a random gradient plus noise) rather than pure noise

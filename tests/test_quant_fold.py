@@ -3,6 +3,7 @@
 import numpy as np
 import pytest
 
+from helpers import randomise_biases_and_norms
 from tinyconv.arch import ArchError
 from tinyconv.cost import BUFFER_KINDS
 from tinyconv.network import Network
@@ -18,17 +19,8 @@ FOLD_ARCHS = [
 
 def randomise(net: Network, seed: int) -> Network:
     """Give every bias and batch norm non-trivial values (a fresh net has 0, 1)."""
-    rng = np.random.default_rng(seed)
-    for op, layer in zip(net.ops, net.layers):
-        if op.kind == "bn":
-            c = layer.params["gamma"].shape[0]
-            layer.params["gamma"][:] = rng.uniform(0.5, 2.0, c)
-            layer.params["beta"][:] = rng.normal(0, 0.5, c)
-            layer.state["mean"][:] = rng.normal(0, 0.5, c)
-            layer.state["var"][:] = rng.uniform(0.2, 3.0, c)
-        if "b" in layer.params:
-            layer.params["b"][:] = rng.normal(0, 0.2, layer.params["b"].shape)
-    return net
+    return randomise_biases_and_norms(net, np.random.default_rng(seed), shift_sd=0.5,
+                                      var_range=(0.2, 3.0), bias_sd=0.2)
 
 
 def test_fold_formula_matches_definition():

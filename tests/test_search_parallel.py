@@ -13,7 +13,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from helpers import TINY_DATA, TINY_SPACE
+from helpers import TINY_DATA, TINY_SPACE, tiny_request
 from search.session import SearchRequest, run_search
 from search.store import RunStore
 from search.unit import run_unit
@@ -25,10 +25,7 @@ CRASHING = "8x8gray/c2k3-p2"
 
 
 def request(out: Path, **change) -> SearchRequest:
-    base = dict(data=DATA, space=SPACE, out=out, folds=3, seed=2, max_epochs=3, workers=2,
-                training={"batch_size": 16, "lr": 0.01})
-    base.update(change)
-    return SearchRequest(**base)
+    return tiny_request(out, **{"workers": 2, **change})
 
 
 def crash_on_one(task, data):

@@ -9,7 +9,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from helpers import TINY_DATA, TINY_SPACE
+from helpers import TINY_DATA, TINY_SPACE, tiny_request
 from search.session import SearchRequest, run_search
 from search.store import RunStore
 from search.unit import run_unit
@@ -20,10 +20,7 @@ DIVERGING = "8x8gray/c4k3-p2"
 
 
 def request(out: Path, **change) -> SearchRequest:
-    base = dict(data=DATA, space=SPACE, out=out, folds=3, seed=2, max_epochs=3, workers=0,
-                training={"batch_size": 16, "lr": 0.01})
-    base.update(change)
-    return SearchRequest(**base)
+    return tiny_request(out, **{"workers": 0, **change})
 
 
 def diverge_one(task, data):
