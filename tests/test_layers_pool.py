@@ -88,3 +88,47 @@ def test_pool_kernels_on_seeded_random_shapes(seed):
                                rtol=1e-6, atol=1e-6)
     np.testing.assert_allclose(kp.avgpool_backward(g, s, x.shape),
                                reference.avgpool_backward(g, x.shape, s), rtol=1e-6, atol=1e-7)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+@pytest.mark.parametrize("shape, s", [((3, 7, 9, 5), 2), ((2, 8, 6, 3), 2), ((2, 7, 8, 2), 3),
+                                      ((1, 6, 6, 17), 2)])
+@pytest.mark.parametrize("masked", [False, True])
+def test_maxpool_backward_both_kernels_match_the_reference(dtype, shape, s, masked):
+    """The 2 x 2 and the generic backward kernels equal the loop reference (ties, odd sizes).
+
+    Reference: reference.maxpool_backward, then reference.relu_backward for the mask.
+    """
+    from tinyconv.layers import kernels_pool as kp
+
+    rng = np.random.default_rng(sum(shape) + s)
+    x = np.maximum(rng.standard_normal(shape), 0.0).astype(dtype)  # many exact-zero ties
+    y, arg = kp.maxpool_forward(x, s)
+    g = rng.standard_normal(y.shape).astype(dtype)
+    want = reference.maxpool_backward(g, x, s)
+    if masked:
+        want = reference.relu_backward(want, x)
+    got = kp.maxpool_backward(g, arg, s, x.shape, y if masked else None)
+    assert got.dtype == dtype
+    np.testing.assert_array_equal(got, want)
+    # The generic kernel also on the even 2 x 2 shapes the unrolled one takes.
+    gx = np.full(x.shape, 7.0, dtype=dtype)  # every entry must be overwritten
+    kp._maxpool_backward_kernel(g, arg, s, y, masked, gx)
+    np.testing.assert_array_equal(gx, want)
+
+
+@pytest.mark.parametrize("shape", [(1, 4, 4, 3), (1, 5, 5, 3)])
+def test_maxpool_backward_routes_to_a_nan(shape):
+    """A NaN wins its window (as numpy.max); unmasked it takes the gradient, masked nothing passes."""
+    from tinyconv.layers import kernels_pool as kp
+
+    x = np.arange(np.prod(shape), dtype=np.float32).reshape(shape)
+    x[0, 0, 1, 2] = np.nan
+    y, arg = kp.maxpool_forward(x, 2)
+    assert np.isnan(y[0, 0, 0, 2]) and not np.isnan(y).sum() > 1
+    g = np.ones(y.shape, dtype=np.float32)
+    gx = kp.maxpool_backward(g, arg, 2, x.shape)
+    assert gx[0, 0, 1, 2] == 1.0 and gx[0, 1, 1, 2] == 0.0  # the NaN, not the window's max
+    gm = kp.maxpool_backward(g, arg, 2, x.shape, y)
+    assert not gm[0, :2, :2, 2].any()  # y is NaN, not > 0: the ReLU mask drops the window
+    np.testing.assert_array_equal(gm[0, :2, :2, :2], gx[0, :2, :2, :2])

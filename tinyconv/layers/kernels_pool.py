@@ -53,13 +53,13 @@ def maxpool_backward(grad_out: np.ndarray, arg: np.ndarray, s: int,
     """
     gx = np.empty(x_shape, dtype=grad_out.dtype)
     g = np.ascontiguousarray(grad_out)
+    masked = y is not None
+    yy = np.ascontiguousarray(y) if masked else g
     n, h, w, c = x_shape
     if s == 2 and h == 2 * g.shape[1] and w == 2 * g.shape[2]:
-        _maxpool2_backward(g, arg, g if y is None else y, y is not None, gx)
-    elif y is None:
-        _maxpool_backward_kernel(g, arg, s, gx)
+        _maxpool2_backward(g, arg, yy, masked, gx)
     else:
-        _maxpool_backward_kernel(np.where(y > 0, g, g.dtype.type(0)), arg, s, gx)
+        _maxpool_backward_kernel(g, arg, s, yy, masked, gx)
     return gx
 
 
@@ -130,45 +130,49 @@ def _maxpool2_forward(x, y, arg):
                     arg[b, oy, ox, ch] = at
 
 
+# The backward kernels write the input gradient in memory order (input row,
+# then pixel, then channel) with a branch-free select in the channel loop, which
+# LLVM vectorises; walking the outputs instead (four scattered stores per
+# value) measured 3-4x slower at the reference networks' shapes.
+
+
 @njit(cache=True)
 def _maxpool2_backward(g, arg, y, masked, gx):
-    """The 2 x 2 case (even sizes): four writes per output; ``masked`` drops windows with ``y <= 0``."""
+    """The 2 x 2 case (even sizes); ``masked`` drops windows with ``y <= 0``."""
     n, oh, ow, c = g.shape
     for b in range(n):
         for oy in range(oh):
-            for ox in range(ow):
-                for ch in range(c):
-                    v = g[b, oy, ox, ch]
-                    if masked and not y[b, oy, ox, ch] > 0:
-                        v = 0.0
-                    at = arg[b, oy, ox, ch]
-                    gx[b, 2 * oy, 2 * ox, ch] = v if at == 0 else 0.0
-                    gx[b, 2 * oy, 2 * ox + 1, ch] = v if at == 1 else 0.0
-                    gx[b, 2 * oy + 1, 2 * ox, ch] = v if at == 2 else 0.0
-                    gx[b, 2 * oy + 1, 2 * ox + 1, ch] = v if at == 3 else 0.0
+            for i in range(2):
+                for ox in range(ow):
+                    for j in range(2):
+                        at = 2 * i + j
+                        for ch in range(c):
+                            v = g[b, oy, ox, ch]
+                            if masked and not y[b, oy, ox, ch] > 0:
+                                v = 0.0
+                            gx[b, 2 * oy + i, 2 * ox + j, ch] = v if arg[b, oy, ox, ch] == at else 0.0
 
 
 @njit(cache=True)
-def _maxpool_backward_kernel(g, arg, s, gx):
+def _maxpool_backward_kernel(g, arg, s, y, masked, gx):
+    """Any ``s``, any size; rows and columns past the last whole window get zero."""
     n, oh, ow, c = g.shape
     h, w = gx.shape[1], gx.shape[2]
     for b in range(n):
         for oy in range(oh):
-            for ox in range(ow):
-                for i in range(s):
+            for i in range(s):
+                for ox in range(ow):
                     for j in range(s):
                         at = i * s + j
                         for ch in range(c):
-                            if arg[b, oy, ox, ch] == at:
-                                gx[b, oy * s + i, ox * s + j, ch] = g[b, oy, ox, ch]
-                            else:
-                                gx[b, oy * s + i, ox * s + j, ch] = 0.0
-        # Rows and columns past the last whole window get no gradient.
+                            v = g[b, oy, ox, ch]
+                            if masked and not y[b, oy, ox, ch] > 0:
+                                v = 0.0
+                            gx[b, oy * s + i, ox * s + j, ch] = v if arg[b, oy, ox, ch] == at else 0.0
+                for xx in range(ow * s, w):
+                    gx[b, oy * s + i, xx, :] = 0.0
         for yy in range(oh * s, h):
             gx[b, yy, :, :] = 0.0
-        for yy in range(oh * s):
-            for xx in range(ow * s, w):
-                gx[b, yy, xx, :] = 0.0
 
 
 @njit(cache=True)
