@@ -108,3 +108,52 @@ def test_kernels_on_seeded_random_shapes(seed):
     np.testing.assert_allclose(gxp[:, top:top + h, left:left + w], rgx, rtol=1e-12, atol=1e-12)
     np.testing.assert_allclose(gw, rgw, rtol=1e-12, atol=1e-12)
     np.testing.assert_allclose(gb, rgb, rtol=1e-12, atol=1e-12)
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+@pytest.mark.parametrize("seed", range(6))
+def test_stride1_row_kernels_match_the_references(dtype, seed):
+    """The stride-1 row kernels on the unpadded input equal the loop references.
+
+    Odd sizes, pads wider than the kernel's reach (taps wholly in the padding),
+    and the fused ReLU with its mask in the backward sweep. The forward adds in
+    the pixel kernel's order, so it equals dw_forward of the padded input
+    exactly; the gradients sum in another order (float rounding).
+    """
+    from tinyconv.layers import kernels_dw as kd
+
+    rng = np.random.default_rng(seed)
+    k = int(rng.choice([1, 2, 3, 5]))
+    pads = tuple(int(v) for v in rng.integers(0, 4, size=4))
+    n, c = 2, int(rng.integers(1, 7))
+    h = int(rng.integers(max(1, k - pads[0] - pads[1]), 9))
+    w = int(rng.integers(max(1, k - pads[2] - pads[3]), 9))
+    x = rng.standard_normal((n, h, w, c)).astype(dtype)
+    wt, b = rng.standard_normal((k, k, c)).astype(dtype), rng.standard_normal(c).astype(dtype)
+    top, bottom, left, right = pads
+    xp = np.pad(x, ((0, 0), (top, bottom), (left, right), (0, 0)))
+    tol = dict(rtol=1e-5, atol=1e-5) if dtype == np.float32 else dict(rtol=1e-12, atol=1e-12)
+    for relu in (False, True):
+        y = kd.dw1_forward(x, wt, b, pads, relu)
+        assert y.dtype == dtype
+        np.testing.assert_array_equal(y, kd.dw_forward(xp, wt, b, 1, relu))
+        ry = reference.depthwise_forward(x, wt, b, 1, pads)
+        np.testing.assert_allclose(y, reference.relu(ry) if relu else ry, **tol)
+        g = rng.standard_normal(y.shape).astype(dtype)
+        gx, gw, gb = kd.dw1_backward(g, x, wt, pads, y if relu else None)
+        assert gx.dtype == gw.dtype == gb.dtype == dtype and gx.shape == x.shape
+        gr = reference.relu_backward(g, y) if relu else g
+        rgx, rgw, rgb = reference.depthwise_backward(gr, x, wt, 1, pads)
+        np.testing.assert_allclose(gx, rgx, **tol)
+        np.testing.assert_allclose(gw, rgw, **tol)
+        np.testing.assert_allclose(gb, rgb, **tol)
+
+
+def test_stride1_layer_keeps_nan():
+    """A NaN input reaches the output and, through the fused ReLU, stays NaN (as numpy.maximum)."""
+    op = conv_op(5, 5, 2, 2, 3, 1, False, kind="dwconv")
+    layer = build(op, np.random.default_rng(0), np.float32)
+    x = np.ones((1,) + op.in_shape, dtype=np.float32)
+    x[0, 2, 2, 1] = np.nan
+    y = layer.forward(x, training=True, relu=True)
+    assert np.isnan(y[0, 1:4, 1:4, 1]).all() and not np.isnan(y[..., 0]).any()

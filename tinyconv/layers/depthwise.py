@@ -8,11 +8,14 @@ from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
 from tinyconv.layers.kernels_act import relu_backward
 from tinyconv.layers.kernels_conv import crop_nhwc, pad_nhwc
-from tinyconv.layers.kernels_dw import dw_backward, dw_forward
+from tinyconv.layers.kernels_dw import dw1_backward, dw1_forward, dw_backward, dw_forward
 
 
 class Depthwise(Layer):
     """Depthwise cross-correlation, stride 1 or 2, explicit pads.
+
+    Stride 1 runs the row kernels on the unpadded input (``dw1_forward``,
+    ``dw1_backward``); other strides pad and run the pixel loops.
 
     Parameters
     ----------
@@ -47,8 +50,13 @@ class Depthwise(Layer):
         if x.ndim != 4 or x.shape[3] != self.channels:
             raise ValueError(f"{self.name}: expected input (n, h, w, {self.channels}), "
                              f"got shape {x.shape}")
-        xp = pad_nhwc(x, self.pads)
-        y = dw_forward(xp, self.params["w"], self.params["b"], self.stride, relu)
+        if self.stride == 1:
+            # Taps in the padding are skipped: the input itself is kept, not a padded copy.
+            xp = x
+            y = dw1_forward(x, self.params["w"], self.params["b"], self.pads, relu)
+        else:
+            xp = pad_nhwc(x, self.pads)
+            y = dw_forward(xp, self.params["w"], self.params["b"], self.stride, relu)
         if training:
             self._xp, self._x_shape = xp, x.shape
             self._y = y if relu else None
@@ -59,8 +67,13 @@ class Depthwise(Layer):
 
         ``masked``: ``grad_out`` is already zero where a fused ReLU output was not positive.
         """
-        if self._y is not None and not masked:
-            grad_out = relu_backward(grad_out, self._y)
+        relu_y = self._y if self._y is not None and not masked else None
+        if self.stride == 1:  # the ReLU mask is applied inside the sweep
+            gx, gw, gb = dw1_backward(grad_out, self._xp, self.params["w"], self.pads, relu_y)
+            self.grads["w"], self.grads["b"] = gw, gb
+            return gx
+        if relu_y is not None:
+            grad_out = relu_backward(grad_out, relu_y)
         gxp, gw, gb = dw_backward(grad_out, self._xp, self.params["w"], self.stride)
         self.grads["w"], self.grads["b"] = gw, gb
         _, h, w, _ = self._x_shape
