@@ -1,0 +1,204 @@
+"""Tests of the Winograd F(2x2, 3x3) path of the convolution layer.
+
+Outside references: numpy.correlate and scipy.signal.correlate (the
+convolution itself), the loop references of tinyconv.layers.reference, and
+central finite differences for the gradients.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import signal
+
+from helpers import conv_op, randn
+from tinyconv.gradients import check_layer
+from tinyconv.layers import build, reference
+from tinyconv.layers import kernels_wino as kw
+from tinyconv.layers.conv import Conv, pick_algorithm
+from tinyconv.losses import softmax_cross_entropy
+from tinyconv.network import Network
+
+# (h, w, c_in, filters, valid): odd and even sizes (odd outputs need a partial
+# last tile), same and valid padding, a 1 x 1 and a 2 x 2 output.
+SHAPES = [
+    (6, 6, 4, 3, False),
+    (5, 7, 3, 2, False),
+    (7, 5, 2, 5, True),
+    (3, 3, 2, 2, True),
+    (4, 4, 3, 2, True),
+    (9, 8, 5, 4, False),
+    (1, 1, 2, 3, False),
+]
+
+
+def _layer(shape, seed=0, dtype=np.float64, relu=False):
+    h, w, c, f, valid = shape
+    op = conv_op(h, w, c, f, 3, 1, valid)
+    layer = build(op, np.random.default_rng(seed), dtype)
+    layer.params["b"][...] = randn((f,), seed + 7)
+    layer.algorithm = "winograd"
+    layer.relu = relu
+    return op, layer
+
+
+def test_one_dimensional_minimal_filter_equals_numpy_correlate():
+    """F(2, 3) in one dimension: A^T [(G g) * (B^T d)] is the 2-output correlation of d with g."""
+    rng = np.random.default_rng(0)
+    for _ in range(20):
+        d, g = rng.standard_normal(4), rng.standard_normal(3)
+        got = kw.AT @ ((kw.G @ g) * (kw.BT @ d))
+        # Reference: numpy.correlate, mode 'valid' (no kernel flip).
+        np.testing.assert_allclose(got, np.correlate(d, g, mode="valid"), rtol=1e-12, atol=1e-14)
+
+
+def test_two_dimensional_tile_equals_scipy_correlate2d():
+    """One 4 x 4 tile: A^T [(G g G^T) * (B^T d B)] A is scipy's valid 2-D correlation."""
+    rng = np.random.default_rng(1)
+    for _ in range(20):
+        d, g = rng.standard_normal((4, 4)), rng.standard_normal((3, 3))
+        got = kw.AT @ ((kw.G @ g @ kw.G.T) * (kw.BT @ d @ kw.BT.T)) @ kw.AT.T
+        np.testing.assert_allclose(got, signal.correlate2d(d, g, mode="valid"),
+                                   rtol=1e-12, atol=1e-13)
+
+
+@pytest.mark.parametrize("relu", [False, True])
+@pytest.mark.parametrize("shape", SHAPES)
+def test_forward_and_backward_match_loop_reference(shape, relu):
+    """Winograd forward, input, weight and bias gradients equal the loop reference (float64)."""
+    op, layer = _layer(shape, seed=2, relu=relu)
+    x = randn((3,) + op.in_shape, 3)
+    y = layer.forward(x, training=True)
+    ref = reference.conv_forward(x, layer.params["w"], layer.params["b"], 1, op.pads)
+    if relu:
+        ref = np.maximum(ref, 0.0)
+    assert y.shape == (3,) + op.out_shape
+    np.testing.assert_allclose(y, ref, rtol=1e-11, atol=1e-12)
+    g = randn(y.shape, 4)
+    gx = layer.backward(g)
+    g_in = g * (ref > 0) if relu else g
+    rgx, rgw, rgb = reference.conv_backward(g_in, x, layer.params["w"], 1, op.pads)
+    np.testing.assert_allclose(gx, rgx, rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["w"], rgw, rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["b"], rgb, rtol=1e-11, atol=1e-12)
+
+
+@pytest.mark.parametrize("shape", SHAPES[:4])
+def test_gradients_match_central_differences(shape):
+    """The transforms' adjoints are the true gradients: central differences agree (< 1e-6)."""
+    op, layer = _layer(shape)
+    # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
+    rows = check_layer(layer, randn((2,) + op.in_shape, 5), seed=1, max_coords=None)
+    assert [r.tensor for r in rows] == ["x", "w", "b"]
+    for row in rows:
+        assert row.passed and row.max_rel_error < 1e-6, row
+
+
+def test_float32_agrees_with_im2col_to_float32_precision():
+    """In float32 the two algorithms differ only by rounding (16 x 16 x 32 -> 64, as in N3)."""
+    rng = np.random.default_rng(6)
+    x = rng.standard_normal((4, 16, 16, 32)).astype(np.float32)
+    layers = {}
+    for alg in ("im2col", "winograd"):
+        layer = Conv(32, 64, 3, 1, (1, 1, 1, 1), rng=np.random.default_rng(7), relu=True)
+        layer.params["b"][...] = 0.1
+        layer.algorithm = alg
+        layers[alg] = layer
+    ys = {a: layer.forward(x, True) for a, layer in layers.items()}
+    assert ys["winograd"].dtype == np.float32
+    g = rng.standard_normal(ys["im2col"].shape).astype(np.float32)
+    gxs = {a: layer.backward(g) for a, layer in layers.items()}
+    scale = np.abs(ys["im2col"]).max()
+    np.testing.assert_allclose(ys["winograd"], ys["im2col"], atol=2e-6 * scale)
+    np.testing.assert_allclose(gxs["winograd"], gxs["im2col"], atol=2e-6 * np.abs(gxs["im2col"]).max())
+    for key in ("w", "b"):
+        ref = layers["im2col"].grads[key]
+        np.testing.assert_allclose(layers["winograd"].grads[key], ref, atol=1e-5 * np.abs(ref).max())
+
+
+def test_reused_buffers_follow_the_batch_size_and_keep_earlier_outputs():
+    """A smaller last batch reallocates the tile buffers; earlier outputs are untouched."""
+    op, layer = _layer((6, 6, 4, 3, False))
+    x1, x2 = randn((5,) + op.in_shape, 1), randn((2,) + op.in_shape, 2)
+    y1 = layer.forward(x1, training=True)
+    y1_copy = y1.copy()
+    layer.backward(randn(y1.shape, 3))
+    y2 = layer.forward(x2, training=True)
+    np.testing.assert_array_equal(y1, y1_copy)
+    g = randn(y2.shape, 4)
+    gx = layer.backward(g)
+    rgx, rgw, _ = reference.conv_backward(g, x2, layer.params["w"], 1, op.pads)
+    np.testing.assert_allclose(gx, rgx, rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["w"], rgw, rtol=1e-11, atol=1e-12)
+
+
+def test_skipped_input_gradient_keeps_parameter_gradients():
+    """With input_grad False the backward returns None and the same weight gradient."""
+    op, layer = _layer((5, 7, 3, 2, False))
+    x = randn((2,) + op.in_shape, 1)
+    g = randn((2,) + op.out_shape, 2)
+    layer.forward(x, training=True)
+    layer.backward(g)
+    full = layer.grads["w"].copy()
+    layer.input_grad = False
+    layer.forward(x, training=True)
+    assert layer.backward(g) is None
+    np.testing.assert_array_equal(layer.grads["w"], full)
+
+
+def test_inference_keeps_no_arrays():
+    """A forward with training=False keeps no buffers or tiles."""
+    op, layer = _layer(SHAPES[0])
+    layer.forward(randn((2,) + op.in_shape, 1), training=False)
+    assert not layer._buffers and layer._wino is None
+
+
+def test_network_trained_with_either_algorithm_gives_the_same_gradients():
+    """A whole network (auto picks Winograd for its c16k3) matches the im2col walk in float64."""
+    text = "8x8rgb/c16k3-p2-c16k3-bn-gap"
+    nets = [Network.from_arch(text, 3, seed=1, dtype=np.float64) for _ in range(2)]
+    chosen = [pick_algorithm(l.kernel, l.stride, l.c_in, l.filters, True)
+              for l in nets[0].layers if isinstance(l, Conv)]
+    assert chosen == ["im2col", "winograd"]  # c_in 3, then 16
+    for layer in nets[1].layers:
+        if isinstance(layer, Conv):
+            layer.algorithm = "im2col"
+    x, labels = randn((6, 8, 8, 3), 2), np.arange(6) % 3
+    grads = []
+    for net in nets:
+        logits = net.forward(x, training=True)
+        _, g = softmax_cross_entropy(logits, labels)
+        net.backward(g)
+        grads.append({name: a.copy() for name, a in net.grad_list()})
+    assert grads[0].keys() == grads[1].keys()
+    for name in grads[0]:
+        np.testing.assert_allclose(grads[0][name], grads[1][name], rtol=1e-9, atol=1e-12,
+                                   err_msg=name)
+
+
+def test_algorithm_choice_and_bad_settings():
+    """auto follows the measured thresholds; a bad name or shape is refused with the layer named."""
+    assert pick_algorithm(3, 1, 32, 64, False) == "winograd"
+    assert pick_algorithm(3, 1, 8, 16, True) == "winograd"
+    assert pick_algorithm(3, 1, 8, 16, False) == "im2col"
+    assert pick_algorithm(3, 1, 3, 32, True) == "im2col"
+    assert pick_algorithm(3, 2, 32, 32, True) == "im2col"
+    assert pick_algorithm(5, 1, 32, 32, True) == "im2col"
+    layer = build(conv_op(6, 6, 2, 2, 5, 1), np.random.default_rng(0), np.float64)
+    layer.algorithm = "winograd"
+    with pytest.raises(ValueError, match="3 x 3 kernel of stride 1"):
+        layer.forward(randn((1, 6, 6, 2)))
+    layer.algorithm = "fast"
+    with pytest.raises(ValueError, match="algorithm must be one of"):
+        layer.forward(randn((1, 6, 6, 2)))
+
+
+def test_plane_buffer_planes_are_contiguous_and_not_4k_apart():
+    """Each of the 16 planes is C-contiguous; the plane stride avoids multiples of 4 KiB."""
+    for tiles, channels in ((64, 32), (4096, 64), (7, 3)):
+        a = kw.plane_buffer(tiles, channels, np.float32)
+        assert a.shape == (16, tiles, channels)
+        assert a[3].flags.c_contiguous
+        assert a.strides[0] % 4096 != 0 and a.strides[0] >= tiles * channels * 4
+        a[...] = np.arange(a.size, dtype=np.float32).reshape(a.shape)  # no overlap between planes
+        assert np.array_equal(a.reshape(-1), np.arange(a.size, dtype=np.float32))
