@@ -159,3 +159,21 @@ def test_im2col_both_loop_orders_match_the_reference(c, k, s):
 
     xp = randn((2, 9, 10, c), c + k)
     np.testing.assert_array_equal(kc.im2col(xp, k, k, s), reference.im2col(xp, k, k, s))
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+@pytest.mark.parametrize("c, k, s, hp, wp", [(3, 3, 1, 9, 11), (3, 3, 2, 10, 9), (1, 3, 1, 7, 8),
+                                             (8, 3, 1, 8, 7), (3, 5, 2, 11, 12), (33, 2, 1, 4, 5)])
+def test_im2col_col2im_short_and_long_runs_match_the_references(dtype, c, k, s, hp, wp):
+    """im2col (the 9-value copy of 3 x 3 on 3 channels and the slice loop) and col2im equal the
+    loop references exactly: col2im adds in the reference's order."""
+    from tinyconv.layers import kernels_conv as kc
+
+    xp = randn((2, hp, wp, c), c + 7 * k + s).astype(dtype)
+    cols = kc.im2col(xp, k, k, s, np.full((2, (hp - k) // s + 1, (wp - k) // s + 1, k, k, c),
+                                          np.nan, dtype=dtype))  # every entry written
+    assert cols.dtype == dtype
+    np.testing.assert_array_equal(cols, reference.im2col(xp, k, k, s))
+    g = randn(cols.shape, c + k).astype(dtype)
+    got = kc.col2im(g, xp.shape, k, k, s, np.full(xp.shape, np.nan, dtype=dtype))
+    np.testing.assert_array_equal(got, reference.col2im(g, xp.shape, k, k, s))

@@ -90,29 +90,38 @@ def im2col(xp: np.ndarray, kh: int, kw: int, stride: int,
 
 @njit(cache=True)
 def _im2col_kernel(xp, c, stride, out):
-    """Copy ``xp (n, hp, wp*c)`` into ``out (n, oh, ow, kh, kw*c)``, one kernel row at a time."""
+    """Copy ``xp (n, hp, wp*c)`` into ``out (n, oh, ow, kh, kw*c)``, one kernel row at a time.
+
+    Each kernel row is copied from a slice (indexed from 0), a loop LLVM
+    vectorises with one overlap check; the 9-value run of a 3 x 3 kernel on
+    3 channels (RGB input) is too short for that and is copied through nine
+    locals, all loaded before any is stored, which vectorises without the
+    check. Measured against the former loops (kernel row outside the pixel
+    loop for short runs) at batch 64: 2.5-4x faster for c_in = 3, 2-4x for
+    8, 16 and 32.
+    """
     n, oh, ow, kh, span = out.shape
-    if span <= 32:
-        # Short runs (few channels): kernel row outside the pixel loop, so one
-        # input row feeds ow consecutive copies; measured 1.1-1.6x faster for
-        # c_in = 3 and 8, and 1.2x slower for 16 and 32, hence the switch.
-        for b in range(n):
-            for y in range(oh):
-                for i in range(kh):
-                    row = y * stride + i
-                    for x in range(ow):
-                        start = x * stride * c
-                        for q in range(span):
-                            out[b, y, x, i, q] = xp[b, row, start + q]
-        return
     for b in range(n):
         for y in range(oh):
             for x in range(ow):
                 start = x * stride * c
                 for i in range(kh):
-                    row = y * stride + i
-                    for q in range(span):
-                        out[b, y, x, i, q] = xp[b, row, start + q]
+                    src = xp[b, y * stride + i, start:start + span]
+                    dst = out[b, y, x, i]
+                    if span == 9:
+                        _copy9(src, dst)
+                    else:
+                        for q in range(span):
+                            dst[q] = src[q]
+
+
+@njit(cache=True, inline="always")
+def _copy9(src, dst):
+    """``dst[:9] = src[:9]``, every load before the first store."""
+    a0, a1, a2, a3, a4 = src[0], src[1], src[2], src[3], src[4]
+    a5, a6, a7, a8 = src[5], src[6], src[7], src[8]
+    dst[0], dst[1], dst[2], dst[3], dst[4] = a0, a1, a2, a3, a4
+    dst[5], dst[6], dst[7], dst[8] = a5, a6, a7, a8
 
 
 def col2im(cols: np.ndarray, xp_shape: tuple[int, int, int, int], kh: int, kw: int,
@@ -144,7 +153,11 @@ def col2im(cols: np.ndarray, xp_shape: tuple[int, int, int, int], kh: int, kw: i
 
 @njit(cache=True)
 def _col2im_kernel(cols, c, stride, out):
-    """``out (n, hp, wp*c)`` = sum of ``cols (n, oh, ow, kh, kw*c)`` at their pixels."""
+    """``out (n, hp, wp*c)`` = sum of ``cols (n, oh, ow, kh, kw*c)`` at their pixels.
+
+    Adds in the order of the pixel walk (rows, then pixels, then kernel rows),
+    through slices indexed from 0 as in :func:`_im2col_kernel`.
+    """
     out[:] = 0
     n, oh, ow, kh, span = cols.shape
     for b in range(n):
@@ -152,9 +165,22 @@ def _col2im_kernel(cols, c, stride, out):
             for x in range(ow):
                 start = x * stride * c
                 for i in range(kh):
-                    row = y * stride + i
-                    for q in range(span):
-                        out[b, row, start + q] += cols[b, y, x, i, q]
+                    src = cols[b, y, x, i]
+                    dst = out[b, y * stride + i, start:start + span]
+                    if span == 9:
+                        _add9(src, dst)
+                    else:
+                        for q in range(span):
+                            dst[q] += src[q]
+
+
+@njit(cache=True, inline="always")
+def _add9(src, dst):
+    """``dst[:9] += src[:9]``, every load before the first store."""
+    a0, a1, a2, a3, a4 = dst[0] + src[0], dst[1] + src[1], dst[2] + src[2], dst[3] + src[3], dst[4] + src[4]
+    a5, a6, a7, a8 = dst[5] + src[5], dst[6] + src[6], dst[7] + src[7], dst[8] + src[8]
+    dst[0], dst[1], dst[2], dst[3], dst[4] = a0, a1, a2, a3, a4
+    dst[5], dst[6], dst[7], dst[8] = a5, a6, a7, a8
 
 
 def crop_nhwc(xp: np.ndarray, pads: tuple[int, int, int, int], h: int, w: int) -> np.ndarray:
