@@ -5,6 +5,7 @@ Usage::
     python benchmarks/search.py              # the full demo's settings, both parts
     python benchmarks/search.py --quick      # small data and few candidates (smoke run)
     python benchmarks/search.py --part sh    # only successive halving vs --full
+    python benchmarks/search.py --part throughput --throughput-candidates 24 --throughput-epochs 9
 
 Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
 
@@ -109,6 +110,10 @@ def main(argv=None) -> int:
                         help="final epochs R for part 2 (default: the demo's)")
     parser.add_argument("--min-epochs", type=int, default=None, metavar="N",
                         help="shortest rung for part 2 (default: the demo's)")
+    parser.add_argument("--throughput-candidates", type=int, default=None, metavar="N",
+                        help="candidates of part 1 (default 12; 4 with --quick)")
+    parser.add_argument("--throughput-epochs", type=int, default=None, metavar="E",
+                        help="epochs per unit in part 1 (default 3; 2 with --quick)")
     parser.add_argument("--lr", type=float, default=None,
                         help="learning rate of every unit (default: the demo's)")
     args = parser.parse_args(argv)
@@ -119,6 +124,8 @@ def main(argv=None) -> int:
     data, sample, epochs, min_epochs = (demo["data"], demo["max_candidates"],
                                         demo["max_epochs"], demo["min_epochs"])
     t_sample, t_epochs = (4, 2) if args.quick else (12, 3)
+    t_sample = args.throughput_candidates or t_sample
+    t_epochs = args.throughput_epochs or t_epochs
     sample = args.candidates if args.candidates is not None else sample
     epochs = args.epochs if args.epochs is not None else epochs
     min_epochs = args.min_epochs if args.min_epochs is not None else min_epochs
