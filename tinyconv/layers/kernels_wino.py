@@ -68,18 +68,20 @@ def tiles(oh: int, ow: int) -> tuple[int, int]:
     return (oh + 1) // 2, (ow + 1) // 2
 
 
+# Both filter transforms in one product: GG[4 i + j, 3 a + b] = G[i, a] G[j, b].
+GG = np.kron(G, G)
+
+
 def filter_transform(w: np.ndarray) -> np.ndarray:
     """``U = G w G^T`` per channel pair: ``w (3, 3, c, f) -> (16, c, f)``, same dtype."""
-    g = G.astype(w.dtype)
-    u = np.einsum("ia,abcf,jb->ijcf", g, w, g, optimize=True)
-    return np.ascontiguousarray(u.reshape(16, w.shape[2], w.shape[3]))
+    c, f = w.shape[2], w.shape[3]
+    return (GG.astype(w.dtype) @ w.reshape(9, c * f)).reshape(16, c, f)
 
 
 def filter_transform_adjoint(du: np.ndarray) -> np.ndarray:
     """Adjoint of :func:`filter_transform`: ``dU (16, c, f) -> dw = G^T dU G (3, 3, c, f)``."""
-    g = G.astype(du.dtype)
-    d = du.reshape(4, 4, du.shape[1], du.shape[2])
-    return np.ascontiguousarray(np.einsum("ia,ijcf,jb->abcf", g, d, g, optimize=True))
+    c, f = du.shape[1], du.shape[2]
+    return (GG.T.astype(du.dtype) @ du.reshape(16, c * f)).reshape(3, 3, c, f)
 
 
 @njit(cache=True)
