@@ -16,6 +16,7 @@ import importlib
 import io
 import pstats
 import time
+import types
 from collections import defaultdict
 
 import numpy as np
@@ -60,12 +61,20 @@ def timed_kernels(where: dict, acc: dict):
     to ``acc[(layer key, pass, function name)]``.
     """
     saved = []
+    targets = []
     for short in LAYER_MODULES:
         mod = importlib.import_module(f"tinyconv.layers.{short}")
         for name, fn in list(vars(mod).items()):
-            if not (callable(fn) and getattr(fn, "__module__", "").startswith(
-                    "tinyconv.layers.kernels")):
-                continue
+            if callable(fn) and getattr(fn, "__module__", "").startswith(
+                    "tinyconv.layers.kernels"):
+                targets.append((mod, name, fn))
+            elif isinstance(fn, types.ModuleType) and fn.__name__.startswith(
+                    "tinyconv.layers.kernels"):
+                # A kernel module used by attribute (``wino.input_transform``).
+                targets += [(fn, n, f) for n, f in list(vars(fn).items())
+                            if callable(f) and getattr(f, "__module__", "") == fn.__name__]
+    for mod, name, fn in targets:
+        if True:
 
             def timed(*a, _fn=fn, _name=name, **k):
                 t = time.perf_counter()
