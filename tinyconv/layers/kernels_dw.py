@@ -298,9 +298,9 @@ def _dw1_backward_kernel(g, y, masked, x, c, wt, top, left, gx, gw, gb):
                     src, dst = x[b, r, lo + shift:hi + shift], gx[b, r, lo + shift:hi + shift]
                     gr, taps, acc = gm[lo:hi], wt[i, j, lo:hi], part[i, j, lo:hi]
                     for q in range(hi - lo):
-                        dst[q] += gr[q] * taps[q]
-                    for q in range(hi - lo):
-                        acc[q] += gr[q] * src[q]
+                        v = gr[q]
+                        dst[q] += v * taps[q]
+                        acc[q] += v * src[q]
         for i in range(kh):
             for j in range(kw):
                 for q in range(span):
