@@ -10,7 +10,8 @@ from tinyconv.errors import DataError, InputError
 from tinyconv.network import Network
 from tinyconv.quant import int8_logits, quantize_network
 from tinyconv.quant.calibrate import scale_zero_point
-from tinyconv.quant.integer import accumulate, quantize_input, rounding_divide, run_layer
+from tinyconv.quant.integer import (accumulate, integer_matmul, quantize_input, rounding_divide,
+                                    run_layer)
 from tinyconv.quant.quantize import input_table
 
 
@@ -181,3 +182,21 @@ def test_as_pixels_inverts_prepare_of_uint8():
 
     raw = np.arange(256, dtype=np.uint8).reshape(1, 16, 16, 1)
     np.testing.assert_array_equal(as_pixels(raw.astype(np.float32) * np.float32(1 / 255)), raw)
+
+
+def test_integer_matmul_is_exact_on_both_paths():
+    """The float64-BLAS product equals NumPy's int64 product bit for bit; huge values take int64."""
+    rng = np.random.default_rng(11)
+    # int8-layer ranges: inputs minus zero point in [-255, 255], weights in [-127, 127].
+    a = rng.integers(-255, 256, size=(37, 4608))
+    b = rng.integers(-127, 128, size=(4608, 9))
+    got = integer_matmul(a, b)
+    assert got.dtype == np.int64
+    np.testing.assert_array_equal(got, a @ b)  # NumPy int64 product: exact integer arithmetic
+    # 9 terms of about 2**52 exceed 2**53 and the odd total needs 56 bits: float64
+    # would round it, so the int64 path must run.
+    big_a = np.full((2, 9), 2 ** 31 + 1, dtype=np.int64)
+    big_b = np.full((9, 1), 2 ** 21 + 1, dtype=np.int64)
+    want = 9 * (2 ** 31 + 1) * (2 ** 21 + 1)
+    assert integer_matmul(big_a, big_b)[0, 0] == want
+    assert int(round(float(big_a[0] @ big_b[:, 0].astype(float)))) != want  # what float64 gives

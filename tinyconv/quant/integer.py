@@ -47,6 +47,28 @@ def requantize(acc: np.ndarray, layer: QuantLayer) -> np.ndarray:
     return np.clip(y, layer.lo, layer.hi).astype(np.int8)
 
 
+# float64 represents every integer of magnitude below 2**53 exactly, so a
+# product of integer matrices computed by float64 BLAS is exact (in any
+# summation order) while every partial sum stays below that (IEEE 754 binary64:
+# 53-bit significand).
+_EXACT = 2.0 ** 53
+
+
+def integer_matmul(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+    """``a @ b`` for integer arrays, exactly, as int64.
+
+    Runs as a float64 BLAS product when ``K * max|a| * max|b|`` bounds every
+    partial sum below 2**53 (int8 layers are far below it: 255 * 127 per term),
+    else as NumPy's int64 product, which is exact but has no BLAS and is tens
+    of times slower.
+    """
+    k = a.shape[-1]
+    bound = float(k) * float(np.abs(a).max(initial=0)) * float(np.abs(b).max(initial=0))
+    if bound < _EXACT:
+        return (a.astype(np.float64) @ b.astype(np.float64)).astype(np.int64)
+    return a.astype(np.int64) @ b.astype(np.int64)
+
+
 def accumulate(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
     """The int32 accumulators of a conv, dwconv or dense layer (bias included).
 
@@ -65,11 +87,11 @@ def accumulate(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
         cols = conv_patches(xs, layer.op)  # (n, oh, ow, k, k, c)
         kkc = cols.shape[3] * cols.shape[4] * cols.shape[5]
         # (n, oh, ow, k*k*c) @ (k*k*c, f)
-        acc = cols.reshape(*cols.shape[:3], kkc) @ w.reshape(kkc, -1)
+        acc = integer_matmul(cols.reshape(*cols.shape[:3], kkc), w.reshape(kkc, -1))
     elif layer.kind == "dwconv":
         acc = np.einsum("nyxijc,ijc->nyxc", conv_patches(xs, layer.op), w)
     elif layer.kind == "dense":
-        acc = xs.reshape(n, -1) @ w  # a map is read in NHWC order, as flatten does
+        acc = integer_matmul(xs.reshape(n, -1), w)  # a map is read in NHWC order, as flatten does
     else:
         raise ValueError(f"layer kind {layer.kind!r} has no accumulators")
     return acc + layer.bias
