@@ -26,7 +26,7 @@ import _timing
 
 
 #: layer modules whose kernel helpers (functions from ``tinyconv.layers.kernels_*``) are timed
-LAYER_MODULES = ("activation", "conv", "dense", "depthwise", "pool", "norm")
+LAYER_MODULES = ("activation", "conv", "winograd", "dense", "depthwise", "pool", "norm")
 
 
 def _wrap(layer, key: str, acc: dict, where: dict | None = None) -> None:

@@ -15,6 +15,7 @@ from helpers import conv_op, randn
 from tinyconv.gradients import check_layer
 from tinyconv.layers import build, reference
 from tinyconv.layers import kernels_wino as kw
+from tinyconv.layers import winograd
 from tinyconv.layers.conv import Conv, pick_algorithm
 from tinyconv.losses import softmax_cross_entropy
 from tinyconv.network import Network
@@ -202,3 +203,23 @@ def test_plane_buffer_planes_are_contiguous_and_not_4k_apart():
         assert a.strides[0] % 4096 != 0 and a.strides[0] >= tiles * channels * 4
         a[...] = np.arange(a.size, dtype=np.float32).reshape(a.shape)  # no overlap between planes
         assert np.array_equal(a.reshape(-1), np.arange(a.size, dtype=np.float32))
+
+
+@pytest.mark.parametrize("chunk_bytes", [1, 16000, 1 << 30])
+def test_chunks_of_images_give_the_same_results(monkeypatch, chunk_bytes):
+    """One image per chunk, ragged chunks (2 + 2 + 1 images) and the whole batch agree with the reference."""
+    monkeypatch.setattr(winograd, "CHUNK_BYTES", chunk_bytes)
+    op, layer = _layer((7, 6, 4, 5, False), seed=8, relu=True)
+    x = randn((5,) + op.in_shape, 9)
+    per = 4 * 3  # tiles per image: ceil(7 / 2) x ceil(6 / 2)
+    assert winograd.chunk_images(per, 5, 8, 5) == {1: 1, 16000: 2, 1 << 30: 5}[chunk_bytes]
+    y = layer.forward(x, training=True)
+    ref = np.maximum(reference.conv_forward(x, layer.params["w"], layer.params["b"], 1, op.pads), 0)
+    np.testing.assert_allclose(y, ref, rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(layer.forward(x), ref, rtol=1e-11, atol=1e-12)  # inference chunks too
+    g = randn(y.shape, 10)
+    gx = layer.backward(g)
+    rgx, rgw, rgb = reference.conv_backward(g * (ref > 0), x, layer.params["w"], 1, op.pads)
+    np.testing.assert_allclose(gx, rgx, rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["w"], rgw, rtol=1e-11, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["b"], rgb, rtol=1e-11, atol=1e-12)

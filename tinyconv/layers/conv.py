@@ -8,7 +8,7 @@ from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
 from tinyconv.layers.kernels_act import add_bias_, bias_relu_, column_sum, relu_backward
 from tinyconv.layers.kernels_conv import col2im, conv_out_size, crop_nhwc, im2col, pad_nhwc
-from tinyconv.layers import kernels_wino as wino
+from tinyconv.layers import winograd
 
 ALGORITHMS = ("auto", "im2col", "winograd")
 
@@ -130,41 +130,14 @@ class Conv(Layer):
         if self.kernel != 3 or self.stride != 1:
             raise ValueError(f"{self.name}: the winograd algorithm needs a 3 x 3 kernel of "
                              f"stride 1, not {self.kernel} x {self.kernel} stride {self.stride}")
-        w, b = self.params["w"], self.params["b"]
-        n, h, wd, c = x.shape
-        f = self.filters
-        top, bottom, left, right = self.pads
-        oh, ow = h + top + bottom - 2, wd + left + right - 2
-        th, tw = wino.tiles(oh, ow)
-        # Tiles step by 2 over an input of 2 * tiles + 2: one more zero row or
-        # column at the end when the output size is odd.
-        pads = (top, bottom + 2 * th - oh, left, right + 2 * tw - ow)
         buf = self._buffers if training else {}
-        xp = pad_nhwc(x, pads, buf.get("xp"))
-        t = n * th * tw
-        v = self._planes(buf, "v", t, c, x.dtype)
-        wino.input_transform(xp, th, tw, v)
-        u = wino.filter_transform(w)
-        m = self._planes(buf, "m", t, f, x.dtype)
-        np.matmul(v, u, out=m)
-        y = np.empty((n, oh, ow, f), dtype=x.dtype)
-        wino.output_transform(m, b, relu, th, tw, y)
+        y, saved = winograd.forward(x, self.params["w"], self.params["b"], self.pads, relu,
+                                    buf, training)
         if training:
-            if xp is not x:
-                buf["xp"] = xp
-            self._cols, self._x_shape, self._xp_shape = None, x.shape, xp.shape
+            self._cols, self._x_shape, self._xp_shape = None, x.shape, saved.xp_shape
             self._y = y if relu else None
-            self._wino = (v, u, pads, th, tw)
+            self._wino = saved
         return y
-
-    @staticmethod
-    def _planes(buf: dict, key: str, tiles: int, channels: int, dtype) -> np.ndarray:
-        """A ``(16, tiles, channels)`` transform buffer, reused from ``buf`` when it fits."""
-        a = buf.get(key)
-        if a is None or a.shape != (16, tiles, channels) or a.dtype != dtype:
-            a = wino.plane_buffer(tiles, channels, dtype)
-            buf[key] = a
-        return a
 
     def backward(self, grad_out: np.ndarray, masked: bool = False) -> np.ndarray | None:
         """Input gradient (None when ``input_grad`` is False); sets ``grads``.
@@ -203,28 +176,9 @@ class Conv(Layer):
         return crop_nhwc(gxp, self.pads, h, wd)
 
     def _backward_winograd(self, grad_out: np.ndarray) -> np.ndarray | None:
-        """The adjoints of the forward's transforms and products (see kernels_wino)."""
-        v, u, pads, th, tw = self._wino
-        f, c = self.filters, self.c_in
-        g = np.ascontiguousarray(grad_out)
-        self.grads["b"] = column_sum(g.reshape(-1, f))
-        buf = self._buffers
-        dm = self._planes(buf, "m", v.shape[1], f, g.dtype)
-        wino.output_transform_adjoint(g, th, tw, dm)
-        self.grads["w"] = wino.filter_transform_adjoint(np.matmul(v.transpose(0, 2, 1), dm))
-        if not self.input_grad:
-            return None
-        dv = self._planes(buf, "dv", v.shape[1], c, g.dtype)
-        np.matmul(dm, u.transpose(0, 2, 1), out=dv)
-        n, h, wd, _ = self._x_shape
-        padded = any(pads)
-        gxp = buf.get("gxp") if padded else None
-        if gxp is None or gxp.shape != self._xp_shape or gxp.dtype != g.dtype:
-            gxp = np.empty(self._xp_shape, dtype=g.dtype)
-        wino.input_transform_adjoint(dv, th, tw, gxp)
-        if padded:
-            buf["gxp"] = gxp
-        return crop_nhwc(gxp, pads, h, wd)
+        gx, self.grads["w"], self.grads["b"] = winograd.backward(
+            self._wino, grad_out, self.input_grad, self._buffers)
+        return gx
 
     def kink_state(self) -> np.ndarray | None:
         """With the fused ReLU, where the last training output was positive (for gradient checks)."""
