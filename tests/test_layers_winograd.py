@@ -1,4 +1,4 @@
-"""Tests of the Winograd F(2x2, 3x3) path of the convolution layer.
+"""Tests of the Winograd paths of the convolution layer: F(2x2, 3x3) and F(4x4, 3x3).
 
 Outside references: numpy.correlate and scipy.signal.correlate (the
 convolution itself), the loop references of tinyconv.layers.reference, and
@@ -14,7 +14,10 @@ from scipy import signal
 from helpers import conv_op, randn
 from tinyconv.gradients import check_layer
 from tinyconv.layers import build, reference
+from tinyconv.layers import _wino4_unrolled as kw4u
+from tinyconv.layers import gen_wino4
 from tinyconv.layers import kernels_wino as kw
+from tinyconv.layers import kernels_wino4 as kw4
 from tinyconv.layers import winograd
 from tinyconv.layers.conv import Conv, pick_algorithm
 from tinyconv.losses import softmax_cross_entropy
@@ -33,41 +36,49 @@ SHAPES = [
 ]
 
 
-def _layer(shape, seed=0, dtype=np.float64, relu=False):
+ALGORITHMS = ["winograd", "winograd4"]
+# The transform matrices of each algorithm (module, tile size).
+MATRICES = [(kw, 4), (kw4, 6)]
+
+
+def _layer(shape, seed=0, dtype=np.float64, relu=False, algorithm="winograd"):
     h, w, c, f, valid = shape
     op = conv_op(h, w, c, f, 3, 1, valid)
     layer = build(op, np.random.default_rng(seed), dtype)
     layer.params["b"][...] = randn((f,), seed + 7)
-    layer.algorithm = "winograd"
+    layer.algorithm = algorithm
     layer.relu = relu
     return op, layer
 
 
-def test_one_dimensional_minimal_filter_equals_numpy_correlate():
-    """F(2, 3) in one dimension: A^T [(G g) * (B^T d)] is the 2-output correlation of d with g."""
+@pytest.mark.parametrize("mod, alpha", MATRICES)
+def test_one_dimensional_minimal_filter_equals_numpy_correlate(mod, alpha):
+    """F(m, 3) in one dimension: A^T [(G g) * (B^T d)] is the m-output correlation of d with g."""
     rng = np.random.default_rng(0)
     for _ in range(20):
-        d, g = rng.standard_normal(4), rng.standard_normal(3)
-        got = kw.AT @ ((kw.G @ g) * (kw.BT @ d))
+        d, g = rng.standard_normal(alpha), rng.standard_normal(3)
+        got = mod.AT @ ((mod.G @ g) * (mod.BT @ d))
         # Reference: numpy.correlate, mode 'valid' (no kernel flip).
         np.testing.assert_allclose(got, np.correlate(d, g, mode="valid"), rtol=1e-12, atol=1e-14)
 
 
-def test_two_dimensional_tile_equals_scipy_correlate2d():
-    """One 4 x 4 tile: A^T [(G g G^T) * (B^T d B)] A is scipy's valid 2-D correlation."""
+@pytest.mark.parametrize("mod, alpha", MATRICES)
+def test_two_dimensional_tile_equals_scipy_correlate2d(mod, alpha):
+    """One tile: A^T [(G g G^T) * (B^T d B)] A is scipy's valid 2-D correlation."""
     rng = np.random.default_rng(1)
     for _ in range(20):
-        d, g = rng.standard_normal((4, 4)), rng.standard_normal((3, 3))
-        got = kw.AT @ ((kw.G @ g @ kw.G.T) * (kw.BT @ d @ kw.BT.T)) @ kw.AT.T
+        d, g = rng.standard_normal((alpha, alpha)), rng.standard_normal((3, 3))
+        got = mod.AT @ ((mod.G @ g @ mod.G.T) * (mod.BT @ d @ mod.BT.T)) @ mod.AT.T
         np.testing.assert_allclose(got, signal.correlate2d(d, g, mode="valid"),
                                    rtol=1e-12, atol=1e-13)
 
 
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
 @pytest.mark.parametrize("relu", [False, True])
-@pytest.mark.parametrize("shape", SHAPES)
-def test_forward_and_backward_match_loop_reference(shape, relu):
+@pytest.mark.parametrize("shape", SHAPES + [(13, 10, 3, 4, False), (10, 9, 2, 3, True)])
+def test_forward_and_backward_match_loop_reference(shape, relu, algorithm):
     """Winograd forward, input, weight and bias gradients equal the loop reference (float64)."""
-    op, layer = _layer(shape, seed=2, relu=relu)
+    op, layer = _layer(shape, seed=2, relu=relu, algorithm=algorithm)
     x = randn((3,) + op.in_shape, 3)
     y = layer.forward(x, training=True)
     ref = reference.conv_forward(x, layer.params["w"], layer.params["b"], 1, op.pads)
@@ -84,10 +95,11 @@ def test_forward_and_backward_match_loop_reference(shape, relu):
     np.testing.assert_allclose(layer.grads["b"], rgb, rtol=1e-11, atol=1e-12)
 
 
-@pytest.mark.parametrize("shape", SHAPES[:4])
-def test_gradients_match_central_differences(shape):
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
+@pytest.mark.parametrize("shape", SHAPES[:4] + [(10, 9, 2, 3, False)])
+def test_gradients_match_central_differences(shape, algorithm):
     """The transforms' adjoints are the true gradients: central differences agree (< 1e-6)."""
-    op, layer = _layer(shape)
+    op, layer = _layer(shape, algorithm=algorithm)
     # Outside check: central differences (Nocedal & Wright, section 8.1 [from memory]).
     rows = check_layer(layer, randn((2,) + op.in_shape, 5), seed=1, max_coords=None)
     assert [r.tensor for r in rows] == ["x", "w", "b"]
@@ -95,31 +107,36 @@ def test_gradients_match_central_differences(shape):
         assert row.passed and row.max_rel_error < 1e-6, row
 
 
-def test_float32_agrees_with_im2col_to_float32_precision():
-    """In float32 the two algorithms differ only by rounding (16 x 16 x 32 -> 64, as in N3)."""
+@pytest.mark.parametrize("algorithm, tol", [("winograd", 2e-6), ("winograd4", 2e-5)])
+def test_float32_agrees_with_im2col_to_float32_precision(algorithm, tol):
+    """In float32 the algorithms differ only by rounding (16 x 16 x 32 -> 64, as in N3).
+
+    F(4x4, 3x3)'s larger coefficients round about ten times more (common practice).
+    """
     rng = np.random.default_rng(6)
     x = rng.standard_normal((4, 16, 16, 32)).astype(np.float32)
     layers = {}
-    for alg in ("im2col", "winograd"):
+    for alg in ("im2col", algorithm):
         layer = Conv(32, 64, 3, 1, (1, 1, 1, 1), rng=np.random.default_rng(7), relu=True)
         layer.params["b"][...] = 0.1
         layer.algorithm = alg
         layers[alg] = layer
     ys = {a: layer.forward(x, True) for a, layer in layers.items()}
-    assert ys["winograd"].dtype == np.float32
+    assert ys[algorithm].dtype == np.float32
     g = rng.standard_normal(ys["im2col"].shape).astype(np.float32)
     gxs = {a: layer.backward(g) for a, layer in layers.items()}
     scale = np.abs(ys["im2col"]).max()
-    np.testing.assert_allclose(ys["winograd"], ys["im2col"], atol=2e-6 * scale)
-    np.testing.assert_allclose(gxs["winograd"], gxs["im2col"], atol=2e-6 * np.abs(gxs["im2col"]).max())
+    np.testing.assert_allclose(ys[algorithm], ys["im2col"], atol=tol * scale)
+    np.testing.assert_allclose(gxs[algorithm], gxs["im2col"], atol=tol * np.abs(gxs["im2col"]).max())
     for key in ("w", "b"):
         ref = layers["im2col"].grads[key]
-        np.testing.assert_allclose(layers["winograd"].grads[key], ref, atol=1e-5 * np.abs(ref).max())
+        np.testing.assert_allclose(layers[algorithm].grads[key], ref, atol=5 * tol * np.abs(ref).max())
 
 
-def test_reused_buffers_follow_the_batch_size_and_keep_earlier_outputs():
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
+def test_reused_buffers_follow_the_batch_size_and_keep_earlier_outputs(algorithm):
     """A smaller last batch reallocates the tile buffers; earlier outputs are untouched."""
-    op, layer = _layer((6, 6, 4, 3, False))
+    op, layer = _layer((6, 6, 4, 3, False), algorithm=algorithm)
     x1, x2 = randn((5,) + op.in_shape, 1), randn((2,) + op.in_shape, 2)
     y1 = layer.forward(x1, training=True)
     y1_copy = y1.copy()
@@ -133,9 +150,10 @@ def test_reused_buffers_follow_the_batch_size_and_keep_earlier_outputs():
     np.testing.assert_allclose(layer.grads["w"], rgw, rtol=1e-11, atol=1e-12)
 
 
-def test_skipped_input_gradient_keeps_parameter_gradients():
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
+def test_skipped_input_gradient_keeps_parameter_gradients(algorithm):
     """With input_grad False the backward returns None and the same weight gradient."""
-    op, layer = _layer((5, 7, 3, 2, False))
+    op, layer = _layer((5, 7, 3, 2, False), algorithm=algorithm)
     x = randn((2,) + op.in_shape, 1)
     g = randn((2,) + op.out_shape, 2)
     layer.forward(x, training=True)
@@ -160,7 +178,7 @@ def test_network_trained_with_either_algorithm_gives_the_same_gradients():
     nets = [Network.from_arch(text, 3, seed=1, dtype=np.float64) for _ in range(2)]
     chosen = [pick_algorithm(l.kernel, l.stride, l.c_in, l.filters, True)
               for l in nets[0].layers if isinstance(l, Conv)]
-    assert chosen == ["im2col", "winograd"]  # c_in 3, then 16
+    assert chosen == ["im2col", "winograd4"]  # c_in 3, then 16
     for layer in nets[1].layers:
         if isinstance(layer, Conv):
             layer.algorithm = "im2col"
@@ -180,15 +198,18 @@ def test_network_trained_with_either_algorithm_gives_the_same_gradients():
 def test_algorithm_choice_and_bad_settings():
     """auto follows the measured thresholds; a bad name or shape is refused with the layer named."""
     assert pick_algorithm(3, 1, 32, 64, False) == "winograd"
+    assert pick_algorithm(3, 1, 32, 64, True) == "winograd4"
+    assert pick_algorithm(3, 1, 16, 8, True) == "winograd4"
     assert pick_algorithm(3, 1, 8, 16, True) == "winograd"
     assert pick_algorithm(3, 1, 8, 16, False) == "im2col"
     assert pick_algorithm(3, 1, 3, 32, True) == "im2col"
     assert pick_algorithm(3, 2, 32, 32, True) == "im2col"
     assert pick_algorithm(5, 1, 32, 32, True) == "im2col"
     layer = build(conv_op(6, 6, 2, 2, 5, 1), np.random.default_rng(0), np.float64)
-    layer.algorithm = "winograd"
-    with pytest.raises(ValueError, match="3 x 3 kernel of stride 1"):
-        layer.forward(randn((1, 6, 6, 2)))
+    for name in ALGORITHMS:
+        layer.algorithm = name
+        with pytest.raises(ValueError, match="3 x 3 kernel of stride 1"):
+            layer.forward(randn((1, 6, 6, 2)))
     layer.algorithm = "fast"
     with pytest.raises(ValueError, match="algorithm must be one of"):
         layer.forward(randn((1, 6, 6, 2)))
@@ -205,14 +226,16 @@ def test_plane_buffer_planes_are_contiguous_and_not_4k_apart():
         assert np.array_equal(a.reshape(-1), np.arange(a.size, dtype=np.float32))
 
 
+@pytest.mark.parametrize("algorithm", ALGORITHMS)
 @pytest.mark.parametrize("chunk_bytes", [1, 16000, 1 << 30])
-def test_chunks_of_images_give_the_same_results(monkeypatch, chunk_bytes):
+def test_chunks_of_images_give_the_same_results(monkeypatch, chunk_bytes, algorithm):
     """One image per chunk, ragged chunks (2 + 2 + 1 images) and the whole batch agree with the reference."""
     monkeypatch.setattr(winograd, "CHUNK_BYTES", chunk_bytes)
-    op, layer = _layer((7, 6, 4, 5, False), seed=8, relu=True)
+    op, layer = _layer((7, 6, 4, 5, False), seed=8, relu=True, algorithm=algorithm)
     x = randn((5,) + op.in_shape, 9)
-    per = 4 * 3  # tiles per image: ceil(7 / 2) x ceil(6 / 2)
-    assert winograd.chunk_images(per, 5, 8, 5) == {1: 1, 16000: 2, 1 << 30: 5}[chunk_bytes]
+    if algorithm == "winograd":
+        per = 4 * 3  # tiles per image: ceil(7 / 2) x ceil(6 / 2)
+        assert winograd.chunk_images(per, 5, 8, 5) == {1: 1, 16000: 2, 1 << 30: 5}[chunk_bytes]
     y = layer.forward(x, training=True)
     ref = np.maximum(reference.conv_forward(x, layer.params["w"], layer.params["b"], 1, op.pads), 0)
     np.testing.assert_allclose(y, ref, rtol=1e-11, atol=1e-12)
@@ -223,3 +246,53 @@ def test_chunks_of_images_give_the_same_results(monkeypatch, chunk_bytes):
     np.testing.assert_allclose(gx, rgx, rtol=1e-11, atol=1e-12)
     np.testing.assert_allclose(layer.grads["w"], rgw, rtol=1e-11, atol=1e-12)
     np.testing.assert_allclose(layer.grads["b"], rgb, rtol=1e-11, atol=1e-12)
+
+
+def test_generated_kernels_are_what_the_generator_writes():
+    """_wino4_unrolled.py is exactly the generator's output (regenerate after changing the matrices)."""
+    path = kw4u.__file__
+    with open(path, encoding="utf-8") as fh:
+        assert fh.read() == gen_wino4.source(), \
+            "run: python -m tinyconv.layers.gen_wino4 > tinyconv/layers/_wino4_unrolled.py"
+
+
+def test_generated_combination_reads_the_matrix_row():
+    """One generated expression: row 1 of B^T is (0, -4, -4, 1, 1, 0)."""
+    assert gen_wino4.combo(kw4.BT[1], ["a", "b", "c", "d", "e", "f"]) == "-k4 * b - k4 * c + d + e"
+    with pytest.raises(ValueError, match="not in CONSTANTS"):
+        gen_wino4.combo([3.0], ["a"])
+
+
+@pytest.mark.parametrize("dtype", [np.float32, np.float64])
+def test_unrolled_kernels_equal_the_loop_kernels(dtype):
+    """The straight-line F(4x4, 3x3) transforms give the loop kernels' values, edge tiles included."""
+    rng = np.random.default_rng(12)
+    n, c, f = 2, 5, 3
+    oh, ow = 9, 8                       # 3 x 2 tiles, the last row of tiles partial
+    th, tw = kw4.tiles(oh, ow)
+    xp = rng.standard_normal((n, 4 * th + 2, 4 * tw + 2, c)).astype(dtype)
+    k = np.array(kw4u.CONSTANTS, dtype=dtype)
+    nz = {name: kw4.nonzeros(p, dtype) for name, p in
+          (("BT", kw4.BT), ("B", kw4.BT.T), ("AT", kw4.AT), ("A", kw4.AT.T))}
+    t = n * th * tw
+    tol = dict(rtol=1e-5 if dtype == np.float32 else 1e-13, atol=1e-5 if dtype == np.float32 else 1e-13)
+    v1, v2 = np.empty((36, t, c), dtype), np.empty((36, t, c), dtype)
+    kw4.input_transform(xp, *nz["BT"], th, tw, v1)
+    kw4u.input_transform(xp, k, th, tw, v2)
+    np.testing.assert_allclose(v2, v1, **tol)
+    m = rng.standard_normal((36, t, f)).astype(dtype)
+    bias = rng.standard_normal(f).astype(dtype)
+    for relu in (False, True):
+        y1, y2 = np.empty((n, oh, ow, f), dtype), np.empty((n, oh, ow, f), dtype)
+        kw4.output_transform(m, *nz["AT"], bias, relu, th, tw, y1)
+        kw4u.output_transform(m, k, *nz["AT"], bias, relu, th, tw, y2)
+        np.testing.assert_allclose(y2, y1, **tol)
+    dy = rng.standard_normal((n, oh, ow, f)).astype(dtype)
+    d1, d2 = np.empty((36, t, f), dtype), np.empty((36, t, f), dtype)
+    kw4.output_transform_adjoint(dy, *nz["A"], th, tw, d1)
+    kw4u.output_transform_adjoint(dy, k, *nz["A"], th, tw, d2)
+    np.testing.assert_allclose(d2, d1, **tol)
+    g1, g2 = np.empty_like(xp), np.empty_like(xp)
+    kw4.input_transform_adjoint(v1, *nz["B"], th, tw, g1)
+    kw4u.input_transform_adjoint(v1, k, th, tw, g2)
+    np.testing.assert_allclose(g2, g1, **tol)

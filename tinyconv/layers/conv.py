@@ -1,4 +1,4 @@
-"""Standard convolution layer: im2col + one BLAS product, or Winograd F(2x2, 3x3)."""
+"""Standard convolution layer: im2col + one BLAS product, or Winograd F(2x2 or 4x4, 3x3)."""
 
 from __future__ import annotations
 
@@ -10,25 +10,27 @@ from tinyconv.layers.kernels_act import add_bias_, bias_relu_, column_sum, relu_
 from tinyconv.layers.kernels_conv import col2im, conv_out_size, crop_nhwc, im2col, pad_nhwc
 from tinyconv.layers import winograd
 
-ALGORITHMS = ("auto", "im2col", "winograd")
+ALGORITHMS = ("auto", "im2col", "winograd", "winograd4")
 
 
 def pick_algorithm(kernel: int, stride: int, c_in: int, filters: int, training: bool) -> str:
-    """The faster algorithm for a layer's shape, as measured on 2-core x86 machines.
+    """The fastest algorithm for a layer's shape, as measured on 2-core x86 machines.
 
-    Winograd F(2x2, 3x3) needs a 3 x 3 kernel of stride 1. It wins once the
-    channel counts are large enough for its 16 small products (``c_in x f`` per
-    tile) to run near the BLAS rate; below that, im2col's single product with
-    ``9 * c_in`` terms per output is faster. Measured per layer at batch 64
-    (forward + backward, 16 x 16 maps): c_in = 8, f = 16 trains 1.3x faster
-    with Winograd but infers 0.9x as fast; c_in = 16 or more wins both ways
-    (1.2-1.8x); c_in = 3 loses (0.5-0.8x). The backward pass gains more than
-    the forward (two of its three products shrink with the forward's), hence
-    the lower threshold in training.
+    Winograd needs a 3 x 3 kernel of stride 1. It wins once the channel counts
+    are large enough for its small products (``c_in x f`` per tile) to run near
+    the BLAS rate; below that, im2col's single product with ``9 * c_in`` terms
+    per output is faster. Measured per layer at batch 64 (forward + backward,
+    4 x 4 to 32 x 32 maps, interleaved): in training, F(4x4, 3x3) is 5-20%
+    faster than F(2x2, 3x3) from 16 input channels, and F(2x2, 3x3) is 1.3x
+    faster than im2col at 8; in inference F(4x4, 3x3) gains nothing over
+    F(2x2, 3x3) (which also rounds less), which wins from 16 input channels;
+    c_in = 3 loses with either (0.5-0.8x).
     """
     if kernel != 3 or stride != 1 or filters < 8:
         return "im2col"
-    return "winograd" if c_in >= (8 if training else 16) else "im2col"
+    if training:
+        return "winograd4" if c_in >= 16 else "winograd" if c_in >= 8 else "im2col"
+    return "winograd" if c_in >= 16 else "im2col"
 
 
 class Conv(Layer):
@@ -48,10 +50,11 @@ class Conv(Layer):
 
     Attributes
     ----------
-    algorithm : {"auto", "im2col", "winograd"}
+    algorithm : {"auto", "im2col", "winograd", "winograd4"}
         How forward and backward compute. ``"auto"`` (the default) takes
-        :func:`pick_algorithm` of the shape in each forward; either of the
-        others forces it (Winograd only for 3 x 3, stride 1). Both give the
+        :func:`pick_algorithm` of the shape in each forward; the others force
+        im2col, Winograd F(2x2, 3x3) or F(4x4, 3x3) (Winograd only for 3 x 3,
+        stride 1). Both give the
         same values up to float rounding (the tests compare them). Change it
         between steps, not between a forward and its backward.
     input_grad : bool
@@ -100,8 +103,8 @@ class Conv(Layer):
         elif algorithm not in ALGORITHMS:
             raise ValueError(f"{self.name}: algorithm must be one of {ALGORITHMS}, "
                              f"got {algorithm!r}")
-        if algorithm == "winograd":
-            return self._forward_winograd(x, training, relu)
+        if algorithm in ("winograd", "winograd4"):
+            return self._forward_winograd(x, training, relu, algorithm)
         n, h, wd, _ = x.shape
         k, s, f = self.kernel, self.stride, self.filters
         # Scratch buffers are reused only in training (inference keeps nothing).
@@ -126,13 +129,14 @@ class Conv(Layer):
             self._wino = None
         return y
 
-    def _forward_winograd(self, x: np.ndarray, training: bool, relu: bool) -> np.ndarray:
+    def _forward_winograd(self, x: np.ndarray, training: bool, relu: bool,
+                          algorithm: str) -> np.ndarray:
         if self.kernel != 3 or self.stride != 1:
             raise ValueError(f"{self.name}: the winograd algorithm needs a 3 x 3 kernel of "
                              f"stride 1, not {self.kernel} x {self.kernel} stride {self.stride}")
         buf = self._buffers if training else {}
         y, saved = winograd.forward(x, self.params["w"], self.params["b"], self.pads, relu,
-                                    buf, training)
+                                    buf, training, algorithm)
         if training:
             self._cols, self._x_shape, self._xp_shape = None, x.shape, saved.xp_shape
             self._y = y if relu else None

@@ -43,12 +43,12 @@ AT = np.array([[1, 1, 1, 0],
                [0, 1, -1, -1]], dtype=np.float64)
 
 
-def plane_buffer(tiles: int, channels: int, dtype) -> np.ndarray:
-    """An uninitialised ``(16, tiles, channels)`` array whose planes are not 4 KiB apart.
+def plane_buffer(tiles: int, channels: int, dtype, planes: int = 16) -> np.ndarray:
+    """An uninitialised ``(planes, tiles, channels)`` array whose planes are not 4 KiB apart.
 
-    The transform kernels read or write all 16 planes of one tile together. When
+    The transform kernels read or write all planes of one tile together. When
     the distance between planes is a multiple of 4 KiB (``tiles * channels`` a
-    multiple of 1024 floats, as with 64 tiles of 32 channels), the 16 streams
+    multiple of 1024 floats, as with 64 tiles of 32 channels), the streams
     fall into the same cache sets and evict each other: measured 7x slower on
     the input transform. The plane stride is therefore rounded up to a multiple
     of 4 KiB plus 256 bytes. Each plane stays C-contiguous, so BLAS takes it as is.
@@ -57,9 +57,9 @@ def plane_buffer(tiles: int, channels: int, dtype) -> np.ndarray:
     plane = tiles * channels
     per_page = 4096 // itemsize
     stride = -(-plane // per_page) * per_page + 256 // itemsize
-    flat = np.empty(15 * stride + plane, dtype=dtype)
+    flat = np.empty((planes - 1) * stride + plane, dtype=dtype)
     return np.lib.stride_tricks.as_strided(
-        flat, shape=(16, tiles, channels),
+        flat, shape=(planes, tiles, channels),
         strides=(stride * itemsize, channels * itemsize, itemsize), writeable=True)
 
 

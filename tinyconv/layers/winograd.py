@@ -1,8 +1,9 @@
-"""The Winograd F(2x2, 3x3) passes of a 3 x 3, stride-1 convolution.
+"""The Winograd passes of a 3 x 3, stride-1 convolution: F(2x2, 3x3) or F(4x4, 3x3).
 
 :class:`tinyconv.layers.conv.Conv` calls :func:`forward` and :func:`backward`
-when its algorithm is Winograd; the kernels and the algebra are in
-:mod:`tinyconv.layers.kernels_wino`.
+when its algorithm is one of the two :data:`VARIANTS`; the kernels and the
+algebra are in :mod:`tinyconv.layers.kernels_wino` (2 x 2 outputs per tile,
+hand-unrolled) and :mod:`tinyconv.layers.kernels_wino4` (4 x 4 outputs).
 
 The batch is processed in chunks of whole images, so that the transformed
 tiles and products of one chunk (about :data:`CHUNK_BYTES`) stay in cache
@@ -19,6 +20,8 @@ from dataclasses import dataclass
 import numpy as np
 
 from tinyconv.layers import kernels_wino as kw
+from tinyconv.layers import _wino4_unrolled as kw4u
+from tinyconv.layers import kernels_wino4 as kw4
 from tinyconv.layers.kernels_act import column_sum
 from tinyconv.layers.kernels_conv import crop_nhwc, pad_nhwc
 
@@ -26,12 +29,85 @@ from tinyconv.layers.kernels_conv import crop_nhwc, pad_nhwc
 CHUNK_BYTES = 1 << 20
 
 
+class _F2:
+    """F(2x2, 3x3): 16 planes, tiles of 4 stepping by 2."""
+
+    name, count, step = "winograd", 16, 2
+    tiles = staticmethod(kw.tiles)
+    filter_transform = staticmethod(kw.filter_transform)
+    filter_transform_adjoint = staticmethod(kw.filter_transform_adjoint)
+
+    @staticmethod
+    def input(xp, th, tw, v):
+        kw.input_transform(xp, th, tw, v)
+
+    @staticmethod
+    def output(m, b, relu, th, tw, y):
+        kw.output_transform(m, b, relu, th, tw, y)
+
+    @staticmethod
+    def output_adjoint(dy, th, tw, dm):
+        kw.output_transform_adjoint(dy, th, tw, dm)
+
+    @staticmethod
+    def input_adjoint(dv, th, tw, gxp):
+        kw.input_transform_adjoint(dv, th, tw, gxp)
+
+
+class _F4:
+    """F(4x4, 3x3): 36 planes, tiles of 6 stepping by 4 (transforms by their non-zeros)."""
+
+    name, count, step = "winograd4", 36, 4
+    tiles = staticmethod(kw4.tiles)
+    filter_transform = staticmethod(kw4.filter_transform)
+    filter_transform_adjoint = staticmethod(kw4.filter_transform_adjoint)
+    _cache: dict = {}
+
+    @classmethod
+    def _nz(cls, which: str, dtype):
+        """The non-zeros of one matrix, for the loop kernels of edge tiles."""
+        key = (which, np.dtype(dtype).str)
+        if key not in cls._cache:
+            p = {"AT": kw4.AT, "A": kw4.AT.T}[which]
+            cls._cache[key] = kw4.nonzeros(p, dtype)
+        return cls._cache[key]
+
+    @classmethod
+    def _k(cls, dtype):
+        """The unrolled kernels' coefficients in ``dtype``."""
+        key = ("k", np.dtype(dtype).str)
+        if key not in cls._cache:
+            cls._cache[key] = np.array(kw4u.CONSTANTS, dtype=dtype)
+        return cls._cache[key]
+
+    @classmethod
+    def input(cls, xp, th, tw, v):
+        kw4u.input_transform(xp, cls._k(v.dtype), th, tw, v)
+
+    @classmethod
+    def output(cls, m, b, relu, th, tw, y):
+        kw4u.output_transform(m, cls._k(m.dtype), *cls._nz("AT", m.dtype), b, relu, th, tw, y)
+
+    @classmethod
+    def output_adjoint(cls, dy, th, tw, dm):
+        kw4u.output_transform_adjoint(dy, cls._k(dm.dtype), *cls._nz("A", dm.dtype), th, tw, dm)
+
+    @classmethod
+    def input_adjoint(cls, dv, th, tw, gxp):
+        kw4u.input_transform_adjoint(dv, cls._k(gxp.dtype), th, tw, gxp)
+
+
+#: The Winograd algorithms by name.
+VARIANTS = {"winograd": _F2, "winograd4": _F4}
+
+
 @dataclass
 class Saved:
     """What a training forward keeps for its backward."""
 
-    v: np.ndarray            # (16, n * th * tw, c): transformed input tiles
-    u: np.ndarray            # (16, c, f): transformed filters
+    variant: type            # _F2 or _F4
+    v: np.ndarray            # (planes, n * th * tw, c): transformed input tiles
+    u: np.ndarray            # (planes, c, f): transformed filters
     pads: tuple[int, int, int, int]  # the padding used, with the extra row/column
     th: int
     tw: int
@@ -39,23 +115,26 @@ class Saved:
     xp_shape: tuple[int, ...]
 
 
-def planes(buf: dict, key: str, tiles: int, channels: int, dtype) -> np.ndarray:
-    """A ``(16, tiles, channels)`` transform buffer, reused from ``buf`` when it fits."""
+def planes(buf: dict, key: str, tiles: int, channels: int, dtype,
+           count: int = 16) -> np.ndarray:
+    """A ``(count, tiles, channels)`` transform buffer, reused from ``buf`` when it fits."""
     a = buf.get(key)
-    if a is None or a.shape != (16, tiles, channels) or a.dtype != dtype:
-        a = kw.plane_buffer(tiles, channels, dtype)
+    if a is None or a.shape != (count, tiles, channels) or a.dtype != dtype:
+        a = kw.plane_buffer(tiles, channels, dtype, count)
         buf[key] = a
     return a
 
 
-def chunk_images(tiles_per_image: int, channels: int, itemsize: int, n: int) -> int:
-    """Images per chunk: as many as keep ``16 * tiles * channels`` values near CHUNK_BYTES."""
-    per_image = 16 * tiles_per_image * channels * itemsize
+def chunk_images(tiles_per_image: int, channels: int, itemsize: int, n: int,
+                 count: int = 16) -> int:
+    """Images per chunk: as many as keep ``count * tiles * channels`` values near CHUNK_BYTES."""
+    per_image = count * tiles_per_image * channels * itemsize
     return int(min(n, max(1, CHUNK_BYTES // per_image)))
 
 
 def forward(x: np.ndarray, w: np.ndarray, b: np.ndarray, pads: tuple[int, int, int, int],
-            relu: bool, buf: dict, training: bool) -> tuple[np.ndarray, Saved | None]:
+            relu: bool, buf: dict, training: bool,
+            algorithm: str = "winograd") -> tuple[np.ndarray, Saved | None]:
     """Output ``(n, oh, ow, f)`` of the convolution (bias, optional ReLU) and, in training, its Saved.
 
     Parameters
@@ -70,35 +149,40 @@ def forward(x: np.ndarray, w: np.ndarray, b: np.ndarray, pads: tuple[int, int, i
         Scratch buffers to reuse (the layer's, in training; a fresh dict otherwise).
     training : bool
         Keep what :func:`backward` needs.
+    algorithm : {"winograd", "winograd4"}
+        F(2x2, 3x3) or F(4x4, 3x3).
     """
+    var = VARIANTS[algorithm]
     n, h, wd, c = x.shape
     f = w.shape[3]
     top, bottom, left, right = pads
     oh, ow = h + top + bottom - 2, wd + left + right - 2
-    th, tw = kw.tiles(oh, ow)
-    # Tiles step by 2 over an input of 2 * tiles + 2: one more zero row or
-    # column at the end when the output size is odd.
-    pads = (top, bottom + 2 * th - oh, left, right + 2 * tw - ow)
+    th, tw = var.tiles(oh, ow)
+    # Tiles step by s over an input of s * tiles + 2: up to s - 1 more zero
+    # rows or columns at the end when the output size is not a multiple of s.
+    s = var.step
+    pads = (top, bottom + s * th - oh, left, right + s * tw - ow)
     xp = pad_nhwc(x, pads, buf.get("xp"))
     if training and xp is not x:
         buf["xp"] = xp
     per = th * tw
-    nb = chunk_images(per, max(c, f), x.dtype.itemsize, n)
-    u = kw.filter_transform(w)
-    v_all = planes(buf, "v", n * per, c, x.dtype) if training else None
-    v_chunk = None if training else planes(buf, "v", nb * per, c, x.dtype)
-    m = planes(buf, "m", nb * per, f, x.dtype)
+    count = var.count
+    nb = chunk_images(per, max(c, f), x.dtype.itemsize, n, count)
+    u = var.filter_transform(w)
+    v_all = planes(buf, "v", n * per, c, x.dtype, count) if training else None
+    v_chunk = None if training else planes(buf, "v", nb * per, c, x.dtype, count)
+    m = planes(buf, "m", nb * per, f, x.dtype, count)
     y = np.empty((n, oh, ow, f), dtype=x.dtype)
     for b0 in range(0, n, nb):
         b1 = min(n, b0 + nb)
         k = (b1 - b0) * per
         v = v_all[:, b0 * per:b1 * per] if training else v_chunk[:, :k]
-        kw.input_transform(xp[b0:b1], th, tw, v)
+        var.input(xp[b0:b1], th, tw, v)
         np.matmul(v, u, out=m[:, :k])
-        kw.output_transform(m[:, :k], b, relu, th, tw, y[b0:b1])
+        var.output(m[:, :k], b, relu, th, tw, y[b0:b1])
     if not training:
         return y, None
-    return y, Saved(v_all, u, pads, th, tw, x.shape, xp.shape)
+    return y, Saved(var, v_all, u, pads, th, tw, x.shape, xp.shape)
 
 
 def backward(saved: Saved, g: np.ndarray, input_grad: bool,
@@ -108,18 +192,18 @@ def backward(saved: Saved, g: np.ndarray, input_grad: bool,
     The input gradient is None when ``input_grad`` is False. Every product is
     the exact adjoint of the forward's (see :mod:`tinyconv.layers.kernels_wino`).
     """
-    v, u, th, tw = saved.v, saved.u, saved.th, saved.tw
-    c, f = u.shape[1], u.shape[2]
+    var, v, u, th, tw = saved.variant, saved.v, saved.u, saved.th, saved.tw
+    count, c, f = u.shape
     g = np.ascontiguousarray(g)
     n = g.shape[0]
     per = th * tw
-    nb = chunk_images(per, max(c, f), g.dtype.itemsize, n)
-    dm = planes(buf, "m", nb * per, f, g.dtype)
-    du = np.zeros((16, c, f), dtype=g.dtype)
+    nb = chunk_images(per, max(c, f), g.dtype.itemsize, n, count)
+    dm = planes(buf, "m", nb * per, f, g.dtype, count)
+    du = np.zeros((count, c, f), dtype=g.dtype)
     part = np.empty_like(du)
     gxp = None
     if input_grad:
-        dv = planes(buf, "dv", nb * per, c, g.dtype)
+        dv = planes(buf, "dv", nb * per, c, g.dtype, count)
         ut = u.transpose(0, 2, 1)
         # The padded gradient is scratch only when it is cropped (a copy) before return.
         padded = any(saved.pads)
@@ -131,13 +215,13 @@ def backward(saved: Saved, g: np.ndarray, input_grad: bool,
     for b0 in range(0, n, nb):
         b1 = min(n, b0 + nb)
         k = (b1 - b0) * per
-        kw.output_transform_adjoint(g[b0:b1], th, tw, dm[:, :k])
+        var.output_adjoint(g[b0:b1], th, tw, dm[:, :k])
         np.matmul(v[:, b0 * per:b1 * per].transpose(0, 2, 1), dm[:, :k], out=part)
         du += part
         if input_grad:
             np.matmul(dm[:, :k], ut, out=dv[:, :k])
-            kw.input_transform_adjoint(dv[:, :k], th, tw, gxp[b0:b1])
-    gw = kw.filter_transform_adjoint(du)
+            var.input_adjoint(dv[:, :k], th, tw, gxp[b0:b1])
+    gw = var.filter_transform_adjoint(du)
     gb = column_sum(g.reshape(-1, f))
     if not input_grad:
         return None, gw, gb
