@@ -200,3 +200,20 @@ def test_integer_matmul_is_exact_on_both_paths():
     want = 9 * (2 ** 31 + 1) * (2 ** 21 + 1)
     assert integer_matmul(big_a, big_b)[0, 0] == want
     assert int(round(float(big_a[0] @ big_b[:, 0].astype(float)))) != want  # what float64 gives
+
+
+def test_integer_matmul_switches_to_int64_just_above_two_to_the_53():
+    """At the 2**53 bound itself: one product needing 54 bits is exact, one just below is too."""
+    # (2**27 + 1)(2**26 + 1) = 2**53 + 2**27 + 2**26 + 1, odd and above 2**53: float64
+    # cannot hold it (IEEE 754 binary64, 53-bit significand), so int64 must compute it.
+    a, b = np.array([[2 ** 27 + 1]]), np.array([[2 ** 26 + 1]])
+    want = (2 ** 27 + 1) * (2 ** 26 + 1)  # Python integers: exact
+    assert float(want) != want
+    assert integer_matmul(a, b)[0, 0] == want
+    # (2**26 - 1)(2**27 + 1) = 2**53 - 2**26 - 1 < 2**53: the float64 path is exact.
+    a, b = np.array([[2 ** 26 - 1]]), np.array([[2 ** 27 + 1]])
+    assert integer_matmul(a, b)[0, 0] == (2 ** 26 - 1) * (2 ** 27 + 1)
+    # Terms below 2**53 whose sum crosses it: 3 * (2**52 + 1) is odd and needs 54 bits.
+    a = np.full((1, 3), 2 ** 52 + 1, dtype=np.int64)
+    b = np.ones((3, 1), dtype=np.int64)
+    assert integer_matmul(a, b)[0, 0] == 3 * (2 ** 52 + 1)
