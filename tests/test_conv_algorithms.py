@@ -101,9 +101,6 @@ def test_returned_input_gradient_is_not_overwritten_by_the_next_backward(algorit
     _returned_gradient_case(algorithm, h, w, pads, n)
 
 
-@pytest.mark.xfail(strict=True, reason="winograd.backward reuses the padded gradient buffer "
-                   "when only its bottom rows are cropped, and crop_nhwc returns a view of it "
-                   "for a batch of one")
 @pytest.mark.parametrize("h, w, pads, n", BOTTOM_CROP)
 @pytest.mark.parametrize("algorithm", ["winograd", "winograd4"])
 def test_returned_input_gradient_survives_a_bottom_only_crop(algorithm, h, w, pads, n):

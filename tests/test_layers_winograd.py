@@ -1,8 +1,10 @@
 """Tests of the Winograd paths of the convolution layer: F(2x2, 3x3) and F(4x4, 3x3).
 
-Outside references: numpy.correlate and scipy.signal.correlate (the
-convolution itself), the loop references of tinyconv.layers.reference, and
-central finite differences for the gradients.
+Outside references: numpy.correlate and scipy.signal.correlate2d (single
+tiles through each algorithm's matrices), the loop references of
+tinyconv.layers.reference (whole layers, forward and backward) and central
+finite differences (gradients). tests/test_conv_algorithms.py compares whole
+layers of every algorithm with scipy.signal.correlate.
 """
 
 from __future__ import annotations
@@ -205,6 +207,8 @@ def test_algorithm_choice_and_bad_settings():
     assert pick_algorithm(3, 1, 3, 32, True) == "im2col"
     assert pick_algorithm(3, 2, 32, 32, True) == "im2col"
     assert pick_algorithm(5, 1, 32, 32, True) == "im2col"
+    assert pick_algorithm(3, 1, 32, 7, True) == "im2col"   # fewer than 8 filters
+    assert pick_algorithm(3, 1, 32, 7, False) == "im2col"
     layer = build(conv_op(6, 6, 2, 2, 5, 1), np.random.default_rng(0), np.float64)
     for name in ALGORITHMS:
         layer.algorithm = name

@@ -24,7 +24,8 @@ def pick_algorithm(kernel: int, stride: int, c_in: int, filters: int, training: 
     faster than F(2x2, 3x3) from 16 input channels, and F(2x2, 3x3) is 1.3x
     faster than im2col at 8; in inference F(4x4, 3x3) gains nothing over
     F(2x2, 3x3) (which also rounds less), which wins from 16 input channels;
-    c_in = 3 loses with either (0.5-0.8x).
+    c_in = 3 loses with either (0.5-0.8x), and so do fewer than 8 filters,
+    whose products are too narrow for BLAS.
     """
     if kernel != 3 or stride != 1 or filters < 8:
         return "im2col"
@@ -54,18 +55,22 @@ class Conv(Layer):
         How forward and backward compute. ``"auto"`` (the default) takes
         :func:`pick_algorithm` of the shape in each forward; the others force
         im2col, Winograd F(2x2, 3x3) or F(4x4, 3x3) (Winograd only for 3 x 3,
-        stride 1). Both give the
-        same values up to float rounding (the tests compare them). Change it
-        between steps, not between a forward and its backward.
+        stride 1). All three give the same values up to float rounding on
+        finite inputs (the tests compare them; an infinite input can give NaN
+        under Winograd, whose transforms subtract). Change it between steps,
+        not between a forward and its backward.
     input_grad : bool
-        When False, ``backward`` skips the input gradient (the column-gradient
-        product and col2im) and returns None: for a first layer, whose input
+        When False, ``backward`` skips the input gradient (im2col: the
+        column-gradient product and col2im; Winograd: the input-tile products
+        and their scatter) and returns None: for a first layer, whose input
         gradient nobody reads. True by default, as the layer contract says.
 
     Notes
     -----
-    Output size per axis ``(size + before + after - k) // s + 1``. Forward keeps
-    the column matrix ``(n * oh * ow, k * k * c_in)`` for the weight gradient.
+    Output size per axis ``(size + before + after - k) // s + 1``. A training
+    forward keeps, for the weight gradient, the column matrix
+    ``(n * oh * ow, k * k * c_in)`` (im2col) or the transformed input tiles
+    (Winograd, in a :class:`tinyconv.layers.winograd.Saved`).
     """
 
     kind = "conv"
@@ -85,7 +90,7 @@ class Conv(Layer):
         self._cols: np.ndarray | None = None
         self._x_shape: tuple[int, ...] | None = None
         self._y: np.ndarray | None = None
-        self._wino: tuple | None = None
+        self._wino: winograd.Saved | None = None
         self._buffers: dict[str, np.ndarray] = {}
 
     def forward(self, x: np.ndarray, training: bool = False,

@@ -184,8 +184,12 @@ def _add9(src, dst):
 
 
 def crop_nhwc(xp: np.ndarray, pads: tuple[int, int, int, int], h: int, w: int) -> np.ndarray:
-    """The interior ``(n, h, w, c)`` of a padded map (a contiguous copy if cropped)."""
+    """The interior ``(n, h, w, c)`` of a padded map: ``xp`` itself if nothing is cropped, else a new array.
+
+    Always a copy when cropped, even where the slice would be contiguous (one
+    image cropped only at the bottom), so that callers may reuse ``xp``.
+    """
     top, _, left, _ = pads
     if xp.shape[1] == h and xp.shape[2] == w:
         return xp
-    return np.ascontiguousarray(xp[:, top:top + h, left:left + w, :])
+    return xp[:, top:top + h, left:left + w, :].copy()
