@@ -52,6 +52,11 @@ def _wrap(layer, key: str, acc: dict, where: dict | None = None) -> None:
             setattr(layer, attr, timed(getattr(layer, attr), pas))
 
 
+def _is_kernels(module_name: str) -> bool:
+    """Whether a module holds kernels: ``tinyconv.layers.kernels_*`` or the generated ``_wino4_unrolled``."""
+    return module_name.startswith(("tinyconv.layers.kernels", "tinyconv.layers._wino4_unrolled"))
+
+
 @contextlib.contextmanager
 def timed_kernels(where: dict, acc: dict):
     """Time every kernel helper the layer modules call, per calling layer and pass.
@@ -65,26 +70,22 @@ def timed_kernels(where: dict, acc: dict):
     for short in LAYER_MODULES:
         mod = importlib.import_module(f"tinyconv.layers.{short}")
         for name, fn in list(vars(mod).items()):
-            if callable(fn) and getattr(fn, "__module__", "").startswith(
-                    "tinyconv.layers.kernels"):
+            if callable(fn) and _is_kernels(getattr(fn, "__module__", "")):
                 targets.append((mod, name, fn))
-            elif isinstance(fn, types.ModuleType) and fn.__name__.startswith(
-                    "tinyconv.layers.kernels"):
-                # A kernel module used by attribute (``wino.input_transform``).
+            elif isinstance(fn, types.ModuleType) and _is_kernels(fn.__name__):
+                # A kernel module used by attribute (``kw.input_transform``).
                 targets += [(fn, n, f) for n, f in list(vars(fn).items())
                             if callable(f) and getattr(f, "__module__", "") == fn.__name__]
     for mod, name, fn in targets:
-        if True:
+        def timed(*a, _fn=fn, _name=name, **k):
+            t = time.perf_counter()
+            out = _fn(*a, **k)
+            key, pas = where.get("at", ("?", "?"))
+            acc[(key, pas, _name)] += time.perf_counter() - t
+            return out
 
-            def timed(*a, _fn=fn, _name=name, **k):
-                t = time.perf_counter()
-                out = _fn(*a, **k)
-                key, pas = where.get("at", ("?", "?"))
-                acc[(key, pas, _name)] += time.perf_counter() - t
-                return out
-
-            saved.append((mod, name, fn))
-            setattr(mod, name, timed)
+        saved.append((mod, name, fn))
+        setattr(mod, name, timed)
     try:
         yield
     finally:
