@@ -10,9 +10,10 @@ Usage::
 Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
 
 1. **Throughput**: the same units (``--full`` on a seeded sample of the demo
-   space) with 1 and with 2 local worker processes: units (candidate-folds)
-   per wall-clock hour and per CPU-hour, and the parallel efficiency
-   ``(rate_2 / rate_1) / 2`` on wall-clock time. Worker start-up is included,
+   space) with 1 and with 2 local worker processes, alternated (1, 2, 1, 2,
+   ...; ``--repeats`` runs of each, 3 by default): units (candidate-folds)
+   per wall-clock hour and per CPU-hour from the median runs, and the
+   parallel efficiency ``(rate_2 / rate_1) / 2`` on wall-clock time. Worker start-up is included,
    as a user would see it: about 1 s once per run (imports and Numba's first
    kernel loads), which weighs on runs of a few seconds (12 candidates of 3
    epochs: 1.6x) and little on the default 72 units of 9 epochs. The two
@@ -37,6 +38,8 @@ import tempfile
 import time
 from pathlib import Path
 
+import numpy as np
+
 # This file is named like the package it measures: keep its folder off the path.
 _HERE = Path(__file__).resolve().parent
 sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != _HERE]
@@ -56,22 +59,33 @@ def _run(out: Path, workers: int, **change):
     return summary, time.perf_counter() - start
 
 
-def throughput(root: Path, data: str, sample: int, epochs: int) -> None:
-    print(f"throughput: --full, {sample} sampled candidates x 3 folds, {epochs} epochs, {data}")
-    print(f"{'workers':>7}  {'units':>5}  {'wall s':>7}  {'CPU s':>7}  {'units/wall-h':>12}  "
+def throughput(root: Path, data: str, sample: int, epochs: int, repeats: int = 3) -> None:
+    print(f"throughput: --full, {sample} sampled candidates x 3 folds, {epochs} epochs, {data}; "
+          f"1 and 2 workers alternated, {repeats} runs each, medians [min-max]")
+    print(f"{'workers':>7}  {'units':>5}  {'wall s':>18}  {'CPU s':>7}  {'units/wall-h':>12}  "
           f"{'units/CPU-h':>11}")
-    rates, tables = {}, {}
+    walls: dict[int, list[float]] = {1: [], 2: []}
+    cpus: dict[int, list[float]] = {1: [], 2: []}
+    units, tables = {}, set()
+    for r in range(repeats):
+        for workers in (1, 2):
+            summary, wall = _run(root / f"throughput_w{workers}_{r}", workers, data=data,
+                                 full=True, max_epochs=epochs, max_candidates=sample)
+            walls[workers].append(wall)
+            cpus[workers].append(summary.outcome.cpu_s)
+            units[workers] = summary.outcome.units_run
+            tables.add(summary.ranking_path.read_bytes())
+    rates = {}
     for workers in (1, 2):
-        summary, wall = _run(root / f"throughput_w{workers}", workers, data=data, full=True,
-                             max_epochs=epochs, max_candidates=sample)
-        o = summary.outcome
-        rates[workers] = o.units_run / wall * 3600
-        tables[workers] = summary.ranking_path.read_bytes()
-        print(f"{workers:>7}  {o.units_run:>5}  {wall:7.1f}  {o.cpu_s:7.1f}  "
-              f"{rates[workers]:12.0f}  {o.units_run / max(o.cpu_s, 1e-9) * 3600:11.0f}")
-    print(f"parallel efficiency with 2 workers: {rates[2] / rates[1] / 2:.2f} "
-          f"(speed-up {rates[2] / rates[1]:.2f}x); rankings identical: "
-          f"{tables[1] == tables[2]}")
+        wall, cpu = float(np.median(walls[workers])), float(np.median(cpus[workers]))
+        rates[workers] = units[workers] / wall * 3600
+        spread = f"{wall:.1f} [{min(walls[workers]):.1f}-{max(walls[workers]):.1f}]"
+        print(f"{workers:>7}  {units[workers]:>5}  {spread:>18}  {cpu:7.1f}  "
+              f"{rates[workers]:12.0f}  {units[workers] / max(cpu, 1e-9) * 3600:11.0f}")
+    per_run = [walls[1][r] / walls[2][r] for r in range(repeats)]
+    print(f"parallel efficiency with 2 workers: {rates[2] / rates[1] / 2:.2f} (speed-up "
+          f"{rates[2] / rates[1]:.2f}x from the medians; per alternated pair "
+          f"{', '.join(f'{x:.2f}x' for x in per_run)}); rankings identical: {len(tables) == 1}")
 
 
 def halving_vs_full(root: Path, data: str, epochs: int, min_epochs: int, sample: int | None,
@@ -117,6 +131,8 @@ def main(argv=None) -> int:
                         help="candidates of part 1 (default 24; 4 with --quick)")
     parser.add_argument("--throughput-epochs", type=int, default=None, metavar="E",
                         help="epochs per unit in part 1 (default 9; 2 with --quick)")
+    parser.add_argument("--repeats", type=int, default=3, metavar="R",
+                        help="runs of each worker count in part 1, alternated (default 3)")
     parser.add_argument("--lr", type=float, default=None,
                         help="learning rate of every unit (default: the demo's)")
     args = parser.parse_args(argv)
@@ -146,7 +162,7 @@ def main(argv=None) -> int:
         return 2
     try:
         if args.part in ("all", "throughput"):
-            throughput(root, data, t_sample, t_epochs)
+            throughput(root, data, t_sample, t_epochs, 1 if args.quick else args.repeats)
         if args.part in ("all", "sh"):
             halving_vs_full(root, data, epochs, min_epochs, sample, workers=2)
     finally:

@@ -8,7 +8,11 @@ search loop (:mod:`search.runner`) drives either.
   thread counts are set to 1 in the environment the workers start with (read
   by OpenBLAS, MKL and Numba when they load), and once more at run time with
   ``threadpoolctl`` when it is installed. The data reach each worker once: the
-  initializer memory-maps the ``.npy`` files the search wrote in the run folder.
+  first unit memory-maps the ``.npy`` files the search wrote in the run folder.
+  :meth:`LocalWorkers.start` spawns the workers at once, and with the default
+  work each warms the engine (one training step of a small network: Numba's
+  first kernel loads, about 1 s), while the search process is still loading
+  the data and the space; the data files need only exist by the first unit.
   A crashed worker breaks the whole pool (``BrokenProcessPool``); the search
   loop then calls :meth:`LocalWorkers.restart` and finds the culprit.
 * :class:`InlineWorkers`: units run one at a time in the calling process
@@ -64,15 +68,23 @@ def limit_threads() -> None:
     threadpoolctl.threadpool_limits(1)
 
 
-def _init_worker(data_dir: str, work: Callable) -> None:
+def _init_worker(data_dir: str, work: Callable, warm: bool) -> None:
     limit_threads()
-    from search.unit import UnitData
-    _WORKER["data"] = UnitData.load(data_dir)
-    _WORKER["work"] = work
+    _WORKER.update(data_dir=data_dir, work=work, data=None)
+    if warm:
+        from search.unit import warm_up
+        warm_up()
 
 
 def _work_local(task):
+    if _WORKER["data"] is None:
+        from search.unit import UnitData
+        _WORKER["data"] = UnitData.load(_WORKER["data_dir"])
     return _WORKER["work"](task, _WORKER["data"])
+
+
+def _nothing() -> None:
+    """A task that makes the pool spawn one more worker."""
 
 
 def default_work() -> Callable:
@@ -100,6 +112,7 @@ class LocalWorkers:
             raise InputError(f"--workers must be an integer >= 1, got {workers!r}")
         self.data_dir = str(data_dir)
         self.workers = workers
+        self.warm = work is None  # warm the engine only for the real unit work
         self.work = work or default_work()
         self._pool: ProcessPoolExecutor | None = None
         self.description = f"{workers} local worker process{'es' if workers > 1 else ''}"
@@ -108,8 +121,19 @@ class LocalWorkers:
         if self._pool is None:
             self._pool = ProcessPoolExecutor(
                 self.workers, mp_context=multiprocessing.get_context("spawn"),
-                initializer=_init_worker, initargs=(self.data_dir, self.work))
+                initializer=_init_worker, initargs=(self.data_dir, self.work, self.warm))
         return self._pool
+
+    def start(self) -> None:
+        """Spawn every worker now (they warm up meanwhile); returns at once.
+
+        The pool otherwise spawns a worker per submitted unit. Nothing here
+        reads the data folder, which need only hold the data by the first unit.
+        """
+        with single_threaded_env():
+            pool = self._ensure()
+            for _ in range(self.workers):
+                pool.submit(_nothing)
 
     def submit(self, task) -> Future:
         with single_threaded_env():
@@ -122,8 +146,21 @@ class LocalWorkers:
         self._pool = None
 
     def shutdown(self, cancel: bool = False) -> None:
+        """Stop the workers: after their units, or with ``cancel`` at once.
+
+        ``cancel`` drops queued units and terminates the processes (a unit
+        writes nothing; the search process stores results), so that an error
+        or an interrupt is not held up by a unit or a warm-up in progress.
+        """
         if self._pool is not None:
+            # The process table is the pool's own (no public way to stop workers
+            # before Python 3.14); without it, exit waits for the running units.
+            processes = list(getattr(self._pool, "_processes", {}).values()) if cancel else []
             self._pool.shutdown(wait=not cancel, cancel_futures=cancel)
+            for process in processes:
+                process.terminate()
+            for process in processes:
+                process.join(timeout=5)
         self._pool = None
 
 

@@ -107,13 +107,20 @@ class SearchLoop:
         ``SearchSettings.as_dict()`` (folds, seed, eta, max_epochs, full,
         budget_cpu_s, budget_epochs, training, classes).
     progress : Progress, optional
+    costs : mapping of candidate text to a cost estimate (MACs per image), optional
+        Within a rung, units start in decreasing cost, so that the last ones
+        to finish are short and no worker idles long at the end of a rung
+        (longest-first scheduling). Results do not depend on the order: each
+        unit's seed comes from the run seed and the unit itself.
     """
 
     def __init__(self, store: RunStore, executor, candidates: Sequence[str],
-                 params: Mapping[str, int], settings: dict, progress: Progress | None = None):
+                 params: Mapping[str, int], settings: dict, progress: Progress | None = None,
+                 costs: Mapping[str, float] | None = None):
         self.store, self.executor = store, executor
         self.candidates = list(candidates)
         self.params = dict(params)
+        self.costs = dict(costs or {})
         self.s = settings
         self.k = int(settings["folds"])
         self.progress = progress or Progress()
@@ -189,6 +196,7 @@ class SearchLoop:
         b, nb, i, nr = where
         self.progress.rung(b, nb, i, nr, len(current), self.k, rung.epochs,
                            len(tasks) - len(todo))
+        todo.sort(key=lambda t: -self.costs.get(t.candidate, 0.0))  # stable: ties keep order
         for task in todo:
             while len(self._inflight) >= self.executor.workers:
                 self._collect()

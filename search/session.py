@@ -115,12 +115,24 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
         Bad data, space, budgets or settings (``RunError`` for a folder that
         holds another run, ``BudgetError`` when nothing fits).
     """
+    if request.rank_by not in RANK_ORDERS:
+        raise ValueError(f"rank by {request.rank_by!r}: expected one of {RANK_ORDERS}")
+    # Local workers start (and warm up) while this process reads the data and the
+    # space; they first touch the run folder with their first unit.
+    local = _local_workers(request, work)
+    try:
+        return _search(request, progress, work, local)
+    except BaseException:
+        if local is not None:  # bad input or an interrupt: do not wait for the warm-up
+            local.shutdown(cancel=True)
+        raise
+
+
+def _search(request: SearchRequest, progress: Progress | None, work, local) -> SearchSummary:
     from search.folds import assign_folds
     from search.space import enumerate_space, filter_budget, load_space, subsample
     from tinyconv.data import fingerprint, load_data
 
-    if request.rank_by not in RANK_ORDERS:
-        raise ValueError(f"rank by {request.rank_by!r}: expected one of {RANK_ORDERS}")
     dataset = load_data(request.data, skip_bad=request.skip_bad)
     space = load_space(request.space)
     budget = _budget(space, request)
@@ -148,10 +160,11 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
     store = RunStore.start(request.out, settings.as_dict(), table, dict(filtered.over))
     data = UnitData(dataset.images, dataset.labels, folds)
     data.save(request.out)
-    executor = _executor(request, data, work)
+    executor = local if local is not None else _executor(request, data, work)
     params = dict(zip(table["candidate"], table["params"]))
+    costs = dict(zip(table["candidate"], table["macs"].astype(float)))
     try:
-        loop = SearchLoop(store, executor, texts, params, store.config(), progress)
+        loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs)
         outcome = loop.run()
     finally:
         executor.shutdown()
@@ -169,14 +182,26 @@ def _check_training(training: dict) -> None:
     TrainConfig(epochs=1, **training)
 
 
+def _worker_count(request: SearchRequest) -> int:
+    return request.workers if request.workers is not None else (os.cpu_count() or 1)
+
+
+def _local_workers(request: SearchRequest, work):
+    """Started local workers when the request runs on them, else None."""
+    from search.executors import LocalWorkers
+    if request.cluster is not None or _worker_count(request) == 0:
+        return None
+    workers = LocalWorkers(request.out, _worker_count(request), work)
+    workers.start()
+    return workers
+
+
 def _executor(request: SearchRequest, data: UnitData, work):
-    from search.executors import ClusterWorkers, InlineWorkers, LocalWorkers
+    """The cluster or in-process executor (local workers come from _local_workers)."""
+    from search.executors import ClusterWorkers, InlineWorkers
     if request.cluster is not None:
         return ClusterWorkers(request.cluster, data, work)
-    workers = request.workers if request.workers is not None else (os.cpu_count() or 1)
-    if workers == 0:
-        return InlineWorkers(data, work)
-    return LocalWorkers(request.out, workers, work)
+    return InlineWorkers(data, work)
 
 
 def _data_spec(data: str) -> str:

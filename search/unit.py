@@ -147,6 +147,26 @@ class UnitData:
         return self._prepared[key]
 
 
+#: What :func:`warm_up` trains: a standard 3 x 3 layer on one channel (im2col),
+#: one on 16 (Winograd), pooling, a depthwise and a pointwise layer, batch norm,
+#: global pooling and a dense head, the kernels most candidates call.
+WARM_UP_ARCH = "8x8gray/c16k3-p2-c16k3-dw3-c16k1-bn-gap-d8"
+
+
+def warm_up() -> None:
+    """Train and evaluate a small network once, so that a new worker process loads
+    Numba's kernels (and its own first-use machinery, about 1 s) before its first unit."""
+    from tinyconv.network import Network
+    from tinyconv.train import TrainConfig, evaluate, fit
+    net = Network.from_arch(WARM_UP_ARCH, 2, seed=0)
+    rng = np.random.default_rng(0)
+    x = rng.standard_normal((8, 8, 8, 1)).astype(np.float32)
+    y = np.arange(8) % 2
+    for optimizer in ("adam", "sgd"):
+        fit(net, x, y, TrainConfig(epochs=1, batch_size=4, optimizer=optimizer), x, y)
+    evaluate(net, x, y)
+
+
 def run_unit(task: UnitTask, data: UnitData) -> UnitResult:
     """Train and evaluate one unit; never raises (see the module notes)."""
     cpu0, wall0 = time.process_time(), time.perf_counter()

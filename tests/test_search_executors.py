@@ -45,3 +45,35 @@ def test_unreachable_cluster_is_input_error():
     with pytest.raises(InputError, match=r"cannot reach a Dask scheduler there(.|\n)*"
                                          r"dask worker ADDRESS --nthreads 1"):
         ClusterWorkers("tcp://127.0.0.1:9", None, timeout=1)
+
+
+def _sleep_long(task, data):
+    import time
+    time.sleep(60)
+
+
+def test_started_workers_spawn_at_once_and_cancel_stops_them(tmp_path):
+    """start() spawns every worker before any unit; cancel terminates a running unit promptly."""
+    import time
+    workers = LocalWorkers(tmp_path, 2, work=_sleep_long)
+    workers.start()
+    pool = workers._pool
+    deadline = time.monotonic() + 30
+    while len(pool._processes) < 2 and time.monotonic() < deadline:
+        time.sleep(0.05)
+    assert len(pool._processes) == 2
+    processes = list(pool._processes.values())
+    workers.submit("a unit that would sleep for a minute")
+    time.sleep(0.5)
+    t0 = time.monotonic()
+    workers.shutdown(cancel=True)
+    assert time.monotonic() - t0 < 10
+    assert not any(p.is_alive() for p in processes)
+
+
+def test_warm_up_trains_the_warm_up_network():
+    """The worker warm-up runs (its network parses, trains with both optimisers, evaluates)."""
+    from search.unit import WARM_UP_ARCH, warm_up
+    from tinyconv.arch import parse
+    assert str(parse(WARM_UP_ARCH)) == WARM_UP_ARCH
+    warm_up()

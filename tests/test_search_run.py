@@ -195,3 +195,13 @@ def test_int8_scores_the_last_rung_only(tmp_path):
     pd.testing.assert_frame_equal(
         plain.table[same].sort_values("candidate").reset_index(drop=True),
         summary.table[same].sort_values("candidate").reset_index(drop=True))
+
+
+def test_units_of_a_rung_start_longest_first(tmp_path):
+    """Within a rung, units are submitted in decreasing MACs (longest-first scheduling)."""
+    summary = run_search(request(tmp_path, full=True))
+    units = RunStore(tmp_path).units().sort_values("unit_id")
+    macs = summary.table.set_index("candidate")["macs"]
+    order = macs.loc[units["candidate"]].to_numpy()
+    assert len(set(order)) > 1                       # the tiny space has different costs
+    assert all(a >= b for a, b in zip(order, order[1:]))
