@@ -55,6 +55,11 @@ def _sleep_long(task, data):
 def test_started_workers_spawn_at_once_and_cancel_stops_them(tmp_path):
     """start() spawns every worker before any unit; cancel terminates a running unit promptly."""
     import time
+
+    import numpy as np
+
+    from search.unit import UnitData
+    UnitData(np.zeros((3, 4, 4, 1), np.uint8), np.arange(3), np.arange(3)).save(tmp_path)
     workers = LocalWorkers(tmp_path, 2, work=_sleep_long)
     workers.start()
     pool = workers._pool
@@ -63,12 +68,25 @@ def test_started_workers_spawn_at_once_and_cancel_stops_them(tmp_path):
         time.sleep(0.05)
     assert len(pool._processes) == 2
     processes = list(pool._processes.values())
-    workers.submit("a unit that would sleep for a minute")
+    future = workers.submit("a unit that would sleep for a minute")
     time.sleep(0.5)
+    assert future.running()
     t0 = time.monotonic()
     workers.shutdown(cancel=True)
     assert time.monotonic() - t0 < 10
-    assert not any(p.is_alive() for p in processes)
+    assert all(_gone(p) for p in processes)
+
+
+def _gone(process) -> bool:
+    """Whether a worker process has ended (whichever thread of the pool reaped it)."""
+    process.join(timeout=5)
+    if process.exitcode is not None:
+        return True
+    try:
+        os.kill(process.pid, 0)  # reaped elsewhere: the pid no longer exists
+    except ProcessLookupError:
+        return True
+    return False
 
 
 def test_warm_up_trains_the_warm_up_network():
