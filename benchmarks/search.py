@@ -11,13 +11,14 @@ Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
 
 1. **Throughput**: the same units (``--full`` on a seeded sample of the demo
    space) with 1 and with 2 local worker processes, alternated (1, 2, 1, 2,
-   ...; ``--repeats`` runs of each, 3 by default): units (candidate-folds)
+   ...; ``--repeats`` runs of each, 2 by default): units (candidate-folds)
    per wall-clock hour and per CPU-hour from the median runs, and the
    parallel efficiency ``(rate_2 / rate_1) / 2`` on wall-clock time. Worker start-up is included,
    as a user would see it: about 1 s once per run (imports and Numba's first
    kernel loads), which weighs on runs of a few seconds (12 candidates of 3
-   epochs: 1.6x) and little on the default 72 units of 9 epochs. The two
-   runs' rankings must be identical.
+   epochs: 1.3-1.6x) and little on the default, the demo's 40 candidates at
+   27 epochs (120 units, about a minute of CPU). The rankings of all runs
+   must be identical.
 2. **Successive halving vs --full**: the demo search (Hyperband brackets) and
    the exhaustive run with the same final epochs: training CPU time of each
    and their ratio, and whether the halving run's one-SE pick has, in the
@@ -128,11 +129,11 @@ def main(argv=None) -> int:
     parser.add_argument("--min-epochs", type=int, default=None, metavar="N",
                         help="shortest rung for part 2 (default: the demo's)")
     parser.add_argument("--throughput-candidates", type=int, default=None, metavar="N",
-                        help="candidates of part 1 (default 24; 4 with --quick)")
+                        help="candidates of part 1 (default 40; 4 with --quick)")
     parser.add_argument("--throughput-epochs", type=int, default=None, metavar="E",
-                        help="epochs per unit in part 1 (default 9; 2 with --quick)")
-    parser.add_argument("--repeats", type=int, default=3, metavar="R",
-                        help="runs of each worker count in part 1, alternated (default 3)")
+                        help="epochs per unit in part 1 (default 27; 2 with --quick)")
+    parser.add_argument("--repeats", type=int, default=2, metavar="R",
+                        help="runs of each worker count in part 1, alternated (default 2)")
     parser.add_argument("--lr", type=float, default=None,
                         help="learning rate of every unit (default: the demo's)")
     args = parser.parse_args(argv)
@@ -142,11 +143,11 @@ def main(argv=None) -> int:
     demo = QUICK if args.quick else FULL
     data, sample, epochs, min_epochs = (demo["data"], demo["max_candidates"],
                                         demo["max_epochs"], demo["min_epochs"])
-    # 72 units of 9 epochs: about 15 CPU-seconds on a 2-core laptop of 2026, so
-    # that the once-per-run worker start-up (about 1 s: imports and Numba's
-    # first kernel loads, paid in wall time whatever the worker count) is a
-    # small part, as in a real search.
-    t_sample, t_epochs = (4, 2) if args.quick else (24, 9)
+    # The demo's 40 candidates at its final 27 epochs: 120 units, about a
+    # minute of CPU on a 2-core machine of 2026, the size of a real search, in
+    # which the once-per-run worker start-up (about 1 s: imports and Numba's
+    # first kernel loads, paid in wall time whatever the worker count) is small.
+    t_sample, t_epochs = (4, 2) if args.quick else (40, 27)
     t_sample = args.throughput_candidates or t_sample
     t_epochs = args.throughput_epochs or t_epochs
     sample = args.candidates if args.candidates is not None else sample
