@@ -3,8 +3,10 @@
 Builds the network in float64, feeds a seeded random batch through the loss
 and compares every analytic gradient (input and each parameter tensor) with
 central differences (:func:`tinyconv.gradients.check_network`), then prints
-one row per layer and tensor. Exit 0 when every tensor passes, 1 when any
-fails, 2 for a bad architecture or option.
+one row per layer and tensor, and which algorithm each standard convolution
+ran (``--conv`` forces one: im2col, or Winograd F(2x2, 3x3) / F(4x4, 3x3)
+where the layer is 3 x 3 of stride 1). Exit 0 when every tensor passes, 1
+when any fails, 2 for a bad architecture or option.
 """
 
 from __future__ import annotations
@@ -17,6 +19,8 @@ import numpy as np
 from tinyconv import gradients
 from tinyconv.arch import BatchNorm, parse, parse_input
 from tinyconv.errors import InputError
+from tinyconv.layers import Conv
+from tinyconv.layers.conv import ALGORITHMS, pick_algorithm
 from tinyconv.network import Network
 
 KINK_NOTE = ("kinks: the images are standard-normal and every bias and batch-norm shift is "
@@ -53,6 +57,31 @@ def configure(parser: argparse.ArgumentParser) -> None:
                              "(default 0)")
     parser.add_argument("--batch", type=int, default=4, metavar="N",
                         help="images in the random batch (default 4)")
+    parser.add_argument("--conv", choices=ALGORITHMS, default="auto",
+                        help="algorithm of the standard convolutions: auto (what training "
+                             "uses, by layer shape), im2col, winograd (F(2x2, 3x3)) or "
+                             "winograd4 (F(4x4, 3x3)); the Winograd ones apply to 3x3 "
+                             "stride-1 layers, the others keep im2col (default auto)")
+
+
+def _set_conv_algorithm(net: Network, choice: str) -> list[tuple[str, str]]:
+    """Force ``choice`` on the standard convolutions that can run it; (layer, algorithm) of each.
+
+    A Winograd choice applies to 3 x 3 stride-1 layers; the others keep im2col.
+    With ``auto`` each layer shows what training picks for its shape.
+    """
+    shown = []
+    for i, layer in enumerate(net.layers):
+        if not isinstance(layer, Conv):
+            continue
+        winograd_ok = layer.kernel == 3 and layer.stride == 1
+        if choice == "auto":
+            alg = pick_algorithm(layer.kernel, layer.stride, layer.c_in, layer.filters, True)
+        else:
+            alg = choice if choice == "im2col" or winograd_ok else "im2col"
+            layer.algorithm = alg
+        shown.append((f"{i}:{net.ops[i].name}", alg))
+    return shown
 
 
 def _table(rows: list[gradients.GradRow]) -> str:
@@ -88,6 +117,7 @@ def run(args: argparse.Namespace) -> int:
                          f"got {args.batch}")
 
     net = Network.from_arch(arch, args.classes, seed=args.seed, dtype=np.float64)
+    algorithms = _set_conv_algorithm(net, args.conv)
     # The data come from their own stream, so they are not the same draws as the weights.
     rng = np.random.default_rng((args.seed, 2))
     x = rng.standard_normal((args.batch, *arch.input.shape))
@@ -100,6 +130,8 @@ def run(args: argparse.Namespace) -> int:
     print(f"central differences, h = {gradients.STEP:g}; a tensor passes when its largest "
           f"relative error\n|a - n| / max(|a|, |n|) is below {gradients.THRESHOLD:g}")
     print(textwrap.fill(KINK_NOTE, width=88))
+    if algorithms:
+        print("convolutions: " + ", ".join(f"{name} {alg}" for name, alg in algorithms))
     print()
     print(_table(rows))
     print()
