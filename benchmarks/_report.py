@@ -97,11 +97,11 @@ def _rates(records: list[dict]) -> list[str]:
 def _shares(results: list[dict], records: list[dict]) -> list[str]:
     lines = ["", "3. achieved GFLOP/s and share of the matrix-multiply rate "
              "(training 6 x MACs, inference 2 x MACs FLOPs per image)",
-             "  MACs are those of the direct convolution. Our 3x3 stride-1 layers with 8+ filters "
-             "run Winograd: in training F(4x4, 3x3) from 16",
-             "  input channels (4x fewer multiply-adds) and F(2x2, 3x3) from 8 (2.25x fewer), in "
-             "inference F(2x2, 3x3) from 16;",
-             "  so for N3 (and N2 in training) ours is an effective rate, not the FLOPs executed."]
+             "  MACs are those of the direct convolution. Our 3x3 stride-1 layers with 16+ input "
+             "channels run Winograd: in training",
+             "  F(4x4, 3x3) on maps of 8x8 or more (4x fewer multiply-adds), else and in "
+             "inference F(2x2, 3x3) (2.25x fewer);",
+             "  so for N3 ours is an effective rate, not the FLOPs executed."]
     for res in results:
         g = res["meta"]["gemm"]
         lines.append(f"  matrix multiply {g['n']}^2 float32, {res['meta']['threads']} thread(s): "

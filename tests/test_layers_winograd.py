@@ -175,12 +175,12 @@ def test_inference_keeps_no_arrays():
 
 
 def test_network_trained_with_either_algorithm_gives_the_same_gradients():
-    """A whole network (auto picks Winograd for its c16k3) matches the im2col walk in float64."""
-    text = "8x8rgb/c16k3-p2-c16k3-bn-gap"
+    """A whole network (auto picks F(4x4) and F(2x2) for its c16k3 layers) matches im2col in float64."""
+    text = "8x8rgb/c16k3-c16k3-p2-c16k3-bn-gap"
     nets = [Network.from_arch(text, 3, seed=1, dtype=np.float64) for _ in range(2)]
-    chosen = [pick_algorithm(l.kernel, l.stride, l.c_in, l.filters, True)
-              for l in nets[0].layers if isinstance(l, Conv)]
-    assert chosen == ["im2col", "winograd4"]  # c_in 3, then 16
+    chosen = [pick_algorithm(l.kernel, l.stride, l.c_in, l.filters, True, op.out_shape[0])
+              for l, op in zip(nets[0].layers, nets[0].ops) if isinstance(l, Conv)]
+    assert chosen == ["im2col", "winograd4", "winograd"]  # c_in 3; 16 on 8 x 8; 16 on 4 x 4
     for layer in nets[1].layers:
         if isinstance(layer, Conv):
             layer.algorithm = "im2col"
@@ -191,6 +191,9 @@ def test_network_trained_with_either_algorithm_gives_the_same_gradients():
         _, g = softmax_cross_entropy(logits, labels)
         net.backward(g)
         grads.append({name: a.copy() for name, a in net.grad_list()})
+    ran = [l._wino.variant.name if l._wino is not None else "im2col"
+           for l in nets[0].layers if isinstance(l, Conv)]
+    assert ran == chosen  # the auto layers ran what pick_algorithm says
     assert grads[0].keys() == grads[1].keys()
     for name in grads[0]:
         np.testing.assert_allclose(grads[0][name], grads[1][name], rtol=1e-9, atol=1e-12,
@@ -201,8 +204,9 @@ def test_algorithm_choice_and_bad_settings():
     """auto follows the measured thresholds; a bad name or shape is refused with the layer named."""
     assert pick_algorithm(3, 1, 32, 64, False) == "winograd"
     assert pick_algorithm(3, 1, 32, 64, True) == "winograd4"
-    assert pick_algorithm(3, 1, 16, 8, True) == "winograd4"
-    assert pick_algorithm(3, 1, 8, 16, True) == "winograd"
+    assert pick_algorithm(3, 1, 16, 8, True, 8) == "winograd4"
+    assert pick_algorithm(3, 1, 16, 8, True, 4) == "winograd"   # 4 x 4 maps: F(2x2)
+    assert pick_algorithm(3, 1, 8, 16, True) == "im2col"
     assert pick_algorithm(3, 1, 8, 16, False) == "im2col"
     assert pick_algorithm(3, 1, 3, 32, True) == "im2col"
     assert pick_algorithm(3, 2, 32, 32, True) == "im2col"

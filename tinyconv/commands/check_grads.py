@@ -76,7 +76,9 @@ def _set_conv_algorithm(net: Network, choice: str) -> list[tuple[str, str]]:
             continue
         winograd_ok = layer.kernel == 3 and layer.stride == 1
         if choice == "auto":
-            alg = pick_algorithm(layer.kernel, layer.stride, layer.c_in, layer.filters, True)
+            out_h, out_w = net.ops[i].out_shape[:2]
+            alg = pick_algorithm(layer.kernel, layer.stride, layer.c_in, layer.filters, True,
+                                 min(out_h, out_w))
         else:
             alg = choice if choice == "im2col" or winograd_ok else "im2col"
             layer.algorithm = alg

@@ -13,25 +13,25 @@ from tinyconv.layers import winograd
 ALGORITHMS = ("auto", "im2col", "winograd", "winograd4")
 
 
-def pick_algorithm(kernel: int, stride: int, c_in: int, filters: int, training: bool) -> str:
-    """The fastest algorithm for a layer's shape, as measured on 2-core x86 machines.
+def pick_algorithm(kernel: int, stride: int, c_in: int, filters: int, training: bool,
+                   size: int = 8) -> str:
+    """The fastest algorithm for a layer's shape, as measured on a 2-core x86 machine.
 
-    Winograd needs a 3 x 3 kernel of stride 1. It wins once the channel counts
-    are large enough for its small products (``c_in x f`` per tile) to run near
-    the BLAS rate; below that, im2col's single product with ``9 * c_in`` terms
-    per output is faster. Measured per layer at batch 64 (forward + backward,
-    4 x 4 to 32 x 32 maps, interleaved): in training, F(4x4, 3x3) is 5-20%
-    faster than F(2x2, 3x3) from 16 input channels, and F(2x2, 3x3) is 1.3x
-    faster than im2col at 8; in inference F(4x4, 3x3) gains nothing over
-    F(2x2, 3x3) (which also rounds less), which wins from 16 input channels;
-    c_in = 3 loses with either (0.5-0.8x), and so do fewer than 8 filters,
-    whose products are too narrow for BLAS.
+    ``size`` is the smaller side of the output map. Winograd needs a 3 x 3
+    kernel of stride 1. Measured per layer at batch 64 (forward + backward in
+    training, forward of 256 images in inference; 4 x 4 to 32 x 32 maps, 8 to
+    64 channels each way, the three algorithms interleaved): from 16 input
+    channels Winograd is 1.2-2.2x faster than im2col, and in training
+    F(4x4, 3x3) beats F(2x2, 3x3) by 5-25% on maps of 8 x 8 or more (on 4 x 4,
+    a single 6 x 6 tile is mostly padding, and F(2x2) wins); in inference
+    F(2x2) is as fast and rounds less. With 8 input channels the three are
+    within 10% of each other and im2col wins on the small maps most layers
+    of that width see; with 3, im2col wins 1.5-2x; fewer than 8 filters make
+    products too narrow for Winograd's BLAS calls.
     """
-    if kernel != 3 or stride != 1 or filters < 8:
+    if kernel != 3 or stride != 1 or filters < 8 or c_in < 16:
         return "im2col"
-    if training:
-        return "winograd4" if c_in >= 16 else "winograd" if c_in >= 8 else "im2col"
-    return "winograd" if c_in >= 16 else "im2col"
+    return "winograd4" if training and size >= 8 else "winograd"
 
 
 class Conv(Layer):
@@ -103,8 +103,12 @@ class Conv(Layer):
                              f"got shape {x.shape}")
         algorithm = self.algorithm
         if algorithm == "auto":
+            size = min(conv_out_size(x.shape[1] + self.pads[0] + self.pads[1], self.kernel,
+                                     self.stride),
+                       conv_out_size(x.shape[2] + self.pads[2] + self.pads[3], self.kernel,
+                                     self.stride))
             algorithm = pick_algorithm(self.kernel, self.stride, self.c_in, self.filters,
-                                       training)
+                                       training, size)
         elif algorithm not in ALGORITHMS:
             raise ValueError(f"{self.name}: algorithm must be one of {ALGORITHMS}, "
                              f"got {algorithm!r}")
