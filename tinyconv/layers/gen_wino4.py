@@ -73,85 +73,70 @@ def _two_pass(p: np.ndarray, read, write, indent: str) -> list[str]:
     return lines
 
 
+def _kernel(signature: str, doc: str, setup: list[str], edge: str | None, channel: str,
+            body: list[str]) -> list[str]:
+    """A kernel: the loops over images and tiles, then over channels around ``body``.
+
+    ``edge``: the call that handles a tile reaching past the output edge (then
+    the unrolled body runs on whole tiles only).
+    """
+    lines = ["", "", "@njit(cache=True)", f"def {signature}:", f'    """{doc}"""', UNPACK]
+    lines += [f"    {line}" for line in setup]
+    lines += ["    for b in range(n):",
+              "        for ty in range(th):",
+              "            r = 4 * ty",
+              "            for tx in range(tw):",
+              "                q = 4 * tx",
+              "                t = (b * th + ty) * tw + tx"]
+    if edge is not None:
+        lines += ["                if r + 4 > oh or q + 4 > ow:",
+                  f"                    {edge}",
+                  "                    continue"]
+    lines.append(f"                for {channel} in range({'c' if channel == 'ch' else 'f'}):")
+    return lines + body
+
+
+INDENT = " " * 20
+
+
 def input_kernel() -> list[str]:
-    lines = ["", "", "@njit(cache=True)", "def input_transform(xp, k, th, tw, v):",
-             '    """``v[:, t, :] = B^T d B`` for each 6 x 6 tile of ``xp (n, hp, wp, c)``."""',
-             UNPACK,
-             "    n, c = xp.shape[0], xp.shape[3]",
-             "    for b in range(n):",
-             "        for ty in range(th):",
-             "            r = 4 * ty",
-             "            for tx in range(tw):",
-             "                q = 4 * tx",
-             "                t = (b * th + ty) * tw + tx",
-             "                for ch in range(c):"]
-    lines += _two_pass(BT, lambda k, j: f"xp[b, r + {k}, q + {j}, ch]",
-                       lambda i, l, e: f"v[{6 * i + l}, t, ch] = {e}", " " * 20)
-    return lines
+    return _kernel(
+        "input_transform(xp, k, th, tw, v)",
+        "``v[:, t, :] = B^T d B`` for each 6 x 6 tile of ``xp (n, hp, wp, c)``.",
+        ["n, c = xp.shape[0], xp.shape[3]"], None, "ch",
+        _two_pass(BT, lambda k, j: f"xp[b, r + {k}, q + {j}, ch]",
+                  lambda i, l, e: f"v[{6 * i + l}, t, ch] = {e}", INDENT))
 
 
 def input_adjoint_kernel() -> list[str]:
-    lines = ["", "", "@njit(cache=True)", "def input_transform_adjoint(dv, k, th, tw, gxp):",
-             '    """``gxp`` = sum over tiles of ``B dV B^T`` at each tile\'s place (overwrites it)."""',
-             UNPACK,
-             "    gxp[:] = 0.0",
-             "    n, c = gxp.shape[0], gxp.shape[3]",
-             "    for b in range(n):",
-             "        for ty in range(th):",
-             "            r = 4 * ty",
-             "            for tx in range(tw):",
-             "                q = 4 * tx",
-             "                t = (b * th + ty) * tw + tx",
-             "                for ch in range(c):"]
-    lines += _two_pass(BT.T, lambda k, j: f"dv[{6 * k + j}, t, ch]",
-                       lambda i, l, e: f"gxp[b, r + {i}, q + {l}, ch] += {e}", " " * 20)
-    return lines
+    return _kernel(
+        "input_transform_adjoint(dv, k, th, tw, gxp)",
+        "``gxp`` = sum over tiles of ``B dV B^T`` at each tile's place (overwrites it).",
+        ["gxp[:] = 0.0", "n, c = gxp.shape[0], gxp.shape[3]"], None, "ch",
+        _two_pass(BT.T, lambda k, j: f"dv[{6 * k + j}, t, ch]",
+                  lambda i, l, e: f"gxp[b, r + {i}, q + {l}, ch] += {e}", INDENT))
 
 
 def output_kernel() -> list[str]:
-    lines = ["", "", "@njit(cache=True)",
-             "def output_transform(m, k, pr, pc, pv, bias, relu, th, tw, y):",
-             '    """``y`` block ``= A^T m A + bias`` (ReLU if ``relu``); edge tiles by the loop kernel."""',
-             UNPACK,
-             "    zero = k[0] - k[0]  # 0 in the data's dtype",
-             "    n, oh, ow, f = y.shape",
-             "    for b in range(n):",
-             "        for ty in range(th):",
-             "            r = 4 * ty",
-             "            for tx in range(tw):",
-             "                q = 4 * tx",
-             "                t = (b * th + ty) * tw + tx",
-             "                if r + 4 > oh or q + 4 > ow:",
-             "                    kw4.output_tile(m, pr, pc, pv, bias, relu, b, ty, tx, th, tw, y)",
-             "                    continue",
-             "                for o in range(f):"]
-
     def write(i, l, e):
-        return (f"u = {e} + bias[o]\n{' ' * 20}"
+        return (f"u = {e} + bias[o]\n{INDENT}"
                 f"y[b, r + {i}, q + {l}, o] = max(u, zero) if relu else u")
-    lines += _two_pass(AT, lambda k, j: f"m[{6 * k + j}, t, o]", write, " " * 20)
-    return lines
+    return _kernel(
+        "output_transform(m, k, pr, pc, pv, bias, relu, th, tw, y)",
+        "``y`` block ``= A^T m A + bias`` (ReLU if ``relu``); edge tiles by the loop kernel.",
+        ["zero = k[0] - k[0]  # 0 in the data's dtype", "n, oh, ow, f = y.shape"],
+        "kw4.output_tile(m, pr, pc, pv, bias, relu, b, ty, tx, th, tw, y)", "o",
+        _two_pass(AT, lambda k, j: f"m[{6 * k + j}, t, o]", write, INDENT))
 
 
 def output_adjoint_kernel() -> list[str]:
-    lines = ["", "", "@njit(cache=True)",
-             "def output_transform_adjoint(dy, k, pr, pc, pv, th, tw, dm):",
-             '    """``dm[:, t, :] = A dY A^T`` per 4 x 4 block of ``dy``; edge tiles by the loop kernel."""',
-             UNPACK,
-             "    n, oh, ow, f = dy.shape",
-             "    for b in range(n):",
-             "        for ty in range(th):",
-             "            r = 4 * ty",
-             "            for tx in range(tw):",
-             "                q = 4 * tx",
-             "                t = (b * th + ty) * tw + tx",
-             "                if r + 4 > oh or q + 4 > ow:",
-             "                    kw4.output_adjoint_tile(dy, pr, pc, pv, b, ty, tx, th, tw, dm)",
-             "                    continue",
-             "                for o in range(f):"]
-    lines += _two_pass(AT.T, lambda k, j: f"dy[b, r + {k}, q + {j}, o]",
-                       lambda i, l, e: f"dm[{6 * i + l}, t, o] = {e}", " " * 20)
-    return lines
+    return _kernel(
+        "output_transform_adjoint(dy, k, pr, pc, pv, th, tw, dm)",
+        "``dm[:, t, :] = A dY A^T`` per 4 x 4 block of ``dy``; edge tiles by the loop kernel.",
+        ["n, oh, ow, f = dy.shape"],
+        "kw4.output_adjoint_tile(dy, pr, pc, pv, b, ty, tx, th, tw, dm)", "o",
+        _two_pass(AT.T, lambda k, j: f"dy[b, r + {k}, q + {j}, o]",
+                  lambda i, l, e: f"dm[{6 * i + l}, t, o] = {e}", INDENT))
 
 
 def source() -> str:

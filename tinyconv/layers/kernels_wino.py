@@ -72,16 +72,26 @@ def tiles(oh: int, ow: int) -> tuple[int, int]:
 GG = np.kron(G, G)
 
 
+def filter_product(gg: np.ndarray, w: np.ndarray) -> np.ndarray:
+    """``U = G w G^T`` per channel pair, with ``gg = kron(G, G)``: ``(3, 3, c, f) -> (len(gg), c, f)``."""
+    c, f = w.shape[2], w.shape[3]
+    return (gg.astype(w.dtype) @ w.reshape(9, c * f)).reshape(gg.shape[0], c, f)
+
+
+def filter_product_adjoint(gg: np.ndarray, du: np.ndarray) -> np.ndarray:
+    """``dw = G^T dU G``, the adjoint of :func:`filter_product`: ``(len(gg), c, f) -> (3, 3, c, f)``."""
+    c, f = du.shape[1], du.shape[2]
+    return (gg.T.astype(du.dtype) @ du.reshape(gg.shape[0], c * f)).reshape(3, 3, c, f)
+
+
 def filter_transform(w: np.ndarray) -> np.ndarray:
     """``U = G w G^T`` per channel pair: ``w (3, 3, c, f) -> (16, c, f)``, same dtype."""
-    c, f = w.shape[2], w.shape[3]
-    return (GG.astype(w.dtype) @ w.reshape(9, c * f)).reshape(16, c, f)
+    return filter_product(GG, w)
 
 
 def filter_transform_adjoint(du: np.ndarray) -> np.ndarray:
     """Adjoint of :func:`filter_transform`: ``dU (16, c, f) -> dw = G^T dU G (3, 3, c, f)``."""
-    c, f = du.shape[1], du.shape[2]
-    return (GG.T.astype(du.dtype) @ du.reshape(16, c * f)).reshape(3, 3, c, f)
+    return filter_product_adjoint(GG, du)
 
 
 @njit(cache=True)

@@ -23,6 +23,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from tinyconv.layers.kernels_wino import filter_product, filter_product_adjoint
+
 BT = np.array([[4, 0, -5, 0, 1, 0],
                [0, -4, -4, 1, 1, 0],
                [0, 4, -4, -1, 1, 0],
@@ -59,14 +61,12 @@ def nonzeros(p: np.ndarray, dtype) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
 
 def filter_transform(w: np.ndarray) -> np.ndarray:
     """``U = G w G^T`` per channel pair: ``w (3, 3, c, f) -> (36, c, f)``."""
-    c, f = w.shape[2], w.shape[3]
-    return (GG.astype(w.dtype) @ w.reshape(9, c * f)).reshape(36, c, f)
+    return filter_product(GG, w)
 
 
 def filter_transform_adjoint(du: np.ndarray) -> np.ndarray:
     """``dw = G^T dU G``: ``(36, c, f) -> (3, 3, c, f)``."""
-    c, f = du.shape[1], du.shape[2]
-    return (GG.T.astype(du.dtype) @ du.reshape(36, c * f)).reshape(3, 3, c, f)
+    return filter_product_adjoint(GG, du)
 
 
 @njit(cache=True)
