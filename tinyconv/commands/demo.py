@@ -77,6 +77,8 @@ def run(args: argparse.Namespace) -> int:
     request = demo_request(out, args.quick, args.workers)
     print(f"demo: searching the tile demo space on {request.data} ({'quick' if args.quick else 'full'}"
           f" demo) into {out}", file=sys.stderr, flush=True)
+    print("demo: the first run on a machine also compiles the engine's kernels (about 20 s; "
+          "cached for later runs)", file=sys.stderr, flush=True)
     summary = run_search(request, BarProgress(None, None))
     print("\n".join(summary_lines(summary)))
     code = 0
