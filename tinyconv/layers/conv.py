@@ -147,7 +147,7 @@ class Conv(Layer):
         y, saved = winograd.forward(x, self.params["w"], self.params["b"], self.pads, relu,
                                     buf, training, algorithm)
         if training:
-            self._cols, self._x_shape, self._xp_shape = None, x.shape, saved.xp_shape
+            self._cols = None  # the backward reads ``saved``; free the im2col columns
             self._y = y if relu else None
             self._wino = saved
         return y

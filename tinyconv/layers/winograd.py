@@ -36,26 +36,19 @@ class _F2:
     tiles = staticmethod(kw.tiles)
     filter_transform = staticmethod(kw.filter_transform)
     filter_transform_adjoint = staticmethod(kw.filter_transform_adjoint)
-
-    @staticmethod
-    def input(xp, th, tw, v):
-        kw.input_transform(xp, th, tw, v)
-
-    @staticmethod
-    def output(m, b, relu, th, tw, y):
-        kw.output_transform(m, b, relu, th, tw, y)
-
-    @staticmethod
-    def output_adjoint(dy, th, tw, dm):
-        kw.output_transform_adjoint(dy, th, tw, dm)
-
-    @staticmethod
-    def input_adjoint(dv, th, tw, gxp):
-        kw.input_transform_adjoint(dv, th, tw, gxp)
+    input = staticmethod(kw.input_transform)
+    output = staticmethod(kw.output_transform)
+    output_adjoint = staticmethod(kw.output_transform_adjoint)
+    input_adjoint = staticmethod(kw.input_transform_adjoint)
 
 
 class _F4:
-    """F(4x4, 3x3): 36 planes, tiles of 6 stepping by 4 (transforms by their non-zeros)."""
+    """F(4x4, 3x3): 36 planes, tiles of 6 stepping by 4.
+
+    The straight-line kernels take the coefficients in the data's dtype; the
+    two output-side ones hand tiles past the edge to the loop kernels, which
+    take the matrix's non-zeros.
+    """
 
     name, count, step = "winograd4", 36, 4
     tiles = staticmethod(kw4.tiles)
