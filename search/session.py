@@ -182,16 +182,13 @@ def _check_training(training: dict) -> None:
     TrainConfig(epochs=1, **training)
 
 
-def _worker_count(request: SearchRequest) -> int:
-    return request.workers if request.workers is not None else (os.cpu_count() or 1)
-
-
 def _local_workers(request: SearchRequest, work):
     """Started local workers when the request runs on them, else None."""
     from search.executors import LocalWorkers
-    if request.cluster is not None or _worker_count(request) == 0:
+    count = request.workers if request.workers is not None else (os.cpu_count() or 1)
+    if request.cluster is not None or count == 0:
         return None
-    workers = LocalWorkers(request.out, _worker_count(request), work)
+    workers = LocalWorkers(request.out, count, work)
     workers.start()
     return workers
 

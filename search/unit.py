@@ -148,9 +148,11 @@ class UnitData:
 
 
 #: What :func:`warm_up` trains: a standard 3 x 3 layer on one channel (im2col),
-#: one on 16 (Winograd), pooling, a depthwise and a pointwise layer, batch norm,
-#: global pooling and a dense head, the kernels most candidates call.
-WARM_UP_ARCH = "8x8gray/c16k3-p2-c16k3-dw3-c16k1-bn-gap-d8"
+#: one on 16 channels of an 8 x 8 map (F(4x4) Winograd in training, F(2x2) when
+#: evaluating), pooling, one on a 4 x 4 map (F(2x2)), a depthwise and a pointwise
+#: layer, batch norm, global pooling and a dense head: the kernels most
+#: candidates call.
+WARM_UP_ARCH = "8x8gray/c16k3-c16k3-p2-c16k3-dw3-c16k1-bn-gap-d8"
 
 
 def warm_up() -> None:
