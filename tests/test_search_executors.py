@@ -94,11 +94,10 @@ def test_warm_up_trains_the_warm_up_network():
     from search.unit import WARM_UP_ARCH, warm_up
     from tinyconv.arch import parse
     from tinyconv.layers import Conv
-    from tinyconv.layers.conv import pick_algorithm
     from tinyconv.network import Network
     assert str(parse(WARM_UP_ARCH)) == WARM_UP_ARCH
     net = Network.from_arch(WARM_UP_ARCH, 2)
-    chosen = {pick_algorithm(l.kernel, l.stride, l.c_in, l.filters, True, op.out_shape[0])
+    chosen = {l.resolve_algorithm(*op.in_shape[:2], training=True)
               for l, op in zip(net.layers, net.ops) if isinstance(l, Conv)}
     assert chosen == {"im2col", "winograd", "winograd4"}  # it loads every conv algorithm
     warm_up()

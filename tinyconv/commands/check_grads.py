@@ -20,7 +20,7 @@ from tinyconv import gradients
 from tinyconv.arch import BatchNorm, parse, parse_input
 from tinyconv.errors import InputError
 from tinyconv.layers import Conv
-from tinyconv.layers.conv import ALGORITHMS, pick_algorithm
+from tinyconv.layers.conv import ALGORITHMS
 from tinyconv.network import Network
 
 KINK_NOTE = ("kinks: the images are standard-normal and every bias and batch-norm shift is "
@@ -74,15 +74,11 @@ def _set_conv_algorithm(net: Network, choice: str) -> list[tuple[str, str]]:
     for i, layer in enumerate(net.layers):
         if not isinstance(layer, Conv):
             continue
-        winograd_ok = layer.kernel == 3 and layer.stride == 1
-        if choice == "auto":
-            out_h, out_w = net.ops[i].out_shape[:2]
-            alg = pick_algorithm(layer.kernel, layer.stride, layer.c_in, layer.filters, True,
-                                 min(out_h, out_w))
-        else:
-            alg = choice if choice == "im2col" or winograd_ok else "im2col"
-            layer.algorithm = alg
-        shown.append((f"{i}:{net.ops[i].name}", alg))
+        if choice != "auto":
+            winograd_ok = layer.kernel == 3 and layer.stride == 1
+            layer.algorithm = choice if choice == "im2col" or winograd_ok else "im2col"
+        h, w = net.ops[i].in_shape[:2]
+        shown.append((f"{i}:{net.ops[i].name}", layer.resolve_algorithm(h, w, training=True)))
     return shown
 
 

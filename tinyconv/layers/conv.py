@@ -101,17 +101,7 @@ class Conv(Layer):
         if x.ndim != 4 or x.shape[3] != self.c_in:
             raise ValueError(f"{self.name}: expected input (n, h, w, {self.c_in}), "
                              f"got shape {x.shape}")
-        algorithm = self.algorithm
-        if algorithm == "auto":
-            size = min(conv_out_size(x.shape[1] + self.pads[0] + self.pads[1], self.kernel,
-                                     self.stride),
-                       conv_out_size(x.shape[2] + self.pads[2] + self.pads[3], self.kernel,
-                                     self.stride))
-            algorithm = pick_algorithm(self.kernel, self.stride, self.c_in, self.filters,
-                                       training, size)
-        elif algorithm not in ALGORITHMS:
-            raise ValueError(f"{self.name}: algorithm must be one of {ALGORITHMS}, "
-                             f"got {algorithm!r}")
+        algorithm = self.resolve_algorithm(x.shape[1], x.shape[2], training)
         if algorithm in ("winograd", "winograd4"):
             return self._forward_winograd(x, training, relu, algorithm)
         n, h, wd, _ = x.shape
@@ -137,6 +127,20 @@ class Conv(Layer):
             self._y = y if relu else None
             self._wino = None
         return y
+
+    def resolve_algorithm(self, h: int, w: int, training: bool) -> str:
+        """The algorithm a forward on ``h x w`` inputs runs: ``self.algorithm``, or for
+        ``"auto"`` :func:`pick_algorithm` of the layer's shape and output size."""
+        algorithm = self.algorithm
+        if algorithm not in ALGORITHMS:
+            raise ValueError(f"{self.name}: algorithm must be one of {ALGORITHMS}, "
+                             f"got {algorithm!r}")
+        if algorithm != "auto":
+            return algorithm
+        top, bottom, left, right = self.pads
+        size = min(conv_out_size(h + top + bottom, self.kernel, self.stride),
+                   conv_out_size(w + left + right, self.kernel, self.stride))
+        return pick_algorithm(self.kernel, self.stride, self.c_in, self.filters, training, size)
 
     def _forward_winograd(self, x: np.ndarray, training: bool, relu: bool,
                           algorithm: str) -> np.ndarray:
