@@ -10,6 +10,8 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
+from tinyconv.layers.kernels_conv import conv_out_size, padded_shape
+
 
 def dw_forward(xp: np.ndarray, w: np.ndarray, b: np.ndarray, stride: int,
                relu: bool = False) -> np.ndarray:
@@ -148,9 +150,8 @@ def tile_taps(w: np.ndarray, ow: int) -> np.ndarray:
 def dw1_out_shape(x_shape: tuple[int, int, int, int], kernel: int,
                   pads: tuple[int, int, int, int]) -> tuple[int, int, int, int]:
     """Output shape of a stride-1 depthwise convolution of ``x_shape`` padded by ``pads``."""
-    n, h, w, c = x_shape
-    top, bottom, left, right = pads
-    return (n, h + top + bottom - kernel + 1, w + left + right - kernel + 1, c)
+    n, hp, wp, c = padded_shape(x_shape, pads)
+    return (n, conv_out_size(hp, kernel, 1), conv_out_size(wp, kernel, 1), c)
 
 
 def dw1_forward(x: np.ndarray, w: np.ndarray, b: np.ndarray,
