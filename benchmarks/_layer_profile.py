@@ -53,8 +53,8 @@ def _wrap(layer, key: str, acc: dict, where: dict | None = None) -> None:
 
 
 def _is_kernels(module_name: str) -> bool:
-    """Whether a module holds kernels: ``tinyconv.layers.kernels_*`` or the generated ``_wino4_unrolled``."""
-    return module_name.startswith(("tinyconv.layers.kernels", "tinyconv.layers._wino4_unrolled"))
+    """Whether a module holds kernels (``tinyconv.layers.kernels_*``)."""
+    return module_name.startswith("tinyconv.layers.kernels")
 
 
 @contextlib.contextmanager

@@ -16,7 +16,7 @@ from scipy import signal
 from helpers import conv_op, randn
 from tinyconv.gradients import check_layer
 from tinyconv.layers import build, reference
-from tinyconv.layers import _wino4_unrolled as kw4u
+from tinyconv.layers import kernels_wino4_unrolled as kw4u
 from tinyconv.layers import gen_wino4
 from tinyconv.layers import kernels_wino as kw
 from tinyconv.layers import kernels_wino4 as kw4
@@ -257,11 +257,11 @@ def test_chunks_of_images_give_the_same_results(monkeypatch, chunk_bytes, algori
 
 
 def test_generated_kernels_are_what_the_generator_writes():
-    """_wino4_unrolled.py is exactly the generator's output (regenerate after changing the matrices)."""
+    """kernels_wino4_unrolled.py is exactly the generator's output (regenerate after changing the matrices)."""
     path = kw4u.__file__
     with open(path, encoding="utf-8") as fh:
         assert fh.read() == gen_wino4.source(), \
-            "run: python -m tinyconv.layers.gen_wino4 > tinyconv/layers/_wino4_unrolled.py"
+            "run: python -m tinyconv.layers.gen_wino4 > tinyconv/layers/kernels_wino4_unrolled.py"
 
 
 def test_generated_combination_reads_the_matrix_row():

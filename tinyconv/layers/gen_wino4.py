@@ -1,4 +1,4 @@
-"""Write the unrolled F(4x4, 3x3) transform kernels (tinyconv/layers/_wino4_unrolled.py).
+"""Write the unrolled F(4x4, 3x3) transform kernels (tinyconv/layers/kernels_wino4_unrolled.py).
 
 The transforms of :mod:`tinyconv.layers.kernels_wino4` visit the non-zero
 coefficients of any matrix in loops, which keeps them short but 2-3x slower
@@ -8,7 +8,7 @@ coefficients written in), then the column pass, with the channel loop
 innermost so that it vectorises. Tiles that reach past the output edge take
 the loop kernels.
 
-Run ``python -m tinyconv.layers.gen_wino4 > tinyconv/layers/_wino4_unrolled.py``
+Run ``python -m tinyconv.layers.gen_wino4 > tinyconv/layers/kernels_wino4_unrolled.py``
 after changing the matrices; ``tests/test_layers_winograd.py`` checks that the
 file is what this script prints.
 """

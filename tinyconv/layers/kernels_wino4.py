@@ -18,7 +18,7 @@ element ``e = 6 * i + j``, tile ``t = (b * th + ty) * tw + tx``; tiles step
 by 4 over an input of ``4 * tiles + 2``.
 
 Training runs the straight-line versions of these kernels in
-:mod:`tinyconv.layers._wino4_unrolled` (printed by
+:mod:`tinyconv.layers.kernels_wino4_unrolled` (printed by
 :mod:`tinyconv.layers.gen_wino4`); the loop kernels here are their reference
 in the tests and take the tiles that reach past the output edge.
 """

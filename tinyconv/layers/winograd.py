@@ -20,7 +20,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from tinyconv.layers import kernels_wino as kw
-from tinyconv.layers import _wino4_unrolled as kw4u
+from tinyconv.layers import kernels_wino4_unrolled as kw4u
 from tinyconv.layers import kernels_wino4 as kw4
 from tinyconv.layers.kernels_act import column_sum
 from tinyconv.layers.kernels_conv import crop_nhwc, pad_nhwc
