@@ -54,16 +54,18 @@ def requantize(acc: np.ndarray, layer: QuantLayer) -> np.ndarray:
 _EXACT = 2.0 ** 53
 
 
-def integer_matmul(a: np.ndarray, b: np.ndarray) -> np.ndarray:
+def integer_matmul(a: np.ndarray, b: np.ndarray, a_max: int | None = None) -> np.ndarray:
     """``a @ b`` for integer arrays, exactly, as int64.
 
     Runs as a float64 BLAS product when ``K * max|a| * max|b|`` bounds every
     partial sum below 2**53 (int8 layers are far below it: 255 * 127 per term),
     else as NumPy's int64 product, which is exact but has no BLAS and is tens
-    of times slower.
+    of times slower. ``a_max``, when the caller knows a bound of ``|a|`` (the
+    largest input of a convolution bounds its patches), saves a pass over ``a``.
     """
     k = a.shape[-1]
-    bound = float(k) * float(np.abs(a).max(initial=0)) * float(np.abs(b).max(initial=0))
+    a_max = np.abs(a).max(initial=0) if a_max is None else a_max
+    bound = float(k) * float(a_max) * float(np.abs(b).max(initial=0))
     if bound < _EXACT:
         return (a.astype(np.float64) @ b.astype(np.float64)).astype(np.int64)
     return a.astype(np.int64) @ b.astype(np.int64)
@@ -87,7 +89,8 @@ def accumulate(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
         cols = conv_patches(xs, layer.op)  # (n, oh, ow, k, k, c)
         kkc = cols.shape[3] * cols.shape[4] * cols.shape[5]
         # (n, oh, ow, k*k*c) @ (k*k*c, f)
-        acc = integer_matmul(cols.reshape(*cols.shape[:3], kkc), w.reshape(kkc, -1))
+        acc = integer_matmul(cols.reshape(*cols.shape[:3], kkc), w.reshape(kkc, -1),
+                             a_max=np.abs(xs).max(initial=0))  # patches hold xs and zeros
     elif layer.kind == "dwconv":
         acc = np.einsum("nyxijc,ijc->nyxc", conv_patches(xs, layer.op), w)
     elif layer.kind == "dense":
