@@ -29,6 +29,8 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "inspect": ("inspect", "what is in a data set: classes, counts, sizes, duplicates, folds"),
     "cost": ("cost", "per-layer parameters, MACs, activation memory and flash of a network"),
     "check-grads": ("check_grads", "finite-difference check of every gradient of a network"),
+    "emulate": ("emulate", "run a network's int8 C on an emulated Cortex-M core: "
+                           "instructions, time, flash, RAM, bit-exactness"),
     "search": ("search", "budgeted cross-validated search over a space of networks"),
     "report": ("report", "write the HTML report of a run folder"),
     "export": ("export", "retrain the pick on all data; write int8 weights and C code"),

@@ -57,7 +57,7 @@ static int8_t @P@_rdiv(int32_t total, int32_t count)
 
 CONV = r"""
 /* Standard convolution, NHWC, weights [f][k][k][c], zero padding = input zp. */
-static void @P@_conv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
+@U@_KERNEL void @P@_conv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
                      int32_t oh, int32_t ow, int32_t f, int32_t k, int32_t s,
                      int32_t pt, int32_t pl, int32_t xz, const int8_t *wt,
                      const int32_t *bias, const int32_t *mult, const int32_t *shift,
@@ -92,7 +92,7 @@ static void @P@_conv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c
 
 DWCONV = r"""
 /* Depthwise convolution, NHWC, weights [k][k][c], zero padding = input zp. */
-static void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
+@U@_KERNEL void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
                        int32_t oh, int32_t ow, int32_t k, int32_t s, int32_t pt,
                        int32_t pl, int32_t xz, const int8_t *wt, const int32_t *bias,
                        const int32_t *mult, const int32_t *shift, int32_t yz,
@@ -122,7 +122,7 @@ static void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t
 
 DENSE = r"""
 /* Dense layer, weights [n_out][n_in]; a map input is read in NHWC order. */
-static void @P@_dense(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
+@U@_KERNEL void @P@_dense(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
                       int32_t xz, const int8_t *wt, const int32_t *bias,
                       const int32_t *mult, const int32_t *shift, int32_t yz,
                       int32_t lo, int32_t hi)
@@ -143,7 +143,7 @@ HEAD = r"""
 /* The classifier head: a dense layer writing the int8 logits, returning the
    arg-max of the same outputs requantised with 8 more fractional bits, so that
    equal int8 logits are still told apart (the first of equal values wins). */
-static int32_t @P@_head(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
+@U@_KERNEL int32_t @P@_head(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
                         int32_t xz, const int8_t *wt, const int32_t *bias,
                         const int32_t *mult, const int32_t *shift, int32_t yz)
 {
@@ -169,7 +169,7 @@ static int32_t @P@_head(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
 
 MAXPOOL = r"""
 /* Max pooling, size = stride = s, ragged edge dropped; int8 in, int8 out. */
-static void @P@_maxpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
+@U@_KERNEL void @P@_maxpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
                         int32_t oh, int32_t ow, int32_t s)
 {
     int32_t oy, ox, ch, dy, dx;
@@ -192,7 +192,7 @@ static void @P@_maxpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
 
 AVGPOOL = r"""
 /* Average pooling, size = stride = s; same scale and zero point in and out. */
-static void @P@_avgpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
+@U@_KERNEL void @P@_avgpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
                         int32_t oh, int32_t ow, int32_t s)
 {
     int32_t oy, ox, ch, dy, dx;
@@ -214,7 +214,7 @@ static void @P@_avgpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
 
 GAP = r"""
 /* Global average pooling: (h, w, c) -> (c); same scale and zero point. */
-static void @P@_gap(const int8_t *x, int8_t *y, int32_t hw, int32_t c)
+@U@_KERNEL void @P@_gap(const int8_t *x, int8_t *y, int32_t hw, int32_t c)
 {
     int32_t ch, i;
     for (ch = 0; ch < c; ++ch) {
@@ -237,12 +237,27 @@ NEEDS = {
     "avgpool": ("RDIV", "AVGPOOL"),
     "gap": ("RDIV", "GAP"),
 }
-ORDER = ("SCALE", "RDIV", "CONV", "DWCONV", "DENSE", "HEAD", "MAXPOOL", "AVGPOOL", "GAP")
-TEMPLATES = {"SCALE": SCALE, "RDIV": RDIV, "CONV": CONV, "DWCONV": DWCONV, "DENSE": DENSE,
+KERNEL = r"""
+/* Each kernel stays one generic out-of-line function, so a step costs what its
+   own loop counts say wherever it sits in the network (GCC would otherwise inline
+   or specialise a kernel whose calls share a shape, and the time model could not
+   tell); noipa also stops constants flowing in from a single call site. */
+#if defined(__GNUC__) && !defined(__clang__)
+#define @U@_KERNEL static __attribute__((noipa))
+#elif defined(__GNUC__)
+#define @U@_KERNEL static __attribute__((noinline))
+#else
+#define @U@_KERNEL static
+#endif
+"""
+
+ORDER = ("KERNEL", "SCALE", "RDIV", "CONV", "DWCONV", "DENSE", "HEAD", "MAXPOOL", "AVGPOOL", "GAP")
+TEMPLATES = {"KERNEL": KERNEL, "SCALE": SCALE, "RDIV": RDIV, "CONV": CONV, "DWCONV": DWCONV, "DENSE": DENSE,
              "HEAD": HEAD, "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
 
 
 def kernels_for(kinds, prefix: str) -> str:
     """The C text of every kernel the step ``kinds`` need, prefixed."""
-    wanted = {name for kind in kinds for name in NEEDS[kind]}
-    return "".join(TEMPLATES[name].replace("@P@", prefix) for name in ORDER if name in wanted)
+    wanted = {"KERNEL"} | {name for kind in kinds for name in NEEDS[kind]}
+    return "".join(TEMPLATES[name].replace("@P@", prefix).replace("@U@", prefix.upper())
+                   for name in ORDER if name in wanted)

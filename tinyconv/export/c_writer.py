@@ -17,7 +17,10 @@ C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
   returns the class: the arg-max of the last layer's outputs requantised with
   8 more fractional bits than the int8 logits, so that classes whose logits
   round to the same int8 value are still told apart (the first of equal
-  values wins). It uses the one static arena, so it is not re-entrant.
+  values wins). It uses the one static arena, so it is not re-entrant;
+* ``{PREFIX}_MARK(step)`` before each step (0 is the input step) and after
+  the last: empty unless the build defines it (the device measurement binds
+  it to a tick counter to time each step), so it adds no code otherwise.
 """
 
 from __future__ import annotations
@@ -241,16 +244,22 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
             f"    for (i = 0; i < {h * w * c}; ++i) {{\n",
             f"        {p}_arena[i] = {p}_input_table[(int32_t)image[i] * {c} + i % {c}];\n",
             "    }\n"]
+    body.insert(2, f"    {P}_MARK(0);\n")
     last = len(qnet.layers) - 1
     for j, (layer, (src, dst)) in enumerate(zip(qnet.layers, offsets)):
         body.append(f"    /* {_comment_safe(_describe(layer))} */\n")
+        body.append(f"    {P}_MARK({j + 1});\n")
         body.append(_call(layer, p, f"{p}_arena + {src}", f"{p}_arena + {dst}", j == last))
-    body += [f"    memcpy(logits, {p}_arena + {last_dst}, {k});\n",
+    body += [f"    {P}_MARK({last + 2});\n",
+             f"    memcpy(logits, {p}_arena + {last_dst}, {k});\n",
              "    return best;\n}\n"]
 
     info = _info_comment(qnet, classes, flash, arena, macs)
     source = (info + "\n#include <stdint.h>\n#include <string.h>\n\n"
-              f'#include "{p}.h"\n\n' + "\n".join(blocks) + "\n"
+              f'#include "{p}.h"\n\n'
+              f"/* a build may define {P}_MARK(step) to time each step */\n"
+              f"#ifndef {P}_MARK\n#define {P}_MARK(step) ((void)0)\n#endif\n\n"
+              + "\n".join(blocks) + "\n"
               f"/* activations: each step reads one end and writes the other */\n"
               f"static int8_t {p}_arena[{P}_ARENA_BYTES];\n"
               + kernels_for([layer.kind for layer in qnet.layers[:-1]] + ["head"], p) + "\n" + "".join(body))
