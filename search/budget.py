@@ -1,7 +1,10 @@
 """Device budgets: the limits a candidate must fit, and filtering by them.
 
-A :class:`Budget` holds up to four limits (parameters, MACs, int8 peak
-activation KB, int8 flash KB; ``None`` means no limit). :func:`filter_budget`
+A :class:`Budget` holds up to five limits (parameters, MACs, int8 peak
+activation KB, int8 flash KB, milliseconds per image; ``None`` means no limit)
+and the device the time is for (a core and its clock, from the space file's
+``[device]`` table or ``--core`` / ``--clock-mhz``; the time is the device
+model's, :mod:`tinyconv.device.model`). :func:`filter_budget`
 costs every candidate with :func:`tinyconv.cost.totals_of` and keeps those
 within every limit, counting what each limit removed. Budgets come from a
 space file's ``[budget]`` table (:mod:`search.space`) or the command line.
@@ -22,7 +25,8 @@ from tinyconv.errors import BudgetError
 # budget name -> (field of Totals, bytes per unit, name of the figure, unit shown)
 _BUDGETS = {"max_params": ("params", 1, "params", ""), "max_macs": ("macs", 1, "MACs", ""),
             "max_peak_kb": ("peak_int8_bytes", KB, "peak", " KB"),
-            "max_flash_kb": ("flash_bytes", KB, "flash", " KB")}
+            "max_flash_kb": ("flash_bytes", KB, "flash", " KB"),
+            "max_ms": ("ms", 1, "time", " ms")}
 
 
 @dataclass(frozen=True)
@@ -44,8 +48,24 @@ class Budget:
     max_macs: int | None = None
     max_peak_kb: float | None = None
     max_flash_kb: float | None = None
+    max_ms: float | None = None
+    core: str | None = None
+    clock_mhz: float | None = None
 
     def __post_init__(self) -> None:
+        if self.core is not None:
+            from tinyconv.device.cores import core_named
+            object.__setattr__(self, "core", core_named(self.core).name)
+        if self.clock_mhz is not None:
+            from tinyconv.device.cores import check_clock
+            if self.core is None:
+                raise BudgetError(f"clock_mhz = {self.clock_mhz!r} needs a core; set "
+                                  "core in [device] or give --core")
+            object.__setattr__(self, "clock_mhz", check_clock(self.clock_mhz))
+        if self.max_ms is not None and self.core is None:
+            raise BudgetError(f"budget max_ms = {self.max_ms!r} needs a core to time the "
+                              "networks on; set core (and clock_mhz) in [device] or give "
+                              "--core cortex-m4 --clock-mhz 80")
         for name in _BUDGETS:
             value = getattr(self, name)
             if value is None:
@@ -55,9 +75,22 @@ class Budget:
                   and np.isfinite(value) and value > 0
                   and (isinstance(value, int) or not integer))
             if not ok:
-                kind = "a positive integer" if integer else "a positive number of KB"
+                kind = ("a positive integer" if integer else "a positive number of ms"
+                        if name == "max_ms" else "a positive number of KB")
                 raise BudgetError(f"budget {name} = {value!r}: must be {kind}; leave it "
                                   "out (None) for no limit")
+
+    @property
+    def clock(self) -> float | None:
+        """The clock the time is computed at: the one set, or the core's assumed clock."""
+        if self.core is None:
+            return None
+        from tinyconv.device.cores import core_named
+        return self.clock_mhz if self.clock_mhz is not None else core_named(self.core).clock_mhz
+
+    def device(self) -> dict:
+        """``{"core": ..., "clock_mhz": ...}`` (both None without a core)."""
+        return {"core": self.core, "clock_mhz": self.clock}
 
     def limits(self) -> dict[str, float]:
         """The set budgets: name -> limit in the unit of :class:`Totals` (bytes for KB)."""
@@ -82,7 +115,10 @@ class Budget:
         parts = []
         for name, (attr, unit, label, suffix) in _BUDGETS.items():
             value = getattr(totals, attr)
-            shown = (f"{value:,}" if unit == 1 else f"{value / unit:,.1f}") + suffix
+            if value is None:
+                continue  # no core: no time
+            shown = (f"{value:,}" if unit == 1 and name != "max_ms" else
+                     f"{value / unit:,.1f}") + suffix
             limit = getattr(self, name)
             if limit is None:
                 parts.append(f"{label} {shown} (no limit)")
@@ -92,10 +128,10 @@ class Budget:
         return ", ".join(parts)
 
 
-def budget_from_table(table: dict, source: str) -> Budget:
-    """A :class:`Budget` from a ``[budget]`` table (keys already checked)."""
+def budget_from_table(table: dict, source: str, device: dict | None = None) -> Budget:
+    """A :class:`Budget` from a ``[budget]`` table and a ``[device]`` table (keys checked)."""
     try:
-        return Budget(**table)
+        return Budget(**table, **(device or {}))
     except BudgetError as exc:
         raise BudgetError(f"{source}: {exc}") from None
 
@@ -174,6 +210,12 @@ def filter_budget(candidates: Sequence[Arch], budget: Budget, n_classes: int) ->
     limits = budget.limits()
     cache: dict = {}
     totals = tuple(totals_of(a, n_classes, cache) for a in candidates)
+    if budget.core is not None:
+        from dataclasses import replace
+
+        from tinyconv.device.model import time_ms
+        totals = tuple(replace(t, ms=time_ms(a, n_classes, budget.core, budget.clock))
+                       for a, t in zip(candidates, totals))
     over_each = [budget.over(t) for t in totals]
     within = tuple(not o for o in over_each)
     counts = {name: sum(name in o for o in over_each) for name in limits}

@@ -42,7 +42,7 @@ import numpy as np
 import pandas as pd
 
 ORDERS = ("per_param", "accuracy")
-COLUMNS = ("candidate", "params", "macs", "peak_kb", "flash_kb", "rung", "epochs", "folds",
+COLUMNS = ("candidate", "params", "macs", "peak_kb", "flash_kb", "ms", "rung", "epochs", "folds",
            "acc_mean", "acc_se", "acc_min", "acc_max", "train_acc_mean", "gap",
            "acc_per_kparam", "t_vs_best", "p_vs_best", "finalist", "pareto_params",
            "pareto_macs", "within_1se", "pick", "rank_per_param", "rank_accuracy",
@@ -194,7 +194,7 @@ def one_se_pick(acc_mean: Sequence[float], acc_se: Sequence[float],
 
 
 def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, folds: int,
-               by: str = "per_param") -> pd.DataFrame:
+               by: str = "per_param", device: dict | None = None) -> pd.DataFrame:
     """The ranking table from a store's units and candidates (see the module notes).
 
     Parameters
@@ -204,6 +204,9 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
     n_classes : int, the ``K`` of chance accuracy ``1/K``
     folds : int, the ``k`` of the cross-validation (a rung counts when all k finished)
     by : ``"per_param"`` or ``"accuracy"``, the order of the rows
+    device : dict, optional
+        ``{"core": ..., "clock_mhz": ...}``: the ``ms`` column is the device model's
+        milliseconds per image there (NaN without a core)
     """
     if by not in ORDERS:
         raise ValueError(f"rank by {by!r}: expected one of {', '.join(ORDERS)}")
@@ -230,6 +233,7 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
             "candidate": cand, "params": params, "macs": int(cost.at[cand, "macs"]),
             "peak_kb": cost.at[cand, "peak_int8_bytes"] / 1024.0,
             "flash_kb": cost.at[cand, "flash_bytes"] / 1024.0,
+            "ms": _ms(cand, n_classes, device),
             "rung": int(rung), "epochs": int(sel["epochs"].iloc[0]), "folds": int(acc.size),
             "acc_mean": mean, "acc_se": float(acc.std(ddof=1) / math.sqrt(acc.size)),
             "acc_min": float(acc.min()), "acc_max": float(acc.max()),
@@ -271,6 +275,14 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
     return table[list(COLUMNS)]
 
 
+def _ms(candidate: str, n_classes: int, device: dict | None) -> float:
+    """The device model's milliseconds per image, or NaN without a core."""
+    if not device or not device.get("core"):
+        return math.nan
+    from tinyconv.device.model import time_ms
+    return time_ms(candidate, n_classes, device["core"], device.get("clock_mhz"))
+
+
 def _ranks(table: pd.DataFrame, score: str) -> np.ndarray:
     """1-based positions: finalists first, then by score, params, text."""
     order = sorted(range(len(table)), key=lambda i: (
@@ -289,8 +301,10 @@ def rank_run(store, by: str | None = None) -> pd.DataFrame:
     """
     cfg = store.config()
     by = by or store.rank_order() or "per_param"
+    budget = cfg.get("budget") or {}
+    device = {"core": budget.get("core"), "clock_mhz": budget.get("clock_mhz")}
     return rank_units(store.units(), store.candidates(), len(cfg["classes"]),
-                      int(cfg["folds"]), by=by)
+                      int(cfg["folds"]), by=by, device=device)
 
 
 def save_ranking(table: pd.DataFrame, run_dir: str | Path) -> Path:

@@ -34,7 +34,8 @@ DEFAULT_TRAINING = {"batch_size": 32, "optimizer": "adam", "lr": 0.003, "momentu
                     "label_smoothing": 0.0}
 #: Command-line budget names -> the space file's [budget] keys.
 BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
-               "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb"}
+               "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb",
+               "max_ms": "max_ms", "core": "core", "clock_mhz": "clock_mhz"}
 
 
 @dataclass(frozen=True)

@@ -41,6 +41,11 @@ comments give the default of each optional key::
     max_macs = 1000000              # multiply-accumulates per image
     max_peak_kb = 32                # int8 peak activation memory (KB = 1,024 bytes)
     max_flash_kb = 256              # int8 deployment layout
+    max_ms = 50                     # milliseconds per image on the [device] (model)
+
+    [device]                        # the part the time is for (needed by max_ms)
+    core = "cortex-m4"              # cortex-m3, cortex-m4, cortex-m7, cortex-m33
+    clock_mhz = 80                  # default: the core's assumed clock
 
 What a stage is, in the architecture text form (:mod:`tinyconv.arch`), for
 ``f`` filters and kernel ``k``:
@@ -101,13 +106,14 @@ SHAREABLE = ("kernel", "conv", "pool")
 MAX_STAGES = 8
 
 _KNOWN = {
-    "": ("format", "description", "input", "stages", "head", "options", "budget"),
+    "": ("format", "description", "input", "stages", "head", "options", "budget", "device"),
     "input": ("sizes", "modes", "specs"),
     "stages": ("count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
                "shared", "widening"),
     "head": ("kind", "hidden"),
     "options": ("batch_norm", "dropout"),
-    "budget": ("max_params", "max_macs", "max_peak_kb", "max_flash_kb"),
+    "budget": ("max_params", "max_macs", "max_peak_kb", "max_flash_kb", "max_ms"),
+    "device": ("core", "clock_mhz"),
 }
 
 
@@ -385,7 +391,7 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
                            lambda b: isinstance(b, bool), "true or false")
     dropout = r.choices(opts.get("dropout", [0]), "options.dropout",
                         lambda p: _is_int(p, 0, 99), "a percent 0..99 (0 for none)")
-    budget = budget_from_table(r.table(data, "budget"), source)
+    budget = budget_from_table(r.table(data, "budget"), source, r.table(data, "device"))
     return Space(inputs, counts, stages, pool_size, tuple(shared), widening, heads, hidden,
                  batch_norm, dropout, budget, description, text, source, widths)
 

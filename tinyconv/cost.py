@@ -266,7 +266,8 @@ def cost_of(arch: Union[Arch, str], n_classes: int) -> Cost:
 class Totals:
     """The budget figures of one candidate, without per-op rows (cheap to keep).
 
-    Same numbers as the matching fields of :class:`Cost`.
+    Same numbers as the matching fields of :class:`Cost`; ``ms`` is the device
+    model's milliseconds per image when a budget names a core (else None).
     """
 
     arch: str
@@ -276,6 +277,7 @@ class Totals:
     flash_bytes: int
     peak_int8_bytes: int
     exportable: bool
+    ms: float | None = None
 
     @property
     def flash_kb(self) -> float:

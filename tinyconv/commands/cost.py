@@ -58,6 +58,12 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="number of classes of the head (default 8)")
     parser.add_argument("--batch", type=_batch, default=64, metavar="N",
                         help="batch size for the training-memory figure (default 64)")
+    parser.add_argument("--core", default=None, metavar="CORE",
+                        help="also the modelled instructions and milliseconds per layer on a "
+                             "core: cortex-m3, cortex-m4, cortex-m7 or cortex-m33")
+    parser.add_argument("--clock-mhz", type=float, default=None, metavar="F",
+                        help="clock of the part for the milliseconds (default: the core's "
+                             "assumed clock)")
     parser.add_argument("--json", action="store_true",
                         help="print JSON (totals, rows, training memory) instead of a table")
 
@@ -81,16 +87,44 @@ def resolve_arch(text: str, input_spec: str | None) -> Arch:
 
 def run(args: argparse.Namespace) -> int:
     """Print the cost table (or JSON); returns 0."""
+    from tinyconv.errors import InputError
+
     arch = resolve_arch(args.arch, args.input)
     cost = cost_of(arch, args.classes)
     memory = training_memory(arch, args.classes, args.batch)
+    device = None
+    if args.core is None and args.clock_mhz is not None:
+        raise InputError("--clock-mhz needs --core (the time depends on the core); e.g. "
+                         "--core cortex-m4 --clock-mhz 80")
+    if args.core is not None:
+        from tinyconv.device.cores import check_clock, core_named
+        from tinyconv.device.model import estimate
+
+        core = core_named(args.core)
+        clock = check_clock(args.clock_mhz) if args.clock_mhz is not None else core.clock_mhz
+        device = (core, clock, estimate(arch, args.classes, core))
     if args.json:
         data = cost.as_dict()
         data["training_memory"] = dataclasses.asdict(memory)
+        if device is not None:
+            core, clock, est = device
+            data["device"] = {"core": core.name, "clock_mhz": clock, "cpi": core.cpi,
+                              **est.brief(), "ms": est.ms(core, clock),
+                              "flash_code_bytes": est.flash_code_bytes,
+                              "stack_bytes": est.stack_bytes,
+                              "steps": [dataclasses.asdict(s) for s in est.steps]}
         json.dump(data, sys.stdout, indent=2)
         print()
         return 0
     table = cost.table()[list(_COLUMNS)].rename(columns=_COLUMNS)
+    if device is not None:
+        core, clock, est = device
+        instr = [0.0] * len(cost.rows)
+        for step in est.steps:
+            instr[step.row] = step.instructions
+        table["instructions"] = [f"{v:,.0f}" if v else "-" for v in instr]
+        table[f"ms @{clock:g}MHz"] = [f"{v * core.cpi / (clock * 1e3):.3f}" if v else "-"
+                                      for v in instr]
     print(f"{cost.arch}  ({cost.n_classes} classes)")
     print(table.to_string(index=False))
     totals = pd.Series({
@@ -104,8 +138,19 @@ def run(args: argparse.Namespace) -> int:
         f"training memory, batch {args.batch}": f"{memory.total_bytes:,} B "
                                                 f"({memory.total_bytes / KB / KB:.1f} MB)",
     })
+    if device is not None:
+        core, clock, est = device
+        totals[f"instructions on {core.name}"] = f"{est.instructions:,} per image (model)"
+        totals[f"time at {clock:g} MHz"] = f"{est.ms(core, clock):.2f} ms per image"
+        totals["device flash, int8"] = (f"{est.flash_bytes:,} B (constants "
+                                        f"{est.flash_data_bytes:,} + code ~{est.flash_code_bytes:,})")
+        totals["device RAM"] = (f"{est.ram_bytes:,} B (activations {est.ram_static_bytes:,} + "
+                                f"stack <= {est.stack_bytes:,})")
     print()
     print(totals.to_string())
+    if device is not None:
+        print(f"time assumes {device[0].cpi:g} cycles per instruction on {device[0].name}; "
+              "measure the real count with `tinyconv emulate`")
     if not cost.exportable:
         print("note: a batch norm does not directly follow a conv, dwconv or dense layer; "
               "the int8 exporter cannot fold it, so its flash is not counted",

@@ -61,6 +61,14 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                    help="int8 peak activation memory (KB = 1,024 bytes)")
     b.add_argument("--max-flash-kb", type=positive_float, default=None, metavar="KB",
                    help="int8 weights, tables and per-channel constants")
+    b.add_argument("--max-ms", type=positive_float, default=None, metavar="MS",
+                   help="milliseconds per image on the device (the cost model's time; "
+                        "needs --core or a [device] table)")
+    b.add_argument("--core", default=None, metavar="CORE",
+                   help="the device's core for the time: cortex-m3, cortex-m4, cortex-m7, "
+                        "cortex-m33")
+    b.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
+                   help="the device's clock (default: the core's assumed clock)")
     t = parser.add_argument_group("training of every unit")
     t.add_argument("--lr", type=positive_float, default=None,
                    help="learning rate (default 0.003)")
@@ -102,7 +110,8 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
         data=data, space=space, out=Path(out), folds=args.folds, seed=args.seed, eta=args.eta,
         max_epochs=args.max_epochs, min_epochs=args.min_epochs, full=args.full, max_candidates=args.max_candidates,
         budgets={"max_params": args.max_params, "max_macs": args.max_macs,
-                 "max_ram_kb": args.max_ram_kb, "max_flash_kb": args.max_flash_kb},
+                 "max_ram_kb": args.max_ram_kb, "max_flash_kb": args.max_flash_kb,
+                 "max_ms": args.max_ms, "core": args.core, "clock_mhz": args.clock_mhz},
         budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
         budget_epochs=args.budget_epochs, training=training, workers=args.workers,
         cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"),
@@ -199,7 +208,8 @@ def summary_lines(summary, top: int = 10) -> list[str]:
     best = t[t["finalist"]].sort_values(["acc_mean", "params"], ascending=[False, True]).iloc[0]
     lines += ["", f"pick: {pick.candidate}  held-out accuracy {pick.acc_mean:.3f} ± "
                   f"{pick.acc_se:.3f} over {int(pick.folds)} folds, {int(pick.params):,} "
-                  f"parameters, {pick.peak_kb:.1f} KB RAM, {pick.flash_kb:.1f} KB flash",
+                  f"parameters, {pick.peak_kb:.1f} KB RAM, {pick.flash_kb:.1f} KB flash"
+                  + (f", {pick.ms:.2f} ms per image (model)" if pick.ms == pick.ms else ""),
               f"best: {best.candidate}  {best.acc_mean:.3f} ± {best.acc_se:.3f}, "
               f"{int(best.params):,} parameters"]
     if "int8_acc_mean" in t and t["int8_acc_mean"].notna().any():

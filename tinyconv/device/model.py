@@ -217,3 +217,19 @@ def estimate(arch: Union[Arch, str], n_classes: int, core: Union[Core, str]) -> 
     return DeviceEstimate(core.name, int(round(total)), int(round(data + code)), data,
                           int(round(code)), cost.peak_int8_bytes + stack, cost.peak_int8_bytes,
                           stack, tuple(steps))
+
+
+def instructions_of(arch: Union[Arch, str], n_classes: int, core: Union[Core, str]) -> int:
+    """The model's instructions per image alone (what a time budget filters on)."""
+    core = core_named(core) if isinstance(core, str) else core
+    coef = core_constants(core)
+    total = coef["call"] + sum(step_instructions(kind, step_features(kind, op, in_shape), coef)
+                               for _, _, kind, op, in_shape in device_steps(arch, n_classes))
+    return int(round(total))
+
+
+def time_ms(arch: Union[Arch, str], n_classes: int, core: Union[Core, str],
+            clock_mhz: float | None = None) -> float:
+    """Modelled milliseconds per image on ``core`` at ``clock_mhz`` (its assumed CPI)."""
+    core = core_named(core) if isinstance(core, str) else core
+    return milliseconds(instructions_of(arch, n_classes, core), core, clock_mhz)

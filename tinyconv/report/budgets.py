@@ -14,7 +14,10 @@ KNOWN: dict[str, tuple[str, str, float, str]] = {
     "max_macs": ("multiply-accumulates per image", "macs", 1.0, "MACs"),
     "max_peak_kb": ("peak activation memory (int8)", "peak_kb", 1.0, "KB"),
     "max_flash_kb": ("flash (int8 weights, biases, scales, input table)", "flash_kb", 1.0, "KB"),
+    "max_ms": ("time per image on the device (cost model)", "ms", 1.0, "ms"),
 }
+#: keys of the stored budget that name the device rather than limit anything
+DEVICE_KEYS = ("core", "clock_mhz")
 
 
 def budget_rows(budgets: Mapping[str, Any] | None, pick: pd.Series,
@@ -35,7 +38,7 @@ def budget_rows(budgets: Mapping[str, Any] | None, pick: pd.Series,
     """
     rows = []
     for key, limit in (budgets or {}).items():
-        if limit is None:
+        if limit is None or key in DEVICE_KEYS:
             continue
         try:
             lim = float(limit)

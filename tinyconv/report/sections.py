@@ -46,6 +46,8 @@ def _acc_pm(row: pd.Series) -> str:
     return f"{pct(row['acc_mean'])} \u00b1 {pct(row['acc_se'])}"
 
 
+MS_COLUMN = Column("ms", "ms", lambda v: num(v, 2),
+                   title="milliseconds per image on the run's device (cost model)")
 RANKING_COLUMNS = (
     Column("rank per kparam", "rank_per_param", num,
            title="rank by accuracy over chance per 1000 parameters"),
@@ -120,6 +122,8 @@ def decision_panel(data: RunData) -> str:
         ("parameters", num(pick["params"]), f"{num(pick['macs'])} MACs per image"),
         ("flash", f"{num(pick['flash_kb'], 1)} KB", "int8 weights and tables"),
         ("peak memory", f"{num(pick['peak_kb'], 1)} KB", "int8 activations"),
+        *((("time", f"{num(pick['ms'], 2)} ms", "per image on the device (cost model)"),)
+          if "ms" in pick and pick["ms"] == pick["ms"] else ()),
         ("over-fitting gap", pct(pick["gap"]), f"training {pct(pick['train_acc_mean'])}"),
     ))
     return ('<div class="decision"><div><h2>The pick</h2>'
@@ -134,6 +138,8 @@ def ranking_section(data: RunData) -> Section:
     columns = RANKING_COLUMNS
     if "int8_acc_mean" in frame and frame["int8_acc_mean"].notna().any():
         columns = columns[:8] + (INT8_COLUMN,) + columns[8:]
+    if "ms" in frame and frame["ms"].notna().any():  # the run names a device
+        columns = columns[:6] + (MS_COLUMN,) + columns[6:]
     body = table(frame, columns, highlight=list(frame["pick"].astype(bool)), css="ranking")
     n_lower = int((~data.ranking.get("finalist", pd.Series(True, index=frame.index))
                    .astype(bool)).sum())
