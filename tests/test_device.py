@@ -214,3 +214,47 @@ def test_emulate_json(capsys):
     assert rec["ms_at_clock"] == pytest.approx(rec["instructions"] * rec["cpi"] / 48e3, rel=1e-3)
     assert rec["instructions_per_mac"] == pytest.approx(
         rec["instructions"] / cost_of("12x12gray/c4k3-p2-d8", 3).macs, rel=1e-3)
+
+
+@needs_device
+@pytest.mark.slow
+def test_export_on_a_core_writes_device_json_and_emulate_rebuilds_it(tmp_path, capsys):
+    """export --core measures the pick on images held out of calibration (device.json);
+    emulate --network rebuilds the same int8 network from the saved calibration images."""
+    from test_export_command import make_run
+
+    run = make_run(tmp_path / "run")
+    assert main(["export", str(run), "--core", "cortex-m7", "--clock-mhz", "200",
+                 "--device-images", "5", "--calib", "20"]) == 0
+    out = capsys.readouterr().out
+    assert "device        cortex-m7:" in out and "bit-exact" in out
+    rec = json.loads((run / "export" / "device.json").read_text())
+    assert rec["bit_exact"] and rec["images"] == 5 and rec["clock_mhz"] == 200
+    summary = json.loads((run / "export" / "summary.json").read_text())
+    assert summary["device"]["instructions"] == rec["instructions"]
+    with np.load(run / "export" / "calibration.npz") as f:
+        assert len(f["calib"]) == 20 and len(f["held_out"]) == 5
+        # held out: none of the device images is a calibration image
+        calib = {bytes(x) for x in f["calib"].reshape(20, -1)}
+        assert not any(bytes(x) in calib for x in f["held_out"].reshape(5, -1))
+    assert main(["emulate", "--network", str(run / "export" / "network.npz"), "--core",
+                 "cortex-m7", "--images", "5", "--json"]) == 0
+    again = json.loads(capsys.readouterr().out)
+    # same int8 network, same images: the same count to the instruction
+    assert again["bit_exact"] and again["instructions"] == rec["instructions"]
+    assert again["flash_bytes"] == rec["flash_bytes"]
+
+
+def test_emulate_network_without_calibration_says_what_to_do(tmp_path, capsys):
+    """An exported network whose calibration.npz is gone: exit 2 naming the file and --data."""
+    from tinyconv.network import Network
+
+    if not HAVE_TOOLS:
+        pytest.skip("needs the cross-compiler and QEMU")
+    net = Network.from_arch("8x8gray/c4k3-gap", 3)
+    path = tmp_path / "network.npz"
+    net.save(path, arrays={"norm_mean": np.full(1, 0.5, np.float32),
+                           "norm_std": np.full(1, 0.25, np.float32)})
+    assert main(["emulate", "--network", str(path)]) == 2
+    err = capsys.readouterr().err
+    assert "calibration.npz not found" in err and "--data" in err

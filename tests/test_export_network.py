@@ -25,12 +25,12 @@ def setup(text=TEXT, k=3, seed=0):
 
 
 def test_writes_weights_code_and_summary(tmp_path):
-    """The four files appear; the summary's figures are the cost model's and the data's."""
+    """The five files appear (calibration images too); the summary's figures are the cost model's and the data's."""
     net, mean, std, images, labels = setup()
     s = export_network(net, mean, std, images[:20], tmp_path / "out", prefix="unit",
                        classes=["a", "b", "c"], eval_images=images[20:], eval_labels=labels[20:])
     names = sorted(p.name for p in (tmp_path / "out").iterdir())
-    assert names == ["network.npz", "summary.json", "unit.c", "unit.h"]
+    assert names == ["calibration.npz", "network.npz", "summary.json", "unit.c", "unit.h"]
     cost = cost_of(TEXT, 3)
     assert (s.flash_bytes, s.arena_bytes, s.macs, s.params) == (
         cost.flash_bytes, cost.peak_int8_bytes, cost.macs, cost.params)

@@ -18,7 +18,7 @@ from typing import Callable
 
 import numpy as np
 
-from tinyconv.commands._args import positive_int
+from tinyconv.commands._args import positive_float, positive_int
 
 PICKS = ("one-se", "best")
 
@@ -37,6 +37,15 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="calibration images for the int8 ranges (default 256)")
     parser.add_argument("--prefix", default="tc", metavar="ID",
                         help="prefix of the C symbols and file names (default tc)")
+    parser.add_argument("--core", default=None, metavar="CORE",
+                        help="also build the C for this core (cortex-m3, cortex-m4, cortex-m7, "
+                             "cortex-m33), run it under QEMU on images held out of the "
+                             "calibration and write device.json")
+    parser.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
+                        help="the part's clock for the time figure (default: the core's "
+                             "assumed clock)")
+    parser.add_argument("--device-images", type=positive_int, default=16, metavar="N",
+                        help="images for the device run (default 16)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -48,12 +57,18 @@ def run(args: argparse.Namespace) -> int:
 
     try:
         summary = export_run(args.run_dir, pick=args.pick, out_dir=args.out,
-                             epochs=args.epochs, calib=args.calib, prefix=args.prefix, log=log)
+                             epochs=args.epochs, calib=args.calib, prefix=args.prefix, log=log,
+                             core=args.core, clock_mhz=args.clock_mhz,
+                             device_images=args.device_images)
     except DivergedError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 1
     for line in summary.lines():
         print(line)
+    if summary.device is not None and (Path(args.run_dir) / "report.html").exists():
+        from tinyconv.commands.search import write_report_if_available
+        state, text = write_report_if_available(Path(args.run_dir))
+        print(f"report: {text}", file=sys.stdout if state == "written" else sys.stderr)
     return 0
 
 
@@ -86,7 +101,8 @@ def choose(table, pick: str, run_dir) -> dict:
 
 def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None = None,
                calib: int = 256, prefix: str = "tc",
-               log: Callable[[str], None] | None = None):
+               log: Callable[[str], None] | None = None, core: str | None = None,
+               clock_mhz: float | None = None, device_images: int = 16):
     """Retrain a run's chosen candidate on all its data and export it.
 
     Parameters
@@ -106,6 +122,13 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
         C symbol prefix.
     log : callable, optional
         Receives progress lines.
+    core : str, optional
+        Also measure the exported C on this core under QEMU (``device.json``),
+        on up to ``device_images`` images held out of the calibration sample.
+    clock_mhz : float, optional
+        The part's clock for the time figure.
+    device_images : int
+        Images for the device run.
 
     Returns
     -------
@@ -135,6 +158,13 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
 
     log = log or (lambda text: None)
     prefix = check_prefix(prefix)  # before any training
+    device = None
+    if core is not None:  # a bad core, clock or a missing toolchain before any training
+        from tinyconv.device.cores import check_clock, core_named
+        from tinyconv.device.toolchain import find_toolchain
+        device = core_named(core)
+        clock_mhz = check_clock(clock_mhz) if clock_mhz is not None else None
+        find_toolchain()
     if isinstance(calib, bool) or not isinstance(calib, (int, np.integer)) or calib < 1:
         raise RunError(f"calibration images must be a whole number >= 1, got {calib!r}")
     with RunStore(run_dir) as store:
@@ -182,7 +212,13 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
             "data": cfg["data"], "fingerprint": cfg["fingerprint"], "training": training,
             "cv_acc_mean": float(row["acc_mean"]), "cv_acc_se": float(row["acc_se"]),
             "final_train_acc": float(hist.train_acc[-1])}
+    # the device runs images held out of the calibration sample (all were trained on)
+    rest = np.setdiff1d(np.arange(len(pixels)), chosen)
+    pool = rest if len(rest) else chosen
+    on_device = pixels[np.sort(rng.choice(pool, size=min(device_images, len(pool)),
+                                          replace=False))]
     return export_network(net, mean, std, pixels[chosen], out_dir, prefix=prefix,
                           classes=cfg["classes"], eval_images=pixels,
                           eval_labels=data.labels, eval_set="training (all)", meta=meta,
-                          cv_accuracy=(float(row["acc_mean"]), float(row["acc_se"])))
+                          cv_accuracy=(float(row["acc_mean"]), float(row["acc_se"])),
+                          core=device, clock_mhz=clock_mhz, device_images=on_device, log=log)

@@ -7,6 +7,8 @@ normalisation; reading a run folder and retraining the pick is
 
 from __future__ import annotations
 
+import dataclasses
+import json
 from pathlib import Path
 
 import numpy as np
@@ -21,13 +23,16 @@ __all__ = ["export_network", "ExportSummary", "generate_c", "CCode"]
 
 WEIGHTS_FILE = "network.npz"
 SUMMARY_FILE = "summary.json"
+DEVICE_FILE = "device.json"
 
 
 def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
                    prefix: str = "tc", classes=None, eval_images: np.ndarray | None = None,
                    eval_labels: np.ndarray | None = None, eval_set: str = "held-out",
                    meta: dict | None = None, cv_accuracy: tuple[float, float] | None = None,
-                   rounding: str = "feedback") -> ExportSummary:
+                   rounding: str = "feedback", core=None, clock_mhz: float | None = None,
+                   device_images: np.ndarray | None = None,
+                   log=None) -> ExportSummary:
     """Quantise ``net`` and write everything a device build needs.
 
     Parameters
@@ -56,6 +61,18 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         The search's cross-validated accuracy, recorded in the summary.
     rounding : {"feedback", "nearest"}
         Weight rounding (:mod:`tinyconv.quant.rounding`).
+    core : tinyconv.device.cores.Core, optional
+        Also build the C for this core, run it under QEMU on ``device_images``
+        and write the measurement as ``device.json``
+        (:func:`tinyconv.device.figures.device_record`).
+    clock_mhz : float, optional
+        The part's clock for the time figure (default: the core's assumed clock).
+    device_images : ndarray of uint8, shape (m, h, w, c), optional
+        Images for the device run (default: the evaluation images, else the
+        calibration images); ``calibration.npz`` keeps them with the calibration
+        images so that ``tinyconv emulate --network`` rebuilds the same int8 network.
+    log : callable, optional
+        Receives progress lines.
 
     Returns
     -------
@@ -107,5 +124,21 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         eval_set=eval_set, cv_accuracy=None if cv_accuracy is None else float(cv_accuracy[0]),
         cv_accuracy_se=None if cv_accuracy is None else float(cv_accuracy[1]),
         files=tuple(str(f) for f in files))
+    from tinyconv.device.calibration import save_calibration
+    if device_images is None:
+        device_images = eval_images if eval_images is not None else calib_images
+    files.append(save_calibration(out, calib_images, device_images))
+    if core is not None:
+        from tinyconv.device.figures import device_record
+        from tinyconv.device.measure import measure
+        (log or (lambda text: None))(f"building for {core.name} and running "
+                                     f"{len(device_images)} images on QEMU {core.board}")
+        m = measure(qnet, device_images, core, prefix=prefix, macs=cost.macs)
+        record = device_record(m, str(net.arch), net.n_classes, core, clock_mhz,
+                               f"exported weights ({eval_set} images)")
+        files.append(out / DEVICE_FILE)
+        files[-1].write_text(json.dumps(record, indent=2) + "\n")
+        summary = dataclasses.replace(summary, device=record)
+    summary = dataclasses.replace(summary, files=tuple(str(f) for f in files))
     files[3].write_text(summary.to_json() + "\n")
     return summary

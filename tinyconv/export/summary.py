@@ -43,7 +43,10 @@ class ExportSummary:
         The search's cross-validated float accuracy of this candidate and its
         standard error, when exported from a run.
     files : tuple of str
-        Paths written (weights .npz, .c, .h, summary.json).
+        Paths written (weights .npz, .c, .h, summary.json, calibration.npz,
+        and device.json when measured).
+    device : dict or None
+        The device measurement (``device.json``) when the export ran on a core.
     """
 
     arch: str
@@ -67,6 +70,7 @@ class ExportSummary:
     cv_accuracy: float | None = None
     cv_accuracy_se: float | None = None
     files: tuple[str, ...] = ()
+    device: dict | None = None
 
     def to_dict(self) -> dict:
         """Plain data (lists for tuples), ready for JSON."""
@@ -105,5 +109,13 @@ class ExportSummary:
                 line += (f"; accuracy float {self.float_accuracy:.2%}, "
                          f"int8 {self.int8_accuracy:.2%}")
             out.append(line)
+        if self.device:
+            d = self.device
+            out.append(f"device        {d['core']}: {d['instructions']:,} instructions per "
+                       f"image ({d['instructions_per_mac']:.1f} per MAC), {d['ms_at_clock']:.2f} "
+                       f"ms at {d['clock_mhz']:g} MHz (assuming {d['cpi']:g} cycles per "
+                       f"instruction); flash {d['flash_bytes']:,} B, RAM {d['ram_bytes']:,} B; "
+                       + ("bit-exact" if d["bit_exact"] else
+                          f"NOT bit-exact on {d['mismatched_images']} images"))
         out += [f"wrote         {Path(f)}" for f in self.files]
         return out

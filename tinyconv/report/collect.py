@@ -69,7 +69,19 @@ def collect(run_dir: str | Path) -> RunData:
     return RunData(run_dir=run_dir, config=config, classes=classes, ranking=ranking,
                    units=units, predictions=predictions, images=images, paths=paths,
                    candidates=candidates, removed=removed, outcome=outcome,
-                   notices=tuple(notes))
+                   notices=tuple(notes), device=_device(run_dir))
+
+
+def _device(run_dir: Path) -> dict | None:
+    """The export's device measurement (``export/device.json``), if one was made."""
+    import json
+
+    path = Path(run_dir) / "export" / "device.json"
+    try:
+        data = json.loads(path.read_text())
+    except (OSError, ValueError):
+        return None
+    return data if isinstance(data, dict) and "instructions" in data else None
 
 
 def _images(config: dict, predictions: PickPredictions | None, run_dir: Path

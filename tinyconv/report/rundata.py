@@ -55,6 +55,7 @@ class RunData:
     removed : budget name -> candidates of the space it removed
     outcome : how the last search session ended (``RunStore.outcome()``), if known
     notices : plain sentences about what the report had to leave out
+    device : the export's device measurement (``export/device.json``), when made
     """
 
     run_dir: Path
@@ -69,6 +70,7 @@ class RunData:
     removed: dict[str, int] = field(default_factory=dict)
     outcome: dict[str, Any] | None = None
     notices: tuple[str, ...] = field(default=())
+    device: dict[str, Any] | None = None
 
     @property
     def chance(self) -> float:
