@@ -94,12 +94,17 @@ def test_reference_networks(text, params, macs):
 
 
 def test_peak_memory_worked_example():
-    """CHECKS.md: 32x32x1 int8, conv3x3->8 needs 9,216 B, pool2 10,240 B (peak), conv->16 6,144 B."""
+    """CHECKS.md: 32x32x1 int8, conv3x3->8 needs 9,216 B, pool2 10,240 B (peak), conv->16 6,144 B,
+    each convolution plus its im2col scratch (Liberis & Lane 2019 [mem]: input + output +
+    scratch): here two int16 patches of 3*3*c_in values, 36 B and 288 B."""
     cost = cost_of("32x32gray/c8k3-p2-c16k3", 10)
     live = {(r.name, r.kind): r.live_elements for r in cost.rows}
+    scratch = {(r.name, r.kind): r.scratch_bytes for r in cost.rows}
     assert live["1:c8k3", "conv"] == 1_024 + 8_192 == 9_216
     assert live["2:p2", "maxpool"] == 8_192 + 2_048 == 10_240
     assert live["3:c16k3", "conv"] == 2_048 + 4_096 == 6_144
+    assert scratch["1:c8k3", "conv"] == 2 * 2 * 9 * 1 and scratch["3:c16k3", "conv"] == 2 * 2 * 9 * 8
+    assert scratch["2:p2", "maxpool"] == 0
     assert live["1:c8k3", "relu"] == 0  # in place
     assert cost.peak_int8_bytes == 10_240 and cost.peak_op == "2:p2"
     assert cost.peak_float32_bytes == 4 * 10_240
@@ -190,7 +195,8 @@ def test_table_rows_sum_to_the_totals():
     assert len(table) == len(expand(parse(text), 5)) + 1
     assert table["params"].sum() == cost.params and table["macs"].sum() == cost.macs
     assert table["flash_bytes"].sum() == cost.flash_bytes
-    assert table["live_elements"].max() == cost.peak_int8_bytes
+    assert table["live_elements"].max() == cost.peak_elements
+    assert (table["live_elements"] + table["scratch_bytes"]).max() == cost.peak_int8_bytes
     assert json.loads(json.dumps(cost.as_dict()))["rows"][0]["name"] == "input"
 
 
@@ -240,8 +246,9 @@ def test_command_totals_equal_hand_computed_formulas(capsys):
     params = conv_params(3, 3, 8) + conv_params(3, 8, 16) + dense_params(16, 8)
     macs = conv_macs(32, 32, 3, 3, 8) + conv_macs(16, 16, 3, 8, 16) + 16 * 8
     flash = 256 * 3 + (3 * 3 * 3 * 8 + 12 * 8) + (3 * 3 * 8 * 16 + 12 * 16) + (16 * 8 + 12 * 8)
-    peak = 32 * 32 * 3 + 32 * 32 * 8  # first conv: input + output
-    assert (params, macs, flash, peak) == (1_528, 516_224, 2_648, 11_264)
+    # first conv: input + output + two int16 patches of 3*3*3 values
+    peak = 32 * 32 * 3 + 32 * 32 * 8 + 2 * 2 * 27
+    assert (params, macs, flash, peak) == (1_528, 516_224, 2_648, 11_372)
     lines = {line.split("  ")[0]: line for line in out.splitlines()}
     assert lines["parameters"].split()[-1] == f"{params:,}"
     assert lines["MACs per image"].split()[-1] == f"{macs:,}"
@@ -276,9 +283,15 @@ def test_command_bad_text_exits_2(capsys):
 
 
 def test_peak_is_never_below_any_buffer_pair():
-    """Peak = max over buffer-writing ops of in + out, checked with math on a text."""
+    """Peak = max over buffer-writing ops of in + out (+ a conv's two int16 patches of
+    k*k*c_in values in int8), checked with math on a text."""
     text = "20x20rgb/c10k3s2-a2-dw3-c12k1-p5"
     cost = cost_of(text, 4)
-    pairs = [math.prod(op.in_shape) + math.prod(op.out_shape) for op in expand(parse(text), 4)
+    pairs = [math.prod(op.in_shape) + math.prod(op.out_shape)
+             + (4 * op.kernel ** 2 * op.in_shape[2] if op.kind == "conv" else 0)
+             for op in expand(parse(text), 4)
              if op.kind in ("conv", "dwconv", "maxpool", "avgpool", "gap", "dense")]
     assert cost.peak_int8_bytes == max(pairs + [20 * 20 * 3])
+    assert cost.peak_float32_bytes == 4 * max(
+        math.prod(op.in_shape) + math.prod(op.out_shape) for op in expand(parse(text), 4)
+        if op.kind in ("conv", "dwconv", "maxpool", "avgpool", "gap", "dense"))

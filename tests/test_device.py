@@ -71,6 +71,35 @@ def test_emulated_logits_equal_the_integer_reference(text, k, core):
 
 
 @needs_device
+@pytest.mark.slow
+@pytest.mark.parametrize("opt", ["-O0", "-O2", "-Os"])
+@pytest.mark.parametrize("dsp", ["1", "0"])
+def test_dsp_and_portable_paths_bit_exact_at_every_optimisation_level(opt, dsp):
+    """On a Cortex-M4 the DSP path and the portable C, at -O0, -O2 and -Os, equal the
+    integer reference (and so each other)."""
+    for text, k in (BIT_EXACT[0], ("12x12rgb/c7k3-c5k1-dw3s2-d9", 3)):
+        qnet, images = random_network(text, k, seed=11)
+        m = measure(qnet, images[:3], CORES["cortex-m4"], opt=opt, steps=False,
+                    extra_flags=(f"-DTC_USE_DSP={dsp}",))
+        assert m.bit_exact, (text, opt, dsp)
+
+
+@needs_device
+def test_the_dsp_path_is_on_by_default_where_the_core_has_it(tmp_path):
+    """TC_USE_DSP follows the compiler's __ARM_FEATURE_DSP: on for M4, off for M3."""
+    from tinyconv.export.c_writer import generate_c
+
+    qnet, _ = random_network("8x8gray/c4k3-gap", 3, seed=1)
+    (tmp_path / "tc.h").write_text(generate_c(qnet, "tc").header)
+    (tmp_path / "probe.c").write_text('#include "tc.h"\nint dsp = TC_USE_DSP;\n')
+    tools = find_toolchain()
+    for core, want in (("cortex-m3", "0"), ("cortex-m4", "1"), ("cortex-m33", "1")):
+        out = subprocess.run([tools.gcc, *CORES[core].gcc_flags, "-E", "probe.c"],
+                             cwd=tmp_path, capture_output=True, text=True, check=True).stdout
+        assert f"int dsp = {want};" in out, core
+
+
+@needs_device
 def test_a_wrong_logit_is_caught(tmp_path):
     """The comparison is real: a reference from other weights does not match the device."""
     qnet, images = random_network("8x8gray/c4k3-gap", 3, seed=1)

@@ -70,7 +70,7 @@ def random_setup(text: str, n_classes: int, seed: int):
     return net, mean, std, images
 
 
-def build(tmp_path, code) -> tuple:
+def build(tmp_path, code, flags=()) -> tuple:
     """Write and compile the generated files plus a harness; returns (run, sizes)."""
     p, u = code.prefix, code.prefix.upper()
     (tmp_path / f"{p}.c").write_text(code.source)
@@ -81,7 +81,8 @@ def build(tmp_path, code) -> tuple:
                                for a in code.arrays)
     harness = HARNESS.replace("@SIZES@", sizes).replace("@P@", p).replace("@U@", u)
     (tmp_path / "harness.c").write_text(harness)
-    subprocess.run(GCC + ["harness.c", "-o", "harness"], cwd=tmp_path, check=True)
+    subprocess.run(GCC + list(flags) + ["harness.c", "-o", "harness"], cwd=tmp_path,
+                   check=True)
     out = subprocess.run(["./harness", "sizes"], cwd=tmp_path, check=True,
                          capture_output=True, text=True).stdout
     sizes = {name: int(v) for name, v in (line.split() for line in out.splitlines())}
@@ -122,7 +123,8 @@ def _code_without_comments(text: str) -> str:
 
 
 def test_c_has_no_floats_no_malloc_and_only_two_headers():
-    """The integer path has no float or double, no allocation, only stdint.h/string.h."""
+    """The integer path has no float or double, no allocation, only stdint.h/string.h
+    (and the Arm C Language Extensions' arm_acle.h on the DSP path)."""
     net, mean, std, images = random_setup(ARCHS[0][0], ARCHS[0][1], seed=1)
     code = generate_c(quantize_network(net, mean, std, images[:32]), "tc",
                       classes=[f"c{i}" for i in range(5)], macs=123)
@@ -130,7 +132,10 @@ def test_c_has_no_floats_no_malloc_and_only_two_headers():
         body = _code_without_comments(text)
         assert not re.search(r"\b(float|double|malloc|calloc|free|printf)\b", body)
         includes = re.findall(r"#include\s*([<\"][^>\"]+[>\"])", body)
-        assert set(includes) <= {"<stdint.h>", "<string.h>", '"tc.h"'}
+        assert set(includes) <= {"<stdint.h>", "<string.h>", '"tc.h"', "<arm_acle.h>"}
+    # arm_acle.h only where the DSP path is switched on
+    guarded = re.search(r"#if TC_USE_DSP\n#include <arm_acle.h>\n#endif", code.source)
+    assert guarded and code.source.count("arm_acle.h") == 1
     # header comment: architecture, classes and sizes
     assert ARCHS[0][0] in code.header and "4 c4" in code.header
     assert f"flash (constant arrays): {code.flash_bytes} bytes" in code.header
@@ -163,3 +168,45 @@ def test_wrong_number_of_class_names():
     net, mean, std, images = random_setup("8x8gray", 3, seed=0)
     with pytest.raises(InputError, match="2 class names given for a network of 3 classes"):
         generate_c(quantize_network(net, mean, std, images[:8]), "tc", classes=["a", "b"])
+
+
+def _sanitizers_work(tmp_path) -> bool:
+    probe = tmp_path / "probe.c"
+    probe.write_text("int main(void) { return 0; }\n")
+    done = subprocess.run(["gcc", "-fsanitize=address,undefined", str(probe), "-o",
+                           str(tmp_path / "probe")], capture_output=True)
+    return done.returncode == 0
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("style", ["fast", "plain"])
+@pytest.mark.parametrize("text, k", ARCHS[:4])
+def test_c_is_clean_under_address_and_undefined_behaviour_sanitizers(tmp_path, text, k, style):
+    """Both kernel styles, built with -fsanitize=address,undefined (GCC), run clean and
+    equal the integer reference: no out-of-bounds access, no signed overflow."""
+    if not _sanitizers_work(tmp_path):
+        pytest.skip("this gcc cannot build with -fsanitize=address,undefined")
+    net, mean, std, images = random_setup(text, k, seed=len(text) + 1)
+    qnet = quantize_network(net, mean, std, images[:64])
+    code = generate_c(qnet, "tcs", style=style)
+    flags = ("-fsanitize=address,undefined", "-fno-sanitize-recover=all", "-g")
+    run, _ = build(tmp_path, code, flags)
+    logits, best = run(images[:80], k)
+    want, classes = int8_outputs(qnet, images[:80])
+    np.testing.assert_array_equal(logits, want)
+    np.testing.assert_array_equal(best, classes)
+
+
+@pytest.mark.parametrize("text, k", ARCHS[:3])
+def test_plain_kernels_match_too(tmp_path, text, k):
+    """The plain loop nests (kept as the readable reference style) equal the reference."""
+    net, mean, std, images = random_setup(text, k, seed=len(text))
+    qnet = quantize_network(net, mean, std, images[:64])
+    code = generate_c(qnet, "tcp", style="plain")
+    run, _ = build(tmp_path, code)
+    logits, best = run(images, k)
+    want, classes = int8_outputs(qnet, images)
+    np.testing.assert_array_equal(logits, want)
+    np.testing.assert_array_equal(best, classes)
+    with pytest.raises(InputError, match="kernel style 'quick' is not one of fast, plain"):
+        generate_c(qnet, "tcp", style="quick")

@@ -145,7 +145,7 @@ def test_shipped_spaces_are_unique_valid_and_deterministic(name):
 def test_demo_space_has_the_variety_and_size_the_demo_needs():
     """The demo space: 30-80 survivors with dense, 1-3 stages, separable, gap and flatten."""
     space = load_space("builtin:demo")
-    assert space.budget == Budget(70_000, 1_000_000, 32, 256, 150, "cortex-m4", 80)
+    assert space.budget == Budget(70_000, 1_000_000, 32, 256, 50, "cortex-m4", 80)
     result = filter_budget(enumerate_space(space), space.budget, 8)
     assert 30 <= len(result.survivors) <= 80
     names = [str(a) for a in result.survivors]

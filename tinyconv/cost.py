@@ -21,11 +21,12 @@ Counting rules (the contract in DEVELOPERS.md, "Cost"):
   refuses it, and :attr:`Cost.exportable` is False (its flash counts 0).
 * **peak activation memory**: the largest, over the ops that write a new
   buffer (the input quantisation, conv, dwconv, maxpool, avgpool, gap,
-  dense), of input elements + output elements. ReLU, batch norm, dropout and
-  flatten work in place and add nothing; the C kernels loop directly, so there
-  are no scratch buffers; each op reads from one end of the arena and writes
-  to the other, so the arena is exactly the peak. int8 bytes = elements;
-  float32 bytes = 4 x elements. The input quantisation reads the caller's raw
+  dense), of input elements + output elements, plus in int8 the scratch its
+  kernel needs (a convolution's two int16 patches, ``4 k k c_in`` bytes; see
+  :func:`scratch_bytes`). ReLU, batch norm, dropout and flatten work in place
+  and add nothing; each op reads from one end of the arena and writes to the
+  other, its scratch between them, so the arena is exactly the int8 peak.
+  int8 bytes = elements + scratch; float32 bytes = 4 x elements. The input quantisation reads the caller's raw
   pixels (a buffer outside the arena, e.g. the camera's frame) and writes the
   int8 input, so it counts ``h*w*c``.
 
@@ -81,6 +82,9 @@ class OpCost:
         Input + output elements when the op writes a new buffer, else 0.
     folded : bool
         True for a batch norm folded into the conv/dwconv/dense before it.
+    scratch_bytes : int
+        Scratch the int8 kernel needs beside its input and output
+        (:func:`scratch_bytes`); counted in the int8 peak, not in float32.
     """
 
     index: int
@@ -95,6 +99,7 @@ class OpCost:
     flash_bytes: int
     live_elements: int
     folded: bool = False
+    scratch_bytes: int = 0
 
 
 @dataclass(frozen=True)
@@ -114,10 +119,13 @@ class Cost:
         Sums over the rows.
     peak_elements : int
         Largest ``live_elements`` of any row.
-    peak_int8_bytes, peak_float32_bytes : int
-        ``peak_elements`` x 1 and x 4.
+    peak_int8_bytes : int
+        Largest ``live_elements + scratch_bytes`` of any row: the one static
+        buffer of the generated C.
+    peak_float32_bytes : int
+        ``peak_elements`` x 4.
     peak_op : str
-        Name of the row where the peak occurs (the first, on ties).
+        Name of the row where the int8 peak occurs (the first, on ties).
     exportable : bool
         False when a batch norm does not directly follow conv/dwconv/dense (the
         int8 exporter refuses it; its flash is then not known and counted 0).
@@ -170,6 +178,18 @@ def _as_arch(arch: Union[Arch, str]) -> Arch:
     return parse(arch) if isinstance(arch, str) else arch
 
 
+def scratch_bytes(op: Op) -> int:
+    """Bytes of scratch the int8 kernel of ``op`` needs in the activation buffer.
+
+    A convolution copies the receptive fields of two output pixels into an
+    int16 buffer (``x - zp``, padding 0) before multiplying: ``4 k k c_in``
+    bytes. The other kernels loop directly.
+    """
+    if op.kind == "conv":
+        return 4 * op.kernel * op.kernel * op.in_shape[2]
+    return 0
+
+
 def _numbers(op: Op) -> tuple[int, int, int, int, int, int]:
     """(params, state, macs, out_elements, flash_bytes, live_elements) of one op."""
     shape_in, shape_out = op.in_shape, op.out_shape
@@ -207,7 +227,7 @@ def op_cost(op: Op, index: int, folded: bool = False) -> OpCost:
         For a batch norm: whether it is folded into the op before it.
     """
     return OpCost(index, op.name, op.kind, op.in_shape, op.out_shape, *_numbers(op),
-                  folded=folded)
+                  folded=folded, scratch_bytes=scratch_bytes(op))
 
 
 def input_cost(arch: Arch) -> OpCost:
@@ -253,13 +273,15 @@ def cost_of(arch: Union[Arch, str], n_classes: int) -> Cost:
     rows = (input_cost(arch),) + tuple(op_cost(op, i, f)
                                        for i, (op, f) in enumerate(zip(ops, flags)))
     exportable = all(f for op, f in zip(ops, flags) if op.kind == "bn")
-    peak_row = max(rows, key=lambda r: r.live_elements)  # first of equal maxima
-    peak = peak_row.live_elements
+    # first of equal maxima; int8 counts the kernels' scratch, float32 the tensors only
+    peak_row = max(rows, key=lambda r: r.live_elements + r.scratch_bytes)
+    peak = max(r.live_elements for r in rows)
     return Cost(str(arch), n_classes, rows,
                 params=sum(r.params for r in rows), state=sum(r.state for r in rows),
                 macs=sum(r.macs for r in rows), flash_bytes=sum(r.flash_bytes for r in rows),
-                peak_elements=peak, peak_int8_bytes=peak, peak_float32_bytes=4 * peak,
-                peak_op=peak_row.name, exportable=exportable)
+                peak_elements=peak,
+                peak_int8_bytes=peak_row.live_elements + peak_row.scratch_bytes,
+                peak_float32_bytes=4 * peak, peak_op=peak_row.name, exportable=exportable)
 
 
 @dataclass(frozen=True)
@@ -347,6 +369,7 @@ def _summed(ops) -> tuple[int, int, int, int]:
     params = macs = flash = peak = 0
     for op in ops:
         p, _, m, _, f, live = _numbers(op)
+        live += scratch_bytes(op) if live else 0
         params, macs, flash, peak = params + p, macs + m, flash + f, max(peak, live)
     return params, macs, flash, peak
 

@@ -34,8 +34,8 @@ from tinyconv.errors import InputError
 STEP_KINDS = ("conv", "dwconv", "dense", "maxpool", "avgpool", "gap")
 #: the C kernels (templates) each step kind needs; code size is fitted per kernel
 KERNELS = {"input": (), "conv": ("scale", "conv"), "dwconv": ("scale", "dwconv"),
-           "dense": ("scale", "dense"), "head": ("scale", "head"), "maxpool": ("maxpool",),
-           "avgpool": ("rdiv", "avgpool"), "gap": ("rdiv", "gap")}
+           "dense": ("scale", "dot", "dense"), "head": ("scale", "dot", "head"),
+           "maxpool": ("maxpool",), "avgpool": ("rdiv", "avgpool"), "gap": ("rdiv", "gap")}
 CONSTANTS_FILE = "constants.json"
 
 
@@ -48,8 +48,13 @@ def _visited(size: int, out: int, kernel: int, stride: int, pad: int) -> int:
     return total
 
 
+def _edge_positions(size: int, out: int, kernel: int, stride: int, pad: int) -> int:
+    """Output positions whose kernel window reaches outside ``size`` (into the padding)."""
+    return sum(1 for o in range(out) if o * stride - pad < 0 or o * stride - pad + kernel > size)
+
+
 def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[str, float]:
-    """Counts of one step's loop nest, the variables of its instruction model.
+    """Counts of one step's loop nest in the fast kernels, the variables of its model.
 
     Parameters
     ----------
@@ -62,11 +67,14 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
 
     Notes
     -----
-    For a convolution with output ``oh x ow x f``, kernel ``k``, the loop nest
-    visits ``oh ow f`` outputs, ``k`` kernel rows each, ``k`` columns of each
-    row inside the image, and ``c`` products per tap inside the image; taps
-    in the padding are skipped. ``vy = sum_oy (rows of the kernel inside)``,
-    likewise ``vx``, so the taps inside are ``vy * vx`` per filter.
+    Convolution (:mod:`tinyconv.export.c_fast`): ``n = oh ow`` output pixels in
+    ``ceil(n / 2)`` pairs; per pixel a patch of ``k`` kernel rows whose values
+    inside the image are copied (``vy vx c`` in all, with ``vy = sum_oy (rows
+    of the kernel inside)``, likewise ``vx``); per pair of pixels and pair of
+    filters ``K // 4`` steps of four values and ``K % 4`` single ones, ``K = k k
+    c``; one requantisation per output. Dense: pairs of outputs, steps of four
+    inputs, single ones. Depthwise: blocks of four channels per pixel, kernel
+    rows inside, products inside, and the padding's taps of edge pixels.
     """
     if kind == "input":
         # the loop indexes the table by ``i % c``: free for one channel, a mask for a
@@ -75,30 +83,50 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
         return {"one": 1.0, "values": n, "channel_index": n if c & (c - 1) else 0.0}
     if kind in ("dense", "head"):
         n_in, n_out = prod(op.in_shape), prod(op.out_shape)
-        return {"one": 1.0, "outputs": float(n_out), "macs": float(n_in * n_out)}
+        pairs = -(-n_out // 2)
+        return {"one": 1.0, "outputs": float(n_out), "pairs": float(pairs),
+                "steps4": float(pairs * (n_in // 4)), "singles": float(pairs * (n_in % 4))}
     if kind == "gap":
         h, w, c = op.in_shape
         return {"one": 1.0, "outputs": float(c), "reads": float(h * w * c)}
     if kind in ("maxpool", "avgpool"):
         oh, ow, c = op.out_shape
-        return {"one": 1.0, "outputs": float(oh * ow * c),
-                "reads": float(oh * ow * c * op.size * op.size), "rows": float(oh * ow * c * op.size)}
+        size = op.size
+        feats = {"one": 1.0, "pixels": float(oh * ow), "outputs": float(oh * ow * c)}
+        if kind == "maxpool" and size == 2:
+            feats["outputs_by_2"] = float(oh * ow * c)
+        else:
+            feats["reads"] = float(oh * ow * c * size * size)
+            feats["rows"] = float(oh * ow * c * size)
+        return feats
     h, w, c = op.in_shape
     oh, ow, f = op.out_shape
     k, s = op.kernel, op.stride
     top, _, left, _ = op.pads
     vy = _visited(h, oh, k, s, top)
     vx = _visited(w, ow, k, s, left)
-    taps = vy * vx
+    n = oh * ow
     if kind == "conv":
-        # the channel loop of a tap has its own entry cost, which one channel skips
-        tap_kind = "taps" if c > 1 else "taps_one_channel"
-        return {"one": 1.0, "outputs": float(oh * ow * f), "rows": float(oh * ow * f * k),
-                "columns": float(vy * ow * f * k), tap_kind: float(taps * f),
-                "macs": float(taps * f * c)}
-    # dwconv: one product per tap and channel
-    return {"one": 1.0, "outputs": float(oh * ow * c), "rows": float(oh * ow * c * k),
-            "columns": float(vy * ow * c * k), "macs": float(taps * c)}
+        kk = k * k * c
+        pixel_pairs, filter_pairs = -(-n // 2), f // 2
+        odd = f % 2
+        return {"one": 1.0, "pixel_pairs": float(pixel_pairs), "patch_rows": float(n * k),
+                "patch_values": float(vy * vx * c),
+                "blocks": float(pixel_pairs * filter_pairs),
+                "steps4": float(pixel_pairs * filter_pairs * (kk // 4)),
+                "singles": float(pixel_pairs * filter_pairs * (kk % 4)),
+                "odd_steps4": float(pixel_pairs * odd * (kk // 4)),
+                "odd_singles": float(pixel_pairs * odd * (kk % 4)),
+                "outputs": float(n * f)}
+    # dwconv: blocks of four channels, the channel loop innermost
+    blocks = -(-c // 4)
+    full = c // 4
+    edge = (_edge_positions(h, oh, k, s, top) * ow + _edge_positions(w, ow, k, s, left) * oh
+            - _edge_positions(h, oh, k, s, top) * _edge_positions(w, ow, k, s, left))
+    return {"one": 1.0, "pixels": float(n), "blocks": float(n * blocks),
+            "rows": float(vy * ow * blocks), "taps4": float(vy * vx * full),
+            "taps_rest": float(vy * vx * (c - 4 * full)),
+            "edge_taps": float(edge * k * k * blocks), "outputs": float(n * c)}
 
 
 @dataclass(frozen=True)

@@ -33,7 +33,9 @@ static int32_t @P@_scale(int32_t acc, int32_t mult, int32_t shift)
     mag = (mag + ((int64_t)1 << (shift - 1))) >> shift;
     return (int32_t)(high < 0 ? -mag : mag);
 }
+"""
 
+OUT = r"""
 /* Requantise one accumulator onto the output grid and clamp (ReLU: lo = zp). */
 static int8_t @P@_out(int32_t acc, int32_t mult, int32_t shift, int32_t zp,
                       int32_t lo, int32_t hi)
@@ -229,10 +231,10 @@ GAP = r"""
 
 #: which templates each step kind needs, in emission order
 NEEDS = {
-    "conv": ("SCALE", "CONV"),
-    "dwconv": ("SCALE", "DWCONV"),
-    "dense": ("SCALE", "DENSE"),
-    "head": ("SCALE", "HEAD"),
+    "conv": ("SCALE", "OUT", "CONV"),
+    "dwconv": ("SCALE", "OUT", "DWCONV"),
+    "dense": ("SCALE", "OUT", "DENSE"),
+    "head": ("SCALE", "OUT", "HEAD"),
     "maxpool": ("MAXPOOL",),
     "avgpool": ("RDIV", "AVGPOOL"),
     "gap": ("RDIV", "GAP"),
@@ -251,8 +253,8 @@ KERNEL = r"""
 #endif
 """
 
-ORDER = ("KERNEL", "SCALE", "RDIV", "CONV", "DWCONV", "DENSE", "HEAD", "MAXPOOL", "AVGPOOL", "GAP")
-TEMPLATES = {"KERNEL": KERNEL, "SCALE": SCALE, "RDIV": RDIV, "CONV": CONV, "DWCONV": DWCONV, "DENSE": DENSE,
+ORDER = ("KERNEL", "SCALE", "OUT", "RDIV", "CONV", "DWCONV", "DENSE", "HEAD", "MAXPOOL", "AVGPOOL", "GAP")
+TEMPLATES = {"KERNEL": KERNEL, "SCALE": SCALE, "OUT": OUT, "RDIV": RDIV, "CONV": CONV, "DWCONV": DWCONV, "DENSE": DENSE,
              "HEAD": HEAD, "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
 
 

@@ -34,8 +34,13 @@ import numpy as np
 
 from tinyconv import __version__
 from tinyconv.errors import InputError
-from tinyconv.export.c_kernels import kernels_for
+from tinyconv.export import c_fast, c_kernels, c_layout
+from tinyconv.cost import scratch_bytes
 from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer
+
+#: kernel styles and the function that writes each one's kernels
+KERNELS = {"fast": c_fast.kernels_for, "plain": c_kernels.kernels_for}
+STYLES = tuple(KERNELS)
 
 MAX_PREFIX = 20
 C_KEYWORDS = frozenset(
@@ -94,29 +99,33 @@ def check_prefix(prefix: str) -> str:
     return prefix
 
 
-def arena_layout(qnet: QuantizedNetwork) -> tuple[int, list[tuple[int, int]]]:
-    """Arena size and, per step, the (input offset, output offset) in it.
+def arena_layout(qnet: QuantizedNetwork, style: str = "fast"
+                 ) -> tuple[int, list[tuple[int, int, int]]]:
+    """Arena size and, per step, the (input, output, scratch) offsets in it.
 
     The input quantisation (step 0) reads the caller's image and writes at
     offset 0; step ``j`` reads where step ``j - 1`` wrote and writes at the
-    other end. The size is the largest input + output of any step, with the
-    input quantisation counted as its int8 output only (the raw image stays in
-    the caller's buffer), as the cost model counts it.
+    other end; its scratch (the fast conv's patch buffer) sits right after the
+    buffer at the start. The size is the largest input + output + scratch of
+    any step, with the input quantisation counted as its int8 output only (the
+    raw image stays in the caller's buffer), as the cost model counts it.
 
     Returns
     -------
     arena_bytes : int
-    offsets : list of (int, int), one per layer of ``qnet``
+    offsets : list of (int, int, int), one per layer of ``qnet``
     """
     n_in = prod(qnet.input_shape)
-    sizes = [(prod(layer.op.in_shape), prod(layer.op.out_shape)) for layer in qnet.layers]
-    arena = max([n_in] + [a + b for a, b in sizes])
+    sizes = [(prod(layer.op.in_shape), prod(layer.op.out_shape),
+              scratch_bytes(layer.op) if style == "fast" else 0) for layer in qnet.layers]
+    arena = max([n_in] + [a + b + t for a, b, t in sizes])
     offsets = []
     at_start = True  # where the last written buffer sits
     src = 0
-    for _, n_out in sizes:
+    for n_src, n_out, _ in sizes:
         dst = arena - n_out if at_start else 0
-        offsets.append((src, dst))
+        scratch = n_src if at_start else n_out
+        offsets.append((src, dst, scratch))
         src, at_start = dst, not at_start
     return arena, offsets
 
@@ -140,35 +149,30 @@ def _comment_safe(text: str) -> str:
     return text.replace("*/", "* /").replace("/*", "/ *")
 
 
-def _c_weights(layer: QuantLayer) -> np.ndarray:
-    """Weights in the order the C kernels read them."""
-    w = layer.weights
-    if layer.kind == "conv":
-        return w.transpose(3, 0, 1, 2)  # (k, k, c, f) -> [f][k][k][c]
-    if layer.kind == "dense":
-        return w.T  # (n_in, n_out) -> [n_out][n_in]
-    return w  # dwconv (k, k, c), read as [k][k][c]
-
-
-def _call(layer: QuantLayer, p: str, src: str, dst: str, head: bool = False) -> str:
+def _call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, head: bool = False,
+          style: str = "fast") -> str:
     """The kernel call of one step (``head``: the last layer, which gives the class)."""
     op = layer.op
+    arrays = (f"{p}_l{layer.index}_w, {p}_l{layer.index}_bias, {p}_l{layer.index}_mult, "
+              f"{p}_l{layer.index}_shift")
+    # the fast dense and head kernels have the input zero point folded into the bias
+    xz = "" if style == "fast" else f"{layer.in_zp}, "
     if head:
         return (f"    best = {p}_head({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
-                f"{layer.in_zp},\n        {p}_l{layer.index}_w, {p}_l{layer.index}_bias, "
-                f"{p}_l{layer.index}_mult, {p}_l{layer.index}_shift, {layer.out_zp});\n")
+                f"{xz}\n        {arrays}, {layer.out_zp});\n")
     if layer.kind in ("conv", "dwconv", "dense"):
-        tail = (f"{p}_l{layer.index}_w, {p}_l{layer.index}_bias, {p}_l{layer.index}_mult, "
-                f"{p}_l{layer.index}_shift, {layer.out_zp}, {layer.lo}, {layer.hi}")
+        tail = f"{arrays}, {layer.out_zp}, {layer.lo}, {layer.hi}"
         if layer.kind == "dense":
             return (f"    {p}_dense({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
-                    f"{layer.in_zp},\n        {tail});\n")
+                    f"{xz}\n        {tail});\n")
         h, w, c = op.in_shape
         oh, ow, f = op.out_shape
         top, _, left, _ = op.pads
         if layer.kind == "conv":
-            return (f"    {p}_conv({src}, {dst}, {h}, {w}, {c}, {oh}, {ow}, {f}, {op.kernel}, "
-                    f"{op.stride}, {top}, {left}, {layer.in_zp},\n        {tail});\n")
+            col = f"{scratch}, " if style == "fast" else ""
+            return (f"    {p}_conv({src}, {dst}, {col}{h}, {w}, {c}, {oh}, {ow}, {f}, "
+                    f"{op.kernel}, {op.stride}, {top}, {left}, {layer.in_zp},\n        "
+                    f"{tail});\n")
         return (f"    {p}_dwconv({src}, {dst}, {h}, {w}, {c}, {oh}, {ow}, {op.kernel}, "
                 f"{op.stride}, {top}, {left}, {layer.in_zp},\n        {tail});\n")
     h, w, c = op.in_shape
@@ -176,6 +180,15 @@ def _call(layer: QuantLayer, p: str, src: str, dst: str, head: bool = False) -> 
         return f"    {p}_gap({src}, {dst}, {h * w}, {c});\n"
     oh, ow, _ = op.out_shape
     return f"    {p}_{layer.kind}({src}, {dst}, {w}, {c}, {oh}, {ow}, {op.size});\n"
+
+
+def _dsp_switch(P: str) -> str:
+    """The header's switch of the DSP path (on when the compiler targets such a core)."""
+    return (f"/* 1: the products use the DSP extension's dual 16-bit multiply-accumulate\n"
+            f"   (Cortex-M4, M7, M33); on by default when the compiler targets a core with\n"
+            f"   it (__ARM_FEATURE_DSP); define {P}_USE_DSP as 0 to use the portable C. */\n"
+            f"#ifndef {P}_USE_DSP\n#if defined(__ARM_FEATURE_DSP) && __ARM_FEATURE_DSP\n"
+            f"#define {P}_USE_DSP 1\n#else\n#define {P}_USE_DSP 0\n#endif\n#endif\n\n")
 
 
 def _shape(shape: tuple[int, ...]) -> str:
@@ -190,7 +203,7 @@ def _describe(layer: QuantLayer) -> str:
 
 
 def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
-               macs: int | None = None) -> CCode:
+               macs: int | None = None, style: str = "fast") -> CCode:
     """The C source and header for ``qnet``.
 
     Parameters
@@ -203,6 +216,10 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
         Class names for the header comment (index order).
     macs : int, optional
         MACs per image, for the header comment.
+    style : {"fast", "plain"}
+        The kernels: ``fast`` (:mod:`tinyconv.export.c_fast`, the default, with
+        an optional DSP path) or ``plain`` loop nests (:mod:`tinyconv.export.c_kernels`,
+        kept as a readable reference and for speed comparisons).
 
     Returns
     -------
@@ -225,17 +242,20 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
         arrays.append(arr)
         blocks.append(_array(arr, values))
 
+    if style not in STYLES:
+        raise InputError(f"kernel style {style!r} is not one of {', '.join(STYLES)}")
     add(f"{p}_input_table", "int8_t", qnet.table)  # [256][c]: table[p * c + ch]
     for layer in qnet.layers:
         if layer.weights is None:
             continue
         base = f"{p}_l{layer.index}"
-        add(f"{base}_w", "int8_t", _c_weights(layer))
-        add(f"{base}_bias", "int32_t", layer.bias)
+        c_layout.check_multipliers(layer)
+        add(f"{base}_w", "int8_t", c_layout.weights(layer, style))
+        add(f"{base}_bias", "int32_t", c_layout.bias(layer, style))
         add(f"{base}_mult", "int32_t", layer.multiplier)
         add(f"{base}_shift", "int32_t", layer.shift)
     flash = sum(a.nbytes for a in arrays)
-    arena, offsets = arena_layout(qnet)
+    arena, offsets = arena_layout(qnet, style)
 
     last_dst = offsets[-1][1]
     body = [f"int32_t {p}_classify(const uint8_t *image, int8_t *logits)\n{{\n",
@@ -246,10 +266,11 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
             "    }\n"]
     body.insert(2, f"    {P}_MARK(0);\n")
     last = len(qnet.layers) - 1
-    for j, (layer, (src, dst)) in enumerate(zip(qnet.layers, offsets)):
+    for j, (layer, (src, dst, scratch)) in enumerate(zip(qnet.layers, offsets)):
         body.append(f"    /* {_comment_safe(_describe(layer))} */\n")
         body.append(f"    {P}_MARK({j + 1});\n")
-        body.append(_call(layer, p, f"{p}_arena + {src}", f"{p}_arena + {dst}", j == last))
+        body.append(_call(layer, p, f"{p}_arena + {src}", f"{p}_arena + {dst}",
+                          f"{p}_arena + {scratch}", j == last, style))
     body += [f"    {P}_MARK({last + 2});\n",
              f"    memcpy(logits, {p}_arena + {last_dst}, {k});\n",
              "    return best;\n}\n"]
@@ -262,13 +283,15 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
               + "\n".join(blocks) + "\n"
               f"/* activations: each step reads one end and writes the other */\n"
               f"static int8_t {p}_arena[{P}_ARENA_BYTES];\n"
-              + kernels_for([layer.kind for layer in qnet.layers[:-1]] + ["head"], p) + "\n" + "".join(body))
+              + KERNELS[style]([layer.kind for layer in qnet.layers[:-1]] + ["head"], p)
+              + "\n" + "".join(body))
     header = (info + f"\n#ifndef {P}_H\n#define {P}_H\n\n#include <stdint.h>\n\n"
               f"#define {P}_INPUT_H {h}\n#define {P}_INPUT_W {w}\n#define {P}_INPUT_C {c}\n"
               f"#define {P}_INPUT_BYTES {h * w * c}\n#define {P}_CLASSES {k}\n"
               f"#define {P}_ARENA_BYTES {arena}\n#define {P}_FLASH_BYTES {flash}\n"
               f"#define {P}_LOGIT_ZERO_POINT {qnet.logits_zp}\n\n"
-              f"/* Classify one image: {P}_INPUT_BYTES uint8 values in row-major HWC order,\n"
+              + (_dsp_switch(P) if style == "fast" else "")
+              + f"/* Classify one image: {P}_INPUT_BYTES uint8 values in row-major HWC order,\n"
               f"   already in the network's input size and colour mode. Writes {P}_CLASSES\n"
               "   int8 logits and returns the class: the arg-max of the last layer's outputs\n"
               "   at 8 more fractional bits than the logits (the first of equal values).\n"

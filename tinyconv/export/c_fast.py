@@ -1,0 +1,502 @@
+"""The C99 text of the fast integer kernels (the default style of the generated C).
+
+Same results as the plain loop nests of :mod:`tinyconv.export.c_kernels` and
+the NumPy reference, bit for bit, but arranged for a small core:
+
+* **convolution** (any kernel and stride): two output pixels at a time, their
+  receptive fields copied into an int16 scratch buffer as ``x - zp`` (taps in
+  the padding are 0, so the inner loop has no branches), then a
+  register-blocked product of two filters x two pixels (four accumulators),
+  four products per step; weights are reordered at export in groups of four as
+  (0, 2, 1, 3) so that the DSP path's dual multiply-accumulate pairs line up;
+* **dense and the head**: the int8 input read directly, two outputs at a time;
+  the input zero point is folded into the bias at export
+  (``b' = b - zp * sum(w)``), so the loop multiplies raw values;
+* **depthwise**: four channels at a time with the channel loop innermost,
+  the kernel window clipped to the image once per pixel, the zero point folded
+  into the bias and added back for the taps in the padding;
+* **requantisation** on the magnitude with one 32 x 32 -> 64-bit product,
+  hoisted out of every inner loop; the general slow form handles the rare
+  multipliers outside its range;
+* **pooling** with the channel loop innermost.
+
+With ``@U@_USE_DSP`` (on by default when the compiler targets a core with the
+DSP extension: Cortex-M4, M7, M33) the products use the Arm C Language
+Extensions' ``__sxtb16`` and ``__smlad`` (two 16 x 16 multiply-accumulates in
+one instruction). Unaligned words and halfwords are read and written with
+``memcpy``, which compilers turn into single loads and stores on these cores.
+"""
+
+DSP = r"""
+/* Small helpers inlined into the kernels (where the compiler allows it). */
+#if defined(__GNUC__)
+#define @U@_INLINE static inline __attribute__((always_inline))
+#else
+#define @U@_INLINE static
+#endif
+
+/* The DSP extension's dual 16-bit multiply-accumulate (Arm C Language Extensions). */
+#if @U@_USE_DSP
+#include <arm_acle.h>
+#endif
+"""
+
+LD16 = r"""
+/* An int16 from any address (memcpy: a single load on these cores). */
+@U@_INLINE int32_t @P@_ld16(const int8_t *p)
+{
+    int16_t v;
+    memcpy(&v, p, 2);
+    return v;
+}
+"""
+
+REQUANT = r"""
+/* Requantise one accumulator and clamp: the reference's two roundings (of
+   acc * mult / 2^31, then of that / 2^shift, both half away from zero) computed
+   on the magnitude with one 64-bit product. Exact for 0 <= shift <= 31 and a
+   multiplier in [0, 2^31), which the exporter checks; other shifts take the
+   general form. */
+@U@_INLINE int8_t @P@_rq(int32_t acc, int32_t mult, int32_t shift, int32_t zp,
+                         int32_t lo, int32_t hi)
+{
+    int32_t y;
+    if ((uint32_t)shift > 31u) {
+        y = @P@_scale(acc, mult, shift);
+    } else {
+        uint32_t neg = acc < 0 ? 1u : 0u;
+        uint32_t mag = neg ? 0u - (uint32_t)acc : (uint32_t)acc;
+        uint64_t p = (uint64_t)mag * (uint32_t)mult + (((uint64_t)1 << 30) - neg);
+        mag = (uint32_t)(p >> 31);
+        mag = (mag + ((1u << shift) >> 1)) >> shift;
+        y = neg ? -(int32_t)mag : (int32_t)mag;
+    }
+    y += zp;
+    if (y < lo) y = lo;
+    if (y > hi) y = hi;
+    return (int8_t)y;
+}
+"""
+
+PATCH = r"""
+/* One output pixel's receptive field as int16 (x - zp) in the weights' order
+   (kernel rows, columns, channels); taps in the padding are 0. */
+static void @P@_patch(const int8_t *x, int8_t *col, int32_t h, int32_t w, int32_t c,
+                      int32_t k, int32_t iy0, int32_t ix0, int32_t xz)
+{
+    int32_t ky, kx, j;
+    int16_t v;
+    int32_t row = k * c;
+    for (ky = 0; ky < k; ++ky) {
+        int32_t iy = iy0 + ky;
+        if (iy < 0 || iy >= h) {
+            memset(col, 0, (size_t)row * 2u);
+        } else if (ix0 >= 0 && ix0 + k <= w) {  /* the whole kernel row inside */
+            const int8_t *px = x + (iy * w + ix0) * c;
+            for (j = 0; j < row; ++j) {
+                v = (int16_t)(px[j] - xz);
+                memcpy(col + 2 * j, &v, 2);
+            }
+        } else {
+            for (kx = 0; kx < k; ++kx) {
+                int32_t ix = ix0 + kx;
+                int8_t *dst = col + 2 * kx * c;
+                if (ix < 0 || ix >= w) {
+                    memset(dst, 0, (size_t)c * 2u);
+                } else {
+                    const int8_t *px = x + (iy * w + ix) * c;
+                    for (j = 0; j < c; ++j) {
+                        v = (int16_t)(px[j] - xz);
+                        memcpy(dst + 2 * j, &v, 2);
+                    }
+                }
+            }
+        }
+        col += row * 2;
+    }
+}
+"""
+
+CONV = r"""
+/* Every filter x the pixels of one or two patches (col0, col1; col1 may be 0).
+   Weights: per pair of filters, group by group, four values of the first then
+   four of the second (each group stored as (0, 2, 1, 3)), then the pair's tails
+   (K % 4 values each, in order); a last odd filter alone the same way. The loops
+   are written so that at most 13 values are live (the core has 14 registers). */
+static void @P@_mm(const int8_t *col0, const int8_t *col1, int32_t K, int32_t f,
+                   const int8_t *wt, const int32_t *bias, const int32_t *mult,
+                   const int32_t *shift, int32_t yz, int32_t lo, int32_t hi,
+                   int8_t *y0, int8_t *y1)
+{
+    int32_t o, i, n, t = K & 3;
+    const int8_t *c1 = col1 ? col1 : col0;
+    for (o = 0; o + 1 < f; o += 2) {
+        const int8_t *wp = wt + o * K, *p0 = col0, *p1 = c1;
+        int32_t a00 = bias[o], a01 = bias[o], a10 = bias[o + 1], a11 = bias[o + 1];
+        for (n = K >> 2; n > 0; --n) {
+#if @U@_USE_DSP
+            uint32_t u;
+            int32_t wa0, wb0, wa1, wb1, x;
+            memcpy(&u, wp, 4);
+            wa0 = __sxtb16((int32_t)u);
+            wb0 = __sxtb16((int32_t)(u >> 8));
+            memcpy(&u, wp + 4, 4);
+            wa1 = __sxtb16((int32_t)u);
+            wb1 = __sxtb16((int32_t)(u >> 8));
+            memcpy(&x, p0, 4);
+            a00 = __smlad(wa0, x, a00);
+            a10 = __smlad(wa1, x, a10);
+            memcpy(&x, p0 + 4, 4);
+            a00 = __smlad(wb0, x, a00);
+            a10 = __smlad(wb1, x, a10);
+            memcpy(&x, p1, 4);
+            a01 = __smlad(wa0, x, a01);
+            a11 = __smlad(wa1, x, a11);
+            memcpy(&x, p1 + 4, 4);
+            a01 = __smlad(wb0, x, a01);
+            a11 = __smlad(wb1, x, a11);
+#else
+            int32_t x0, x1;
+            x0 = @P@_ld16(p0);
+            x1 = @P@_ld16(p1);
+            a00 += wp[0] * x0;
+            a01 += wp[0] * x1;
+            a10 += wp[4] * x0;
+            a11 += wp[4] * x1;
+            x0 = @P@_ld16(p0 + 4);
+            x1 = @P@_ld16(p1 + 4);
+            a00 += wp[1] * x0;
+            a01 += wp[1] * x1;
+            a10 += wp[5] * x0;
+            a11 += wp[5] * x1;
+            x0 = @P@_ld16(p0 + 2);
+            x1 = @P@_ld16(p1 + 2);
+            a00 += wp[2] * x0;
+            a01 += wp[2] * x1;
+            a10 += wp[6] * x0;
+            a11 += wp[6] * x1;
+            x0 = @P@_ld16(p0 + 6);
+            x1 = @P@_ld16(p1 + 6);
+            a00 += wp[3] * x0;
+            a01 += wp[3] * x1;
+            a10 += wp[7] * x0;
+            a11 += wp[7] * x1;
+#endif
+            wp += 8;
+            p0 += 8;
+            p1 += 8;
+        }
+        for (i = 0; i < t; ++i) {
+            int32_t x0 = @P@_ld16(p0 + 2 * i), x1 = @P@_ld16(p1 + 2 * i);
+            a00 += wp[i] * x0;
+            a01 += wp[i] * x1;
+            a10 += wp[t + i] * x0;
+            a11 += wp[t + i] * x1;
+        }
+        y0[o] = @P@_rq(a00, mult[o], shift[o], yz, lo, hi);
+        y0[o + 1] = @P@_rq(a10, mult[o + 1], shift[o + 1], yz, lo, hi);
+        if (col1) {
+            y1[o] = @P@_rq(a01, mult[o], shift[o], yz, lo, hi);
+            y1[o + 1] = @P@_rq(a11, mult[o + 1], shift[o + 1], yz, lo, hi);
+        }
+    }
+    if (o < f) {  /* a last odd filter */
+        const int8_t *wp = wt + o * K, *p0 = col0, *p1 = c1;
+        int32_t a00 = bias[o], a01 = bias[o];
+        for (n = K >> 2; n > 0; --n) {
+            a00 += wp[0] * @P@_ld16(p0) + wp[1] * @P@_ld16(p0 + 4)
+                   + wp[2] * @P@_ld16(p0 + 2) + wp[3] * @P@_ld16(p0 + 6);
+            a01 += wp[0] * @P@_ld16(p1) + wp[1] * @P@_ld16(p1 + 4)
+                   + wp[2] * @P@_ld16(p1 + 2) + wp[3] * @P@_ld16(p1 + 6);
+            wp += 4;
+            p0 += 8;
+            p1 += 8;
+        }
+        for (i = 0; i < t; ++i) {
+            a00 += wp[i] * @P@_ld16(p0 + 2 * i);
+            a01 += wp[i] * @P@_ld16(p1 + 2 * i);
+        }
+        y0[o] = @P@_rq(a00, mult[o], shift[o], yz, lo, hi);
+        if (col1) y1[o] = @P@_rq(a01, mult[o], shift[o], yz, lo, hi);
+    }
+}
+
+/* Convolution, NHWC, two output pixels at a time through the int16 patch
+   buffer `col` (2 k k c values). */
+@U@_KERNEL void @P@_conv(const int8_t *x, int8_t *y, int8_t *col, int32_t h, int32_t w,
+                         int32_t c, int32_t oh, int32_t ow, int32_t f, int32_t k,
+                         int32_t s, int32_t pt, int32_t pl, int32_t xz, const int8_t *wt,
+                         const int32_t *bias, const int32_t *mult, const int32_t *shift,
+                         int32_t yz, int32_t lo, int32_t hi)
+{
+    int32_t K = k * k * c, n = oh * ow, p;
+    for (p = 0; p < n; p += 2) {
+        int32_t oy = p / ow, ox = p - oy * ow;
+        int8_t *col1 = 0;
+        @P@_patch(x, col, h, w, c, k, oy * s - pt, ox * s - pl, xz);
+        if (p + 1 < n) {
+            int32_t qy = (p + 1) / ow, qx = p + 1 - qy * ow;
+            col1 = col + 2 * K;
+            @P@_patch(x, col1, h, w, c, k, qy * s - pt, qx * s - pl, xz);
+        }
+        @P@_mm(col, col1, K, f, wt, bias, mult, shift, yz, lo, hi, y + p * f,
+               y + (p + 1) * f);
+    }
+}
+"""
+
+DOT_DIRECT = r"""
+/* sum_i w[i] * x[i] over n int8 values, two rows of weights at once (a0: w0, a1: w1). */
+static void @P@_dot2(const int8_t *x, const int8_t *w0, const int8_t *w1, int32_t n,
+                     int32_t *a0, int32_t *a1)
+{
+    int32_t i = 0, s0 = *a0, s1 = *a1;
+#if @U@_USE_DSP
+    for (; i + 4 <= n; i += 4) {
+        uint32_t u;
+        int32_t xa, xb;
+        memcpy(&u, x + i, 4);
+        xa = __sxtb16((int32_t)u);
+        xb = __sxtb16((int32_t)(u >> 8));
+        memcpy(&u, w0 + i, 4);
+        s0 = __smlad(__sxtb16((int32_t)u), xa, s0);
+        s0 = __smlad(__sxtb16((int32_t)(u >> 8)), xb, s0);
+        memcpy(&u, w1 + i, 4);
+        s1 = __smlad(__sxtb16((int32_t)u), xa, s1);
+        s1 = __smlad(__sxtb16((int32_t)(u >> 8)), xb, s1);
+    }
+#else
+    for (; i + 4 <= n; i += 4) {
+        s0 += x[i] * w0[i] + x[i + 1] * w0[i + 1] + x[i + 2] * w0[i + 2] + x[i + 3] * w0[i + 3];
+        s1 += x[i] * w1[i] + x[i + 1] * w1[i + 1] + x[i + 2] * w1[i + 2] + x[i + 3] * w1[i + 3];
+    }
+#endif
+    for (; i < n; ++i) {
+        s0 += x[i] * w0[i];
+        s1 += x[i] * w1[i];
+    }
+    *a0 = s0;
+    *a1 = s1;
+}
+"""
+
+DENSE = r"""
+/* Dense layer, weights [n_out][n_in], bias with the input zero point folded in. */
+@U@_KERNEL void @P@_dense(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
+                          const int8_t *wt, const int32_t *bias, const int32_t *mult,
+                          const int32_t *shift, int32_t yz, int32_t lo, int32_t hi)
+{
+    int32_t o;
+    for (o = 0; o < n_out; o += 2) {
+        const int8_t *w0 = wt + o * n_in;
+        int32_t a0 = bias[o], a1 = 0;
+        if (o + 1 < n_out) a1 = bias[o + 1];
+        @P@_dot2(x, w0, o + 1 < n_out ? w0 + n_in : w0, n_in, &a0, &a1);
+        y[o] = @P@_rq(a0, mult[o], shift[o], yz, lo, hi);
+        if (o + 1 < n_out) y[o + 1] = @P@_rq(a1, mult[o + 1], shift[o + 1], yz, lo, hi);
+    }
+}
+"""
+
+HEAD = r"""
+/* The classifier head: a dense layer (zero point folded into the bias) writing
+   the int8 logits, returning the arg-max of the same outputs requantised with
+   8 more fractional bits (the first of equal values wins). */
+@U@_KERNEL int32_t @P@_head(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
+                            const int8_t *wt, const int32_t *bias, const int32_t *mult,
+                            const int32_t *shift, int32_t yz)
+{
+    int32_t o, j, best = 0;
+    int64_t best_value = 0;
+    for (o = 0; o < n_out; o += 2) {
+        const int8_t *w0 = wt + o * n_in;
+        int32_t acc[2];
+        acc[0] = bias[o];
+        acc[1] = o + 1 < n_out ? bias[o + 1] : 0;
+        @P@_dot2(x, w0, o + 1 < n_out ? w0 + n_in : w0, n_in, &acc[0], &acc[1]);
+        for (j = 0; j < 2 && o + j < n_out; ++j) {
+            int64_t value;
+            y[o + j] = @P@_rq(acc[j], mult[o + j], shift[o + j], yz, INT8_MIN, INT8_MAX);
+            value = (int64_t)@P@_scale(acc[j], mult[o + j], shift[o + j] - 8)
+                    + (int64_t)yz * 256;
+            if (o + j == 0 || value > best_value) {
+                best = o + j;
+                best_value = value;
+            }
+        }
+    }
+    return best;
+}
+"""
+
+DWCONV = r"""
+/* Depthwise convolution, NHWC, weights [k][k][c], four channels at a time with
+   the channel loop innermost. The bias holds b - zp * sum(w) over the whole
+   window, so taps inside the image multiply raw values and the taps in the
+   padding (which hold zp) add zp * w back. */
+@U@_KERNEL void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
+                           int32_t oh, int32_t ow, int32_t k, int32_t s, int32_t pt,
+                           int32_t pl, int32_t xz, const int8_t *wt, const int32_t *bias,
+                           const int32_t *mult, const int32_t *shift, int32_t yz,
+                           int32_t lo, int32_t hi)
+{
+    int32_t oy, ox, ch, ky, kx;
+    for (oy = 0; oy < oh; ++oy) {
+        int32_t iy0 = oy * s - pt;
+        int32_t ky0 = iy0 < 0 ? -iy0 : 0, ky1 = h - iy0 < k ? h - iy0 : k;
+        for (ox = 0; ox < ow; ++ox) {
+            int32_t ix0 = ox * s - pl;
+            int32_t kx0 = ix0 < 0 ? -ix0 : 0, kx1 = w - ix0 < k ? w - ix0 : k;
+            int32_t edge = ky0 > 0 || ky1 < k || kx0 > 0 || kx1 < k;
+            const int8_t *base = x + ((iy0 + ky0) * w + ix0 + kx0) * c;
+            const int8_t *wbase = wt + (ky0 * k + kx0) * c;
+            int8_t *out = y + (oy * ow + ox) * c;
+            for (ch = 0; ch < c; ch += 4) {
+                int32_t a[4] = {0, 0, 0, 0};
+                int32_t m = c - ch < 4 ? c - ch : 4, j;
+                for (j = 0; j < m; ++j) a[j] = bias[ch + j];
+                for (ky = ky0; ky < ky1; ++ky) {
+                    const int8_t *px = base + ((ky - ky0) * w) * c + ch;
+                    const int8_t *pw = wbase + ((ky - ky0) * k) * c + ch;
+                    if (m == 4) {
+                        for (kx = kx0; kx < kx1; ++kx) {
+                            a[0] += px[0] * pw[0];
+                            a[1] += px[1] * pw[1];
+                            a[2] += px[2] * pw[2];
+                            a[3] += px[3] * pw[3];
+                            px += c;
+                            pw += c;
+                        }
+                    } else {
+                        for (kx = kx0; kx < kx1; ++kx) {
+                            for (j = 0; j < m; ++j) a[j] += px[j] * pw[j];
+                            px += c;
+                            pw += c;
+                        }
+                    }
+                }
+                if (edge) {  /* the padding's taps hold the zero point */
+                    for (ky = 0; ky < k; ++ky) {
+                        for (kx = 0; kx < k; ++kx) {
+                            if (ky >= ky0 && ky < ky1 && kx >= kx0 && kx < kx1) continue;
+                            for (j = 0; j < m; ++j) a[j] += xz * wt[(ky * k + kx) * c + ch + j];
+                        }
+                    }
+                }
+                for (j = 0; j < m; ++j) {
+                    out[ch + j] = @P@_rq(a[j], mult[ch + j], shift[ch + j], yz, lo, hi);
+                }
+            }
+        }
+    }
+}
+"""
+
+MAXPOOL = r"""
+/* Max pooling, size = stride = s, ragged edge dropped; channel loop innermost. */
+@U@_KERNEL void @P@_maxpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
+                            int32_t oh, int32_t ow, int32_t s)
+{
+    int32_t oy, ox, ch, dy, dx;
+    for (oy = 0; oy < oh; ++oy) {
+        for (ox = 0; ox < ow; ++ox) {
+            const int8_t *p = x + ((oy * s) * w + ox * s) * c;
+            int8_t *out = y + (oy * ow + ox) * c;
+            if (s == 2) {
+                const int8_t *q = p + w * c;
+                for (ch = 0; ch < c; ++ch) {
+                    int8_t m = p[ch], v = p[ch + c];
+                    if (v > m) m = v;
+                    v = q[ch];
+                    if (v > m) m = v;
+                    v = q[ch + c];
+                    if (v > m) m = v;
+                    out[ch] = m;
+                }
+                continue;
+            }
+            for (ch = 0; ch < c; ++ch) out[ch] = p[ch];
+            for (dy = 0; dy < s; ++dy) {
+                for (dx = 0; dx < s; ++dx) {
+                    const int8_t *r = p + (dy * w + dx) * c;
+                    if (dy == 0 && dx == 0) continue;
+                    for (ch = 0; ch < c; ++ch) {
+                        if (r[ch] > out[ch]) out[ch] = r[ch];
+                    }
+                }
+            }
+        }
+    }
+}
+"""
+
+AVGPOOL = r"""
+/* Average pooling, size = stride = s; same scale and zero point in and out. */
+@U@_KERNEL void @P@_avgpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
+                            int32_t oh, int32_t ow, int32_t s)
+{
+    int32_t oy, ox, ch, dy, dx, ss = s * s;
+    for (oy = 0; oy < oh; ++oy) {
+        for (ox = 0; ox < ow; ++ox) {
+            const int8_t *p = x + ((oy * s) * w + ox * s) * c;
+            int8_t *out = y + (oy * ow + ox) * c;
+            for (ch = 0; ch < c; ++ch) {
+                int32_t total = 0;
+                const int8_t *r = p + ch;
+                for (dy = 0; dy < s; ++dy) {
+                    for (dx = 0; dx < s; ++dx) total += r[dx * c];
+                    r += w * c;
+                }
+                out[ch] = @P@_rdiv(total, ss);
+            }
+        }
+    }
+}
+"""
+
+GAP = r"""
+/* Global average pooling: (h, w, c) -> (c); same scale and zero point. */
+@U@_KERNEL void @P@_gap(const int8_t *x, int8_t *y, int32_t hw, int32_t c)
+{
+    int32_t ch, i;
+    for (ch = 0; ch < c; ++ch) {
+        int32_t total = 0;
+        const int8_t *p = x + ch;
+        for (i = 0; i < hw; ++i) {
+            total += *p;
+            p += c;
+        }
+        y[ch] = @P@_rdiv(total, hw);
+    }
+}
+"""
+
+#: which templates each step kind needs, in emission order
+NEEDS = {
+    "conv": ("SCALE", "DSP", "LD16", "REQUANT", "PATCH", "CONV"),
+    "dwconv": ("SCALE", "DSP", "REQUANT", "DWCONV"),
+    "dense": ("SCALE", "DSP", "REQUANT", "DOT_DIRECT", "DENSE"),
+    "head": ("SCALE", "DSP", "REQUANT", "DOT_DIRECT", "HEAD"),
+    "maxpool": ("MAXPOOL",),
+    "avgpool": ("RDIV", "AVGPOOL"),
+    "gap": ("RDIV", "GAP"),
+}
+ORDER = ("KERNEL", "SCALE", "RDIV", "DSP", "LD16", "REQUANT", "PATCH", "CONV", "DOT_DIRECT", "DENSE",
+         "HEAD", "DWCONV", "MAXPOOL", "AVGPOOL", "GAP")
+
+
+def templates() -> dict[str, str]:
+    """Name -> text of every template of this style (shared ones from the plain style)."""
+    from tinyconv.export import c_kernels
+    return {"KERNEL": c_kernels.KERNEL, "SCALE": c_kernels.SCALE, "RDIV": c_kernels.RDIV,
+            "DSP": DSP, "LD16": LD16, "REQUANT": REQUANT, "PATCH": PATCH, "CONV": CONV,
+            "DOT_DIRECT": DOT_DIRECT, "DENSE": DENSE, "HEAD": HEAD, "DWCONV": DWCONV,
+            "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
+
+
+def kernels_for(kinds, prefix: str) -> str:
+    """The C text of every fast kernel the step ``kinds`` need, prefixed."""
+    table = templates()
+    wanted = {"KERNEL"} | {name for kind in kinds for name in NEEDS[kind]}
+    return "".join(table[name].replace("@P@", prefix).replace("@U@", prefix.upper())
+                   for name in ORDER if name in wanted)

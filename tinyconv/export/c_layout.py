@@ -1,0 +1,111 @@
+"""What the fast C kernels read: weights in their order, biases with the zero point
+folded in, and the scratch each step needs. Pure functions of a quantised layer.
+
+* conv weights ``[f][k][k][c]`` flattened to ``[f][K]``; within each filter,
+  every group of four values stored as (0, 2, 1, 3): a 32-bit load then gives
+  the pairs (0, 1) and (2, 3) through the DSP extension's ``SXTB16`` of the
+  word and of the word shifted right by 8 (the last ``K % 4`` values stay in
+  order); and filters interleaved in pairs group by group (:func:`pair_filters`)
+  so the kernel walks one pointer; the patch buffer holds ``x - zp``, so the
+  conv bias is unchanged;
+* dense and head weights ``[n_out][n_in]`` in order, bias ``b - zp * sum_i w``;
+* depthwise weights ``[k][k][c]``, bias ``b - zp * sum over the window of w``;
+* conv scratch: two patches of ``k k c`` int16 values, ``4 k k c`` bytes,
+  inside the one activation buffer (see :func:`tinyconv.cost.scratch_bytes`).
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from tinyconv.errors import InputError
+from tinyconv.quant.quantize import QuantLayer
+
+INT32_MAX = 2 ** 31 - 1
+#: largest |x * w| of one int8 product
+MAX_PRODUCT = 128 * 128
+#: order of the four values of a group in the stored conv weights
+GROUP_ORDER = (0, 2, 1, 3)
+
+
+def swizzle_groups(rows: np.ndarray) -> np.ndarray:
+    """Each row's groups of four values reordered (0, 2, 1, 3); the tail kept.
+
+    Parameters
+    ----------
+    rows : ndarray, shape (f, K)
+
+    Returns
+    -------
+    ndarray, shape (f, K)
+    """
+    rows = np.asarray(rows)
+    out = rows.copy()
+    full = (rows.shape[1] // 4) * 4
+    if full:
+        groups = rows[:, :full].reshape(rows.shape[0], -1, 4)
+        out[:, :full] = groups[:, :, list(GROUP_ORDER)].reshape(rows.shape[0], full)
+    return out
+
+
+def pair_filters(rows: np.ndarray) -> np.ndarray:
+    """Rows ``[f][K]`` (groups already reordered) laid out for the fast conv kernel.
+
+    Per pair of filters: group by group, the four values of the first then the
+    four of the second; then the first's tail (``K % 4`` values), then the
+    second's. A last odd filter keeps its own row. The result is flat and holds
+    every value once, so each pair starts at ``o * K``.
+    """
+    f, k = rows.shape
+    full, parts = (k // 4) * 4, []
+    for o in range(0, f - 1, 2):
+        a, b = rows[o], rows[o + 1]
+        groups = np.stack([a[:full].reshape(-1, 4), b[:full].reshape(-1, 4)], axis=1)
+        parts += [groups.reshape(-1), a[full:], b[full:]]
+    if f % 2:
+        parts.append(rows[-1])
+    return np.concatenate(parts) if parts else rows.reshape(-1)
+
+
+def weights(layer: QuantLayer, style: str) -> np.ndarray:
+    """The weights in the order the kernels of ``style`` read them."""
+    w = layer.weights
+    if layer.kind == "conv":
+        rows = w.transpose(3, 0, 1, 2).reshape(w.shape[3], -1)  # (k, k, c, f) -> [f][K]
+        return pair_filters(swizzle_groups(rows)) if style == "fast" else rows
+    if layer.kind == "dense":
+        return w.T  # (n_in, n_out) -> [n_out][n_in]
+    return w  # dwconv (k, k, c), read as [k][k][c]
+
+
+def bias(layer: QuantLayer, style: str) -> np.ndarray:
+    """The int32 bias the kernels of ``style`` start from.
+
+    Raises
+    ------
+    InputError
+        When folding the zero point would let an int32 sum overflow (a layer far
+        wider than any network of this tool: the message names it).
+    """
+    b = np.asarray(layer.bias, np.int64)
+    if style != "fast" or layer.kind == "conv":
+        return b
+    w = np.asarray(layer.weights, np.int64)
+    if layer.kind == "dense":
+        sums, fan_in = w.sum(axis=0), w.shape[0]           # (n_in, n_out) -> per output
+    else:
+        sums, fan_in = w.sum(axis=(0, 1)), w.shape[0] * w.shape[1]  # (k, k, c) -> per channel
+    folded = b - layer.in_zp * sums
+    if np.abs(folded).max(initial=0) + MAX_PRODUCT * fan_in > INT32_MAX:
+        raise InputError(f"layer {layer.op.name}: {fan_in} inputs per output are too many "
+                         "for int32 sums with the zero point folded in; use fewer inputs "
+                         "per output (a global pooling before the dense layer)")
+    return folded
+
+
+def check_multipliers(layer: QuantLayer) -> None:
+    """The fast requantisation needs multipliers in [0, 2^31) (the quantiser's)."""
+    m = np.asarray(layer.multiplier, np.int64)
+    if m.size and (m.min() < 0 or m.max() > INT32_MAX):
+        raise ValueError(f"layer {layer.op.name}: multiplier outside [0, 2^31): "
+                         f"{m.min()}..{m.max()}")
