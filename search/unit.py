@@ -123,14 +123,30 @@ class UnitData:
     def __setstate__(self, state: dict) -> None:
         self.__init__(state["images"], state["labels"], state["folds"])
 
-    def save(self, folder: str | Path) -> None:
-        """Write the arrays as ``.npy`` files (read back memory-mapped)."""
+    def save(self, folder: str | Path) -> list[Path]:
+        """Write the arrays as ``.npy`` files (read back memory-mapped).
+
+        A file that already holds the same array is left alone, so a resumed
+        run rewrites nothing it only reads. Each file is written whole or not
+        at all (:func:`tinyconv.files.write_whole`); returns the files written.
+
+        Raises
+        ------
+        tinyconv.errors.WriteError
+            When a file cannot be written (full disk, read-only folder).
+        """
+        from tinyconv.files import write_whole
+
         folder = Path(folder)
+        written = []
         for name, arr in zip(DATA_FILES, (self.images, self.labels, self.folds)):
-            tmp = folder / (name + ".tmp")
-            with open(tmp, "wb") as fh:
-                np.save(fh, np.ascontiguousarray(arr))
-            tmp.replace(folder / name)
+            arr = np.ascontiguousarray(arr)
+            if _holds(folder / name, arr):
+                continue
+            written.append(write_whole(folder / name, lambda fh, a=arr: np.save(fh, a),
+                                       then="run the same search command again; finished "
+                                            "units are kept in run.sqlite"))
+        return written
 
     @staticmethod
     def load(folder: str | Path) -> "UnitData":
@@ -145,6 +161,15 @@ class UnitData:
             from tinyconv.data import prepare
             self._prepared[key] = prepare(np.asarray(self.images), spec)
         return self._prepared[key]
+
+
+def _holds(path: Path, arr: np.ndarray) -> bool:
+    """Whether the ``.npy`` file at ``path`` holds exactly ``arr`` (False if unreadable)."""
+    try:
+        kept = np.load(path, mmap_mode="r")
+    except (OSError, ValueError, EOFError):
+        return False
+    return kept.shape == arr.shape and kept.dtype == arr.dtype and bool(np.array_equal(kept, arr))
 
 
 #: What :func:`warm_up` trains: a standard 3 x 3 layer on one channel (im2col),

@@ -2,8 +2,12 @@
 
 Every problem with what a user gave (a text, a file, a value) is an
 :class:`InputError`, a ``ValueError``; the command line turns these into
-``error: <what>: <where>`` and exit code 2 (see :mod:`tinyconv.cli`). Anything
-else that escapes is a bug and keeps its traceback.
+``error: <what>: <where>`` and exit code 2 (see :mod:`tinyconv.cli`). So are
+the faults of a run folder that the user must act on (a file that cannot be
+written: a full disk, a read-only folder):
+their messages say which file or folder, what happened and what to do, and
+what was finished is kept. Anything else that escapes is a bug and keeps its
+traceback.
 """
 
 
@@ -21,6 +25,11 @@ class BudgetError(InputError):
 
 class RunError(InputError):
     """A run folder that cannot be used for the requested run (e.g. other data)."""
+
+
+class WriteError(RunError):
+    """A file could not be written (full disk, read-only folder, no permission);
+    nothing partial was left in its place."""
 
 
 class DivergedError(ArithmeticError):
