@@ -30,6 +30,7 @@ import numpy as np
 from search import schedule
 from search.store import RunStore
 from search.unit import UnitResult, UnitTask
+from tinyconv.errors import StoreError
 
 
 class Progress:
@@ -54,7 +55,8 @@ class Outcome:
     """How a search session ended.
 
     ``state`` is ``complete`` (the whole plan ran), ``budget_cpu`` or
-    ``budget_epochs`` (a budget ended it), or ``interrupted``.
+    ``budget_epochs`` (a budget ended it), ``interrupted``, or ``stopped``
+    (an error ended it: a store or worker fault, said by the error).
     """
 
     state: str = "complete"
@@ -140,6 +142,7 @@ class SearchLoop:
                              int(self.s.get("min_epochs", 1)))
         self.progress.start(plan_size(plan, self.k), len(self.finished), self.cpu_s,
                             self.epochs)
+        ended = False  # the plan ran, or a budget ended it (not an error)
         try:
             for b, (bracket, chosen) in enumerate(plan):
                 current = chosen[:bracket.rungs[0].size]
@@ -153,19 +156,29 @@ class SearchLoop:
                                 f"bracket {b + 1}: no candidate finished every fold at "
                                 f"{rung.epochs} epochs; nothing to promote")
                             break
+            ended = True
         except _BudgetStop as stop:
             self.outcome.state = stop.state
             self._drain()
+            ended = True
         except KeyboardInterrupt:
             self.outcome.state = "interrupted"
             self.executor.shutdown(cancel=True)
             self._inflight.clear()
             raise
+        except BaseException:
+            self.outcome.state = "stopped"
+            raise
         finally:
             self.outcome.cpu_s, self.outcome.epochs = self.cpu_s, self.epochs
             self.outcome.units_stored = len(self.finished)
-            self.store.set_outcome(self.outcome.as_dict())
-            self.progress.close()
+            try:
+                self.store.set_outcome(self.outcome.as_dict())
+            except StoreError:
+                if ended:  # else the error that stopped the loop says more
+                    raise
+            finally:
+                self.progress.close()
         return self.outcome
 
     def _scores(self, current: Sequence[str], level: int) -> dict[str, float | None]:

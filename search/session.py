@@ -166,8 +166,11 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     try:
         loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs)
         outcome = loop.run()
-    finally:
-        executor.shutdown()
+    except BaseException:
+        executor.shutdown(cancel=True)  # nothing more can be stored: do not wait for units
+        store.close()
+        raise
+    executor.shutdown()
     store.set_rank_order(request.rank_by)
     ranking = rank_run(store)
     path = save_ranking(ranking, request.out)

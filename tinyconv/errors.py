@@ -3,8 +3,8 @@
 Every problem with what a user gave (a text, a file, a value) is an
 :class:`InputError`, a ``ValueError``; the command line turns these into
 ``error: <what>: <where>`` and exit code 2 (see :mod:`tinyconv.cli`). So are
-the faults of a run folder that the user must act on (a file that cannot be
-written: a full disk, a read-only folder):
+the faults of a run folder that the user must act on (a damaged or removed
+store, a full disk, a read-only folder):
 their messages say which file or folder, what happened and what to do, and
 what was finished is kept. Anything else that escapes is a bug and keeps its
 traceback.
@@ -25,6 +25,10 @@ class BudgetError(InputError):
 
 class RunError(InputError):
     """A run folder that cannot be used for the requested run (e.g. other data)."""
+
+
+class StoreError(RunError):
+    """The run store (``run.sqlite``) is damaged, was removed, or cannot be written."""
 
 
 class WriteError(RunError):
