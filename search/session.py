@@ -10,6 +10,10 @@
    that holds another run); write the data for the workers;
 4. run the loop on local processes or a Dask cluster; rank; write
    ``ranking.csv``.
+
+The run folder is locked for the whole search, before anything else
+(:mod:`search.folder_lock`): a second search on it stops at once, naming the
+process that holds it.
 """
 
 from __future__ import annotations
@@ -22,6 +26,7 @@ from pathlib import Path
 import pandas as pd
 
 from search.config import RANK_ORDERS, SearchSettings
+from search.folder_lock import FolderLock
 from search.rank import rank_run, save_ranking
 from search.runner import Outcome, Progress, SearchLoop
 from search.schedule import derive_seed
@@ -113,19 +118,23 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
     ------
     InputError
         Bad data, space, budgets or settings (``RunError`` for a folder that
-        holds another run, ``BudgetError`` when nothing fits).
+        holds another run, ``BudgetError`` when nothing fits); a folder that
+        another search holds (``FolderBusyError``) or that cannot be written
+        (``WriteError``); a fault of the store (``StoreError``).
     """
     if request.rank_by not in RANK_ORDERS:
         raise ValueError(f"rank by {request.rank_by!r}: expected one of {RANK_ORDERS}")
-    # Local workers start (and warm up) while this process reads the data and the
-    # space; they first touch the run folder with their first unit.
-    local = _local_workers(request, work)
-    try:
-        return _search(request, progress, work, local)
-    except BaseException:
-        if local is not None:  # bad input or an interrupt: do not wait for the warm-up
-            local.shutdown(cancel=True)
-        raise
+    # First the folder, so that a second search on it stops before any work.
+    with FolderLock.take(request.out):
+        # Local workers start (and warm up) while this process reads the data and
+        # the space; they first touch the run folder with their first unit.
+        local = _local_workers(request, work)
+        try:
+            return _search(request, progress, work, local)
+        except BaseException:
+            if local is not None:  # bad input or an interrupt: do not wait for the warm-up
+                local.shutdown(cancel=True)
+            raise
 
 
 def _search(request: SearchRequest, progress: Progress | None, work, local) -> SearchSummary:

@@ -9,8 +9,9 @@ Promises:
 * a finished unit is written in **one transaction** together with its
   predictions, so a process killed at any moment leaves whole units only and
   loses at most those in flight; (candidate, fold, rung) is unique;
-* only the search's main process writes, through the store
-  :meth:`RunStore.start` returns (:mod:`search.store_writer`); readers (the
+* only the search's main process writes (one search per folder:
+  :mod:`search.folder_lock`), through the store :meth:`RunStore.start`
+  returns (:mod:`search.store_writer`); readers (the
   report, the export) open the file read-only with :class:`RunStore` and
   never change it, not even to play back the journal of a search killed in
   a commit (they read a private copy then);

@@ -4,7 +4,7 @@ Every problem with what a user gave (a text, a file, a value) is an
 :class:`InputError`, a ``ValueError``; the command line turns these into
 ``error: <what>: <where>`` and exit code 2 (see :mod:`tinyconv.cli`). So are
 the faults of a run folder that the user must act on (a damaged or removed
-store, a full disk, a read-only folder):
+store, a full disk, a read-only folder, a folder another search holds):
 their messages say which file or folder, what happened and what to do, and
 what was finished is kept. Anything else that escapes is a bug and keeps its
 traceback.
@@ -34,6 +34,14 @@ class StoreError(RunError):
 class WriteError(RunError):
     """A file could not be written (full disk, read-only folder, no permission);
     nothing partial was left in its place."""
+
+
+class FolderBusyError(RunError):
+    """Another process is writing the run folder; ``pid`` is its process id, if known."""
+
+    def __init__(self, message: str, pid: int | None):
+        super().__init__(message)
+        self.pid = pid
 
 
 class DivergedError(ArithmeticError):
