@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import fcntl
 import os
+import time
 from pathlib import Path
 
 from tinyconv.errors import FolderBusyError, RunError, WriteError
@@ -83,8 +84,9 @@ class FolderLock:
         except BaseException:
             os.close(fd)
             raise
-        os.ftruncate(fd, 0)
-        os.pwrite(fd, f"{os.getpid()}\n".encode(), 0)
+        mine = f"{os.getpid()}\n".encode()
+        os.pwrite(fd, mine, 0)   # first line first, then the rest cut: never empty
+        os.ftruncate(fd, len(mine))
         return cls(run_dir, fd)
 
     def release(self) -> None:
@@ -100,13 +102,34 @@ class FolderLock:
         self.release()
 
 
-def _holder(fd: int) -> int | None:
-    """The process id the holder wrote into the lock file, if any."""
+def _holder(fd: int, patience: float = 1.0) -> int | None:
+    """The process id of the holder, from the first line of the lock file.
+
+    A holder writes its id just after it takes the lock, so right then the
+    file may still name an earlier search that has ended: wait (up to
+    ``patience`` seconds) for the id of a living process.
+    """
+    deadline = time.monotonic() + patience
+    while True:
+        try:
+            first = os.pread(fd, 32, 0).decode("ascii", "replace").split("\n")[0].strip()
+        except OSError:
+            return None
+        pid = int(first) if first.isdigit() else None
+        if (pid is not None and _alive(pid)) or time.monotonic() > deadline:
+            return pid
+        time.sleep(0.02)
+
+
+def _alive(pid: int) -> bool:
+    """Whether a process exists (POSIX kill(2) with signal 0 checks without sending)."""
     try:
-        text = os.pread(fd, 32, 0).decode("ascii", "replace").strip()
-    except OSError:
-        return None
-    return int(text) if text.isdigit() else None
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    except PermissionError:
+        return True   # it exists, under another user
+    return True
 
 
 def _not_writable(run_dir: Path) -> str:

@@ -7,6 +7,7 @@ import shutil
 from pathlib import Path
 
 from helpers import TINY_DATA, TINY_SPACE
+from search.folder_lock import LOCK_NAME
 
 
 def space_file(folder: Path) -> Path:
@@ -32,9 +33,10 @@ def copy_run(src: Path, dst: Path) -> Path:
 
 
 def snapshot(folder: Path) -> dict[str, tuple[int, bytes]]:
-    """Every file in ``folder`` with its modification time and bytes."""
+    """Every file in ``folder`` with its modification time and bytes, but the lock
+    file (a search writes its process id there before it looks at the store)."""
     return {p.name: (p.stat().st_mtime_ns, p.read_bytes())
-            for p in sorted(folder.iterdir()) if p.is_file()}
+            for p in sorted(folder.iterdir()) if p.is_file() and p.name != LOCK_NAME}
 
 
 def clean_failure(err: str) -> bool:

@@ -117,15 +117,28 @@ def test_two_searches_started_together(reference, tmp_path):
     assert wait_gone([p.pid for p in procs]) == []
 
 
+_CHILD_KEEPS_NOTHING = """
+import subprocess, sys
+from search.folder_lock import FolderLock
+with FolderLock.take(sys.argv[1]):
+    child = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"],
+                             close_fds=False)
+try:
+    with FolderLock.take(sys.argv[1]):
+        print("taken again while the child lives")
+finally:
+    child.kill()
+    child.wait()
+"""
+
+
 def test_worker_processes_do_not_hold_the_lock(tmp_path):
     """A process started by the lock holder, even one keeping every inheritable
-    descriptor, does not hold the lock once the holder lets go (close-on-exec)."""
-    with FolderLock.take(tmp_path / "run"):
-        child = subprocess.Popen([sys.executable, "-c", "import time; time.sleep(60)"],
-                                 close_fds=False)
-    try:
-        with FolderLock.take(tmp_path / "run"):
-            pass
-    finally:
-        child.kill()
-        child.wait()
+    descriptor, does not hold the lock once the holder lets go (close-on-exec).
+
+    Run in a fresh process: here, threads left by earlier tests may start processes
+    of their own at any moment, and a process being started holds every descriptor
+    until it runs its program."""
+    done = subprocess.run([sys.executable, "-c", _CHILD_KEEPS_NOTHING, str(tmp_path / "run")],
+                          capture_output=True, text=True, timeout=60)
+    assert done.stdout.strip() == "taken again while the child lives", done.stderr
