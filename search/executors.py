@@ -20,7 +20,9 @@ search loop (:mod:`search.runner`) drives either.
   start-up cost, for debugging and small tests.
 * :class:`ClusterWorkers`: ``dask.distributed`` (the optional ``cluster``
   extra) through ``Client.get_executor()``; the data are scattered to every
-  worker once (``broadcast=True``). Workers should run one thread each
+  worker once (``broadcast=True``). A scheduler that goes away cancels every
+  unit in flight; :meth:`ClusterWorkers.gone` tells that from a single lost
+  unit, and the search stops with a named error (resumable). Workers should run one thread each
   (``--nthreads 1``), or their CPU-time figures include each other's work.
 
 This module imports nothing heavy at the top, so that a spawned worker sets
@@ -145,6 +147,13 @@ class LocalWorkers:
             self._pool.shutdown(wait=False, cancel_futures=True)
         self._pool = None
 
+    def gone(self, exc: BaseException) -> str | None:
+        """Local workers are restarted as needed: never gone for good."""
+        return None
+
+    def how_to_resume(self) -> str:
+        return "run the same command again to resume"
+
     def shutdown(self, cancel: bool = False) -> None:
         """Stop the workers: after their units, or with ``cancel`` at once.
 
@@ -198,6 +207,13 @@ class InlineWorkers:
     def restart(self) -> None:
         """Nothing to restart."""
 
+    def gone(self, exc: BaseException) -> str | None:
+        """This process runs the units: never gone."""
+        return None
+
+    def how_to_resume(self) -> str:
+        return "run the same command again to resume"
+
     def shutdown(self, cancel: bool = False) -> None:
         """Nothing to stop."""
 
@@ -226,6 +242,7 @@ class ClusterWorkers:
 
     def __init__(self, address, data, work: Callable | None = None, timeout: float = 20.0):
         from tinyconv.errors import InputError
+        self._lost = False
         try:
             from distributed import Client
         except ImportError:
@@ -237,10 +254,18 @@ class ClusterWorkers:
             raise InputError(f"--cluster {address}: cannot reach a Dask scheduler there "
                              f"({exc}); start one with 'dask scheduler' and workers with "
                              "'dask worker ADDRESS --nthreads 1'") from None
+        self.address = str(getattr(address, "scheduler_address", address))
         self.work = work or default_work()
-        self._data = self.client.scatter(data, broadcast=True)
+        try:
+            self._data = self.client.scatter(data, broadcast=True)
+            self.workers = max(1, sum(self.client.nthreads().values()))
+        except Exception as exc:  # the scheduler went away while the data were sent
+            from tinyconv.errors import WorkersLostError
+            self.shutdown(cancel=True)
+            raise WorkersLostError(f"--cluster {self.address}: the Dask scheduler went away "
+                                   f"while the data were sent ({type(exc).__name__}); "
+                                   f"{self.how_to_resume()}") from None
         self._pool = self.client.get_executor(pure=False)
-        self.workers = max(1, sum(self.client.nthreads().values()))
         self.description = f"Dask cluster {self.client.scheduler.address} " \
                            f"({self.workers} worker threads)"
 
@@ -250,8 +275,47 @@ class ClusterWorkers:
     def restart(self) -> None:
         """Nothing to do: Dask replaces lost workers and retries their tasks."""
 
+    def gone(self, exc: BaseException) -> str | None:
+        """Whether the client lost its scheduler (then nothing more can run).
+
+        A lost scheduler cancels every unit in flight and leaves the client
+        trying to reconnect (its status is no longer ``running``); a unit that
+        failed while the client is connected is only that unit's bad luck.
+        """
+        status = str(getattr(self.client, "status", "running"))
+        if status.endswith("running"):
+            return None
+        self._lost = True
+        _quiet_dask()  # its own reconnect attempts would log tracebacks
+        from search.failures import describe
+        return (f"--cluster {self.address}: the connection to the Dask scheduler was lost "
+                f"({describe(exc)}; the client is {status.rsplit('.', 1)[-1]})")
+
+    def how_to_resume(self) -> str:
+        return ("start a Dask scheduler and workers again ('dask scheduler', 'dask worker "
+                "ADDRESS --nthreads 1') and run the same command to resume")
+
     def shutdown(self, cancel: bool = False) -> None:
+        if self._lost:
+            cancel = True  # nothing can finish without a scheduler
         with contextlib.suppress(Exception):
             self._pool.shutdown(wait=not cancel)
         with contextlib.suppress(Exception):
-            self.client.close()
+            if self._lost:
+                self.client.close(timeout=5)  # it would wait for a reconnect otherwise
+            else:
+                self.client.close()
+
+
+def _quiet_dask() -> None:
+    """Keep dask.distributed's log (on stderr) to critical messages: after a lost
+    scheduler its reconnect attempts log tracebacks, and the search says what
+    happened in one error line instead."""
+    import logging
+    # dask.distributed's logging configuration sets levels on its sub-loggers
+    # (distributed.client, ...), so each of them is turned down; so are those of
+    # the event loop under it (tornado, asyncio), which log the broken connections.
+    roots = ("distributed", "tornado", "asyncio")
+    names = [n for n in logging.root.manager.loggerDict if n.split(".")[0] in roots]
+    for name in [*roots, *names]:
+        logging.getLogger(name).setLevel(logging.CRITICAL)

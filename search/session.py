@@ -173,7 +173,8 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     params = dict(zip(table["candidate"], table["params"]))
     costs = dict(zip(table["candidate"], table["macs"].astype(float)))
     try:
-        loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs)
+        loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs,
+                          reopened=store.reopened)
         outcome = loop.run()
     except BaseException:
         executor.shutdown(cancel=True)  # nothing more can be stored: do not wait for units

@@ -23,6 +23,7 @@ import pandas as pd
 
 from search import store_faults as faults
 from search.config import EXTENDABLE, differences
+from search.failures import outside_message
 from search.store import FILE, SCHEMA_SQL, SCHEMA_VERSION, RunStore, connect
 from search.unit import DATA_FILES, UnitResult
 from tinyconv.errors import RunError, StoreError
@@ -38,6 +39,9 @@ class RunWriter(RunStore):
     #: Set once the file was found removed: the message every later write repeats
     #: (the units were rescued once; a second copy would only confuse).
     _gone: str | None = None
+    #: Units stored as failed for a reason outside them (by an earlier version)
+    #: that :meth:`start` removed so that the search runs them again.
+    reopened: int = 0
 
     def __init__(self, run_dir: str | Path):
         super().__init__(run_dir, writable=True)
@@ -93,10 +97,24 @@ class RunWriter(RunStore):
             if changed:
                 store._write(lambda con: _put_meta(con, "settings", {**stored, **changed}),
                              "the new budgets were not recorded")
+            store._reopen_outside_failures()
         except BaseException:
             store.close()
             raise
         return store
+
+    def _reopen_outside_failures(self) -> None:
+        """Remove units stored as failed for a reason outside them (a dead worker, a
+        lost scheduler: :func:`search.failures.outside_message`), so they run again."""
+        ids = [uid for uid, status, message in
+               self._rows("SELECT id, status, message FROM units WHERE status = 'failed'")
+               if outside_message(status, message)]
+        if ids:
+            marks = ", ".join("?" * len(ids))
+            self._write(lambda con: con.execute(f"DELETE FROM units WHERE id IN ({marks})",
+                                                ids),
+                        "units failed for outside reasons are not reopened")
+            self.reopened = len(ids)
 
     def _write(self, change: Callable[[sqlite3.Connection], Any], lost: str,
                on_removed: Callable[[sqlite3.Connection], Any] | None = None) -> Any:

@@ -3,10 +3,11 @@
 A unit is (candidate text, fold, rung, epochs) with a seed derived from the
 run seed and those (:func:`search.schedule.unit_seed`). It trains from
 scratch: the rung only says how many epochs. The normalisation statistics
-come from the training part of the fold only. The unit never raises: a
-problem in training becomes ``status="failed"`` with the message, a
-non-finite loss ``status="diverged"`` (with no accuracy and no predictions,
-since the weights are not trustworthy).
+come from the training part of the fold only. The unit raises only for a
+lack of memory (not its own fault, so the search runs it again: see
+:mod:`search.failures`): a problem in training becomes ``status="failed"``
+with the message, a non-finite loss ``status="diverged"`` (with no accuracy
+and no predictions, since the weights are not trustworthy).
 
 The data reach a worker once, as :class:`UnitData` (raw uint8 images, labels,
 fold of every image); images are prepared (resized, converted) for each input
@@ -195,10 +196,12 @@ def warm_up() -> None:
 
 
 def run_unit(task: UnitTask, data: UnitData) -> UnitResult:
-    """Train and evaluate one unit; never raises (see the module notes)."""
+    """Train and evaluate one unit; raises only MemoryError (see the module notes)."""
     cpu0, wall0 = time.process_time(), time.perf_counter()
     try:
         return _run(task, data, cpu0, wall0)
+    except MemoryError:
+        raise  # the worker's memory, not the unit: the loop runs it again (search.failures)
     except Exception as exc:  # the unit reports it; the search goes on
         last = traceback.extract_tb(exc.__traceback__)[-1] if exc.__traceback__ else None
         where = f" (at {Path(last.filename).name}:{last.lineno})" if last else ""

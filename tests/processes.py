@@ -94,3 +94,17 @@ def wait_for(condition, what: str, patience: float = 120.0, proc=None) -> None:
         if time.monotonic() > deadline:
             pytest.fail(f"gave up waiting for {what}")
         time.sleep(0.05)
+
+
+def pool_workers(pid: int) -> list[int]:
+    """Living worker processes a ``multiprocessing`` spawn pool of ``pid`` started
+    (their command line runs ``spawn_main``; the resource tracker's does not)."""
+    found = []
+    for child in descendants(pid):
+        try:
+            cmdline = Path(f"/proc/{child}/cmdline").read_bytes()
+        except OSError:
+            continue
+        if b"spawn_main" in cmdline:
+            found.append(child)
+    return found

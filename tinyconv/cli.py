@@ -10,7 +10,8 @@ Exit codes (the one place they are decided):
 * 1 — the command ran and its check failed (e.g. a gradient check);
 * 2 — bad input: a wrong option, text, file or value; or a run folder the
   user must act on (a damaged or removed store, a full disk, a read-only
-  folder, a folder another search holds); the message says
+  folder, a folder another search holds, workers that went away); the
+  message says
   ``error: <what>`` and how to fix it, and finished work is kept;
 * 130 — interrupted (Ctrl-C); whatever was finished is kept.
 """
