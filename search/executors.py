@@ -25,6 +25,10 @@ search loop (:mod:`search.runner`) drives either.
   unit, and the search stops with a named error (resumable). Workers should run one thread each
   (``--nthreads 1``), or their CPU-time figures include each other's work.
 
+Local workers end with the search process, however it ends (even
+``kill -9``): each watches its parent (:func:`end_with_parent`), so no
+worker is left running, or blocked on a pipe, after its search died.
+
 This module imports nothing heavy at the top, so that a spawned worker sets
 its thread limits before NumPy is loaded.
 """
@@ -32,8 +36,13 @@ its thread limits before NumPy is loaded.
 from __future__ import annotations
 
 import contextlib
+import ctypes
 import multiprocessing
 import os
+import signal
+import sys
+import threading
+import time
 from concurrent.futures import Future, ProcessPoolExecutor
 from pathlib import Path
 from typing import Callable, Iterator
@@ -70,7 +79,41 @@ def limit_threads() -> None:
     threadpoolctl.threadpool_limits(1)
 
 
-def _init_worker(data_dir: str, work: Callable, warm: bool) -> None:
+#: How often a worker looks whether its search process is still there (seconds).
+PARENT_POLL_S = 0.5
+
+
+def end_with_parent(parent: int) -> None:
+    """Make this process end soon after process ``parent`` ends, however it ends.
+
+    Two guards, since a killed search (``kill -9``) runs no clean-up: on Linux
+    the kernel sends this process SIGKILL when its parent ends (``prctl`` with
+    ``PR_SET_PDEATHSIG``, value 1 in ``linux/prctl.h``; prctl(2) notes it fires
+    when the parent *thread* that started the process ends, which here is the
+    thread running the whole search); and everywhere a daemon thread that sees
+    the parent id change (an orphan is adopted by another process; POSIX
+    ``getppid``) and ends the process within :data:`PARENT_POLL_S` seconds.
+    """
+    if sys.platform.startswith("linux"):
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)
+        except (OSError, AttributeError):  # no prctl here: the thread below suffices
+            pass
+    if os.getppid() != parent:  # the parent ended before the guard was set
+        os._exit(1)
+    threading.Thread(target=_watch_parent, args=(parent,), daemon=True,
+                     name="tinyconv-parent-watch").start()
+
+
+def _watch_parent(parent: int) -> None:
+    while os.getppid() == parent:
+        time.sleep(PARENT_POLL_S)
+    os._exit(1)  # no clean-up: the search that would read our results is gone
+
+
+def _init_worker(data_dir: str, work: Callable, warm: bool, parent: int) -> None:
+    end_with_parent(parent)  # first: the warm-up below takes a second or more
     limit_threads()
     _WORKER.update(data_dir=data_dir, work=work, data=None)
     if warm:
@@ -123,7 +166,8 @@ class LocalWorkers:
         if self._pool is None:
             self._pool = ProcessPoolExecutor(
                 self.workers, mp_context=multiprocessing.get_context("spawn"),
-                initializer=_init_worker, initargs=(self.data_dir, self.work, self.warm))
+                initializer=_init_worker,
+                initargs=(self.data_dir, self.work, self.warm, os.getpid()))
         return self._pool
 
     def start(self) -> None:
