@@ -166,23 +166,25 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
                          classes=dataset.classes)
     table = filtered.table()
     table["scheduled"] = table["candidate"].isin(set(texts))
-    store = RunStore.start(request.out, settings.as_dict(), table, dict(filtered.over))
-    data = UnitData(dataset.images, dataset.labels, folds)
-    data.save(request.out)
-    executor = local if local is not None else _executor(request, data, work)
     params = dict(zip(table["candidate"], table["params"]))
     costs = dict(zip(table["candidate"], table["macs"].astype(float)))
+    store = RunStore.start(request.out, settings.as_dict(), table, dict(filtered.over))
     try:
-        loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs,
-                          reopened=store.reopened)
-        outcome = loop.run()
-    except BaseException:
-        executor.shutdown(cancel=True)  # nothing more can be stored: do not wait for units
-        store.close()
-        raise
-    executor.shutdown()
-    store.set_rank_order(request.rank_by)
-    ranking = rank_run(store)
+        data = UnitData(dataset.images, dataset.labels, folds)
+        data.save(request.out)
+        executor = local if local is not None else _executor(request, data, work)
+        try:
+            loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs,
+                              reopened=store.reopened)
+            outcome = loop.run()
+        except BaseException:
+            executor.shutdown(cancel=True)  # nothing more can be stored: do not wait
+            raise
+        executor.shutdown()
+        store.set_rank_order(request.rank_by)
+        ranking = rank_run(store)
+    finally:
+        store.close()  # the folder holds no open file of this search after it
     path = save_ranking(ranking, request.out)
     return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
                          len(filtered.survivors), len(texts), dict(filtered.over),

@@ -28,6 +28,7 @@ import sqlite3
 from pathlib import Path
 
 from tinyconv.errors import StoreError
+from tinyconv.files import low_on_space
 
 #: The first 16 bytes of every SQLite database file (fileformat.html, 1.3.1).
 MAGIC = b"SQLite format 3\x00"
@@ -156,16 +157,6 @@ def _free_name(folder: Path, name: str) -> Path:
         n += 1
         path = folder / f"{n}-{name}"
     return path
-
-
-def low_on_space(folder: Path, below: int = 1 << 20) -> bool:
-    """Whether the file system of ``folder`` has less than ``below`` bytes free
-    for this user (POSIX ``statvfs``: ``f_bavail`` blocks of ``f_frsize``)."""
-    try:
-        st = os.statvfs(folder)
-    except OSError:
-        return False
-    return st.f_bavail * st.f_frsize < below
 
 
 def write_fault(exc: sqlite3.Error, path: Path, kept: str) -> StoreError:

@@ -3,8 +3,14 @@ copies of a finished run, and what a clean failure looks like."""
 
 from __future__ import annotations
 
+import contextlib
+import os
 import shutil
+import subprocess
 from pathlib import Path
+from typing import Iterator
+
+import pytest
 
 from helpers import TINY_DATA, TINY_SPACE
 from search.folder_lock import LOCK_NAME
@@ -51,3 +57,43 @@ def leftovers(folder: Path) -> list[str]:
     built, SQLite journals."""
     return sorted(p.name for p in folder.rglob("*")
                   if p.name.startswith((".partial-", ".new-")) or p.name.endswith("-journal"))
+
+
+@contextlib.contextmanager
+def small_disk(where: Path, size: str) -> Iterator[Path]:
+    """A RAM-backed file system (tmpfs) of ``size`` (e.g. ``"1m"``) mounted at ``where``
+    for the block; the test is skipped, with the reason, where mounting is not permitted
+    (mount(8) needs root or CAP_SYS_ADMIN)."""
+    where.mkdir(parents=True, exist_ok=True)
+    done = subprocess.run(["mount", "-t", "tmpfs", "-o", f"size={size}", "tmpfs", str(where)],
+                          capture_output=True, text=True)
+    if done.returncode != 0:
+        pytest.skip(f"cannot mount a small tmpfs here ({done.stderr.strip() or 'no mount'})")
+    try:
+        yield where
+    finally:
+        subprocess.run(["umount", "-l", str(where)], capture_output=True)
+
+
+def remount(where: Path, options: str) -> None:
+    """Change the options of the file system mounted at ``where`` (e.g. ``ro``)."""
+    subprocess.run(["mount", "-o", f"remount,{options}", str(where)], check=True,
+                   capture_output=True)
+
+
+def fill(folder: Path) -> Path:
+    """Fill the file system of ``folder`` to the last byte with one file; returns it."""
+    path = folder / "filler"
+    fd = os.open(path, os.O_WRONLY | os.O_CREAT, 0o644)
+    try:
+        block = b"\0" * 65536
+        while True:
+            try:
+                os.write(fd, block)
+            except OSError:  # ENOSPC: now smaller pieces, to the last byte
+                if len(block) == 1:
+                    break
+                block = block[: len(block) // 2]
+    finally:
+        os.close(fd)
+    return path

@@ -85,6 +85,7 @@ def write_whole(path: str | Path, write: Callable[[BinaryIO], None], *,
     except OSError as exc:
         with contextlib.suppress(OSError):
             partial.unlink()
+        exc = _with_errno(exc, path.parent)
         raise WriteError(f"cannot write {path}: {why_not_written(exc)}; nothing partial "
                          f"was left there. {fix_for(exc).capitalize()} and {then}") from None
     except BaseException:
@@ -92,6 +93,24 @@ def write_whole(path: str | Path, write: Callable[[BinaryIO], None], *,
             partial.unlink()
         raise
     return path
+
+
+def _with_errno(exc: OSError, folder: Path) -> OSError:
+    """The error with its number; a short write reported without one (as NumPy's
+    ``tofile`` does: "N requested and M written") on a full disk is ENOSPC."""
+    if exc.errno is None and low_on_space(folder):
+        return OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+    return exc
+
+
+def low_on_space(folder: str | Path, below: int = 1 << 20) -> bool:
+    """Whether the file system of ``folder`` has less than ``below`` bytes free
+    for this user (POSIX ``statvfs``: ``f_bavail`` blocks of ``f_frsize``)."""
+    try:
+        st = os.statvfs(folder)
+    except OSError:
+        return False
+    return st.f_bavail * st.f_frsize < below
 
 
 def write_bytes_whole(path: str | Path, data: bytes, **kw) -> Path:
