@@ -131,8 +131,8 @@ def test_failures_stored_by_earlier_versions_are_run_again(reference, tmp_path):
                              "rung = ?", UNLUCKY).fetchone()
         con.execute("DELETE FROM predictions WHERE unit = ?", (uid,))
         con.execute("UPDATE units SET status = 'failed', message = 'the worker process died "
-                    "while running this unit (no message); it may have run out of memory', "
-                    "val_acc = NULL WHERE id = ?", (uid,))
+                    "while running this unit (no message); it may have run out of memory' "
+                    "WHERE id = ?", (uid,))
     con.close()
     (run / "ranking.csv").unlink()
     summary = run_search(tiny_request(run))
