@@ -76,7 +76,6 @@ CANDIDATE_COLUMNS = ("candidate", "params", "macs", "peak_int8_bytes", "flash_by
                      "within_budget", "over", "scheduled")
 
 
-
 def connect(path: Path, writable: bool) -> sqlite3.Connection:
     """A connection to a store file: read-write with explicit transactions, or read-only."""
     if writable:
@@ -156,10 +155,16 @@ class RunStore:
         except sqlite3.Error as exc:
             self.close()
             raise faults.read_fault(exc, self.path) from None
+        except OSError as exc:  # e.g. the journal played back meanwhile by a new search
+            self.close()
+            raise StoreError(f"cannot read {self.path}: a search was stopped while writing "
+                             f"it, and its journal could not be copied ({exc.strerror}); "
+                             "try again, or run the same search command to repair it") from None
         except BaseException:
             self.close()
             raise
         return con
+
     # ------------------------------------------------------------ writing
 
     @classmethod
