@@ -20,8 +20,14 @@ search loop (:mod:`search.runner`) drives either.
   start-up cost, for debugging and small tests.
 * :class:`ClusterWorkers`: ``dask.distributed`` (the optional ``cluster``
   extra) through ``Client.get_executor()``; the data are scattered to every
-  worker once (``broadcast=True``). Workers should run one thread each
+  worker once (``broadcast=True``). A scheduler that goes away cancels every
+  unit in flight; :meth:`ClusterWorkers.gone` tells that from a single lost
+  unit, and the search stops with a named error (resumable). Workers should run one thread each
   (``--nthreads 1``), or their CPU-time figures include each other's work.
+
+Local workers end with the search process, however it ends (even
+``kill -9``): each watches its parent (:func:`end_with_parent`), so no
+worker is left running, or blocked on a pipe, after its search died.
 
 This module imports nothing heavy at the top, so that a spawned worker sets
 its thread limits before NumPy is loaded.
@@ -30,8 +36,13 @@ its thread limits before NumPy is loaded.
 from __future__ import annotations
 
 import contextlib
+import ctypes
 import multiprocessing
 import os
+import signal
+import sys
+import threading
+import time
 from concurrent.futures import Future, ProcessPoolExecutor
 from pathlib import Path
 from typing import Callable, Iterator
@@ -68,7 +79,41 @@ def limit_threads() -> None:
     threadpoolctl.threadpool_limits(1)
 
 
-def _init_worker(data_dir: str, work: Callable, warm: bool) -> None:
+#: How often a worker looks whether its search process is still there (seconds).
+PARENT_POLL_S = 0.5
+
+
+def end_with_parent(parent: int) -> None:
+    """Make this process end soon after process ``parent`` ends, however it ends.
+
+    Two guards, since a killed search (``kill -9``) runs no clean-up: on Linux
+    the kernel sends this process SIGKILL when its parent ends (``prctl`` with
+    ``PR_SET_PDEATHSIG``, value 1 in ``linux/prctl.h``; prctl(2) notes it fires
+    when the parent *thread* that started the process ends, which here is the
+    thread running the whole search); and everywhere a daemon thread that sees
+    the parent id change (an orphan is adopted by another process; POSIX
+    ``getppid``) and ends the process within :data:`PARENT_POLL_S` seconds.
+    """
+    if sys.platform.startswith("linux"):
+        try:
+            libc = ctypes.CDLL(None, use_errno=True)
+            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)
+        except (OSError, AttributeError):  # no prctl here: the thread below suffices
+            pass
+    if os.getppid() != parent:  # the parent ended before the guard was set
+        os._exit(1)
+    threading.Thread(target=_watch_parent, args=(parent,), daemon=True,
+                     name="tinyconv-parent-watch").start()
+
+
+def _watch_parent(parent: int) -> None:
+    while os.getppid() == parent:
+        time.sleep(PARENT_POLL_S)
+    os._exit(1)  # no clean-up: the search that would read our results is gone
+
+
+def _init_worker(data_dir: str, work: Callable, warm: bool, parent: int) -> None:
+    end_with_parent(parent)  # first: the warm-up below takes a second or more
     limit_threads()
     _WORKER.update(data_dir=data_dir, work=work, data=None)
     if warm:
@@ -121,7 +166,8 @@ class LocalWorkers:
         if self._pool is None:
             self._pool = ProcessPoolExecutor(
                 self.workers, mp_context=multiprocessing.get_context("spawn"),
-                initializer=_init_worker, initargs=(self.data_dir, self.work, self.warm))
+                initializer=_init_worker,
+                initargs=(self.data_dir, self.work, self.warm, os.getpid()))
         return self._pool
 
     def start(self) -> None:
@@ -144,6 +190,13 @@ class LocalWorkers:
         if self._pool is not None:
             self._pool.shutdown(wait=False, cancel_futures=True)
         self._pool = None
+
+    def gone(self, exc: BaseException) -> str | None:
+        """Local workers are restarted as needed: never gone for good."""
+        return None
+
+    def how_to_resume(self) -> str:
+        return "run the same command again to resume"
 
     def shutdown(self, cancel: bool = False) -> None:
         """Stop the workers: after their units, or with ``cancel`` at once.
@@ -198,6 +251,13 @@ class InlineWorkers:
     def restart(self) -> None:
         """Nothing to restart."""
 
+    def gone(self, exc: BaseException) -> str | None:
+        """This process runs the units: never gone."""
+        return None
+
+    def how_to_resume(self) -> str:
+        return "run the same command again to resume"
+
     def shutdown(self, cancel: bool = False) -> None:
         """Nothing to stop."""
 
@@ -226,6 +286,7 @@ class ClusterWorkers:
 
     def __init__(self, address, data, work: Callable | None = None, timeout: float = 20.0):
         from tinyconv.errors import InputError
+        self._lost = False
         try:
             from distributed import Client
         except ImportError:
@@ -237,10 +298,18 @@ class ClusterWorkers:
             raise InputError(f"--cluster {address}: cannot reach a Dask scheduler there "
                              f"({exc}); start one with 'dask scheduler' and workers with "
                              "'dask worker ADDRESS --nthreads 1'") from None
+        self.address = str(getattr(address, "scheduler_address", address))
         self.work = work or default_work()
-        self._data = self.client.scatter(data, broadcast=True)
+        try:
+            self._data = self.client.scatter(data, broadcast=True)
+            self.workers = max(1, sum(self.client.nthreads().values()))
+        except Exception as exc:  # the scheduler went away while the data were sent
+            from tinyconv.errors import WorkersLostError
+            self.shutdown(cancel=True)
+            raise WorkersLostError(f"--cluster {self.address}: the Dask scheduler went away "
+                                   f"while the data were sent ({type(exc).__name__}); "
+                                   f"{self.how_to_resume()}") from None
         self._pool = self.client.get_executor(pure=False)
-        self.workers = max(1, sum(self.client.nthreads().values()))
         self.description = f"Dask cluster {self.client.scheduler.address} " \
                            f"({self.workers} worker threads)"
 
@@ -250,8 +319,47 @@ class ClusterWorkers:
     def restart(self) -> None:
         """Nothing to do: Dask replaces lost workers and retries their tasks."""
 
+    def gone(self, exc: BaseException) -> str | None:
+        """Whether the client lost its scheduler (then nothing more can run).
+
+        A lost scheduler cancels every unit in flight and leaves the client
+        trying to reconnect (its status is no longer ``running``); a unit that
+        failed while the client is connected is only that unit's bad luck.
+        """
+        status = str(getattr(self.client, "status", "running"))
+        if status.endswith("running"):
+            return None
+        self._lost = True
+        _quiet_dask()  # its own reconnect attempts would log tracebacks
+        from search.failures import describe
+        return (f"--cluster {self.address}: the connection to the Dask scheduler was lost "
+                f"({describe(exc)}; the client is {status.rsplit('.', 1)[-1]})")
+
+    def how_to_resume(self) -> str:
+        return ("start a Dask scheduler and workers again ('dask scheduler', 'dask worker "
+                "ADDRESS --nthreads 1') and run the same command to resume")
+
     def shutdown(self, cancel: bool = False) -> None:
+        if self._lost:
+            cancel = True  # nothing can finish without a scheduler
         with contextlib.suppress(Exception):
             self._pool.shutdown(wait=not cancel)
         with contextlib.suppress(Exception):
-            self.client.close()
+            if self._lost:
+                self.client.close(timeout=5)  # it would wait for a reconnect otherwise
+            else:
+                self.client.close()
+
+
+def _quiet_dask() -> None:
+    """Keep dask.distributed's log (on stderr) to critical messages: after a lost
+    scheduler its reconnect attempts log tracebacks, and the search says what
+    happened in one error line instead."""
+    import logging
+    # dask.distributed's logging configuration sets levels on its sub-loggers
+    # (distributed.client, ...), so each of them is turned down; so are those of
+    # the event loop under it (tornado, asyncio), which log the broken connections.
+    roots = ("distributed", "tornado", "asyncio")
+    names = [n for n in logging.root.manager.loggerDict if n.split(".")[0] in roots]
+    for name in [*roots, *names]:
+        logging.getLogger(name).setLevel(logging.CRITICAL)

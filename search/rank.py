@@ -308,7 +308,21 @@ def rank_run(store, by: str | None = None) -> pd.DataFrame:
 
 
 def save_ranking(table: pd.DataFrame, run_dir: str | Path) -> Path:
-    """Write the table as ``ranking.csv`` in the run folder; returns its path."""
+    """Write the table as ``ranking.csv`` in the run folder; returns its path.
+
+    The file is written whole (:func:`tinyconv.files.write_whole`), and not
+    at all when it already holds the same table.
+
+    Raises
+    ------
+    tinyconv.errors.WriteError
+        When the file cannot be written (full disk, read-only folder).
+    """
+    from tinyconv.files import write_bytes_whole
+
     path = Path(run_dir) / "ranking.csv"
-    table.to_csv(path, index=False)
+    text = table.to_csv(index=False).encode("utf-8")
+    if not (path.is_file() and path.read_bytes() == text):
+        write_bytes_whole(path, text, then="run the same search command again: the units "
+                                           "are kept in run.sqlite")
     return path

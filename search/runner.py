@@ -13,9 +13,17 @@ the CPU budget (CPU seconds of the finished units; stops the first time it is
 reached). Once a budget stops the loop, units in flight finish and are kept,
 nothing new starts, and the outcome says which budget ended the run.
 
-A worker crash breaks a local pool and every unit in flight with it. The
-loop starts a fresh pool and runs each of those units alone: one that breaks
-the pool again is recorded ``failed``; the others are recorded as usual.
+Only a unit's own failure is final (:mod:`search.failures`): a unit that comes
+back without a result (its worker died, it was cancelled, its worker ran out
+of memory) runs again, up to ``ATTEMPTS`` times in the session, and is never
+stored as failed. A worker crash breaks a local pool and every unit in flight
+with it: the loop starts a fresh pool and runs each of those units alone, so
+that a unit that kills its worker every time is told apart from the others.
+A unit still without a result after its attempts ends the session once the
+rest of its rung is stored (``WorkersLostError``): promoting without it
+would change the plan, and the next session runs it again. An executor that
+can run nothing more (a Dask scheduler that went away) ends the session at
+once, with the same error; what finished is stored either way.
 """
 
 from __future__ import annotations
@@ -28,8 +36,10 @@ from typing import Mapping, Sequence
 import numpy as np
 
 from search import schedule
+from search.failures import ATTEMPTS, describe
 from search.store import RunStore
 from search.unit import UnitResult, UnitTask
+from tinyconv.errors import StoreError, WorkersLostError
 
 
 class Progress:
@@ -53,8 +63,11 @@ class Progress:
 class Outcome:
     """How a search session ended.
 
-    ``state`` is ``complete`` (the whole plan ran), ``budget_cpu`` or
-    ``budget_epochs`` (a budget ended it), or ``interrupted``.
+    ``retried`` counts the runs of units again after an outside failure (in
+    this session, and those stored as failed by an earlier version and now
+    run again). ``state`` is ``complete`` (the whole plan ran), ``budget_cpu`` or
+    ``budget_epochs`` (a budget ended it), ``interrupted``, or ``stopped``
+    (an error ended it: a store or worker fault, said by the error).
     """
 
     state: str = "complete"
@@ -62,6 +75,7 @@ class Outcome:
     units_stored: int = 0
     failed: int = 0
     diverged: int = 0
+    retried: int = 0
     cpu_s: float = 0.0
     epochs: int = 0
     notes: list[str] = field(default_factory=list)
@@ -69,7 +83,8 @@ class Outcome:
     def as_dict(self) -> dict:
         return {"state": self.state, "units_run": self.units_run,
                 "units_stored": self.units_stored, "failed": self.failed,
-                "diverged": self.diverged, "cpu_s": self.cpu_s, "epochs": self.epochs,
+                "diverged": self.diverged, "retried": self.retried, "cpu_s": self.cpu_s,
+                "epochs": self.epochs,
                 "notes": list(self.notes)}
 
 
@@ -112,11 +127,14 @@ class SearchLoop:
         to finish are short and no worker idles long at the end of a rung
         (longest-first scheduling). Results do not depend on the order: each
         unit's seed comes from the run seed and the unit itself.
+    reopened : int
+        Units the store reopened (outside failures stored by an earlier
+        version), counted as retried.
     """
 
     def __init__(self, store: RunStore, executor, candidates: Sequence[str],
                  params: Mapping[str, int], settings: dict, progress: Progress | None = None,
-                 costs: Mapping[str, float] | None = None):
+                 costs: Mapping[str, float] | None = None, reopened: int = 0):
         self.store, self.executor = store, executor
         self.candidates = list(candidates)
         self.params = dict(params)
@@ -128,9 +146,11 @@ class SearchLoop:
         self.n_classes = len(settings["classes"])
         self.finished = store.finished()
         self.cpu_s, self.epochs = store.spent()
-        self.outcome = Outcome()
+        self.outcome = Outcome(retried=reopened)
         self._inflight: dict[Future, UnitTask] = {}
         self._inflight_epochs = 0
+        self._tries: dict[tuple[str, int, int], int] = {}   # runs lost to outside failures
+        self._lost: dict[tuple[str, int, int], tuple[UnitTask, str]] = {}
 
     # ------------------------------------------------------------ the plan
 
@@ -140,6 +160,7 @@ class SearchLoop:
                              int(self.s.get("min_epochs", 1)))
         self.progress.start(plan_size(plan, self.k), len(self.finished), self.cpu_s,
                             self.epochs)
+        ended = False  # the plan ran, or a budget ended it (not an error)
         try:
             for b, (bracket, chosen) in enumerate(plan):
                 current = chosen[:bracket.rungs[0].size]
@@ -153,19 +174,29 @@ class SearchLoop:
                                 f"bracket {b + 1}: no candidate finished every fold at "
                                 f"{rung.epochs} epochs; nothing to promote")
                             break
+            ended = True
         except _BudgetStop as stop:
             self.outcome.state = stop.state
             self._drain()
+            ended = True
         except KeyboardInterrupt:
             self.outcome.state = "interrupted"
             self.executor.shutdown(cancel=True)
             self._inflight.clear()
             raise
+        except BaseException:
+            self.outcome.state = "stopped"
+            raise
         finally:
             self.outcome.cpu_s, self.outcome.epochs = self.cpu_s, self.epochs
             self.outcome.units_stored = len(self.finished)
-            self.store.set_outcome(self.outcome.as_dict())
-            self.progress.close()
+            try:
+                self.store.set_outcome(self.outcome.as_dict())
+            except StoreError:
+                if ended:  # else the error that stopped the loop says more
+                    raise
+            finally:
+                self.progress.close()
         return self.outcome
 
     def _scores(self, current: Sequence[str], level: int) -> dict[str, float | None]:
@@ -203,6 +234,8 @@ class SearchLoop:
             self._check_budget(task)  # with the latest finished units counted
             self._submit(task)
         self._drain()
+        if self._lost:
+            raise self._units_lost()
 
     def _check_budget(self, task: UnitTask) -> None:
         limit_e = self.s.get("budget_epochs")
@@ -218,6 +251,11 @@ class SearchLoop:
         except BrokenProcessPool:
             self._recover()
             future = self.executor.submit(task)
+        except Exception as exc:
+            gone = self.executor.gone(exc)
+            if gone is None:
+                raise
+            raise self._executor_gone(gone) from None
         self._inflight[future] = task
         self._inflight_epochs += task.epochs
 
@@ -227,7 +265,7 @@ class SearchLoop:
 
     def _collect(self) -> None:
         done, _ = wait(list(self._inflight), return_when=FIRST_COMPLETED)
-        broken = False
+        broken, gone, again = False, None, []
         for future in sorted(done, key=lambda f: self._inflight[f].key):
             task = self._inflight[future]
             try:
@@ -235,32 +273,80 @@ class SearchLoop:
             except BrokenProcessPool:
                 broken = True
                 continue
-            except Exception as exc:  # e.g. a cluster worker lost too often
-                result = UnitResult(task, "failed", f"{type(exc).__name__}: {exc}")
+            except Exception as exc:  # outside the unit: run_unit returns its own failures
+                self._forget(future)
+                gone = gone or self.executor.gone(exc)
+                again.append((task, describe(exc)))
+                continue
             self._forget(future)
             self._keep(result)
+        # Every result of this batch is stored before anything is submitted again.
+        if gone is not None:
+            raise self._executor_gone(gone)
         if broken:
             self._recover()
+        for task, why in again:
+            self._again(task, why)
 
     def _forget(self, future: Future) -> None:
         task = self._inflight.pop(future)
         self._inflight_epochs -= task.epochs
 
+    def _lost_once(self, task: UnitTask, why: str) -> bool:
+        """Count one outside failure of ``task``; False (and noted) when out of tries."""
+        tries = self._tries[task.key] = self._tries.get(task.key, 0) + 1
+        if tries >= ATTEMPTS:
+            self._lost[task.key] = (task, f"{why}, {tries} times")
+            return False
+        self.outcome.retried += 1
+        return True
+
+    def _again(self, task: UnitTask, why: str) -> None:
+        """After an outside failure: submit the unit again while it has tries left."""
+        if self._lost_once(task, why):
+            self._submit(task)
+
     def _recover(self) -> None:
-        """After a worker crash: run each unit that was in flight alone."""
+        """After a worker crash: run each unit that was in flight alone (the crash
+        counts as one lost run for each), again while it has tries left."""
         suspects = sorted(self._inflight.values(), key=lambda t: t.key)
         self._inflight.clear()
         self._inflight_epochs = 0
         self.executor.restart()
+        why = describe(BrokenProcessPool())
         for task in suspects:
-            try:
-                result = self.executor.submit(task).result()
-            except BrokenProcessPool as exc:
-                self.executor.restart()
-                result = UnitResult(task, "failed", "the worker process died while running "
-                                    f"this unit ({exc or 'no message'}); it may have run "
-                                    "out of memory")
-            self._keep(result)
+            while self._lost_once(task, why):
+                try:
+                    result = self.executor.submit(task).result()
+                except BrokenProcessPool:
+                    self.executor.restart()
+                    continue
+                except Exception as exc:  # e.g. out of memory in the worker
+                    why = describe(exc)
+                    continue
+                self._keep(result)
+                break
+
+    def _units_lost(self) -> WorkersLostError:
+        """The error that ends a session with units that got no result."""
+        lost = sorted(self._lost.values(), key=lambda item: item[0].key)
+        shown = "; ".join(f"{t.candidate} fold {t.fold} at {t.epochs} epochs: {why}"
+                          for t, why in lost[:3])
+        more = f"; and {len(lost) - 3} more" if len(lost) > 3 else ""
+        n = len(lost)
+        return WorkersLostError(
+            f"{n} unit{'s' if n > 1 else ''} could not run: {shown}{more}. The "
+            f"{len(self.finished)} finished units are kept in {self.store.path}. Run the "
+            "same command again to run the rest; a unit whose worker dies every time may "
+            "need more memory than a worker has (try fewer --workers)")
+
+    def _executor_gone(self, why: str) -> WorkersLostError:
+        """The error that ends a session whose executor can run nothing more."""
+        self._inflight.clear()
+        self._inflight_epochs = 0
+        return WorkersLostError(
+            f"{why}; the search stopped. The {len(self.finished)} finished units are kept "
+            f"in {self.store.path}: {self.executor.how_to_resume()}")
 
     def _keep(self, result: UnitResult) -> None:
         self.store.record(result)

@@ -10,6 +10,10 @@
    that holds another run); write the data for the workers;
 4. run the loop on local processes or a Dask cluster; rank; write
    ``ranking.csv``.
+
+The run folder is locked for the whole search, before anything else
+(:mod:`search.folder_lock`): a second search on it stops at once, naming the
+process that holds it.
 """
 
 from __future__ import annotations
@@ -22,6 +26,7 @@ from pathlib import Path
 import pandas as pd
 
 from search.config import RANK_ORDERS, SearchSettings
+from search.folder_lock import FolderLock
 from search.rank import rank_run, save_ranking
 from search.runner import Outcome, Progress, SearchLoop
 from search.schedule import derive_seed
@@ -114,19 +119,23 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
     ------
     InputError
         Bad data, space, budgets or settings (``RunError`` for a folder that
-        holds another run, ``BudgetError`` when nothing fits).
+        holds another run, ``BudgetError`` when nothing fits); a folder that
+        another search holds (``FolderBusyError``) or that cannot be written
+        (``WriteError``); a fault of the store (``StoreError``).
     """
     if request.rank_by not in RANK_ORDERS:
         raise ValueError(f"rank by {request.rank_by!r}: expected one of {RANK_ORDERS}")
-    # Local workers start (and warm up) while this process reads the data and the
-    # space; they first touch the run folder with their first unit.
-    local = _local_workers(request, work)
-    try:
-        return _search(request, progress, work, local)
-    except BaseException:
-        if local is not None:  # bad input or an interrupt: do not wait for the warm-up
-            local.shutdown(cancel=True)
-        raise
+    # First the folder, so that a second search on it stops before any work.
+    with FolderLock.take(request.out):
+        # Local workers start (and warm up) while this process reads the data and
+        # the space; they first touch the run folder with their first unit.
+        local = _local_workers(request, work)
+        try:
+            return _search(request, progress, work, local)
+        except BaseException:
+            if local is not None:  # bad input or an interrupt: do not wait for the warm-up
+                local.shutdown(cancel=True)
+            raise
 
 
 def _search(request: SearchRequest, progress: Progress | None, work, local) -> SearchSummary:
@@ -158,19 +167,25 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
                          classes=dataset.classes)
     table = filtered.table()
     table["scheduled"] = table["candidate"].isin(set(texts))
-    store = RunStore.start(request.out, settings.as_dict(), table, dict(filtered.over))
-    data = UnitData(dataset.images, dataset.labels, folds)
-    data.save(request.out)
-    executor = local if local is not None else _executor(request, data, work)
     params = dict(zip(table["candidate"], table["params"]))
     costs = dict(zip(table["candidate"], table["macs"].astype(float)))
+    store = RunStore.start(request.out, settings.as_dict(), table, dict(filtered.over))
     try:
-        loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs)
-        outcome = loop.run()
-    finally:
+        data = UnitData(dataset.images, dataset.labels, folds)
+        data.save(request.out)
+        executor = local if local is not None else _executor(request, data, work)
+        try:
+            loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs,
+                              reopened=store.reopened)
+            outcome = loop.run()
+        except BaseException:
+            executor.shutdown(cancel=True)  # nothing more can be stored: do not wait
+            raise
         executor.shutdown()
-    store.set_rank_order(request.rank_by)
-    ranking = rank_run(store)
+        store.set_rank_order(request.rank_by)
+        ranking = rank_run(store)
+    finally:
+        store.close()  # the folder holds no open file of this search after it
     path = save_ranking(ranking, request.out)
     return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
                          len(filtered.survivors), len(texts), dict(filtered.over),

@@ -9,11 +9,20 @@ Promises:
 * a finished unit is written in **one transaction** together with its
   predictions, so a process killed at any moment leaves whole units only and
   loses at most those in flight; (candidate, fold, rung) is unique;
-* only the search's main process writes; readers (the report, the export)
-  open the same file with :class:`RunStore` and never change it;
+* only the search's main process writes (one search per folder:
+  :mod:`search.folder_lock`), through the store :meth:`RunStore.start`
+  returns (:mod:`search.store_writer`); readers (the
+  report, the export) open the file read-only with :class:`RunStore` and
+  never change it, not even to play back the journal of a search killed in
+  a commit (they read a private copy then);
 * :meth:`RunStore.start` on a folder that already holds a run checks that the
   settings are the same (:func:`search.config.differences`) and refuses other
-  ones with a :class:`~tinyconv.errors.RunError` saying what differs.
+  ones with a :class:`~tinyconv.errors.RunError` saying what differs;
+* a store is created whole (built under another name, then renamed), so a
+  short or empty ``run.sqlite`` is always damage; every fault of the file
+  (damaged, removed while running, full disk, read-only) is a
+  :class:`~tinyconv.errors.StoreError` naming the file and what to do
+  (:mod:`search.store_faults`), and nothing is ever started afresh over it.
 
 Tables: ``meta(key, value)`` (JSON values: ``settings``, ``format``,
 ``removed``, ``outcome``), ``candidates``, ``units``, ``predictions`` (arrays
@@ -24,23 +33,24 @@ probabilities).
 from __future__ import annotations
 
 import json
+import os
+import shutil
 import sqlite3
-import time
-from contextlib import closing
+import tempfile
 from pathlib import Path
-from typing import Any, Iterable
+from typing import Any
+from urllib.parse import quote
 
 import numpy as np
 import pandas as pd
 
-from search.config import EXTENDABLE, differences
-from search.unit import UnitResult
-from tinyconv.errors import RunError
+from search import store_faults as faults
+from tinyconv.errors import RunError, StoreError
 
 FILE = "run.sqlite"
 SCHEMA_VERSION = 1
 
-_SCHEMA = """
+SCHEMA_SQL = """
 CREATE TABLE IF NOT EXISTS meta (key TEXT PRIMARY KEY, value TEXT NOT NULL);
 CREATE TABLE IF NOT EXISTS candidates (
     candidate TEXT PRIMARY KEY, ordinal INTEGER NOT NULL, params INTEGER NOT NULL,
@@ -66,139 +76,104 @@ CANDIDATE_COLUMNS = ("candidate", "params", "macs", "peak_int8_bytes", "flash_by
                      "within_budget", "over", "scheduled")
 
 
-def _connect(path: Path) -> sqlite3.Connection:
-    con = sqlite3.connect(path, timeout=60.0, isolation_level=None)  # explicit transactions
+def connect(path: Path, writable: bool) -> sqlite3.Connection:
+    """A connection to a store file: read-write with explicit transactions, or read-only."""
+    if writable:
+        con = sqlite3.connect(path, timeout=60.0, isolation_level=None)  # explicit transactions
+        con.execute("PRAGMA synchronous = FULL")
+    else:  # SQLite's URI form (sqlite.org/uri.html): mode=ro never writes the file
+        con = sqlite3.connect(f"file:{quote(str(path))}?mode=ro", uri=True, timeout=60.0,
+                              isolation_level=None)
     con.execute("PRAGMA foreign_keys = ON")
-    con.execute("PRAGMA synchronous = FULL")
     return con
 
 
 class RunStore:
-    """Read access to a run folder's store (the API for report and export).
+    """Access to a run folder's store: read-only (the API for report and export),
+    or read-write for the search through :meth:`start`.
 
     Parameters
     ----------
     run_dir : str or Path
         A folder holding ``run.sqlite``.
+    writable : bool
+        Open for writing (the search's main process only, holding the folder's lock).
 
     Raises
     ------
     RunError
-        When there is no store in the folder.
+        When there is no store in the folder; a ``StoreError`` when it is
+        damaged or not a run store.
     """
 
-    def __init__(self, run_dir: str | Path):
+    def __init__(self, run_dir: str | Path, *, writable: bool = False):
         self.run_dir = Path(run_dir)
         self.path = self.run_dir / FILE
+        self._copy_dir: str | None = None
         if not self.path.is_file():
             raise RunError(f"{self.run_dir}: no run here (no {FILE}); give the folder a "
                            "search wrote with --out")
-        self._con = _connect(self.path)
-        version = self._meta("format")
+        faults.check_size(self.path)
+        self._opened = os.stat(self.path)
+        self._con = self._open(writable)
+        try:
+            version = self._meta("format")
+        except StoreError:
+            self.close()
+            raise
         if version != SCHEMA_VERSION:
+            self.close()
+            if version is None:
+                raise faults.not_a_store(self.path)
             raise RunError(f"{self.path}: store format {version!r}, this tinyconv reads "
                            f"format {SCHEMA_VERSION}; run the search again in a new folder")
 
-    # ------------------------------------------------------------ creating
+    def _open(self, writable: bool) -> sqlite3.Connection:
+        """A checked connection; a reader facing a hot journal reads a private copy."""
+        con = None
+        try:
+            con = connect(self.path, writable)
+            faults.check_opened(con, self.path)
+            return con
+        except sqlite3.Error as exc:
+            if con is not None:
+                con.close()
+            if faults.sqlite_name(exc) != "SQLITE_READONLY_ROLLBACK":
+                raise faults.read_fault(exc, self.path) from None
+        except BaseException:
+            if con is not None:
+                con.close()
+            raise
+        # A search was killed in a commit: its journal must be played back, which
+        # a read-only connection cannot do. Read a copy instead; the run folder
+        # stays as it is until the next search (the writer) plays it back there.
+        self._copy_dir = tempfile.mkdtemp(prefix="tinyconv-read-")
+        try:
+            copy = faults.copy_with_journal(self.path, Path(self._copy_dir))
+            con = connect(copy, writable=True)
+            faults.check_opened(con, self.path)
+        except sqlite3.Error as exc:
+            self.close()
+            raise faults.read_fault(exc, self.path) from None
+        except OSError as exc:  # e.g. the journal played back meanwhile by a new search
+            self.close()
+            raise StoreError(f"cannot read {self.path}: a search was stopped while writing "
+                             f"it, and its journal could not be copied ({exc.strerror}); "
+                             "try again, or run the same search command to repair it") from None
+        except BaseException:
+            self.close()
+            raise
+        return con
+
+    # ------------------------------------------------------------ writing
 
     @classmethod
     def start(cls, run_dir: str | Path, settings: dict[str, Any],
-              candidates: pd.DataFrame, removed: dict[str, Any] | None = None) -> "RunStore":
-        """Open a run folder for a search, creating the store on first use.
-
-        Parameters
-        ----------
-        settings : dict
-            ``SearchSettings.as_dict()``.
-        candidates : DataFrame
-            Columns ``CANDIDATE_COLUMNS`` (``over`` and ``scheduled`` optional),
-            every candidate of the space, in enumeration order.
-        removed : dict, optional
-            What the budget filter removed (budget name -> count), for the record.
-
-        Raises
-        ------
-        RunError
-            When the folder holds a run with other settings or other data.
-        """
-        run_dir = Path(run_dir)
-        if run_dir.exists() and not run_dir.is_dir():
-            raise RunError(f"--out {run_dir}: exists and is not a folder; give a folder path")
-        run_dir.mkdir(parents=True, exist_ok=True)
-        path = run_dir / FILE
-        with closing(_connect(path)) as con:
-            con.execute("BEGIN IMMEDIATE")
-            try:
-                for stmt in filter(None, (s.strip() for s in _SCHEMA.split(";"))):
-                    con.execute(stmt)
-                row = con.execute("SELECT value FROM meta WHERE key='settings'").fetchone()
-                if row is None:
-                    _put_meta(con, "format", SCHEMA_VERSION)
-                    _put_meta(con, "settings", settings)
-                    _put_meta(con, "removed", removed or {})
-                    _put_meta(con, "created", time.time())
-                    con.executemany(
-                        "INSERT INTO candidates VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                        [(r.candidate, i, int(r.params), int(r.macs), int(r.peak_int8_bytes),
-                          int(r.flash_bytes), int(bool(r.within_budget)),
-                          str(getattr(r, "over", "") or ""),
-                          int(bool(getattr(r, "scheduled", r.within_budget))))
-                         for i, r in enumerate(candidates.itertuples(index=False))])
-                else:
-                    stored = json.loads(row[0])
-                    diff = differences(stored, settings)
-                    if diff:
-                        raise RunError(
-                            f"{run_dir} holds a run with other settings or data:\n  - "
-                            + "\n  - ".join(diff)
-                            + f"\nUse another --out folder for this search, or repeat the "
-                              f"stored settings to resume the run in {run_dir}.")
-                    changed = {k: settings.get(k) for k in EXTENDABLE
-                               if stored.get(k) != settings.get(k)}
-                    if changed:
-                        _put_meta(con, "settings", {**stored, **changed})
-                con.execute("COMMIT")
-            except BaseException:
-                con.execute("ROLLBACK")
-                raise
-        return cls(run_dir)
-
-    def record(self, result: UnitResult) -> None:
-        """Write one finished unit and its predictions in one transaction."""
-        t = result.task
-        con = self._con
-        con.execute("BEGIN IMMEDIATE")
-        try:
-            cur = con.execute(
-                "INSERT INTO units (candidate, fold, rung, epochs, seed, status, message, "
-                "train_acc, train_loss, val_acc, val_loss, int8_acc, cpu_s, wall_s, history, "
-                "finished) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
-                (t.candidate, t.fold, t.rung, t.epochs, t.seed, result.status, result.message,
-                 result.train_acc, result.train_loss, result.val_acc, result.val_loss,
-                 result.int8_acc, float(result.cpu_s), float(result.wall_s), result.history_json(),
-                 time.time()))
-            if result.status == "done":
-                probs = np.ascontiguousarray(result.probs, dtype="<f4")
-                con.execute("INSERT INTO predictions VALUES (?, ?, ?, ?, ?, ?, ?)",
-                            (cur.lastrowid, probs.shape[0], probs.shape[1],
-                             _blob(result.index), _blob(result.label), _blob(result.pred),
-                             probs.tobytes()))
-            con.execute("COMMIT")
-        except BaseException:
-            con.execute("ROLLBACK")
-            raise
-
-    def set_outcome(self, outcome: dict[str, Any]) -> None:
-        """Record how the last search session ended (complete, out of budget, ...)."""
-        self._con.execute("BEGIN IMMEDIATE")
-        _put_meta(self._con, "outcome", outcome)
-        self._con.execute("COMMIT")
-
-    def set_rank_order(self, by: str) -> None:
-        """Remember the order the user asked for (``per_param`` or ``accuracy``)."""
-        self._con.execute("BEGIN IMMEDIATE")
-        _put_meta(self._con, "rank_by", by)
-        self._con.execute("COMMIT")
+              candidates: pd.DataFrame, removed: dict[str, Any] | None = None):
+        """Open a run folder for a search, creating the store on first use;
+        returns a :class:`search.store_writer.RunWriter` (see its ``start``)."""
+        from search.store_writer import RunWriter
+        return RunWriter.start(run_dir, settings, candidates, removed)
 
     # ------------------------------------------------------------ reading
 
@@ -206,9 +181,22 @@ class RunStore:
         """The ranking order of the last search command (None if never set)."""
         return self._meta("rank_by")
 
+    def _rows(self, sql: str, params: tuple = ()) -> list[tuple]:
+        """Rows of a query; a fault of the file becomes a StoreError."""
+        try:
+            return self._con.execute(sql, params).fetchall()
+        except sqlite3.Error as exc:
+            raise faults.read_fault(exc, self.path) from None
+
+    def _frame(self, sql: str, params: tuple = ()) -> pd.DataFrame:
+        try:
+            return pd.read_sql_query(sql, self._con, params=params)
+        except (sqlite3.Error, pd.errors.DatabaseError) as exc:
+            raise faults.read_fault(exc, self.path) from None
+
     def _meta(self, key: str) -> Any:
-        row = self._con.execute("SELECT value FROM meta WHERE key=?", (key,)).fetchone()
-        return None if row is None else json.loads(row[0])
+        rows = self._rows("SELECT value FROM meta WHERE key=?", (key,))
+        return None if not rows else json.loads(rows[0][0])
 
     def config(self) -> dict[str, Any]:
         """The run's settings (``SearchSettings.as_dict()``): data, fingerprint, classes,
@@ -231,8 +219,8 @@ class RunStore:
         if none), scheduled (bool: in the search's pool; False when over
         budget or left out by ``--max-candidates``).
         """
-        df = pd.read_sql_query(f"SELECT {', '.join(CANDIDATE_COLUMNS)} FROM candidates "
-                               "ORDER BY ordinal", self._con)
+        df = self._frame(f"SELECT {', '.join(CANDIDATE_COLUMNS)} FROM candidates "
+                         "ORDER BY ordinal")
         df["within_budget"] = df["within_budget"].astype(bool)
         df["scheduled"] = df["scheduled"].astype(bool)
         return df
@@ -250,18 +238,17 @@ class RunStore:
         if status is not None:
             sql += " WHERE status = ?"
             params = (status,)
-        return pd.read_sql_query(sql + " ORDER BY rung, candidate, fold", self._con,
-                                 params=params)
+        return self._frame(sql + " ORDER BY rung, candidate, fold", params)
 
     def finished(self) -> dict[tuple[str, int, int], tuple[str, float | None]]:
         """(candidate, fold, rung) -> (status, val_acc) of every finished unit."""
-        rows = self._con.execute("SELECT candidate, fold, rung, status, val_acc FROM units")
+        rows = self._rows("SELECT candidate, fold, rung, status, val_acc FROM units")
         return {(c, f, r): (s, a) for c, f, r, s, a in rows}
 
     def spent(self) -> tuple[float, int]:
         """(CPU seconds, planned epochs) of all finished units."""
-        cpu, epochs = self._con.execute(
-            "SELECT COALESCE(SUM(cpu_s), 0), COALESCE(SUM(epochs), 0) FROM units").fetchone()
+        ((cpu, epochs),) = self._rows(
+            "SELECT COALESCE(SUM(cpu_s), 0), COALESCE(SUM(epochs), 0) FROM units")
         return float(cpu), int(epochs)
 
     def _prediction_rows(self, candidate: str, rung: int | None) -> list[tuple]:
@@ -269,22 +256,21 @@ class RunStore:
             rung = self._default_rung(candidate)
             if rung is None:
                 return []
-        return self._con.execute(
+        return self._rows(
             "SELECT u.fold, p.n, p.k, p.idx, p.label, p.pred, p.probs FROM predictions p "
             "JOIN units u ON u.id = p.unit WHERE u.candidate = ? AND u.rung = ? "
-            "ORDER BY u.fold", (candidate, int(rung))).fetchall()
+            "ORDER BY u.fold", (candidate, int(rung)))
 
     def _default_rung(self, candidate: str) -> int | None:
         """Highest rung done on every fold; else the highest with any predictions."""
         k = int(self.config()["folds"])
-        row = self._con.execute(
+        rows = self._rows(
             "SELECT rung FROM units WHERE candidate = ? AND status = 'done' GROUP BY rung "
-            "HAVING COUNT(DISTINCT fold) >= ? ORDER BY rung DESC LIMIT 1",
-            (candidate, k)).fetchone()
-        if row is None:
-            row = self._con.execute("SELECT MAX(rung) FROM units WHERE candidate = ? AND "
-                                    "status = 'done'", (candidate,)).fetchone()
-        return None if row is None or row[0] is None else int(row[0])
+            "HAVING COUNT(DISTINCT fold) >= ? ORDER BY rung DESC LIMIT 1", (candidate, k))
+        if not rows:
+            rows = self._rows("SELECT MAX(rung) FROM units WHERE candidate = ? AND "
+                              "status = 'done'", (candidate,))
+        return None if not rows or rows[0][0] is None else int(rows[0][0])
 
     def predictions(self, candidate: str, rung: int | None = None) -> pd.DataFrame:
         """Held-out predictions of a candidate at a rung, by fold then image index.
@@ -314,22 +300,18 @@ class RunStore:
                                for _f, n, k, _i, _l, _pr, p in rows])
 
     def close(self) -> None:
-        self._con.close()
+        if getattr(self, "_con", None) is not None:
+            self._con.close()
+            self._con = None
+        if self._copy_dir is not None:
+            shutil.rmtree(self._copy_dir, ignore_errors=True)
+            self._copy_dir = None
 
     def __enter__(self) -> "RunStore":
         return self
 
     def __exit__(self, *exc) -> None:
         self.close()
-
-
-def _put_meta(con: sqlite3.Connection, key: str, value: Any) -> None:
-    con.execute("INSERT OR REPLACE INTO meta VALUES (?, ?)", (key, json.dumps(value)))
-
-
-def _blob(arr: Iterable) -> bytes:
-    return np.ascontiguousarray(arr, dtype="<i8").tobytes()
-
 
 def _array(blob: bytes, dtype: str) -> np.ndarray:
     return np.frombuffer(blob, dtype=dtype).astype(dtype[1:] if dtype[0] == "<" else dtype)

@@ -3,10 +3,11 @@
 A unit is (candidate text, fold, rung, epochs) with a seed derived from the
 run seed and those (:func:`search.schedule.unit_seed`). It trains from
 scratch: the rung only says how many epochs. The normalisation statistics
-come from the training part of the fold only. The unit never raises: a
-problem in training becomes ``status="failed"`` with the message, a
-non-finite loss ``status="diverged"`` (with no accuracy and no predictions,
-since the weights are not trustworthy).
+come from the training part of the fold only. The unit raises only for a
+lack of memory (not its own fault, so the search runs it again: see
+:mod:`search.failures`): a problem in training becomes ``status="failed"``
+with the message, a non-finite loss ``status="diverged"`` (with no accuracy
+and no predictions, since the weights are not trustworthy).
 
 The data reach a worker once, as :class:`UnitData` (raw uint8 images, labels,
 fold of every image); images are prepared (resized, converted) for each input
@@ -123,14 +124,30 @@ class UnitData:
     def __setstate__(self, state: dict) -> None:
         self.__init__(state["images"], state["labels"], state["folds"])
 
-    def save(self, folder: str | Path) -> None:
-        """Write the arrays as ``.npy`` files (read back memory-mapped)."""
+    def save(self, folder: str | Path) -> list[Path]:
+        """Write the arrays as ``.npy`` files (read back memory-mapped).
+
+        A file that already holds the same array is left alone, so a resumed
+        run rewrites nothing it only reads. Each file is written whole or not
+        at all (:func:`tinyconv.files.write_whole`); returns the files written.
+
+        Raises
+        ------
+        tinyconv.errors.WriteError
+            When a file cannot be written (full disk, read-only folder).
+        """
+        from tinyconv.files import write_whole
+
         folder = Path(folder)
+        written = []
         for name, arr in zip(DATA_FILES, (self.images, self.labels, self.folds)):
-            tmp = folder / (name + ".tmp")
-            with open(tmp, "wb") as fh:
-                np.save(fh, np.ascontiguousarray(arr))
-            tmp.replace(folder / name)
+            arr = np.ascontiguousarray(arr)
+            if _holds(folder / name, arr):
+                continue
+            written.append(write_whole(folder / name, lambda fh, a=arr: np.save(fh, a),
+                                       then="run the same search command again; finished "
+                                            "units are kept in run.sqlite"))
+        return written
 
     @staticmethod
     def load(folder: str | Path) -> "UnitData":
@@ -145,6 +162,15 @@ class UnitData:
             from tinyconv.data import prepare
             self._prepared[key] = prepare(np.asarray(self.images), spec)
         return self._prepared[key]
+
+
+def _holds(path: Path, arr: np.ndarray) -> bool:
+    """Whether the ``.npy`` file at ``path`` holds exactly ``arr`` (False if unreadable)."""
+    try:
+        kept = np.load(path, mmap_mode="r")
+    except (OSError, ValueError, EOFError):
+        return False
+    return kept.shape == arr.shape and kept.dtype == arr.dtype and bool(np.array_equal(kept, arr))
 
 
 #: What :func:`warm_up` trains: a standard 3 x 3 layer on one channel (im2col),
@@ -170,10 +196,12 @@ def warm_up() -> None:
 
 
 def run_unit(task: UnitTask, data: UnitData) -> UnitResult:
-    """Train and evaluate one unit; never raises (see the module notes)."""
+    """Train and evaluate one unit; raises only MemoryError (see the module notes)."""
     cpu0, wall0 = time.process_time(), time.perf_counter()
     try:
         return _run(task, data, cpu0, wall0)
+    except MemoryError:
+        raise  # the worker's memory, not the unit: the loop runs it again (search.failures)
     except Exception as exc:  # the unit reports it; the search goes on
         last = traceback.extract_tb(exc.__traceback__)[-1] if exc.__traceback__ else None
         where = f" (at {Path(last.filename).name}:{last.lineno})" if last else ""

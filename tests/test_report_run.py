@@ -134,13 +134,15 @@ def test_report_follows_the_ranking_order_the_search_stored(run_dir, tmp_path):
     """A run ranked by accuracy (the stored --rank-by) is reported in that order."""
     import shutil
 
+    from search.store_writer import RunWriter
+
     shutil.copy(run_dir / "run.sqlite", tmp_path / "run.sqlite")
-    with RunStore(tmp_path) as store:
+    with RunWriter(tmp_path) as store:
         by_acc, by_param = rank_run(store, by="accuracy"), rank_run(store, by="per_param")
         assert list(by_acc["candidate"]) != list(by_param["candidate"])   # they differ here
         store.set_rank_order("accuracy")
     assert list(collect(tmp_path).ranking["candidate"]) == list(by_acc["candidate"])
-    with RunStore(tmp_path) as store:
+    with RunWriter(tmp_path) as store:
         store.set_rank_order("per_param")
     assert list(collect(tmp_path).ranking["candidate"]) == list(by_param["candidate"])
 

@@ -1,4 +1,6 @@
-"""Tests of searches on worker processes and a Dask cluster: same results, kills, crashes."""
+"""Tests of searches on worker processes and a Dask cluster: same results, kills.
+
+Workers that die (and units run again) are tested in test_search_retry.py."""
 
 from __future__ import annotations
 
@@ -16,23 +18,14 @@ import pytest
 from helpers import TINY_DATA, TINY_SPACE, tiny_request
 from search.session import SearchRequest, run_search
 from search.store import RunStore
-from search.unit import run_unit
 
 pytestmark = pytest.mark.slow
 
 DATA, SPACE = TINY_DATA, TINY_SPACE
-CRASHING = "8x8gray/c2k3-p2"
 
 
 def request(out: Path, **change) -> SearchRequest:
     return tiny_request(out, **{"workers": 2, **change})
-
-
-def crash_on_one(task, data):
-    """Kill the worker process outright on one unit, as an out-of-memory kill would."""
-    if task.candidate == CRASHING and task.fold == 0:
-        os._exit(3)
-    return run_unit(task, data)
 
 
 def _same_units(a: Path, b: Path) -> None:
@@ -96,8 +89,8 @@ def test_sigkill_then_rerun_gives_same_ranking(reference, tmp_path):
     os.killpg(proc.pid, signal.SIGKILL)  # the search and its workers, no clean-up
     proc.wait()
     assert alive, f"the search finished before it could be killed (target {target} units)"
-    # A read-write connection: a kill inside a commit leaves a hot journal, which
-    # a read-only one cannot roll back (it would fail and count nothing).
+    # A kill inside a commit leaves a hot journal: RunStore then reads a private
+    # copy with the journal played back (the store as last committed).
     stored = len(RunStore(out).units())
     assert stored <= len(RunStore(ref).units())
     # The same search again (in this process, which skips the report step).
@@ -108,18 +101,6 @@ def test_sigkill_then_rerun_gives_same_ranking(reference, tmp_path):
     assert not units.duplicated(["candidate", "fold", "rung"]).any()
     assert len(units) == len(RunStore(ref).units())
     _same_units(out, ref)
-
-
-def test_worker_crash_marks_its_unit_failed(tmp_path):
-    """A worker that dies fails only its own unit; the search finishes with a fresh pool."""
-    summary = run_search(request(tmp_path, workers=1), work=crash_on_one)
-    assert summary.outcome.state == "complete"
-    units = RunStore(tmp_path).units()
-    failed = units[units.status == "failed"]
-    assert list(zip(failed.candidate, failed.fold)) == [(CRASHING, 0)]
-    assert "worker process died" in failed["message"].iloc[0]
-    assert (units[units.status != "failed"]["status"] == "done").all()
-    assert CRASHING not in set(summary.table["candidate"])
 
 
 @pytest.mark.cluster

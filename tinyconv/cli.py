@@ -8,8 +8,11 @@ Exit codes (the one place they are decided):
 
 * 0 — done;
 * 1 — the command ran and its check failed (e.g. a gradient check);
-* 2 — bad input: a wrong option, text, file or value; the message says
-  ``error: <what>`` and how to fix it;
+* 2 — bad input: a wrong option, text, file or value; or a run folder the
+  user must act on (a damaged or removed store, a full disk, a read-only
+  folder, a folder another search holds, workers that went away); the
+  message says
+  ``error: <what>`` and how to fix it, and finished work is kept;
 * 130 — interrupted (Ctrl-C); whatever was finished is kept.
 """
 
@@ -22,6 +25,7 @@ from typing import Sequence
 
 from tinyconv import __version__
 from tinyconv.errors import InputError
+from tinyconv.files import WRITE_FAULTS, fix_for, why_not_written
 
 # name -> (module under tinyconv.commands, one-line help)
 COMMANDS: dict[str, tuple[str, str]] = {
@@ -79,6 +83,13 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 2
     except FileNotFoundError as exc:
         print(f"error: no such file or folder: {exc.filename}; check the path", file=sys.stderr)
+        return 2
+    except OSError as exc:
+        if exc.errno not in WRITE_FAULTS:
+            raise
+        # A write the commands do not route through tinyconv.files (a library's own file).
+        print(f"error: cannot write {exc.filename or 'a file'}: {why_not_written(exc)}; "
+              f"{fix_for(exc)} and run the same command again", file=sys.stderr)
         return 2
     except KeyboardInterrupt:
         print("interrupted; finished work is kept", file=sys.stderr)

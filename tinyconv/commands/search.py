@@ -190,8 +190,8 @@ def summary_lines(summary, top: int = 10) -> list[str]:
     lines = [f"candidates: {summary.n_candidates} in the space, {summary.n_within} within "
              f"budget{f' (over {over})' if over else ''}, {summary.n_searched} searched",
              f"units: {o.units_run} run now, {o.units_stored} stored ({o.diverged} diverged, "
-             f"{o.failed} failed); training CPU {format_duration(o.cpu_s)}, {o.epochs} epochs "
-             f"in all; {summary.workers}",
+             f"{o.failed} failed, {o.retried} retried after a lost worker); training CPU "
+             f"{format_duration(o.cpu_s)}, {o.epochs} epochs in all; {summary.workers}",
              f"end: {STATE_TEXT.get(o.state, o.state)}"]
     lines += [f"note: {n}" for n in o.notes]
     if t.empty:

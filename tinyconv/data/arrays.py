@@ -3,7 +3,9 @@
 ``x`` is (n, h, w) or (n, h, w, c) with c 1 or 3, either uint8 (0..255) or
 float in [0, 1] (scaled by 255 and rounded); ``y`` is (n,) integers
 ``0..K-1`` with every class present; ``classes`` (K,) names the classes
-(default ``"0" .. "K-1"``). Files are read without pickle.
+(default ``"0" .. "K-1"``). Files are read without pickle, and only these
+three arrays, after their headers were checked against sane limits
+(:mod:`.npz_headers`): a hostile file is refused before anything is allocated.
 """
 
 from __future__ import annotations
@@ -16,6 +18,7 @@ import numpy as np
 from tinyconv.errors import DataError
 
 from .dataset import Dataset, Intake, WarningLog
+from .npz_headers import check_declared
 from .validate import check_classes, check_finite, check_labels, warn_duplicates
 
 
@@ -64,8 +67,10 @@ def load_arrays(path: str | Path) -> tuple[Dataset, Intake]:
         raise DataError(f"{where}: not a readable .npz file (not a zip archive); save it "
                         "with np.savez(path, x=images, y=labels)")
     try:
+        with zipfile.ZipFile(path) as archive:
+            check_declared(archive, where)  # before anything is allocated
         with np.load(path, allow_pickle=False) as z:
-            stored = {k: z[k] for k in z.files}
+            stored = {k: z[k] for k in ("x", "y", "classes") if k in z.files}
     except (zipfile.BadZipFile, OSError, EOFError) as exc:
         raise DataError(f"{where}: not a readable .npz file ({exc}); save it with "
                         "np.savez(path, x=images, y=labels)") from None

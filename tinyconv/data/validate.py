@@ -81,6 +81,11 @@ def check_labels(y: np.ndarray, where: str) -> np.ndarray:
     if labels.min() < 0:
         raise DataError(f"{where}: labels must be 0..K-1, but the smallest is "
                         f"{labels.min()}; renumber the classes from 0")
+    if labels.max() >= labels.size:  # before bincount allocates max + 1 counters
+        raise DataError(f"{where}: the largest label is {int(labels.max()):,}, but there are "
+                        f"only {labels.size:,} labels: with every class present, labels run "
+                        "0..K-1 with K at most the number of images; renumber them (e.g. "
+                        "np.unique(y, return_inverse=True))")
     present = np.bincount(labels)
     missing = np.flatnonzero(present == 0)
     if missing.size:

@@ -18,14 +18,15 @@ from tinyconv.errors import RunError
 from tinyconv.report.rundata import PickPredictions, RunData
 
 
-def collect(run_dir: str | Path) -> RunData:
+def collect(run_dir: str | Path, rank_by: str | None = None) -> RunData:
     """Everything the report shows, from the run folder's store and data set.
 
     The data set is reloaded from the spec stored in the run's settings
     (:func:`tinyconv.data.load_data`) for the image galleries; when it cannot
     be loaded, or its fingerprint differs from the run's, the galleries are
     left out and ``notices`` says why (the rest of the report does not need
-    the images).
+    the images). ``rank_by`` (``per_param`` or ``accuracy``) ranks in that
+    order instead of the one the search was asked for.
 
     Raises
     ------
@@ -45,7 +46,7 @@ def collect(run_dir: str | Path) -> RunData:
     with RunStore(run_dir) as store:
         config = store.config() or {}
         classes = tuple(str(c) for c in config.get("classes", ()))
-        ranking = rank_run(store)   # in the order the search was asked for
+        ranking = rank_run(store, by=rank_by)   # None: the order the search was asked for
         if ranking.empty:
             n = len(store.units())
             raise RunError(f"{run_dir}: nothing to report yet: {n} units finished, and no "

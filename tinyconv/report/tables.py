@@ -7,6 +7,11 @@ from typing import Mapping
 
 import pandas as pd
 
+from tinyconv.files import write_bytes_whole
+
+#: What to do after a failed report write, for the error message.
+REPORT_AGAIN = "write the report again (tinyconv report RUN_DIR, or --out ANOTHER_FOLDER)"
+
 # file name -> what it holds (listed on the page)
 TABLE_FILES: dict[str, str] = {
     "ranking.csv": "the ranking, one row per candidate (as computed by the search's ranking)",
@@ -36,7 +41,6 @@ def write_tables(out_dir: Path, tables: Mapping[str, pd.DataFrame]) -> list[Path
     for name, frame in tables.items():
         if name not in TABLE_FILES:
             raise ValueError(f"unknown report table {name!r}; known: {', '.join(TABLE_FILES)}")
-        path = Path(out_dir) / name
-        frame.to_csv(path, index=(name == "confusion_counts.csv"))
-        written.append(path)
+        text = frame.to_csv(index=(name == "confusion_counts.csv")).encode("utf-8")
+        written.append(write_bytes_whole(Path(out_dir) / name, text, then=REPORT_AGAIN))
     return written

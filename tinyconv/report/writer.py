@@ -6,11 +6,13 @@ from datetime import datetime, timezone
 from pathlib import Path
 
 from tinyconv import __version__
+from tinyconv.errors import WriteError
+from tinyconv.files import why_not_written, writable_folder, write_bytes_whole
 from tinyconv.report.assemble import assemble
 from tinyconv.report.html import page
 from tinyconv.report.rundata import RunData
 from tinyconv.report.sections import all_sections, decision_panel
-from tinyconv.report.tables import write_tables
+from tinyconv.report.tables import REPORT_AGAIN, write_tables
 
 PAGE_NAME = "report.html"
 
@@ -31,10 +33,10 @@ def render_report(data: RunData, out_dir: Path | None = None, *,
     beside it; the page embeds the same PNG bytes as data URIs.
     """
     out = Path(out_dir) if out_dir is not None else Path(data.run_dir)
-    out.mkdir(parents=True, exist_ok=True)
+    _ready(out, given=out_dir is not None)
     parts = assemble(data)
     for name, png in parts.figures.items():
-        (out / name).write_bytes(png)
+        write_bytes_whole(out / name, png, then=REPORT_AGAIN)
     write_tables(out, parts.tables)
     cfg = data.config
     when = (stamp or datetime.now(timezone.utc)).strftime("%Y-%m-%d %H:%M UTC")
@@ -46,6 +48,18 @@ def render_report(data: RunData, out_dir: Path | None = None, *,
     text = page("Which network to ship", "tinyconv run report", meta, decision_panel(data),
                 all_sections(data, parts),
                 f"Written by tinyconv {__version__} on {when} from {data.run_dir}.")
-    path = out / PAGE_NAME
-    path.write_text(text, encoding="utf-8")
-    return path
+    return write_bytes_whole(out / PAGE_NAME, text.encode("utf-8"), then=REPORT_AGAIN)
+
+
+def _ready(out: Path, given: bool) -> None:
+    """Make the report folder, or say why it cannot be written (before any work)."""
+    where = "--out folder" if given else "run folder"
+    try:
+        out.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise WriteError(f"cannot make the report's {where} {out}: {why_not_written(exc)}; "
+                         "give --out A_FOLDER_YOU_CAN_WRITE") from None
+    if not writable_folder(out):
+        raise WriteError(f"cannot write the report into the {where} {out}: it is not "
+                         "writable (a read-only file system or no permission); the run is "
+                         "only read, so give --out A_FOLDER_YOU_CAN_WRITE")
