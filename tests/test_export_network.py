@@ -67,3 +67,28 @@ def test_refusals(tmp_path):
     with pytest.raises(InputError, match="prefix 'my-net' is not a usable C identifier"):
         export_network(net, mean, std, images, tmp_path / "c", prefix="my-net")
     assert not any((tmp_path / d).exists() for d in "abc")
+
+
+def test_a_failed_write_leaves_no_partial_file(tmp_path, monkeypatch):
+    """A write that fails mid-way (here: the disk reports no space, errno ENOSPC, POSIX)
+    is a named error and leaves no partial file beside the targets."""
+    import errno
+
+    import tinyconv.files as files
+    from tinyconv.errors import WriteError
+    from tinyconv.export import export_network
+    from tinyconv.network import Network
+
+    net = Network.from_arch("8x8gray/c4k3-gap", 3)
+    images = np.random.default_rng(0).integers(0, 256, (16, 8, 8, 1), dtype=np.uint8)
+    real_replace = files.os.replace
+
+    def full_disk(src, dst):
+        if str(dst).endswith("tc.h"):
+            raise OSError(errno.ENOSPC, "No space left on device")
+        return real_replace(src, dst)
+
+    monkeypatch.setattr(files.os, "replace", full_disk)
+    with pytest.raises(WriteError, match=r"cannot write .*tc\.h: the disk is full.*export again"):
+        export_network(net, [0.5], [0.25], images, tmp_path / "out")
+    assert not [p for p in (tmp_path / "out").iterdir() if p.name.startswith(".partial-")]

@@ -288,10 +288,9 @@ class Network:
                 raise DataError(f"extra array {key!r} for {path} has dtype object, which "
                                 "cannot be saved without pickle; give a numeric array")
             entries[f"extra/{key}"] = value
-        tmp = path.with_name(path.name + ".tmp")
-        with open(tmp, "wb") as fh:
-            np.savez(fh, **entries)
-        os.replace(tmp, path)
+        from tinyconv.files import write_whole
+        # whole or not at all: a full disk leaves the old file and no partial one
+        write_whole(path, lambda fh: np.savez(fh, **entries))
         return path
 
     @staticmethod

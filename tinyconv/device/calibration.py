@@ -19,10 +19,10 @@ CALIBRATION_FILE = "calibration.npz"
 
 def save_calibration(folder: Path, calib: np.ndarray, held_out: np.ndarray) -> Path:
     """Write ``calibration.npz`` (``calib`` and ``held_out`` uint8 image arrays)."""
-    path = Path(folder) / CALIBRATION_FILE
-    np.savez_compressed(path, calib=np.asarray(calib, np.uint8),
-                        held_out=np.asarray(held_out, np.uint8))
-    return path
+    from tinyconv.files import write_whole
+    return write_whole(Path(folder) / CALIBRATION_FILE, lambda handle: np.savez_compressed(
+        handle, calib=np.asarray(calib, np.uint8), held_out=np.asarray(held_out, np.uint8)),
+        then="export again")
 
 
 def load_calibration(folder: Path, shape: tuple[int, int, int],

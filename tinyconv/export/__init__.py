@@ -17,10 +17,13 @@ from tinyconv.cost import cost_of
 from tinyconv.errors import DataError
 from tinyconv.export.c_writer import CCode, check_prefix, generate_c
 from tinyconv.export.summary import ExportSummary
+from tinyconv.files import write_bytes_whole
 from tinyconv.quant import compare, quantize_network
 
 __all__ = ["export_network", "ExportSummary", "generate_c", "CCode"]
 
+#: what to do after a failed write, for the error message
+AGAIN = "export again"
 WEIGHTS_FILE = "network.npz"
 SUMMARY_FILE = "summary.json"
 DEVICE_FILE = "device.json"
@@ -112,8 +115,8 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
     net.save(files[0], meta={"classes": list(classes), "prefix": prefix, **(meta or {})},
              arrays={"norm_mean": np.asarray(norm_mean, np.float32),
                      "norm_std": np.asarray(norm_std, np.float32)})
-    files[1].write_text(code.source)
-    files[2].write_text(code.header)
+    write_bytes_whole(files[1], code.source.encode(), then=AGAIN)
+    write_bytes_whole(files[2], code.header.encode(), then=AGAIN)
     summary = ExportSummary(
         arch=str(net.arch), classes=classes, prefix=prefix,
         input_shape=tuple(qnet.input_shape), flash_bytes=code.flash_bytes,
@@ -137,8 +140,9 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         record = device_record(m, str(net.arch), net.n_classes, core, clock_mhz,
                                f"exported weights ({eval_set} images)")
         files.append(out / DEVICE_FILE)
-        files[-1].write_text(json.dumps(record, indent=2) + "\n")
+        write_bytes_whole(files[-1], (json.dumps(record, indent=2) + "\n").encode(),
+                          then=AGAIN)
         summary = dataclasses.replace(summary, device=record)
     summary = dataclasses.replace(summary, files=tuple(str(f) for f in files))
-    files[3].write_text(summary.to_json() + "\n")
+    write_bytes_whole(files[3], (summary.to_json() + "\n").encode(), then=AGAIN)
     return summary
