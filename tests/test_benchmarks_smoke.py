@@ -104,3 +104,20 @@ def test_profile_lists_every_layer_of_n2():
         assert name in out
     # First conv's product shape, computed: 64 x 32 x 32 rows, 3 x 3 x 3 columns, 8 filters.
     assert "SGD update" in out and "M=65,536 K=27 f=8" in out and "im2col" in out
+
+
+@pytest.mark.slow  # two cross-compiled builds run under QEMU: ~3-6 s
+def test_device_benchmark_runs_and_checks_bit_exactness(tmp_path):
+    """benchmarks/device.py builds plain and fast C for one network, and every record
+    says whether it was bit-exact (a device figure that is wrong counts for nothing)."""
+    import shutil
+    if not all(shutil.which(t) for t in ("arm-none-eabi-gcc", "qemu-system-arm")):
+        pytest.skip("needs Debian's gcc-arm-none-eabi and qemu-system-arm")
+    out = tmp_path / "device.json"
+    proc = subprocess.run([sys.executable, str(ROOT / "benchmarks" / "device.py"), "--cores",
+                           "cortex-m3", "--nets", "7", "--images", "1", "--json", str(out)],
+                          capture_output=True, text=True, timeout=300, cwd=ROOT)
+    assert proc.returncode == 0, proc.stderr[-3000:]
+    records = json.loads(out.read_text())
+    assert [r["build"] for r in records] == ["plain", "portable"]  # no DSP on a Cortex-M3
+    assert all(r["bit_exact"] and r["instructions_per_mac"] > 0 for r in records)

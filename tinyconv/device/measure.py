@@ -117,7 +117,7 @@ def step_names(qnet: QuantizedNetwork) -> list[tuple[str, str]]:
 def measure(qnet: QuantizedNetwork, images: np.ndarray, core: Core, *, prefix: str = "tc",
             opt: str = "-O2", steps: bool = True, workdir: Path | None = None,
             tools: Toolchain | None = None, macs: int | None = None,
-            extra_flags: tuple[str, ...] = ()) -> Measurement:
+            extra_flags: tuple[str, ...] = (), style: str = "fast") -> Measurement:
     """Build ``qnet``'s C for ``core``, run it on ``images`` under QEMU and measure it.
 
     Parameters
@@ -139,14 +139,16 @@ def measure(qnet: QuantizedNetwork, images: np.ndarray, core: Core, *, prefix: s
     macs : int, optional
         MACs per image, for ``instructions_per_mac``.
     extra_flags : tuple of str
-        Further compiler flags.
+        Further compiler flags (e.g. ``-DTC_USE_DSP=0`` for the portable C).
+    style : {"fast", "plain"}
+        The generated kernels (:func:`tinyconv.export.c_writer.generate_c`).
     """
     tools = tools or find_toolchain()
     images = np.ascontiguousarray(images, np.uint8)
     if images.ndim != 4 or images.shape[1:] != tuple(qnet.input_shape) or not len(images):
         raise ValueError(f"images of shape {images.shape} for a network of input "
                          f"{qnet.input_shape}")
-    code = generate_c(qnet, prefix)
+    code = generate_c(qnet, prefix, style=style)
     names = step_names(qnet)
     want_logits, want_classes = int8_outputs(qnet, images)
     with tempfile.TemporaryDirectory(prefix="tinyconv-device-") as tmp:

@@ -331,7 +331,8 @@ HEAD = r"""
 
 DWCONV = r"""
 /* Depthwise convolution, NHWC, weights [k][k][c], four channels at a time with
-   the channel loop innermost. The bias holds b - zp * sum(w) over the whole
+   the channel loop innermost (four accumulators in registers), then one at a
+   time for the last c % 4. The bias holds b - zp * sum(w) over the whole
    window, so taps inside the image multiply raw values and the taps in the
    padding (which hold zp) add zp * w back. */
 @U@_KERNEL void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
@@ -348,44 +349,64 @@ DWCONV = r"""
             int32_t ix0 = ox * s - pl;
             int32_t kx0 = ix0 < 0 ? -ix0 : 0, kx1 = w - ix0 < k ? w - ix0 : k;
             int32_t edge = ky0 > 0 || ky1 < k || kx0 > 0 || kx1 < k;
+            int32_t step = (w - (kx1 - kx0)) * c;  /* from a row's end to the next row */
             const int8_t *base = x + ((iy0 + ky0) * w + ix0 + kx0) * c;
             const int8_t *wbase = wt + (ky0 * k + kx0) * c;
+            int32_t wstep = (k - (kx1 - kx0)) * c;
             int8_t *out = y + (oy * ow + ox) * c;
-            for (ch = 0; ch < c; ch += 4) {
-                int32_t a[4] = {0, 0, 0, 0};
-                int32_t m = c - ch < 4 ? c - ch : 4, j;
-                for (j = 0; j < m; ++j) a[j] = bias[ch + j];
+            for (ch = 0; ch + 4 <= c; ch += 4) {
+                int32_t a0 = bias[ch], a1 = bias[ch + 1], a2 = bias[ch + 2], a3 = bias[ch + 3];
+                const int8_t *px = base + ch, *pw = wbase + ch;
                 for (ky = ky0; ky < ky1; ++ky) {
-                    const int8_t *px = base + ((ky - ky0) * w) * c + ch;
-                    const int8_t *pw = wbase + ((ky - ky0) * k) * c + ch;
-                    if (m == 4) {
-                        for (kx = kx0; kx < kx1; ++kx) {
-                            a[0] += px[0] * pw[0];
-                            a[1] += px[1] * pw[1];
-                            a[2] += px[2] * pw[2];
-                            a[3] += px[3] * pw[3];
-                            px += c;
-                            pw += c;
-                        }
-                    } else {
-                        for (kx = kx0; kx < kx1; ++kx) {
-                            for (j = 0; j < m; ++j) a[j] += px[j] * pw[j];
-                            px += c;
-                            pw += c;
-                        }
+                    for (kx = kx0; kx < kx1; ++kx) {
+                        a0 += px[0] * pw[0];
+                        a1 += px[1] * pw[1];
+                        a2 += px[2] * pw[2];
+                        a3 += px[3] * pw[3];
+                        px += c;
+                        pw += c;
                     }
+                    px += step;
+                    pw += wstep;
                 }
                 if (edge) {  /* the padding's taps hold the zero point */
                     for (ky = 0; ky < k; ++ky) {
                         for (kx = 0; kx < k; ++kx) {
+                            const int8_t *q = wt + (ky * k + kx) * c + ch;
                             if (ky >= ky0 && ky < ky1 && kx >= kx0 && kx < kx1) continue;
-                            for (j = 0; j < m; ++j) a[j] += xz * wt[(ky * k + kx) * c + ch + j];
+                            a0 += xz * q[0];
+                            a1 += xz * q[1];
+                            a2 += xz * q[2];
+                            a3 += xz * q[3];
                         }
                     }
                 }
-                for (j = 0; j < m; ++j) {
-                    out[ch + j] = @P@_rq(a[j], mult[ch + j], shift[ch + j], yz, lo, hi);
+                out[ch] = @P@_rq(a0, mult[ch], shift[ch], yz, lo, hi);
+                out[ch + 1] = @P@_rq(a1, mult[ch + 1], shift[ch + 1], yz, lo, hi);
+                out[ch + 2] = @P@_rq(a2, mult[ch + 2], shift[ch + 2], yz, lo, hi);
+                out[ch + 3] = @P@_rq(a3, mult[ch + 3], shift[ch + 3], yz, lo, hi);
+            }
+            for (; ch < c; ++ch) {
+                int32_t a0 = bias[ch];
+                const int8_t *px = base + ch, *pw = wbase + ch;
+                for (ky = ky0; ky < ky1; ++ky) {
+                    for (kx = kx0; kx < kx1; ++kx) {
+                        a0 += px[0] * pw[0];
+                        px += c;
+                        pw += c;
+                    }
+                    px += step;
+                    pw += wstep;
                 }
+                if (edge) {
+                    for (ky = 0; ky < k; ++ky) {
+                        for (kx = 0; kx < k; ++kx) {
+                            if (ky >= ky0 && ky < ky1 && kx >= kx0 && kx < kx1) continue;
+                            a0 += xz * wt[(ky * k + kx) * c + ch];
+                        }
+                    }
+                }
+                out[ch] = @P@_rq(a0, mult[ch], shift[ch], yz, lo, hi);
             }
         }
     }
