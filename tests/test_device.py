@@ -287,3 +287,15 @@ def test_emulate_network_without_calibration_says_what_to_do(tmp_path, capsys):
     assert main(["emulate", "--network", str(path)]) == 2
     err = capsys.readouterr().err
     assert "calibration.npz not found" in err and "--data" in err
+
+
+def test_a_network_too_big_for_the_board_is_refused_before_any_c(capsys):
+    """More constants than the board's 4 MB of code memory: exit 2 with the figures, at once."""
+    if not HAVE_TOOLS:
+        pytest.skip("needs the cross-compiler and QEMU")
+    assert main(["emulate", "64x64rgb/d1024", "--classes", "3"]) == 2
+    err = capsys.readouterr().err
+    # 256*3 table + 64*64*3*1024 weights + 12 B per output channel, and the 3-way head
+    flash = 256 * 3 + 64 * 64 * 3 * 1024 + 12 * 1024 + 1024 * 3 + 12 * 3
+    assert cost_of("64x64rgb/d1024", 3).flash_bytes == flash
+    assert f"needs {flash:,} bytes of constants" in err and "4 MB" in err

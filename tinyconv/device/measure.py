@@ -105,6 +105,29 @@ class Measurement:
         return out
 
 
+#: room the test program, its images and the C library take beside the classifier
+HARNESS_ROOM = 256 * 1024
+
+
+def check_fits(qnet: QuantizedNetwork) -> None:
+    """Refuse, before writing any C, a network the emulated board cannot hold."""
+    from tinyconv.cost import cost_of
+    from tinyconv.device.build import DeviceError
+    from tinyconv.device.cores import BOARD_MEMORY
+    from tinyconv.device.harness import STACK_BYTES
+
+    cost = cost_of(qnet.arch, qnet.n_classes)
+    if cost.flash_bytes > BOARD_MEMORY - HARNESS_ROOM:
+        raise DeviceError(f"{qnet.arch} needs {cost.flash_bytes:,} bytes of constants, more "
+                          f"than the emulated board's {BOARD_MEMORY // 1024 // 1024} MB of "
+                          "code memory holds beside the test program; measure a smaller "
+                          "network")
+    if cost.peak_int8_bytes > BOARD_MEMORY - STACK_BYTES - HARNESS_ROOM:
+        raise DeviceError(f"{qnet.arch} needs {cost.peak_int8_bytes:,} bytes of activations, "
+                          f"more than the emulated board's {BOARD_MEMORY // 1024 // 1024} MB of "
+                          "data memory holds; measure a smaller network or input")
+
+
 def step_names(qnet: QuantizedNetwork) -> list[tuple[str, str]]:
     """``(name, kind)`` of each step the C runs: the input step, then each layer."""
     out = [("input", "input")]
@@ -148,6 +171,7 @@ def measure(qnet: QuantizedNetwork, images: np.ndarray, core: Core, *, prefix: s
     if images.ndim != 4 or images.shape[1:] != tuple(qnet.input_shape) or not len(images):
         raise ValueError(f"images of shape {images.shape} for a network of input "
                          f"{qnet.input_shape}")
+    check_fits(qnet)
     code = generate_c(qnet, prefix, style=style)
     names = step_names(qnet)
     want_logits, want_classes = int8_outputs(qnet, images)
