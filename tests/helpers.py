@@ -93,3 +93,17 @@ def tiny_request(out, **change):
                 workers=0, training={"batch_size": 16, "lr": 0.01})
     base.update(change)
     return SearchRequest(**base)
+
+
+def units_stored(path) -> int:
+    """Units a run store holds so far, read while a search writes (0 when busy or absent)."""
+    import sqlite3
+
+    try:
+        con = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=1)
+        try:
+            return con.execute("SELECT COUNT(*) FROM units").fetchone()[0]
+        finally:
+            con.close()
+    except sqlite3.Error:
+        return 0

@@ -6,14 +6,13 @@ from __future__ import annotations
 import os
 import signal
 import socket
-import sqlite3
 import subprocess
 from pathlib import Path
 
 import pytest
 
 import search
-from helpers import tiny_request
+from helpers import tiny_request, units_stored
 from processes import descendants, kill_all, tinyconv, wait_for, wait_gone
 from run_folders import clean_failure, search_argv, space_file
 from search.session import run_search
@@ -70,17 +69,6 @@ def _free_port() -> int:
         return sock.getsockname()[1]
 
 
-def _units_stored(path: Path) -> int:
-    """Units stored so far, read while the search writes (0 when busy or absent)."""
-    try:
-        con = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=1)
-        try:
-            return con.execute("SELECT COUNT(*) FROM units").fetchone()[0]
-        finally:
-            con.close()
-    except sqlite3.Error:
-        return 0
-
 
 @pytest.fixture()
 def clusters():
@@ -110,7 +98,7 @@ def test_lost_scheduler_is_a_named_error_and_the_run_resumes(clusters, tmp_path)
     argv.remove("--workers"), argv.remove("0")
     proc = tinyconv(*argv, env={**os.environ, "PYTHONPATH": CODE})
     try:
-        wait_for(lambda: _units_stored(run / FILE) >= 2, "two units were stored", proc=proc)
+        wait_for(lambda: units_stored(run / FILE) >= 2, "two units were stored", proc=proc)
         first.kill_scheduler()
         _out, err = proc.communicate(timeout=120)
     finally:

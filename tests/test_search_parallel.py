@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import os
 import signal
-import sqlite3
 import subprocess
 import sys
 import time
@@ -15,7 +14,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from helpers import TINY_DATA, TINY_SPACE, tiny_request
+from helpers import TINY_DATA, TINY_SPACE, tiny_request, units_stored
 from search.session import SearchRequest, run_search
 from search.store import RunStore
 
@@ -55,17 +54,6 @@ def test_one_worker_equals_two(reference, tmp_path):
         _same_units(out, ref)
 
 
-def _units_stored(path: Path) -> int:
-    """Units stored so far, read while the search writes (0 when the file is busy or absent)."""
-    try:
-        con = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=1)
-        try:
-            return con.execute("SELECT COUNT(*) FROM units").fetchone()[0]
-        finally:
-            con.close()
-    except sqlite3.Error:
-        return 0
-
 
 def test_sigkill_then_rerun_gives_same_ranking(reference, tmp_path):
     """SIGKILL at a random moment, then the same command: the same ranking, bit for bit."""
@@ -81,7 +69,7 @@ def test_sigkill_then_rerun_gives_same_ranking(reference, tmp_path):
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
                             start_new_session=True)
     deadline = time.monotonic() + 120
-    while _units_stored(out / "run.sqlite") < target and proc.poll() is None \
+    while units_stored(out / "run.sqlite") < target and proc.poll() is None \
             and time.monotonic() < deadline:
         time.sleep(0.02)
     time.sleep(float(rng.uniform(0, 0.05)))

@@ -4,12 +4,10 @@ from __future__ import annotations
 
 import os
 import signal
-import sqlite3
-from pathlib import Path
 
 import pytest
 
-from helpers import tiny_request
+from helpers import tiny_request, units_stored
 from processes import PATIENCE_S, descendants, kill_all, pool_workers, tinyconv, wait_for, \
     wait_gone
 from run_folders import search_argv, space_file
@@ -18,17 +16,6 @@ from search.store import FILE
 
 pytestmark = pytest.mark.slow
 
-
-def _units_stored(path: Path) -> int:
-    """Units stored so far, read while the search writes (0 when busy or absent)."""
-    try:
-        con = sqlite3.connect(f"file:{path}?mode=ro", uri=True, timeout=1)
-        try:
-            return con.execute("SELECT COUNT(*) FROM units").fetchone()[0]
-        finally:
-            con.close()
-    except sqlite3.Error:
-        return 0
 
 
 @pytest.mark.parametrize("moment", ["warming up", "after two units"])
@@ -42,7 +29,7 @@ def test_kill_9_of_the_search_ends_its_workers(moment, tmp_path):
         if moment == "warming up":
             wait_for(lambda: len(pool_workers(proc.pid)) == 2, "two workers started", proc=proc)
         else:
-            wait_for(lambda: _units_stored(run / FILE) >= 2, "two units stored", proc=proc)
+            wait_for(lambda: units_stored(run / FILE) >= 2, "two units stored", proc=proc)
         below = descendants(proc.pid)
         assert len(pool_workers(proc.pid)) == 2
         os.kill(proc.pid, signal.SIGKILL)   # no clean-up runs in the search process
