@@ -29,6 +29,11 @@ Decisions, stated once:
 * ``on_epoch(epoch, stats)`` is called after every finished epoch with the
   1-based epoch and a dict of that epoch's figures; returning ``True`` stops
   training (status ``"stopped"``), e.g. for a time budget.
+* **Augmentation** (``config.augment``, see :mod:`tinyconv.augment`) changes
+  a copy of each training mini-batch, drawn from its own generator seeded
+  with ``[config.seed, AUGMENT_STREAM]``, so adding it leaves the batch order
+  as it was. The reported training figures are then those of the augmented
+  batches; held-out images are never augmented.
 """
 
 from __future__ import annotations
@@ -40,11 +45,14 @@ from typing import Callable
 
 import numpy as np
 
+from tinyconv.augment import Augment, parse_augment
 from tinyconv.errors import DataError, InputError
 from tinyconv.losses import check_smoothing, log_softmax, softmax, softmax_cross_entropy
 from tinyconv.optim import DECAY_KINDS, SCHEDULES, SGD, Adam, learning_rate
 
 OPTIMISERS = ("adam", "sgd")
+#: The second word of the augmentation generator's seed (the first is ``config.seed``).
+AUGMENT_STREAM = 1
 
 
 @dataclass(frozen=True)
@@ -74,7 +82,10 @@ class TrainConfig:
     patience : int or None
         Early-stopping patience in epochs (needs held-out data).
     seed : int
-        Seed of the batch order.
+        Seed of the batch order (and of the augmentation's draws).
+    augment : str
+        Augmentation of the training batches in the text form of
+        :mod:`tinyconv.augment` (``"none"``: none); kept in its canonical form.
     """
 
     epochs: int
@@ -88,6 +99,7 @@ class TrainConfig:
     label_smoothing: float = 0.0
     patience: int | None = None
     seed: int = 0
+    augment: str = "none"
 
     def __post_init__(self) -> None:
         # Type first, then value; numbers from NumPy or pandas are accepted and
@@ -130,6 +142,7 @@ class TrainConfig:
         check_smoothing(self.label_smoothing)
         need(self.patience is None or self.patience >= 1,
              f"patience must be None or an integer >= 1, got {self.patience!r}")
+        store("augment", str(parse_augment(self.augment)))
 
 
 @dataclass(frozen=True)
@@ -242,7 +255,10 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
         raise InputError(f"early stopping (patience={config.patience}) needs held-out data; "
                          "pass x_val and y_val, or set patience to None")
 
+    augment = parse_augment(config.augment)
+    augment.check_shape(x.shape[1], x.shape[2])
     rng = np.random.default_rng(config.seed)
+    aug_rng = np.random.default_rng([config.seed, AUGMENT_STREAM])
     opt = make_optimiser(net, config)
     n = x.shape[0]
     n_batches = -(-n // config.batch_size)
@@ -256,7 +272,7 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
         start = _snapshot(net)
         batches = np.array_split(rng.permutation(n), n_batches)
         loss_sum, correct, finite = _train_epoch(net, x, y, batches, opt, lr,
-                                                 config.label_smoothing)
+                                                 config.label_smoothing, augment, aug_rng)
         if not finite:
             _restore(net, start)
             status, diverged_epoch = "diverged", epoch + 1
@@ -299,14 +315,22 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
 
 
 def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], opt,
-                 lr: float, smoothing: float) -> tuple[float, int, bool]:
-    """One pass over ``batches`` (index arrays); returns (loss sum, correct, finite)."""
+                 lr: float, smoothing: float, augment: Augment | None = None,
+                 aug_rng: np.random.Generator | None = None) -> tuple[float, int, bool]:
+    """One pass over ``batches`` (index arrays); returns (loss sum, correct, finite).
+
+    With ``augment``, each batch (a copy: ``x[idx]``) is augmented with draws from
+    ``aug_rng`` before the forward pass.
+    """
     loss_sum, correct = 0.0, 0
     # Overflow on the way to a non-finite loss is detected here and reported as
     # divergence, so NumPy's warnings about it would only add noise.
     with np.errstate(over="ignore", invalid="ignore"):
         for idx in batches:
-            logits = net.forward(x[idx], training=True)          # (b, K)
+            batch = x[idx]                                       # (b, h, w, c), a copy
+            if augment:
+                batch = augment(batch, aug_rng)
+            logits = net.forward(batch, training=True)           # (b, K)
             loss, grad = softmax_cross_entropy(logits, y[idx], smoothing)
             if not math.isfinite(loss):
                 return loss_sum, correct, False
