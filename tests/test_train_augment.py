@@ -100,3 +100,21 @@ def test_fit_refuses_turns_of_non_square_images():
     net = Network.from_arch("6x8gray/c2k3", 2, seed=0)
     with pytest.raises(InputError, match=r"turn needs square images, and these are 6x8"):
         fit(net, x, np.arange(6) % 2, TrainConfig(epochs=1, augment="turn"))
+
+
+def test_copies_pass_over_each_image_that_many_times():
+    """With copies=3 an epoch's batches hold every image three times, from one
+    permutation of 3n items; copies=1 is the plain permutation."""
+    x, y = _data(10, 5)
+    x[:, 0, 0, 0] = np.arange(10)          # each image names itself
+    net = Network.from_arch("8x8gray/c2k3-p2", 3, seed=0)
+    rec = Recorder(net)
+    hist = fit(net, x, y, TrainConfig(epochs=1, batch_size=4, lr=0.01, seed=9, copies=3))
+    seen = np.concatenate([b[:, 0, 0, 0] for b in rec.seen[True]]).astype(int)
+    assert sorted(seen.tolist()) == sorted(list(range(10)) * 3)
+    expected = np.random.default_rng(9).permutation(30) % 10
+    np.testing.assert_array_equal(seen, expected)
+    assert [len(b) for b in rec.seen[True]] == [len(p) for p in np.array_split(expected, 8)]
+    assert 0.0 <= hist.train_acc[0] <= 1.0
+    with pytest.raises(InputError, match=r"copies must be an integer from 1 to 64, got 0"):
+        TrainConfig(epochs=1, copies=0)
