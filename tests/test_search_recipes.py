@@ -159,3 +159,21 @@ def test_killed_recipe_search_resumes_bit_identically(reference, tmp_path):
     cols = ["candidate", "fold", "rung", "epochs", "status", "val_acc", "train_acc",
             "val_loss", "history", "seed"]
     assert RunStore(out).units()[cols].equals(RunStore(ref).units()[cols])
+
+
+def test_report_shows_recipes_and_the_measure(reference, tmp_path):
+    """The page shows an architecture and a recipe column, the pick's recipe, and which
+    measure the one-SE pick minimised."""
+    import shutil
+
+    from tinyconv.report import write_report
+
+    out, summary = reference
+    copy = tmp_path / "run"
+    shutil.copytree(out, copy)
+    page = write_report(copy).read_text(encoding="utf-8")
+    pick = summary.table[summary.table["pick"]].iloc[0]
+    assert ">architecture<" in page and ">recipe<" in page
+    assert f"Trained with the recipe {pick['recipe']}." in page
+    assert "the fewest parameters among those whose mean held-out accuracy" in page
+    assert "--simplest-by params" in page
