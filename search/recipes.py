@@ -9,7 +9,7 @@ choices for each, like the other tables (every key optional)::
     [training]
     augment = ["none", "shift2+mirror+upend+turn"]   # tinyconv.augment's text form
     copies = [1, 8]                                  # copies of each image per epoch
-    lr = [0.003, 0.01]                               # learning rates (> 0)
+    lr = [0.005, 0.01]                               # learning rates (> 0)
     weight_decay = [0, 1e-4]                         # decoupled decay of weights (>= 0)
     schedule = ["constant", "cosine"]                # constant | step | cosine
 
@@ -24,7 +24,7 @@ The text form of a recipe (ours) is five ``key=value`` words in a fixed
 order, numbers in Python's shortest round-trip form with a trailing ``.0``
 dropped::
 
-    aug=shift2+mirror+upend+turn copies=8 lr=0.003 wd=0 sched=cosine
+    aug=shift2+mirror+upend+turn copies=8 lr=0.005 wd=0 sched=constant
 
 A run with one recipe keys its candidates by the architecture text alone (as
 before recipes existed); a run with several keys each candidate as
@@ -103,7 +103,7 @@ def parse_recipe(text: str) -> Recipe:
         Naming the word that is wrong and the form expected.
     """
     form = ("aug=AUGMENT copies=N lr=RATE wd=DECAY sched=SCHEDULE, e.g. "
-            "aug=none copies=1 lr=0.003 wd=0 sched=cosine")
+            "aug=none copies=1 lr=0.005 wd=0 sched=constant")
     words = str(text).split()
     if len(words) != len(_WORDS):
         raise RecipeError(f"recipe {text!r} has {len(words)} words; write {form}")

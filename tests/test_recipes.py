@@ -101,3 +101,19 @@ def test_keys_and_settings_lookups():
                         "schedule": "cosine"}}
     assert run_recipes(old) == ("aug=none copies=1 lr=0.003 wd=0 sched=cosine",)
     assert training_for(old, "8x8gray")["lr"] == 0.003
+
+
+def test_cli_refuses_bad_augmentation_before_training(tmp_path, capsys):
+    """search --augment with an unknown word, or turns of oblong inputs, exits 2 naming it."""
+    from helpers import TINY_DATA
+    from tinyconv.cli import main
+
+    space = tmp_path / "space.toml"
+    space.write_text("[input]\nsizes = [\"8x6\"]\nmodes = [\"gray\"]\n")
+    base = ["search", TINY_DATA, "--space", str(space), "--workers", "0"]
+    assert main(base + ["--out", str(tmp_path / "a"), "--augment", "spin"]) == 2
+    assert "augment 'spin': 'spin' is not a transform" in capsys.readouterr().err
+    assert main(base + ["--out", str(tmp_path / "b"), "--augment", "turn+shift1"]) == 2
+    assert "turn needs square images, and these are 8x6; take turn out" in \
+        capsys.readouterr().err
+    assert not (tmp_path / "b" / "run.sqlite").exists()

@@ -78,9 +78,9 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
     t = parser.add_argument_group("training of every unit (the recipe options replace the "
                                   "space's [training] choices)")
     t.add_argument("--lr", type=positive_float, default=None,
-                   help="learning rate (default 0.003)")
+                   help="learning rate (default 0.005)")
     t.add_argument("--schedule", choices=("constant", "step", "cosine"), default=None,
-                   help="learning-rate schedule over the epochs (default cosine)")
+                   help="learning-rate schedule over the epochs (default constant)")
     t.add_argument("--augment", default=None, metavar="TEXT",
                    help="augmentation of the training batches, e.g. shift2+mirror+upend+turn "
                         "(default none; forms in the README)")
@@ -88,7 +88,7 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                    help="copies of each training image an epoch passes over, each augmented "
                         "on its own (default 1)")
     t.add_argument("--batch-size", type=positive_int, default=None, metavar="N",
-                   help="images per mini-batch (default 32)")
+                   help="images per mini-batch (default 16)")
     t.add_argument("--optimizer", choices=("adam", "sgd"), default=None,
                    help="optimiser (default adam)")
     t.add_argument("--weight-decay", type=float, default=None, metavar="W",
