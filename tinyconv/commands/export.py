@@ -28,8 +28,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
     """Options of the export command."""
     parser.add_argument("run_dir", metavar="DIR", help="the run folder a search wrote")
     parser.add_argument("--pick", default="one-se", metavar="one-se|best|CANDIDATE",
-                        help="which candidate: the one-standard-error pick (default), the "
-                             "best mean accuracy, or a candidate's architecture text")
+                        help="which candidate: the one-standard-error pick (default; simplest "
+                             "by the run's --simplest-by), the best mean accuracy, or a ranked "
+                             "candidate's text (with its recipe when the run has several)")
     parser.add_argument("--out", default=None, metavar="DIR2",
                         help="folder for the files (default DIR/export)")
     parser.add_argument("--epochs", type=positive_int, default=None, metavar="N",

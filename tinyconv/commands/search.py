@@ -223,6 +223,8 @@ def summary_lines(summary, top: int = 10) -> list[str]:
               "  pp  acc  held-out     train  acc/kpar   params       MACs  pk KB  fl KB   ep"
               "      p  candidate"]
     lines += [_fmt_row(r) for r in t.head(top).itertuples()]
+    if "recipe" in t and t["recipe"].nunique() == 1 and t["recipe"].iloc[0]:
+        lines.append(f"recipe of every candidate: {t['recipe'].iloc[0]}")
     if len(t) > top:
         lines.append(f"  ... {len(t) - top} more in {summary.ranking_path}")
     pick = t[t["pick"]].iloc[0]
