@@ -21,8 +21,9 @@ from tinyconv.errors import InputError
 
 FORMAT = 1
 RANK_ORDERS = ("per_param", "accuracy")
-# Keys whose change does not alter any unit, only how far the plan is followed.
-EXTENDABLE = ("budget_cpu_s", "budget_epochs")
+# Keys whose change does not alter any unit, only how far the plan is followed or
+# how the pick is chosen from the same units: a resumed run may change them.
+EXTENDABLE = ("budget_cpu_s", "budget_epochs", "simplest_by")
 # Keys kept for the record but not compared (the data is compared by fingerprint,
 # the space by its text).
 RECORD_ONLY = ("data", "space_source", "skip_bad")
@@ -97,13 +98,20 @@ class SearchSettings:
     budget_epochs : int or None
         Total training epochs (summed over units, as planned).
     training : dict
-        ``TrainConfig`` fields other than ``epochs`` and ``seed``.
+        ``TrainConfig`` fields other than ``epochs``, ``seed`` and those a
+        recipe sets: the settings every candidate shares.
     int8 : bool
         Units of the last rung also report the held-out accuracy of their int8
         quantised form.
     skip_bad : bool
         Unreadable images were skipped when the data was read (the report and
         the export read it the same way).
+    recipes : tuple of str
+        The run's training recipes, as texts (:mod:`search.recipes`); with more
+        than one, each candidate key carries its recipe.
+    simplest_by : str
+        What the one-standard-error pick minimises: params, macs, ram, flash or
+        ms (``search.rank.SIMPLEST``).
     """
 
     data: str
@@ -125,6 +133,8 @@ class SearchSettings:
     training: dict = field(default_factory=dict)
     int8: bool = False
     skip_bad: bool = False
+    recipes: tuple[str, ...] = ()
+    simplest_by: str = "params"
 
     def __post_init__(self) -> None:
         _positive_int("folds", self.folds, 2, "--folds")
@@ -149,6 +159,7 @@ class SearchSettings:
         """Plain data (lists for tuples), as stored; includes the format version."""
         out = asdict(self)
         out["classes"] = list(self.classes)
+        out["recipes"] = list(self.recipes)
         out["format"] = FORMAT
         return out
 
@@ -156,6 +167,7 @@ class SearchSettings:
     def from_dict(data: dict[str, Any]) -> "SearchSettings":
         values = {k: v for k, v in data.items() if k != "format"}
         values["classes"] = tuple(values["classes"])
+        values["recipes"] = tuple(values.get("recipes") or ())
         return SearchSettings(**values)
 
 

@@ -16,8 +16,15 @@ fold. The statistics (all over the ``k`` folds of that rung):
 * ``pareto_params`` / ``pareto_macs``: not dominated in (higher accuracy,
   fewer parameters) or (higher accuracy, fewer MACs);
 * ``within_1se``: mean within one standard error of the best;
-  ``pick``: the fewest parameters among those (the one-standard-error rule,
-  Breiman et al., CART, 1984; Hastie, Tibshirani & Friedman, ESL §7.10);
+  ``pick``: the simplest among those (the one-standard-error rule, Breiman et
+  al., CART, 1984; Hastie, Tibshirani & Friedman, ESL §7.10), where simplest
+  means the least of one cost, ``simplest_by``: ``params`` (the default),
+  ``macs``, ``ram`` (int8 peak activation memory), ``flash`` (int8
+  deployment) or ``ms`` (the device model's time per image; only for a run
+  that names a core). Ties go to fewer parameters, then the higher mean;
+* ``arch`` and ``recipe``: the candidate's architecture text and training
+  recipe (:mod:`search.recipes`); the ``candidate`` key joins them when the
+  run has several recipes and is the architecture alone otherwise;
 * ``int8_acc_mean`` / ``int8_drop``: with ``search --int8``, the mean held-out
   accuracy of the int8 quantised networks of the last rung and what
   quantisation cost (``acc_mean - int8_acc_mean``); NaN otherwise.
@@ -42,7 +49,16 @@ import numpy as np
 import pandas as pd
 
 ORDERS = ("per_param", "accuracy")
-COLUMNS = ("candidate", "params", "macs", "peak_kb", "flash_kb", "ms", "rung", "epochs", "folds",
+#: --simplest-by names -> the ranking column the one-SE pick minimises.
+SIMPLEST = {"params": "params", "macs": "macs", "ram": "peak_kb", "flash": "flash_kb",
+            "ms": "ms"}
+#: How the page and the summary say what the pick minimised.
+SIMPLEST_WORDS = {"params": "the fewest parameters",
+                  "macs": "the fewest multiply-accumulates per image",
+                  "ram": "the least peak activation memory (int8)",
+                  "flash": "the least flash (int8)",
+                  "ms": "the shortest time per image on the device (cost model)"}
+COLUMNS = ("candidate", "arch", "recipe", "params", "macs", "peak_kb", "flash_kb", "ms", "rung", "epochs", "folds",
            "acc_mean", "acc_se", "acc_min", "acc_max", "train_acc_mean", "gap",
            "acc_per_kparam", "t_vs_best", "p_vs_best", "finalist", "pareto_params",
            "pareto_macs", "within_1se", "pick", "rank_per_param", "rank_accuracy",
@@ -172,21 +188,30 @@ def pareto_mask(acc: Sequence[float], cost: Sequence[float]) -> np.ndarray:
 
 
 def one_se_pick(acc_mean: Sequence[float], acc_se: Sequence[float],
-                params: Sequence[int], names: Sequence[str]) -> tuple[int, int, np.ndarray]:
+                params: Sequence[int], names: Sequence[str],
+                cost: Sequence[float] | None = None) -> tuple[int, int, np.ndarray]:
     """The one-standard-error rule.
+
+    Parameters
+    ----------
+    acc_mean, acc_se, params, names : sequences of one length
+    cost : sequence of float, optional
+        What "simplest" minimises (default: the parameters).
 
     Returns
     -------
     (best, pick, within) : index of the best mean (ties: fewer parameters,
-        then name), index of the pick (fewest parameters within one SE of the
-        best; ties: higher mean, then name) and the boolean mask of the set.
+        then name), index of the pick (least ``cost`` within one SE of the
+        best; ties: fewer parameters, higher mean, then name) and the boolean
+        mask of the set.
     """
     m = np.asarray(acc_mean, dtype=np.float64)
     s = np.asarray(acc_se, dtype=np.float64)
+    c = np.asarray(params if cost is None else cost, dtype=np.float64)
     order = sorted(range(len(m)), key=lambda i: (-m[i], params[i], names[i]))
     best = order[0]
     within = m >= m[best] - s[best] - _TOL
-    pick = min(np.flatnonzero(within), key=lambda i: (params[i], -m[i], names[i]))
+    pick = min(np.flatnonzero(within), key=lambda i: (c[i], params[i], -m[i], names[i]))
     return best, int(pick), within
 
 
@@ -194,22 +219,39 @@ def one_se_pick(acc_mean: Sequence[float], acc_se: Sequence[float],
 
 
 def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, folds: int,
-               by: str = "per_param", device: dict | None = None) -> pd.DataFrame:
+               by: str = "per_param", device: dict | None = None,
+               simplest_by: str = "params") -> pd.DataFrame:
     """The ranking table from a store's units and candidates (see the module notes).
 
     Parameters
     ----------
     units : DataFrame with candidate, fold, rung, epochs, status, val_acc, train_acc
     candidates : DataFrame with candidate, params, macs, peak_int8_bytes, flash_bytes
+        (and ``arch``, ``recipe``; without them the candidate is its own
+        architecture and the recipe is "")
     n_classes : int, the ``K`` of chance accuracy ``1/K``
     folds : int, the ``k`` of the cross-validation (a rung counts when all k finished)
     by : ``"per_param"`` or ``"accuracy"``, the order of the rows
     device : dict, optional
         ``{"core": ..., "clock_mhz": ...}``: the ``ms`` column is the device model's
         milliseconds per image there (NaN without a core)
+    simplest_by : str
+        The cost the one-SE pick minimises (a key of :data:`SIMPLEST`).
+
+    Raises
+    ------
+    InputError
+        For ``simplest_by="ms"`` without a device core.
     """
     if by not in ORDERS:
         raise ValueError(f"rank by {by!r}: expected one of {', '.join(ORDERS)}")
+    if simplest_by not in SIMPLEST:
+        raise ValueError(f"simplest by {simplest_by!r}: expected one of {', '.join(SIMPLEST)}")
+    if simplest_by == "ms" and not (device or {}).get("core"):
+        from tinyconv.errors import InputError
+        raise InputError("simplest by 'ms' needs the time per image on a device, and this run "
+                         "names no core; search again with --core CORE, or pick by params, "
+                         "macs, ram or flash")
     done = units[units["status"] == "done"]
     counts = done.groupby(["candidate", "rung"])["fold"].nunique()
     complete = counts[counts >= folds].reset_index()
@@ -229,11 +271,14 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
         int8 = (sel["int8_acc"].to_numpy(np.float64) if "int8_acc" in sel
                 else np.full(acc.size, np.nan))
         int8_mean = float(int8.mean()) if np.all(np.isfinite(int8)) else math.nan
+        arch = str(cost.at[cand, "arch"]) if "arch" in cost.columns else cand
         rows.append({
-            "candidate": cand, "params": params, "macs": int(cost.at[cand, "macs"]),
+            "candidate": cand, "arch": arch,
+            "recipe": str(cost.at[cand, "recipe"]) if "recipe" in cost.columns else "",
+            "params": params, "macs": int(cost.at[cand, "macs"]),
             "peak_kb": cost.at[cand, "peak_int8_bytes"] / 1024.0,
             "flash_kb": cost.at[cand, "flash_bytes"] / 1024.0,
-            "ms": _ms(cand, n_classes, device),
+            "ms": _ms(arch, n_classes, device),
             "rung": int(rung), "epochs": int(sel["epochs"].iloc[0]), "folds": int(acc.size),
             "acc_mean": mean, "acc_se": float(acc.std(ddof=1) / math.sqrt(acc.size)),
             "acc_min": float(acc.min()), "acc_max": float(acc.max()),
@@ -246,7 +291,8 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
     table["finalist"] = final
     fin = table[final]
     best, pick, within = one_se_pick(fin["acc_mean"].to_numpy(), fin["acc_se"].to_numpy(),
-                                     fin["params"].tolist(), fin["candidate"].tolist())
+                                     fin["params"].tolist(), fin["candidate"].tolist(),
+                                     fin[SIMPLEST[simplest_by]].tolist())
     best_name = fin["candidate"].iloc[best]
     ratio = 1.0 / (folds - 1)
     t_col, p_col = [], []
@@ -297,14 +343,20 @@ def rank_run(store, by: str | None = None) -> pd.DataFrame:
     """The ranking table of a run store (``search.store.RunStore``).
 
     ``by=None`` takes the order the search was asked for (``--rank-by``),
-    ``per_param`` when none was recorded.
+    ``per_param`` when none was recorded; the pick minimises the run's
+    ``simplest_by`` (parameters when none was recorded).
     """
+    from search.recipes import recipe_of, split_key
+
     cfg = store.config()
     by = by or store.rank_order() or "per_param"
     budget = cfg.get("budget") or {}
     device = {"core": budget.get("core"), "clock_mhz": budget.get("clock_mhz")}
-    return rank_units(store.units(), store.candidates(), len(cfg["classes"]),
-                      int(cfg["folds"]), by=by, device=device)
+    candidates = store.candidates()
+    candidates["arch"] = [split_key(c)[0] for c in candidates["candidate"]]
+    candidates["recipe"] = [recipe_of(cfg, c) for c in candidates["candidate"]]
+    return rank_units(store.units(), candidates, len(cfg["classes"]), int(cfg["folds"]),
+                      by=by, device=device, simplest_by=cfg.get("simplest_by") or "params")
 
 
 def save_ranking(table: pd.DataFrame, run_dir: str | Path) -> Path:

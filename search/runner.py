@@ -37,6 +37,7 @@ import numpy as np
 
 from search import schedule
 from search.failures import ATTEMPTS, describe
+from search.recipes import arch_of, training_for
 from search.store import RunStore
 from search.unit import UnitResult, UnitTask
 from tinyconv.errors import StoreError, WorkersLostError
@@ -142,7 +143,7 @@ class SearchLoop:
         self.s = settings
         self.k = int(settings["folds"])
         self.progress = progress or Progress()
-        self.training = tuple(sorted((settings.get("training") or {}).items()))
+        self._training: dict[str, tuple] = {}
         self.n_classes = len(settings["classes"])
         self.finished = store.finished()
         self.cpu_s, self.epochs = store.spent()
@@ -213,9 +214,12 @@ class SearchLoop:
         return scores
 
     def _task(self, cand: str, fold: int, rung: schedule.Rung) -> UnitTask:
+        if cand not in self._training:  # the run's settings with the candidate's recipe
+            self._training[cand] = tuple(sorted(training_for(self.s, cand).items()))
+        # seeded by the architecture: recipes of one architecture start alike (paired)
         return UnitTask(cand, fold, rung.level, rung.epochs,
-                        schedule.unit_seed(int(self.s["seed"]), cand, fold, rung.level),
-                        self.n_classes, self.training,
+                        schedule.unit_seed(int(self.s["seed"]), arch_of(cand), fold, rung.level),
+                        self.n_classes, self._training[cand],
                         # int8 figures for the finalists: units of the last rung only
                         bool(self.s.get("int8")) and rung.epochs == int(self.s["max_epochs"]))
 

@@ -3,9 +3,12 @@
 :func:`run_search` is what ``tinyconv search`` and ``tinyconv demo`` call:
 
 1. load and fingerprint the data; read the space; apply budgets from the
-   command line over the space file's;
-2. enumerate the candidates, cost them and drop those over budget (they are
-   stored, marked, and never trained); optionally subsample the rest;
+   command line over the space file's, and training settings from the
+   command line over the space file's ``[training]`` choices;
+2. enumerate the architectures, cost them and drop those over budget (they
+   are stored, marked, and never trained); pair each with every recipe
+   (:mod:`search.recipes`): a candidate is an architecture plus a recipe;
+   optionally subsample the candidates;
 3. assign stratified folds (seeded); open the run store (refusing a folder
    that holds another run); write the data for the workers;
 4. run the loop on local processes or a Dask cluster; rank; write
@@ -27,16 +30,21 @@ import pandas as pd
 
 from search.config import RANK_ORDERS, SearchSettings
 from search.folder_lock import FolderLock
-from search.rank import rank_run, save_ranking
+from search.rank import SIMPLEST, rank_run, save_ranking
+from search.recipes import RECIPE_KEYS, candidate_key, make_recipes
 from search.runner import Outcome, Progress, SearchLoop
 from search.schedule import derive_seed
 from search.store import RunStore
 from search.unit import UnitData
 
-#: Training settings of every unit unless told otherwise (TrainConfig fields).
-DEFAULT_TRAINING = {"batch_size": 32, "optimizer": "adam", "lr": 0.003, "momentum": 0.9,
-                    "weight_decay": 0.0, "decay": "decoupled", "schedule": "cosine",
-                    "label_smoothing": 0.0}
+#: Training settings of every unit unless told otherwise (TrainConfig fields); the
+#: recipe keys among them (search.recipes.RECIPE_KEYS) are the default recipe.
+#: Chosen by measurement (benchmarks/recipe_study.py, tables in the README): at the
+#: demo's 27 epochs a constant rate beat the step and cosine schedules on the tiles,
+#: and batches of 16 at 0.005 beat batches of 32 at every rate tried.
+DEFAULT_TRAINING = {"batch_size": 16, "optimizer": "adam", "lr": 0.005, "momentum": 0.9,
+                    "weight_decay": 0.0, "decay": "decoupled", "schedule": "constant",
+                    "label_smoothing": 0.0, "augment": "none", "copies": 1}
 #: Command-line budget names -> the space file's [budget] keys.
 BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
                "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb",
@@ -49,7 +57,10 @@ class SearchRequest:
 
     ``budgets`` maps ``max_params``, ``max_macs``, ``max_ram_kb`` (int8 peak
     activation memory) and ``max_flash_kb`` to limits that replace the space
-    file's; ``training`` overrides :data:`DEFAULT_TRAINING`. ``workers`` is the
+    file's; ``training`` overrides :data:`DEFAULT_TRAINING`, and its recipe keys
+    (augment, copies, lr, weight_decay, schedule) replace the space file's
+    ``[training]`` choices by one each. ``simplest_by`` is the cost the
+    one-standard-error pick minimises (``search.rank.SIMPLEST``). ``workers`` is the
     number of local processes (default: the number of cores; 0 runs the units
     in this process); ``cluster`` a Dask scheduler address (or a
     ``distributed`` cluster object), used instead of local processes.
@@ -74,6 +85,7 @@ class SearchRequest:
     rank_by: str = "per_param"
     skip_bad: bool = False
     int8: bool = False
+    simplest_by: str = "params"
 
 
 @dataclass
@@ -89,6 +101,7 @@ class SearchSummary:
     n_searched: int
     removed: dict
     workers: str
+    simplest_by: str = "params"
 
 
 def _budget(space, request: SearchRequest):
@@ -125,6 +138,9 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
     """
     if request.rank_by not in RANK_ORDERS:
         raise ValueError(f"rank by {request.rank_by!r}: expected one of {RANK_ORDERS}")
+    if request.simplest_by not in SIMPLEST:
+        raise ValueError(f"simplest by {request.simplest_by!r}: expected one of "
+                         f"{', '.join(SIMPLEST)}")
     # First the folder, so that a second search on it stops before any work.
     with FolderLock.take(request.out):
         # Local workers start (and warm up) while this process reads the data and
@@ -146,14 +162,20 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     dataset = load_data(request.data, skip_bad=request.skip_bad)
     space = load_space(request.space)
     budget = _budget(space, request)
+    _check_simplest(request.simplest_by, budget)
     n_classes = len(dataset.classes)
     archs = enumerate_space(space)
     filtered = filter_budget(archs, budget, n_classes)
-    pool = list(filtered.survivors)
+    base = {**DEFAULT_TRAINING, **request.training}
+    recipes = make_recipes(space.training, request.training, base)
+    several = len(recipes) > 1
+    survivors = [str(a) for a in filtered.survivors]
+    _check_turns(filtered.survivors, recipes)
+    keys = [candidate_key(a, r, several) for a in survivors for r in recipes]
+    pool = keys
     if request.max_candidates is not None:
-        pool = subsample(pool, request.max_candidates, derive_seed(request.seed, "subsample"))
-    texts = [str(a) for a in pool]
-    training = {**DEFAULT_TRAINING, **request.training}
+        pool = subsample(keys, request.max_candidates, derive_seed(request.seed, "subsample"))
+    texts = list(pool)
     settings = SearchSettings(
         data=_data_spec(request.data), fingerprint=fingerprint(dataset), classes=tuple(dataset.classes),
         n_images=int(dataset.labels.size), space=space.text, space_source=str(space.source),
@@ -161,15 +183,19 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
         min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
         budget={k: getattr(budget, k) for k in BUDGET_KEYS.values()},
         budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
-        training=training, skip_bad=request.skip_bad, int8=request.int8)
-    _check_training(training)
+        training={k: v for k, v in base.items() if k not in RECIPE_KEYS},
+        skip_bad=request.skip_bad, int8=request.int8,
+        recipes=tuple(str(r) for r in recipes), simplest_by=request.simplest_by)
+    for recipe in recipes:
+        _check_training({**settings.training, **recipe.settings()})
     folds = assign_folds(dataset.labels, request.folds, derive_seed(request.seed, "folds"),
                          classes=dataset.classes)
-    table = filtered.table()
+    table = _with_recipes(filtered.table(), recipes, several)
     table["scheduled"] = table["candidate"].isin(set(texts))
+    removed = {name: count * len(recipes) for name, count in filtered.over.items()}
     params = dict(zip(table["candidate"], table["params"]))
     costs = dict(zip(table["candidate"], table["macs"].astype(float)))
-    store = RunStore.start(request.out, settings.as_dict(), table, dict(filtered.over))
+    store = RunStore.start(request.out, settings.as_dict(), table, removed)
     try:
         data = UnitData(dataset.images, dataset.labels, folds)
         data.save(request.out)
@@ -187,15 +213,43 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     finally:
         store.close()  # the folder holds no open file of this search after it
     path = save_ranking(ranking, request.out)
-    return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
-                         len(filtered.survivors), len(texts), dict(filtered.over),
-                         executor.description)
+    return SearchSummary(Path(request.out), outcome, ranking, path, len(table),
+                         len(keys), len(texts), removed, executor.description,
+                         request.simplest_by)
 
 
 def _check_training(training: dict) -> None:
     """Fail early (before any worker starts) on unusable training settings."""
     from tinyconv.train import TrainConfig
     TrainConfig(epochs=1, **training)
+
+
+def _check_turns(archs, recipes) -> None:
+    """Refuse quarter turns when an architecture within budget reads oblong images."""
+    from tinyconv.augment import parse_augment
+    for recipe in recipes:
+        for arch in archs:
+            parse_augment(recipe.augment).check_shape(arch.input.h, arch.input.w)
+
+
+def _check_simplest(simplest_by: str, budget) -> None:
+    """``ms`` needs the device time, which a run has when it names a core."""
+    if simplest_by == "ms" and budget.core is None:
+        from tinyconv.errors import InputError
+        raise InputError("--simplest-by ms picks by the time per image on the device, and this "
+                         "run names no core; give --core CORE (or a [device] table with core "
+                         "in the space), or pick by params, macs, ram or flash")
+
+
+def _with_recipes(table: pd.DataFrame, recipes, several: bool) -> pd.DataFrame:
+    """The candidates table with one row per architecture and recipe (architecture
+    first), keyed by :func:`search.recipes.candidate_key`."""
+    if not several:
+        return table
+    rows = table.loc[table.index.repeat(len(recipes))].reset_index(drop=True)
+    rows["candidate"] = [candidate_key(a, r, True)
+                         for a in table["candidate"] for r in recipes]
+    return rows
 
 
 def _local_workers(request: SearchRequest, work):

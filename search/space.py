@@ -47,6 +47,13 @@ comments give the default of each optional key::
     core = "cortex-m4"              # cortex-m3, cortex-m4, cortex-m7, cortex-m33
     clock_mhz = 80                  # default: the core's assumed clock
 
+    [training]                      # recipes: see search/recipes.py (the run's setting)
+    augment = ["none", "shift2+mirror"]  # augmentation texts (tinyconv/augment.py)
+    copies = [1, 4]                 # copies of each image an epoch passes over
+    lr = [0.003, 0.01]              # learning rates
+    weight_decay = [0, 1e-4]        # decoupled weight decay
+    schedule = ["constant"]         # constant | step | cosine
+
 What a stage is, in the architecture text form (:mod:`tinyconv.arch`), for
 ``f`` filters and kernel ``k``:
 
@@ -95,6 +102,7 @@ from tinyconv.arch import (MAX_SIDE, MAX_WIDTH, MODES, Arch, ArchError, BatchNor
 from tinyconv.errors import InputError
 
 from search.budget import Budget, Filtered, budget_from_table, filter_budget  # noqa: F401  (re-exported)
+from search.recipes import RECIPE_KEYS, TrainingChoices, read_training
 
 __all__ = ["SpaceError", "Space", "StageChoices", "Budget", "Filtered", "load_space",
            "builtin_space_text", "enumerate_space", "subsample", "filter_budget"]
@@ -106,7 +114,8 @@ SHAREABLE = ("kernel", "conv", "pool")
 MAX_STAGES = 8
 
 _KNOWN = {
-    "": ("format", "description", "input", "stages", "head", "options", "budget", "device"),
+    "": ("format", "description", "input", "stages", "head", "options", "budget", "device",
+         "training"),
     "input": ("sizes", "modes", "specs"),
     "stages": ("count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
                "shared", "widening"),
@@ -114,6 +123,7 @@ _KNOWN = {
     "options": ("batch_norm", "dropout"),
     "budget": ("max_params", "max_macs", "max_peak_kb", "max_flash_kb", "max_ms"),
     "device": ("core", "clock_mhz"),
+    "training": RECIPE_KEYS,
 }
 
 
@@ -140,7 +150,8 @@ class Space:
     ``max(counts)`` of them. ``widths``, when not empty, replaces the
     per-stage filter choices by whole plans (``stages[i].filters`` then lists
     the plans' values for stage ``i + 1``). ``text`` is the file's text (kept
-    for the run record) and ``source`` where it came from.
+    for the run record) and ``source`` where it came from. ``training`` holds
+    the ``[training]`` table's recipe choices (:mod:`search.recipes`).
     """
 
     inputs: tuple[InputSpec, ...]
@@ -158,6 +169,7 @@ class Space:
     text: str = ""
     source: str = "<text>"
     widths: tuple[tuple[int, ...], ...] = ()
+    training: TrainingChoices = field(default_factory=TrainingChoices)
 
     def size_bound(self) -> int:
         """Combinations before removing duplicates and misfits (an upper bound)."""
@@ -392,8 +404,16 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
     dropout = r.choices(opts.get("dropout", [0]), "options.dropout",
                         lambda p: _is_int(p, 0, 99), "a percent 0..99 (0 for none)")
     budget = budget_from_table(r.table(data, "budget"), source, r.table(data, "device"))
+    training = read_training(r.table(data, "training"), r)
+    oblong = [str(spec) for spec in inputs if spec.h != spec.w]
+    turning = [a for a in training.augment if "turn" in a.split("+")]
+    if oblong and turning:
+        raise r.fail("training.augment", list(training.augment),
+                     f"{turning[0]!r} turns images by quarter turns, which needs square "
+                     f"inputs, but the space has {oblong[0]}; take turn out or give square "
+                     "inputs only")
     return Space(inputs, counts, stages, pool_size, tuple(shared), widening, heads, hidden,
-                 batch_norm, dropout, budget, description, text, source, widths)
+                 batch_norm, dropout, budget, description, text, source, widths, training)
 
 
 # ---------------------------------------------------------------- enumerating

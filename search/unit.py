@@ -1,7 +1,9 @@
 """One work unit: train a candidate on all folds but one, evaluate on that fold.
 
-A unit is (candidate text, fold, rung, epochs) with a seed derived from the
-run seed and those (:func:`search.schedule.unit_seed`). It trains from
+A unit is (candidate key, fold, rung, epochs) with a seed derived from the
+run seed and those (:func:`search.schedule.unit_seed`, by the key's
+architecture). The key is the architecture text, followed by the recipe when
+the run has several (:mod:`search.recipes`). It trains from
 scratch: the rung only says how many epochs. The normalisation statistics
 come from the training part of the fold only. The unit raises only for a
 lack of memory (not its own fault, so the search runs it again: see
@@ -34,7 +36,8 @@ CALIB_IMAGES = 256
 class UnitTask:
     """What to compute: train ``candidate`` for ``epochs``, hold out ``fold``.
 
-    ``training`` holds the ``TrainConfig`` fields other than epochs and seed;
+    ``training`` holds the ``TrainConfig`` fields other than epochs and seed
+    (the run's settings with the candidate's recipe over them);
     ``int8`` asks for the held-out accuracy of the int8 form as well.
     """
 
@@ -217,9 +220,10 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     from tinyconv.losses import log_softmax
     from tinyconv.train import TrainConfig, evaluate, fit
 
+    from search.recipes import arch_of
     from search.schedule import derive_seed
 
-    arch = arch_mod.parse(task.candidate)
+    arch = arch_mod.parse(arch_of(task.candidate))
     x_all = data.prepared(arch.input)                       # (n, h, w, c) float32
     train = np.flatnonzero(data.folds != task.fold)
     held = np.flatnonzero(data.folds == task.fold)

@@ -78,6 +78,16 @@ def test_why_pick_when_the_best_is_also_the_smallest():
     assert "the best is itself the smallest of them (2,000 parameters)" in text
 
 
+def test_why_pick_names_the_measure_the_run_chose():
+    """A run that picked by flash says so and compares the flash of the pick and the best."""
+    data = _run(pick_is_best=False)
+    data.config["simplest_by"] = "flash"
+    text = why_pick(data)
+    assert "picks the candidate with the least flash (int8) among those" in text
+    assert "--simplest-by flash" in text
+    assert "KB of flash against the best's" in text
+
+
 def test_page_escapes_names_from_the_run(tmp_path, monkeypatch):
     """Class names and texts from the run appear escaped, never as markup."""
     import io

@@ -35,6 +35,8 @@ def test_search_prints_summary_and_pick(space, tmp_path, capsys, monkeypatch):
     table = pd.read_csv(out / "ranking.csv")
     pick = table[table["pick"]].iloc[0]
     assert f"pick: {pick.candidate}" in text
+    assert "recipe of every candidate: aug=none copies=1 lr=0.01 wd=0 sched=constant" in text
+    assert "* = pick (one-SE rule: the fewest parameters)" in text
     assert list(table["rank_accuracy"]) == list(range(1, len(table) + 1))
     assert f"ranking: {out / 'ranking.csv'}" in text
 

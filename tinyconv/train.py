@@ -29,6 +29,15 @@ Decisions, stated once:
 * ``on_epoch(epoch, stats)`` is called after every finished epoch with the
   1-based epoch and a dict of that epoch's figures; returning ``True`` stops
   training (status ``"stopped"``), e.g. for a time budget.
+* **Augmentation** (``config.augment``, see :mod:`tinyconv.augment`) changes
+  a copy of each training mini-batch, drawn from its own generator seeded
+  with ``[config.seed, AUGMENT_STREAM]``, so adding it leaves the batch order
+  as it was. The reported training figures are then those of the augmented
+  batches; held-out images are never augmented.
+* **Copies.** With ``config.copies = m``, an epoch passes over ``m`` copies of
+  every training image, shuffled together (one permutation of ``m * n``
+  items), so each copy is augmented with draws of its own; ``m = 1`` is the
+  plain epoch. An epoch then costs ``m`` times as much.
 """
 
 from __future__ import annotations
@@ -40,11 +49,16 @@ from typing import Callable
 
 import numpy as np
 
+from tinyconv.augment import Augment, parse_augment
 from tinyconv.errors import DataError, InputError
 from tinyconv.losses import check_smoothing, log_softmax, softmax, softmax_cross_entropy
 from tinyconv.optim import DECAY_KINDS, SCHEDULES, SGD, Adam, learning_rate
 
 OPTIMISERS = ("adam", "sgd")
+#: The second word of the augmentation generator's seed (the first is ``config.seed``).
+AUGMENT_STREAM = 1
+#: The most copies of each image an epoch may pass over.
+MAX_COPIES = 64
 
 
 @dataclass(frozen=True)
@@ -74,7 +88,13 @@ class TrainConfig:
     patience : int or None
         Early-stopping patience in epochs (needs held-out data).
     seed : int
-        Seed of the batch order.
+        Seed of the batch order (and of the augmentation's draws).
+    augment : str
+        Augmentation of the training batches in the text form of
+        :mod:`tinyconv.augment` (``"none"``: none); kept in its canonical form.
+    copies : int
+        Copies of each training image an epoch passes over (>= 1; see the
+        module notes), each augmented on its own.
     """
 
     epochs: int
@@ -88,6 +108,8 @@ class TrainConfig:
     label_smoothing: float = 0.0
     patience: int | None = None
     seed: int = 0
+    augment: str = "none"
+    copies: int = 1
 
     def __post_init__(self) -> None:
         # Type first, then value; numbers from NumPy or pandas are accepted and
@@ -99,7 +121,7 @@ class TrainConfig:
         def store(name: str, value) -> None:
             object.__setattr__(self, name, value)
 
-        for name in ("epochs", "batch_size", "patience", "seed"):
+        for name in ("epochs", "batch_size", "patience", "seed", "copies"):
             value = getattr(self, name)
             if value is None and name == "patience":
                 continue
@@ -114,6 +136,8 @@ class TrainConfig:
             store(name, float(value))
         need(self.epochs >= 1, f"epochs must be an integer >= 1, got {self.epochs!r}")
         need(self.batch_size >= 1, f"batch size must be an integer >= 1, got {self.batch_size!r}")
+        need(1 <= self.copies <= MAX_COPIES, f"copies must be an integer from 1 to "
+             f"{MAX_COPIES}, got {self.copies!r}; 1 passes over each image once an epoch")
         need(self.optimizer in OPTIMISERS,
              f"optimizer {self.optimizer!r} is unknown; expected one of {', '.join(OPTIMISERS)}")
         need(self.lr > 0, f"learning rate must be a finite number > 0, got {self.lr!r}; try "
@@ -130,6 +154,7 @@ class TrainConfig:
         check_smoothing(self.label_smoothing)
         need(self.patience is None or self.patience >= 1,
              f"patience must be None or an integer >= 1, got {self.patience!r}")
+        store("augment", str(parse_augment(self.augment)))
 
 
 @dataclass(frozen=True)
@@ -242,10 +267,14 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
         raise InputError(f"early stopping (patience={config.patience}) needs held-out data; "
                          "pass x_val and y_val, or set patience to None")
 
+    augment = parse_augment(config.augment)
+    augment.check_shape(x.shape[1], x.shape[2])
     rng = np.random.default_rng(config.seed)
+    aug_rng = np.random.default_rng([config.seed, AUGMENT_STREAM])
     opt = make_optimiser(net, config)
     n = x.shape[0]
-    n_batches = -(-n // config.batch_size)
+    items = n * config.copies                 # what one epoch passes over
+    n_batches = -(-items // config.batch_size)
     logs: dict[str, list[float]] = {"train_loss": [], "train_acc": [], "val_loss": [],
                                     "val_acc": []}
     status, diverged_epoch = "done", None
@@ -254,16 +283,17 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
     for epoch in range(config.epochs):
         lr = learning_rate(config.lr, epoch, config.epochs, config.schedule)
         start = _snapshot(net)
-        batches = np.array_split(rng.permutation(n), n_batches)
+        # item i is a copy of image i % n (with one copy, the plain permutation)
+        batches = np.array_split(rng.permutation(items) % n, n_batches)
         loss_sum, correct, finite = _train_epoch(net, x, y, batches, opt, lr,
-                                                 config.label_smoothing)
+                                                 config.label_smoothing, augment, aug_rng)
         if not finite:
             _restore(net, start)
             status, diverged_epoch = "diverged", epoch + 1
             break
-        logs["train_loss"].append(loss_sum / n)
-        logs["train_acc"].append(correct / n)
-        stats = {"lr": lr, "train_loss": loss_sum / n, "train_acc": correct / n}
+        logs["train_loss"].append(loss_sum / items)
+        logs["train_acc"].append(correct / items)
+        stats = {"lr": lr, "train_loss": loss_sum / items, "train_acc": correct / items}
         stop = False
         if have_val:
             val_loss, val_acc = evaluate(net, x_val, y_val)
@@ -299,14 +329,22 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
 
 
 def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], opt,
-                 lr: float, smoothing: float) -> tuple[float, int, bool]:
-    """One pass over ``batches`` (index arrays); returns (loss sum, correct, finite)."""
+                 lr: float, smoothing: float, augment: Augment | None = None,
+                 aug_rng: np.random.Generator | None = None) -> tuple[float, int, bool]:
+    """One pass over ``batches`` (index arrays); returns (loss sum, correct, finite).
+
+    With ``augment``, each batch (a copy: ``x[idx]``) is augmented with draws from
+    ``aug_rng`` before the forward pass.
+    """
     loss_sum, correct = 0.0, 0
     # Overflow on the way to a non-finite loss is detected here and reported as
     # divergence, so NumPy's warnings about it would only add noise.
     with np.errstate(over="ignore", invalid="ignore"):
         for idx in batches:
-            logits = net.forward(x[idx], training=True)          # (b, K)
+            batch = x[idx]                                       # (b, h, w, c), a copy
+            if augment:
+                batch = augment(batch, aug_rng)
+            logits = net.forward(batch, training=True)           # (b, K)
             loss, grad = softmax_cross_entropy(logits, y[idx], smoothing)
             if not math.isfinite(loss):
                 return loss_sum, correct, False

@@ -1,8 +1,9 @@
 """``tinyconv export DIR --pick one-se|best|CANDIDATE``: the pick, retrained, as int8 C.
 
 Reads the run folder a search wrote, chooses a candidate from its ranking,
-retrains it on all the data (the search's training settings; the epochs of
-its final rung unless ``--epochs`` is given), quantises it to int8 with
+retrains it on all the data (the search's training settings with the
+candidate's own recipe; the epochs of its final rung unless ``--epochs`` is
+given), quantises it to int8 with
 ``--calib`` calibration images and writes ``network.npz``, ``{prefix}.c``,
 ``{prefix}.h`` and ``summary.json`` into ``--out`` (default ``DIR/export``).
 Prints the sizes and how often the int8 network picks the float network's
@@ -27,8 +28,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
     """Options of the export command."""
     parser.add_argument("run_dir", metavar="DIR", help="the run folder a search wrote")
     parser.add_argument("--pick", default="one-se", metavar="one-se|best|CANDIDATE",
-                        help="which candidate: the one-standard-error pick (default), the "
-                             "best mean accuracy, or a candidate's architecture text")
+                        help="which candidate: the one-standard-error pick (default; simplest "
+                             "by the run's --simplest-by), the best mean accuracy, or a ranked "
+                             "candidate's text (with its recipe when the run has several)")
     parser.add_argument("--out", default=None, metavar="DIR2",
                         help="folder for the files (default DIR/export)")
     parser.add_argument("--epochs", type=positive_int, default=None, metavar="N",
@@ -145,6 +147,7 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
         When the retraining produced a non-finite loss.
     """
     from search.rank import rank_run
+    from search.recipes import arch_of, recipe_of, training_for
     from search.schedule import derive_seed
     from search.store import RunStore
     from tinyconv.arch import parse
@@ -178,18 +181,19 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
         raise RunError(f"the data {cfg['data']!r} changed since the search in {run_dir} "
                        f"(fingerprint {fingerprint(data)} instead of {cfg['fingerprint']}); "
                        "export needs the data the search ranked on")
-    arch = parse(candidate)
+    arch = parse(arch_of(candidate))
     n_classes = len(cfg["classes"])
     x = prepare(data.images, arch.input)                 # (n, h, w, c) float32 in [0, 1]
     mean, std = fit_normalisation(x)                     # all the data: nothing is held out
     seed = int(cfg.get("seed", 0))
     # early stopping needs held-out data, which a retrain on everything has not
-    training = {k: v for k, v in dict(cfg.get("training") or {}).items() if k != "patience"}
+    training = {k: v for k, v in training_for(cfg, candidate).items() if k != "patience"}
     config = TrainConfig(epochs=epochs, seed=derive_seed(seed, "export", candidate, "batches"),
                          **training)
     net = Network.from_arch(arch, n_classes, seed=derive_seed(seed, "export", candidate,
                                                               "weights"))
-    log(f"training {candidate} on all {len(data.labels)} images for {epochs} epochs")
+    recipe = recipe_of(cfg, candidate)
+    log(f"training {arch} ({recipe}) on all {len(data.labels)} images for {epochs} epochs")
 
     def on_epoch(epoch: int, stats: dict) -> None:
         log(f"  epoch {epoch}/{epochs}: loss {stats['train_loss']:.4f}, "
@@ -208,7 +212,8 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
     chosen = np.sort(rng.choice(len(pixels), size=min(int(calib), len(pixels)), replace=False))
     out_dir = Path(out_dir) if out_dir is not None else Path(run_dir) / "export"
     log(f"quantising with {len(chosen)} calibration images; writing {out_dir}")
-    meta = {"run": str(run_dir), "pick": pick, "candidate": candidate, "epochs": epochs,
+    meta = {"run": str(run_dir), "pick": pick, "candidate": candidate, "arch": str(arch),
+            "recipe": recipe, "simplest_by": cfg.get("simplest_by") or "params", "epochs": epochs,
             "data": cfg["data"], "fingerprint": cfg["fingerprint"], "training": training,
             "cv_acc_mean": float(row["acc_mean"]), "cv_acc_se": float(row["acc_se"]),
             "final_train_acc": float(hist.train_acc[-1])}

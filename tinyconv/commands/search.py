@@ -53,6 +53,12 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--rank-by", choices=("per-param", "accuracy"), default="per-param",
                    help="order of the ranking: accuracy over chance per 1,000 parameters "
                         "(default) or mean held-out accuracy")
+    g.add_argument("--simplest-by", choices=("params", "macs", "ram", "flash", "ms"),
+                   default="params",
+                   help="what the one-standard-error pick minimises among the candidates "
+                        "within one SE of the best: parameters (default), MACs, int8 peak "
+                        "RAM, int8 flash, or ms per image on the device (needs --core or a "
+                        "[device] table)")
     b = parser.add_argument_group("device budgets (override the space file's)")
     b.add_argument("--max-params", type=positive_int, default=None, metavar="N")
     b.add_argument("--max-macs", type=positive_int, default=None, metavar="N",
@@ -69,11 +75,20 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                         "cortex-m33")
     b.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
                    help="the device's clock (default: the core's assumed clock)")
-    t = parser.add_argument_group("training of every unit")
+    t = parser.add_argument_group("training of every unit (the recipe options replace the "
+                                  "space's [training] choices)")
     t.add_argument("--lr", type=positive_float, default=None,
-                   help="learning rate (default 0.003)")
+                   help="learning rate (default 0.005)")
+    t.add_argument("--schedule", choices=("constant", "step", "cosine"), default=None,
+                   help="learning-rate schedule over the epochs (default constant)")
+    t.add_argument("--augment", default=None, metavar="TEXT",
+                   help="augmentation of the training batches, e.g. shift2+mirror+upend+turn "
+                        "(default none; forms in the README)")
+    t.add_argument("--copies", type=positive_int, default=None, metavar="N",
+                   help="copies of each training image an epoch passes over, each augmented "
+                        "on its own (default 1)")
     t.add_argument("--batch-size", type=positive_int, default=None, metavar="N",
-                   help="images per mini-batch (default 32)")
+                   help="images per mini-batch (default 16)")
     t.add_argument("--optimizer", choices=("adam", "sgd"), default=None,
                    help="optimiser (default adam)")
     t.add_argument("--weight-decay", type=float, default=None, metavar="W",
@@ -105,7 +120,10 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
     from search.session import SearchRequest
     training = {k: v for k, v in (("lr", args.lr), ("batch_size", args.batch_size),
                                   ("optimizer", args.optimizer),
-                                  ("weight_decay", args.weight_decay)) if v is not None}
+                                  ("weight_decay", args.weight_decay),
+                                  ("schedule", args.schedule),
+                                  ("augment", args.augment),
+                                  ("copies", args.copies)) if v is not None}
     return SearchRequest(
         data=data, space=space, out=Path(out), folds=args.folds, seed=args.seed, eta=args.eta,
         max_epochs=args.max_epochs, min_epochs=args.min_epochs, full=args.full, max_candidates=args.max_candidates,
@@ -115,7 +133,8 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
         budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
         budget_epochs=args.budget_epochs, training=training, workers=args.workers,
         cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"),
-        skip_bad=bool(getattr(args, "skip_bad", False)), int8=bool(args.int8))
+        skip_bad=bool(getattr(args, "skip_bad", False)), int8=bool(args.int8),
+        simplest_by=args.simplest_by)
 
 
 class BarProgress(Progress):
@@ -197,11 +216,15 @@ def summary_lines(summary, top: int = 10) -> list[str]:
     if t.empty:
         lines.append("no candidate has finished every fold of a rung yet: nothing to rank")
         return lines
-    lines += ["", "rank: per-kparam, accuracy; * = pick (one-SE rule); p = corrected t-test "
-              "vs the best",
+    from search.rank import SIMPLEST_WORDS
+    simplest = getattr(summary, "simplest_by", "params")
+    lines += ["", f"rank: per-kparam, accuracy; * = pick (one-SE rule: "
+              f"{SIMPLEST_WORDS[simplest]}); p = corrected t-test vs the best",
               "  pp  acc  held-out     train  acc/kpar   params       MACs  pk KB  fl KB   ep"
               "      p  candidate"]
     lines += [_fmt_row(r) for r in t.head(top).itertuples()]
+    if "recipe" in t and t["recipe"].nunique() == 1 and t["recipe"].iloc[0]:
+        lines.append(f"recipe of every candidate: {t['recipe'].iloc[0]}")
     if len(t) > top:
         lines.append(f"  ... {len(t) - top} more in {summary.ranking_path}")
     pick = t[t["pick"]].iloc[0]
@@ -210,6 +233,7 @@ def summary_lines(summary, top: int = 10) -> list[str]:
                   f"{pick.acc_se:.3f} over {int(pick.folds)} folds, {int(pick.params):,} "
                   f"parameters, {pick.peak_kb:.1f} KB RAM, {pick.flash_kb:.1f} KB flash"
                   + (f", {pick.ms:.2f} ms per image (model)" if pick.ms == pick.ms else ""),
+              f"      ({SIMPLEST_WORDS[simplest]} within one standard error of the best)",
               f"best: {best.candidate}  {best.acc_mean:.3f} ± {best.acc_se:.3f}, "
               f"{int(best.params):,} parameters"]
     if "int8_acc_mean" in t and t["int8_acc_mean"].notna().any():

@@ -59,7 +59,8 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
     eval_set : str
         What the evaluation images are, for the summary.
     meta : dict, optional
-        Extra JSON-ready facts stored in ``network.npz``.
+        Extra JSON-ready facts stored in ``network.npz``; its ``recipe`` (the
+        training recipe, when exported from a run) also goes in the summary.
     cv_accuracy : (mean, se), optional
         The search's cross-validated accuracy, recorded in the summary.
     rounding : {"feedback", "nearest"}
@@ -126,7 +127,7 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
         n_eval=n_eval, agreement=agreement, float_accuracy=f_acc, int8_accuracy=q_acc,
         eval_set=eval_set, cv_accuracy=None if cv_accuracy is None else float(cv_accuracy[0]),
         cv_accuracy_se=None if cv_accuracy is None else float(cv_accuracy[1]),
-        files=tuple(str(f) for f in files))
+        files=tuple(str(f) for f in files), recipe=(meta or {}).get("recipe"))
     from tinyconv.device.calibration import save_calibration
     if device_images is None:
         device_images = eval_images if eval_images is not None else calib_images

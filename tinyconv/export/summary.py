@@ -47,6 +47,9 @@ class ExportSummary:
         and device.json when measured).
     device : dict or None
         The device measurement (``device.json``) when the export ran on a core.
+    recipe : str or None
+        The training recipe it was trained with (``search.recipes``), when
+        exported from a run.
     """
 
     arch: str
@@ -71,6 +74,7 @@ class ExportSummary:
     cv_accuracy_se: float | None = None
     files: tuple[str, ...] = ()
     device: dict | None = None
+    recipe: str | None = None
 
     def to_dict(self) -> dict:
         """Plain data (lists for tuples), ready for JSON."""
@@ -92,6 +96,7 @@ class ExportSummary:
     def lines(self) -> list[str]:
         """A short human-readable account (what the export command prints)."""
         out = [f"architecture  {self.arch}",
+               *([f"recipe        {self.recipe}"] if self.recipe else []),
                f"flash         {self.flash_bytes:,} bytes ({self.flash_bytes / 1024:.1f} KB) "
                "of constant arrays",
                f"arena         {self.arena_bytes:,} bytes ({self.arena_bytes / 1024:.1f} KB) "

@@ -43,6 +43,19 @@ def _keep(out: Assembled, name: str, fig: Figure) -> None:
     fig.clear()
 
 
+def recipe_titles(ranking: pd.DataFrame) -> dict[str, str] | None:
+    """Panel titles "architecture / short recipe" when a run has several recipes, e.g.
+    ``aug mirror+shift2 x8, lr 0.005 wd 0, constant`` under the architecture; else None."""
+    if "recipe" not in ranking.columns or ranking["recipe"].nunique() < 2:
+        return None
+    out = {}
+    for cand, arch, recipe in zip(ranking["candidate"], ranking["arch"], ranking["recipe"]):
+        words = dict(w.split("=", 1) for w in str(recipe).split())
+        out[cand] = (f"{arch}\n{words.get('aug')} x{words.get('copies')}, lr "
+                     f"{words.get('lr')} wd {words.get('wd')}, {words.get('sched')}")
+    return out
+
+
 def curve_finalists(data: RunData) -> list[str]:
     """The candidates whose learning curves are drawn: pick, best, then by rank."""
     fin = data.finalists.sort_values("rank_per_param", kind="stable")
@@ -101,7 +114,8 @@ def assemble(data: RunData) -> Assembled:
     out.curve_candidates = curve_finalists(data)
     done = data.units[data.units["status"] == "done"]
     _keep(out, "curves.png", learning_curves(done, out.curve_candidates, chance=chance,
-                                             pick=pick["candidate"]))
+                                             pick=pick["candidate"],
+                                             labels=recipe_titles(data.ranking)))
 
     out.tables["budgets.csv"] = budget_rows(budgets, pick, data.removed)
 

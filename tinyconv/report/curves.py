@@ -138,8 +138,9 @@ def learning_curves(units: pd.DataFrame, finalists: Sequence[object], *,
                         ha="center", va="center", color=PALETTE.chance, fontsize=9)
             chance_line(ax, chance)
             title = (labels or {}).get(cand, str(cand))
-            if len(title) > 38:
-                title = title[:36] + "\u2026"
+            # each line of the title at most 38 characters
+            title = "\n".join(line if len(line) <= 38 else line[:36] + "\u2026"
+                              for line in title.split("\n"))
             ax.set_title(("\u2605 " if cand == pick else "") + title, fontsize=9,
                          color=PALETTE.pick if cand == pick else PALETTE.ink)
             ax.set_xlabel("epoch")

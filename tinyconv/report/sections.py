@@ -65,30 +65,62 @@ RANKING_COLUMNS = (
     Column("p vs best", "p_vs_best", pvalue, title="corrected resampled t-test against the best"),
     Column("rank by accuracy", "rank_accuracy", num, title="rank by mean held-out accuracy"),
 )
+# Shown when the run trained candidates with several recipes.
+RECIPE_COLUMN = Column("recipe", "recipe", _code, numeric=False,
+                       title="augmentation, copies per epoch, learning rate, weight decay, "
+                             "schedule")
 # Shown when the search scored the int8 form (search --int8).
 INT8_COLUMN = Column("int8 acc", "int8_acc_mean", pct,
                      title="mean held-out accuracy of the int8 quantised network")
 
 
+#: --simplest-by name -> (ranking column, how to show a value, "N times ..." word,
+#: the superlative).
+MEASURES = {"params": ("params", lambda v: f"{num(v)} parameters", "fewer", "smallest"),
+            "macs": ("macs", lambda v: f"{num(v)} MACs per image", "fewer", "cheapest"),
+            "ram": ("peak_kb", lambda v: f"{num(v, 1)} KB of peak activation memory", "less",
+                    "leanest"),
+            "flash": ("flash_kb", lambda v: f"{num(v, 1)} KB of flash", "less", "smallest"),
+            "ms": ("ms", lambda v: f"{num(v, 2)} ms per image (cost model)", "faster",
+                   "fastest")}
+
+
+def simplest_by(data: RunData) -> str:
+    """What the run's one-SE pick minimised (``params`` for runs that did not say)."""
+    return str(data.config.get("simplest_by") or "params")
+
+
 def why_pick(data: RunData) -> str:
-    """One plain paragraph on why the pick was picked (the one-SE rule)."""
+    """One plain paragraph on why the pick was picked (the one-SE rule, by the run's measure)."""
+    from search.rank import SIMPLEST_WORDS
+
     pick, best = data.pick, data.best
     fin = data.finalists
     n_within = int(fin["within_1se"].astype(bool).sum())
     threshold = float(best["acc_mean"]) - float(best["acc_se"])
-    head = (f"The one-standard-error rule picks the candidate with the fewest parameters among "
-            f"those whose mean held-out accuracy is within one standard error of the best. The "
+    measure = simplest_by(data)
+    column, show, fewer, most = MEASURES[measure]
+    head = (f"The one-standard-error rule picks the candidate with {SIMPLEST_WORDS[measure]} "
+            f"among those whose mean held-out accuracy is within one standard error of the "
+            f"best (this run's --simplest-by {measure}). The "
             f"best, {best['candidate']}, scores {_acc_pm(best)}, so the bar is "
             f"{pct(threshold)}; {n_within} of the {len(fin)} finalists clear it")
     if pick["candidate"] == best["candidate"]:
-        return head + (f", and the best is itself the smallest of them "
-                       f"({num(pick['params'])} parameters).")
+        return head + (f", and the best is itself the {most} of them "
+                       f"({show(pick[column])}).")
     p = pvalue(pick.get("p_vs_best", math.nan)).replace("&lt;", "<")
-    return head + (f". The pick, {pick['candidate']}, has {num(pick['params'])} parameters "
-                   f"against the best's {num(best['params'])} "
-                   f"({float(best['params']) / max(float(pick['params']), 1):.1f} times fewer) and "
+    ratio = float(best[column]) / float(pick[column]) if float(pick[column]) > 0 else math.nan
+    times = f" ({ratio:.1f} times {fewer})" if ratio == ratio and ratio > 1 else ""
+    return head + (f". The pick, {pick['candidate']}, has {show(pick[column])} "
+                   f"against the best's {show(best[column])}{times} and "
                    f"scores {_acc_pm(pick)}, {100 * (best['acc_mean'] - pick['acc_mean']):.1f} "
                    f"points below the best (corrected paired t-test p = {p}).")
+
+
+def several_recipes(data: RunData) -> bool:
+    """Whether the run trained its candidates with more than one recipe."""
+    r = data.ranking
+    return "recipe" in r.columns and r["recipe"].nunique() > 1
 
 
 # A training accuracy this far above held-out accuracy is worth a warning (common
@@ -109,7 +141,8 @@ def pick_flags(data: RunData) -> list[str]:
     if gap > GAP_WARN:
         out.append(f"It over-fits: training accuracy is {100 * gap:.0f} points above held-out "
                    "accuracy. More images, regularisation (weight decay, "
-                   "dropout) or a smaller network may generalise better.")
+                   "dropout), augmentation that keeps the labels true (a [training] "
+                   "augment choice) or a smaller network may generalise better.")
     return out
 
 
@@ -126,8 +159,11 @@ def decision_panel(data: RunData) -> str:
           if "ms" in pick and pick["ms"] == pick["ms"] else ()),
         ("over-fitting gap", pct(pick["gap"]), f"training {pct(pick['train_acc_mean'])}"),
     ))
+    arch = pick["arch"] if "arch" in pick else pick["candidate"]
+    recipe = (paragraph(f"Trained with the recipe {pick['recipe']}.")
+              if "recipe" in pick and pick["recipe"] else "")
     return ('<div class="decision"><div><h2>The pick</h2>'
-            f'<p class="arch">{esc(str(pick["candidate"]))}</p>{paragraph(why_pick(data))}'
+            f'<p class="arch">{esc(str(arch))}</p>{recipe}{paragraph(why_pick(data))}'
             + "".join(f'<p class="flag">{esc(f)}</p>' for f in pick_flags(data))
             + f"</div><div>{t}</div></div>")
 
@@ -136,14 +172,23 @@ def ranking_section(data: RunData) -> Section:
     frame = data.ranking.copy()
     frame["_acc"] = [_acc_pm(r) for _, r in frame.iterrows()]
     columns = RANKING_COLUMNS
+    extra = []
+    if several_recipes(data):  # the architecture and its recipe side by side
+        columns = (columns[0], Column("architecture", "arch", _code, numeric=False),
+                   RECIPE_COLUMN) + columns[2:]
+    elif "recipe" in frame and len(frame) and frame["recipe"].iloc[0]:
+        extra.append(f"Every candidate was trained with one recipe: {frame['recipe'].iloc[0]} "
+                     "(augmentation, copies of each image per epoch, learning rate, weight "
+                     "decay, schedule).")
     if "int8_acc_mean" in frame and frame["int8_acc_mean"].notna().any():
-        columns = columns[:8] + (INT8_COLUMN,) + columns[8:]
+        at = [c.key for c in columns].index("_acc") + 1        # after the held-out accuracy
+        columns = columns[:at] + (INT8_COLUMN,) + columns[at:]
     if "ms" in frame and frame["ms"].notna().any():  # the run names a device
-        columns = columns[:6] + (MS_COLUMN,) + columns[6:]
+        at = [c.key for c in columns].index("flash_kb") + 1    # after the flash
+        columns = columns[:at] + (MS_COLUMN,) + columns[at:]
     body = table(frame, columns, highlight=list(frame["pick"].astype(bool)), css="ranking")
     n_lower = int((~data.ranking.get("finalist", pd.Series(True, index=frame.index))
                    .astype(bool)).sum())
-    extra = []
     if n_lower:
         extra.append(f"{_count(n_lower, 'candidate')} stopped at a lower rung (fewer epochs): "
                      "listed after the finalists, taking no part in the pick.")
@@ -152,7 +197,8 @@ def ranking_section(data: RunData) -> Section:
     return Section("ranking", "Ranking", body + "".join(paragraph(t) for t in extra),
                    lead="Mean held-out accuracy over the cross-validation folds with its "
                         "standard error, the size and cost of each candidate, and how it "
-                        "compares with the best. The highlighted row is the pick.")
+                        "compares with the best. The highlighted row is the pick (one-SE "
+                        f"rule, simplest by {simplest_by(data)}).")
 
 
 def folds_section(a: Assembled) -> Section:
