@@ -89,6 +89,7 @@ class SearchSummary:
     n_searched: int
     removed: dict
     workers: str
+    rank_by: str = "per_param"
 
 
 def _budget(space, request: SearchRequest):
@@ -189,7 +190,7 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     path = save_ranking(ranking, request.out)
     return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
                          len(filtered.survivors), len(texts), dict(filtered.over),
-                         executor.description)
+                         executor.description, request.rank_by)
 
 
 def _check_training(training: dict) -> None:

@@ -17,7 +17,7 @@ def test_quick_demo_prints_pick(tmp_path, capsys):
     text = capsys.readouterr().out
     table = pd.read_csv(out / "ranking.csv")
     pick = table[table["pick"]].iloc[0]
-    assert f"demo pick: {pick.candidate} ({pick.acc_mean:.3f}" in text
+    assert f"demo pick: {pick.candidate} ({100 * pick.acc_mean:.1f}% \u00b1 " in text
     assert (out / "report.html").is_file()
     assert (out / "export" / "tc.c").is_file()
     store = RunStore(out)

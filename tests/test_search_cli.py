@@ -35,7 +35,19 @@ def test_search_prints_summary_and_pick(space, tmp_path, capsys, monkeypatch):
     table = pd.read_csv(out / "ranking.csv")
     pick = table[table["pick"]].iloc[0]
     assert f"pick: {pick.candidate}" in text
-    assert list(table["rank_accuracy"]) == list(range(1, len(table) + 1))
+    # Row 1 of ranking.csv is the pick; then the groups in order, each by the asked order.
+    assert table["pick"].iloc[0] and table["group"].iloc[0] == "pick"
+    order = ["pick", "within_one_se", "outside_one_se", "stopped_early"]
+    assert list(table["group"].map(order.index)) == sorted(table["group"].map(order.index))
+    for _, rows in table.groupby("group"):
+        assert list(rows["rank_accuracy"]) == sorted(rows["rank_accuracy"])
+    # The terminal table has the same rows in the same order, the pick starred first.
+    names = set(table["candidate"])
+    shown = [word for line in text.splitlines() if line.startswith("  ")
+             for word in line.split()[:2] if word in names]
+    assert shown == list(table["candidate"])
+    assert text.count("\u2605") == 1 and f"\u2605 {pick.candidate}" in text
+    assert "pp acc" not in text and "pk KB" not in text and "fl KB" not in text
     assert f"ranking: {out / 'ranking.csv'}" in text
 
 

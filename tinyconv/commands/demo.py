@@ -15,7 +15,9 @@ import sys
 import time
 from pathlib import Path
 
-from tinyconv.commands.search import (BarProgress, summary_lines, write_report_if_available)
+from tinyconv import fmt
+from tinyconv.commands.progress import SearchProgress
+from tinyconv.commands.search import summary_lines, write_report_if_available
 
 #: Data, candidates and epochs of the full and the quick demo. On these tiles a
 #: network says little about its final accuracy before about 9 epochs (rank
@@ -91,7 +93,7 @@ def run(args: argparse.Namespace) -> int:
           f" demo) into {out}", file=sys.stderr, flush=True)
     print("demo: the first run on a machine also compiles the engine's kernels (about 20 s; "
           "cached for later runs)", file=sys.stderr, flush=True)
-    summary = run_search(request, BarProgress(None, None))
+    summary = run_search(request, SearchProgress(None, None))
     print("\n".join(summary_lines(summary)))
     code = 0
     if not summary.table.empty:
@@ -104,7 +106,7 @@ def run(args: argparse.Namespace) -> int:
     pick = summary.table[summary.table["pick"]] if not summary.table.empty else None
     if pick is not None and len(pick):
         row = pick.iloc[0]
-        print(f"demo pick: {row.candidate} ({row.acc_mean:.3f} ± {row.acc_se:.3f} held-out "
-              f"accuracy, {int(row.params):,} parameters) in "
+        print(f"demo pick: {row.candidate} ({fmt.accuracy(row.acc_mean, row.acc_se)} held-out "
+              f"accuracy, {fmt.count(row.params)} parameters) in "
               f"{time.perf_counter() - start:.0f} s")
     return code

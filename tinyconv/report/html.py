@@ -15,6 +15,7 @@ from typing import Callable, Iterable, Mapping, Sequence
 
 import pandas as pd
 
+from tinyconv import fmt
 from tinyconv.report.axes import DPI, SCREEN_DPI
 from tinyconv.report.palette import PALETTE
 
@@ -110,12 +111,8 @@ def bullet_list(items: Iterable[str]) -> str:
 
 
 def pct(v: object, digits: int = 1) -> str:
-    """0.9234 -> '92.3%'; missing -> an en dash."""
-    try:
-        f = float(v)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        return "\u2013"
-    return "\u2013" if not math.isfinite(f) else f"{100 * f:.{digits}f}%"
+    """0.9234 -> '92.3%'; missing -> an en dash (:func:`tinyconv.fmt.percent`)."""
+    return fmt.percent(v, digits)
 
 
 def num(v: object, digits: int = 0) -> str:
