@@ -16,6 +16,7 @@ import time
 from pathlib import Path
 
 from tinyconv import fmt
+from tinyconv.commands._notes import kernels_note
 from tinyconv.commands.progress import SearchProgress
 from tinyconv.commands.search import summary_lines, write_report_if_available
 
@@ -91,8 +92,9 @@ def run(args: argparse.Namespace) -> int:
     request = demo_request(out, args.quick, args.workers)
     print(f"demo: searching the tile demo space on {request.data} ({'quick' if args.quick else 'full'}"
           f" demo) into {out}", file=sys.stderr, flush=True)
-    print("demo: the first run on a machine also compiles the engine's kernels (about 20 s; "
-          "cached for later runs)", file=sys.stderr, flush=True)
+    note = kernels_note()
+    if note:
+        print(note, file=sys.stderr, flush=True)
     summary = run_search(request, SearchProgress(None, None))
     print("\n".join(summary_lines(summary)))
     code = 0

@@ -16,6 +16,7 @@ from pathlib import Path
 
 from search.config import parse_duration
 from tinyconv.commands._args import count, positive_float, positive_int
+from tinyconv.commands._notes import kernels_note
 from tinyconv.commands.progress import SearchProgress
 from tinyconv.commands.summary import STATE_TEXT, summary_lines  # noqa: F401  (used by demo)
 
@@ -134,6 +135,9 @@ def run(args: argparse.Namespace) -> int:
     from search.session import run_search
 
     request = request_from(args, args.data, args.space, args.out)
+    note = kernels_note()
+    if note:
+        print(note, file=sys.stderr, flush=True)
     progress = SearchProgress(request.budget_cpu_s, request.budget_epochs)
     summary = run_search(request, progress)
     print("\n".join(summary_lines(summary)))
