@@ -2,8 +2,9 @@
 
 :func:`run_search` is what ``tinyconv search`` and ``tinyconv demo`` call:
 
-1. load and fingerprint the data; read the space; apply budgets from the
-   command line over the space file's;
+1. read the space and check the run folder's store (both cheap), then load
+   and fingerprint the data, finding every data problem in one pass (the
+   folds included); apply budgets from the command line over the space file's;
 2. enumerate the candidates, cost them and drop those over budget (they are
    stored, marked, and never trained); optionally subsample the rest;
 3. assign stratified folds (seeded); open the run store (refusing a folder
@@ -31,6 +32,7 @@ from search.rank import rank_run, save_ranking
 from search.runner import Outcome, Progress, SearchLoop
 from search.schedule import derive_seed
 from search.store import RunStore
+from search.store_writer import check_folder
 from search.unit import UnitData
 
 #: Training settings of every unit unless told otherwise (TrainConfig fields).
@@ -142,10 +144,15 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
 def _search(request: SearchRequest, progress: Progress | None, work, local) -> SearchSummary:
     from search.folds import assign_folds
     from search.space import enumerate_space, filter_budget, load_space, subsample
-    from tinyconv.data import fingerprint, load_data
+    from tinyconv.data import load_data
 
-    dataset = load_data(request.data, skip_bad=request.skip_bad)
+    # What needs no image first: the options, the space file, the run folder's store.
+    _settings(request, None, None, {}, {})
+    training = {**DEFAULT_TRAINING, **request.training}
+    _check_training(training)
     space = load_space(request.space)
+    check_folder(request.out)
+    dataset = load_data(request.data, skip_bad=request.skip_bad, folds=request.folds)
     budget = _budget(space, request)
     n_classes = len(dataset.classes)
     archs = enumerate_space(space)
@@ -154,16 +161,8 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     if request.max_candidates is not None:
         pool = subsample(pool, request.max_candidates, derive_seed(request.seed, "subsample"))
     texts = [str(a) for a in pool]
-    training = {**DEFAULT_TRAINING, **request.training}
-    settings = SearchSettings(
-        data=_data_spec(request.data), fingerprint=fingerprint(dataset), classes=tuple(dataset.classes),
-        n_images=int(dataset.labels.size), space=space.text, space_source=str(space.source),
-        folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
-        min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
-        budget={k: getattr(budget, k) for k in BUDGET_KEYS.values()},
-        budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
-        training=training, skip_bad=request.skip_bad, int8=request.int8)
-    _check_training(training)
+    settings = _settings(request, space, dataset,
+                         {k: getattr(budget, k) for k in BUDGET_KEYS.values()}, training)
     folds = assign_folds(dataset.labels, request.folds, derive_seed(request.seed, "folds"),
                          classes=dataset.classes)
     table = filtered.table()
@@ -191,6 +190,22 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
                          len(filtered.survivors), len(texts), dict(filtered.over),
                          executor.description, request.rank_by)
+
+
+def _settings(request: SearchRequest, space, data, budget: dict,
+              training: dict) -> SearchSettings:
+    """The settings to store; with ``data=None`` a check of the options alone (before
+    any image is read: :class:`SearchSettings` checks its values when made)."""
+    from tinyconv.data import fingerprint
+    return SearchSettings(
+        data=_data_spec(request.data), fingerprint=fingerprint(data) if data else "",
+        classes=tuple(data.classes) if data else (),
+        n_images=int(data.labels.size) if data else 0,
+        space=getattr(space, "text", ""), space_source=str(getattr(space, "source", "")),
+        folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
+        min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
+        budget=budget, budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
+        training=training, skip_bad=request.skip_bad, int8=request.int8)
 
 
 def _check_training(training: dict) -> None:

@@ -76,10 +76,29 @@ def test_bad_options_exit_2(space, tmp_path, capsys, extra, message):
     assert message in capsys.readouterr().err
 
 
-def test_missing_space_file_exit_2(tmp_path, capsys):
-    """A space file that does not exist exits 2 naming the path."""
+def test_missing_space_file_exit_2(tmp_path, capsys, monkeypatch):
+    """A space file that does not exist exits 2 naming the path, before any image is read."""
+    import tinyconv.data.load as load
+
+    def no_reading(*args, **kwargs):
+        raise AssertionError("the data were read before the space file was checked")
+
+    monkeypatch.setattr(load, "survey", no_reading)
     assert main(_args(tmp_path / "nope.toml", tmp_path / "run")) == 2
     assert "nope.toml" in capsys.readouterr().err
+
+
+def test_a_damaged_store_is_found_before_any_image_is_read(space, tmp_path, capsys,
+                                                           monkeypatch):
+    """A run folder whose store is damaged exits 2 without reading the data first."""
+    import tinyconv.data.load as load
+
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "run.sqlite").write_bytes(b"not a database, " * 512)
+    monkeypatch.setattr(load, "survey", lambda *a, **k: pytest.fail("the data were read"))
+    assert main(_args(space, run)) == 2
+    assert "run.sqlite" in capsys.readouterr().err
 
 
 def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monkeypatch):
@@ -90,7 +109,7 @@ def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monk
 
     import tinyconv.commands.search as cmd
     from search.store import RunStore
-    from tinyconv.data import DataWarning, load_data
+    from tinyconv.data import load_data
     monkeypatch.setattr(cmd, "write_report_if_available", lambda d: ("missing", "skipped"))
     tiles = load_data(DATA)
     folder = tmp_path / "photos"
@@ -107,8 +126,9 @@ def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monk
     assert main(args + ["--out", "first"]) == 2
     err = capsys.readouterr().err
     assert "1 unreadable image file" in err and str(broken) in err and "--skip-bad" in err
-    with pytest.warns(DataWarning, match="skipped 1 unreadable image file"):
-        assert main(args + ["--out", "second", "--skip-bad"]) == 0
+    assert main(args + ["--out", "second", "--skip-bad"]) == 0
+    # the data warning reaches the user as the tool's own line (no Python warning text)
+    assert "\nwarning: skipped 1 unreadable image file: " in "\n" + capsys.readouterr().err
     with RunStore(tmp_path / "second") as store:
         config = store.config()
     assert config["skip_bad"] is True and config["n_images"] == tiles.labels.size
