@@ -12,7 +12,8 @@ import pytest
 
 from tinyconv.report.html import Column, esc, num, page, pct, pvalue, table
 from tinyconv.report.rundata import PickPredictions, RunData
-from tinyconv.report.sections import pick_flags, units_summary, why_pick
+from tinyconv.report.decision import pick_flags, why_pick
+from tinyconv.report.sections import units_summary
 from tinyconv.report.writer import render_report
 
 CLASSES = ("ring", "<b>cross</b> & co", "bar")

@@ -6,14 +6,14 @@ import json
 import math
 from typing import Any
 
-import pandas as pd
-
-from tinyconv import fmt
 from tinyconv.report.assemble import Assembled
 from tinyconv.report.html import (Column, Section, bullet_list, definitions, esc, figure, notice,
-                                  num, paragraph, pct, pvalue, table, tiles)
+                                  num, paragraph, pct, table)
+from tinyconv.report.ranking_table import ranking_section
 from tinyconv.report.rundata import RunData
+from tinyconv.report.shipping import device_section
 from tinyconv.report.tables import TABLE_FILES
+from tinyconv.report.words import code, count
 
 CAUTIONS = (
     "Held-out accuracy measures how well the network does on this data set, split this way; "
@@ -34,154 +34,6 @@ CAUTIONS = (
 )
 
 
-def _count(n: int, noun: str) -> str:
-    """'1 candidate', '3 candidates'."""
-    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
-
-
-def _code(v: object) -> str:
-    return f"<code>{esc(str(v))}</code>"
-
-
-def _acc_pm(row: pd.Series) -> str:
-    return fmt.accuracy(row["acc_mean"], row["acc_se"])
-
-
-MS_COLUMN = Column("time (ms)", "ms", lambda v: num(v, 2),
-                   title="milliseconds per image on the run's device (cost model)")
-#: The group column's words (search.rank.GROUPS); a lower rung says which.
-GROUP_WORDS = {"pick": "the pick", "within_one_se": "within one SE of the best",
-               "outside_one_se": "further from the best"}
-RANKING_COLUMNS = (
-    Column("order", "_order", num, title="the row's place in ranking.csv"),
-    Column("group", "_group", esc, numeric=False,
-           title="the pick, the others within one standard error of the best, the rest, "
-                 "and candidates stopped at a lower rung"),
-    Column("candidate", "candidate", _code, numeric=False),
-    Column("held-out accuracy", "_acc", esc, title="mean over folds \u00b1 standard error"),
-    Column("training accuracy", "train_acc_mean", pct),
-    Column("over-fitting gap", "gap", lambda v: pct(v, 1),
-           title="training minus held-out accuracy"),
-    Column("gain per 1,000 parameters", "acc_per_kparam", lambda v: num(100 * float(v), 2),
-           title="percentage points of held-out accuracy above chance per 1,000 parameters"),
-    Column("parameters", "params", num),
-    Column("MACs per image", "macs", num, title="multiply-accumulates per image"),
-    Column("peak RAM (KB)", "peak_kb", lambda v: num(v, 1),
-           title="peak activation memory, int8"),
-    Column("flash (KB)", "flash_kb", lambda v: num(v, 1), title="int8 weights and tables"),
-    Column("epochs", "epochs", num),
-    Column("p against the best", "p_vs_best", pvalue,
-           title="corrected resampled t-test against the best"),
-)
-# Shown when the search scored the int8 form (search --int8).
-INT8_COLUMN = Column("int8 accuracy", "int8_acc_mean", pct,
-                     title="mean held-out accuracy of the int8 quantised network")
-
-
-def group_words(row: pd.Series) -> str:
-    """The group of a ranking row in words; a lower rung names its rung and epochs."""
-    group = str(row.get("group", ""))
-    if group in GROUP_WORDS:
-        return GROUP_WORDS[group]
-    return f"stopped at rung {int(row['rung']) + 1} ({_count(int(row['epochs']), 'epoch')})"
-
-
-def ranking_legend(by: str | None) -> str:
-    """How the ranking's rows are ordered, in one sentence."""
-    order = ("mean held-out accuracy" if by == "accuracy"
-             else "accuracy gained over chance per 1,000 parameters")
-    return ("Rows: the pick (highlighted), then the other candidates within one standard "
-            "error of the best, then the rest, each group ordered by " + order + ". "
-            "Candidates stopped at a lower rung come last: they were measured after fewer "
-            "epochs, so they are not compared with the finalists and are never picked.")
-
-
-def why_pick(data: RunData) -> str:
-    """One plain paragraph on why the pick was picked (the one-SE rule)."""
-    pick, best = data.pick, data.best
-    fin = data.finalists
-    n_within = int(fin["within_1se"].astype(bool).sum())
-    threshold = float(best["acc_mean"]) - float(best["acc_se"])
-    head = (f"The one-standard-error rule picks the candidate with the fewest parameters among "
-            f"those whose mean held-out accuracy is within one standard error of the best. The "
-            f"best, {best['candidate']}, scores {_acc_pm(best)}, so the bar is "
-            f"{pct(threshold)}; {n_within} of the {len(fin)} finalists clear it")
-    if pick["candidate"] == best["candidate"]:
-        return head + (f", and the best is itself the smallest of them "
-                       f"({num(pick['params'])} parameters).")
-    p = pvalue(pick.get("p_vs_best", math.nan)).replace("&lt;", "<")
-    return head + (f". The pick, {pick['candidate']}, has {num(pick['params'])} parameters "
-                   f"against the best's {num(best['params'])} "
-                   f"({float(best['params']) / max(float(pick['params']), 1):.1f} times fewer) and "
-                   f"scores {_acc_pm(pick)}, {100 * (best['acc_mean'] - pick['acc_mean']):.1f} "
-                   f"points below the best (corrected paired t-test p = {p}).")
-
-
-# A training accuracy this far above held-out accuracy is worth a warning (common
-# practice: a gap of several points already means the network memorises).
-GAP_WARN = 0.10
-
-
-def pick_flags(data: RunData) -> list[str]:
-    """Plain warnings about the pick: near chance, or over-fitting."""
-    pick = data.pick
-    out = []
-    acc, se, chance = float(pick["acc_mean"]), float(pick["acc_se"]), data.chance
-    if acc - 2 * se <= chance:
-        out.append(f"Its held-out accuracy ({fmt.accuracy(acc, se)}) is within two standard "
-                   f"errors of chance ({pct(chance)}): no candidate learned much. Try more "
-                   "images, more epochs or another space before shipping anything.")
-    gap = float(pick["gap"])
-    if gap > GAP_WARN:
-        out.append(f"It over-fits: training accuracy is {100 * gap:.0f} points above held-out "
-                   "accuracy. More images, regularisation (weight decay, "
-                   "dropout) or a smaller network may generalise better.")
-    return out
-
-
-def decision_panel(data: RunData) -> str:
-    """The panel under the header: the pick, in words and headline numbers."""
-    pick = data.pick
-    t = tiles((
-        ("held-out accuracy", pct(pick["acc_mean"]), f"\u00b1 {pct(pick['acc_se'])} SE over "
-         f"{int(pick['folds'])} folds"),
-        ("parameters", num(pick["params"]), f"{num(pick['macs'])} MACs per image"),
-        ("flash", f"{num(pick['flash_kb'], 1)} KB", "int8 weights and tables"),
-        ("peak memory", f"{num(pick['peak_kb'], 1)} KB", "int8 activations"),
-        *((("time", f"{num(pick['ms'], 2)} ms", "per image on the device (cost model)"),)
-          if "ms" in pick and pick["ms"] == pick["ms"] else ()),
-        ("over-fitting gap", pct(pick["gap"]), f"training {pct(pick['train_acc_mean'])}"),
-    ))
-    return ('<div class="decision"><div><h2>The pick</h2>'
-            f'<p class="arch">{esc(str(pick["candidate"]))}</p>{paragraph(why_pick(data))}'
-            + "".join(f'<p class="flag">{esc(f)}</p>' for f in pick_flags(data))
-            + f"</div><div>{t}</div></div>")
-
-
-def ranking_section(data: RunData) -> Section:
-    frame = data.ranking.copy()
-    frame["_acc"] = [_acc_pm(r) for _, r in frame.iterrows()]
-    frame["_order"] = range(1, len(frame) + 1)
-    frame["_group"] = [group_words(r) for _, r in frame.iterrows()]
-    columns = RANKING_COLUMNS
-    if "int8_acc_mean" in frame and frame["int8_acc_mean"].notna().any():
-        columns = columns[:5] + (INT8_COLUMN,) + columns[5:]
-    if "ms" in frame and frame["ms"].notna().any():  # the run names a device
-        columns = columns[:-2] + (MS_COLUMN,) + columns[-2:]
-    body = table(frame, columns, highlight=list(frame["pick"].astype(bool)), css="ranking")
-    n_lower = int((~data.ranking.get("finalist", pd.Series(True, index=frame.index))
-                   .astype(bool)).sum())
-    extra = []
-    if n_lower:
-        extra.append(f"{_count(n_lower, 'candidate')} stopped at a lower rung (fewer epochs): "
-                     "listed last, taking no part in the pick.")
-    extra.append(f"Chance accuracy with {len(data.classes)} classes is {pct(data.chance)}; "
-                 "the gain per 1,000 parameters counts only the part above chance. "
-                 "ranking.csv holds the same rows in the same order, with the group of each.")
-    return Section("ranking", "Ranking", body + "".join(paragraph(t) for t in extra),
-                   lead=ranking_legend(data.rank_by))
-
-
 def folds_section(a: Assembled) -> Section:
     fig = figure(a.figures["folds.png"], "box plots of per-fold accuracy",
                  "Each pair of boxes is one candidate: the dark box its held-out accuracy on "
@@ -190,7 +42,7 @@ def folds_section(a: Assembled) -> Section:
     lead = "Per-fold accuracy, ordered by parameter count."
     if a.boxes_left_out:
         lead += (f" Only the finalists and the best-ranked others are drawn; "
-                 f"{_count(a.boxes_left_out, 'candidate')} more are in folds.csv.")
+                 f"{count(a.boxes_left_out, 'candidate')} more are in folds.csv.")
     return Section("folds", "Spread and over-fitting", f'<div class="figs">{fig}</div>',
                    lead=lead)
 
@@ -263,14 +115,14 @@ def budget_summary(data: RunData) -> str:
     n = len(cands)
     within = int(cands["within_budget"].astype(bool).sum())
     over = ", ".join(f"{k}: {v}" for k, v in data.removed.items() if v)
-    text = (f"The space held {_count(n, 'candidate')}; {within} fit every budget"
+    text = (f"The space held {count(n, 'candidate')}; {within} fit every budget"
             + (f" (removed, per budget: {over}; a candidate over two budgets counts twice)"
                if over else ""))
     if "scheduled" in cands.columns:
         scheduled = int(cands["scheduled"].astype(bool).sum())
         if scheduled != within:
             text += f", and {scheduled} of those were taken into the search"
-    text += (f". {_count(len(data.ranking), 'candidate')} finished every fold of a rung "
+    text += (f". {count(len(data.ranking), 'candidate')} finished every fold of a rung "
              "and are ranked.")
     if data.outcome and data.outcome.get("state"):
         text += (f" The last search session ended: {data.outcome['state']} (details under "
@@ -292,7 +144,7 @@ def units_summary(data: RunData) -> str:
     bad = u[u["status"] != "done"]
     if len(bad):
         html += "<h3>Units that did not finish</h3>" + table(bad.head(50), (
-            Column("candidate", "candidate", _code, numeric=False),
+            Column("candidate", "candidate", code, numeric=False),
             Column("fold", "fold", num), Column("rung", "rung", num),
             Column("epochs", "epochs", num),
             Column("status", "status", esc, numeric=False),
@@ -318,7 +170,7 @@ def budget_section(data: RunData, a: Assembled) -> Section:
                            for v, u in zip(b["limit"], b["unit"])]
         shown["_pick"] = [num(v, 0 if u in ("count", "MACs") else 1)
                           for v, u in zip(b["pick"], b["unit"])]
-        body = table(shown, (Column("budget", "budget", _code, numeric=False),
+        body = table(shown, (Column("budget", "budget", code, numeric=False),
                              Column("limits", "limits", esc, numeric=False),
                              Column("limit", "_limit", esc), Column("pick", "_pick", esc),
                              Column("unit", "unit", esc, numeric=False),
@@ -345,7 +197,7 @@ def _config_value(v: Any) -> str:
     if v is None:
         return "\u2013"
     if isinstance(v, str):
-        return f"<pre>{esc(v.rstrip())}</pre>" if "\n" in v else _code(v)
+        return f"<pre>{esc(v.rstrip())}</pre>" if "\n" in v else code(v)
     if isinstance(v, (list, tuple)) and all(not isinstance(x, (dict, list)) for x in v):
         return esc(", ".join(str(x) for x in v))
     if isinstance(v, dict):
@@ -364,37 +216,6 @@ def _plain(x: Any) -> str:
     if isinstance(x, (list, tuple)):
         return ", ".join(_plain(i) for i in x) if x else "none"
     return str(x)
-
-
-def device_section(data: RunData) -> Section | None:
-    """The exported pick measured on an emulated core (``export/device.json``)."""
-    d = data.device
-    if not d:
-        return None
-    est = d.get("estimate", {})
-
-    def row(what: str, measured: object, model: object, digits: int = 0) -> tuple:
-        return (what, num(measured, digits), num(model, digits))
-    rows = [row("instructions per image", d["instructions"], est.get("instructions")),
-            row("instructions per MAC", d["instructions_per_mac"],
-                (est.get("instructions") or 0) / max(d.get("macs") or 1, 1), 2),
-            row(f"ms per image at {num(d['clock_mhz'])} MHz", d["ms_at_clock"],
-                est.get("ms_at_clock"), 2),
-            row("flash bytes (code + constants)", d["flash_bytes"], est.get("flash_bytes")),
-            row("RAM bytes (activations + stack)", d["ram_bytes"], est.get("ram_bytes"))]
-    body = ("<table><thead><tr><th>figure</th><th>measured</th><th>cost model</th></tr>"
-            "</thead><tbody>" + "".join(f"<tr><td>{esc(a)}</td><td>{b}</td><td>{c}</td></tr>"
-                                        for a, b, c in rows) + "</tbody></table>")
-    exact = ("every logit of every image equals the NumPy integer reference (bit-exact)"
-             if d["bit_exact"] else f"{d['mismatched_images']} images differ from the "
-             "NumPy integer reference: do not ship this build")
-    body += paragraph(
-        f"The exported int8 C of {d['arch']}, cross-compiled with arm-none-eabi-gcc "
-        f"{d.get('compiler_opt', '')} for {d['core']} and run under QEMU ({d['board']}, "
-        f"exact instruction counting) on {d['images']} images held out of the calibration: "
-        f"{exact}. The time assumes {d['cpi']:g} cycles per instruction (QEMU counts "
-        "instructions, not cycles); measure on the part before relying on it.")
-    return Section("device", "On the device", body)
 
 
 def cautions_section() -> Section:
