@@ -138,3 +138,21 @@ def test_not_a_run_folder(tmp_path):
     """A folder without a store is refused with exit code 2."""
     code, _, stderr = cli("export", str(tmp_path))
     assert code == 2 and "no run here" in stderr
+
+
+@pytest.mark.slow
+def test_export_into_the_run_folder_refreshes_the_report(tmp_path):
+    """After `tinyconv export DIR` the report shows the int8 agreement and the per-layer costs."""
+    run = make_run(tmp_path / "run")
+    code, stdout, stderr = cli("export", str(run), "--calib", "8")
+    assert code == 0, stderr
+    assert stdout.rstrip().endswith(f"report: {run / 'report.html'}")
+    page = (run / "report.html").read_text(encoding="utf-8")
+    summary = json.loads((run / "export" / "summary.json").read_text())
+    assert "int8 agreement with the float network" in page
+    assert f"{100 * summary['agreement']:.1f}% of 48 images (the same class chosen)" in page
+    assert '<section id="cost">' in page
+    costs = pd.read_csv(run / "pick_cost.csv")
+    assert list(costs["step"]) == [r.name for r in cost_of(summary["arch"], 8).rows]
+    for step in costs["step"]:
+        assert f"<code>{step}</code>" in page

@@ -19,6 +19,10 @@ from tinyconv.report.writer import render_report
 CLASSES = ("ring", "<b>cross</b> & co", "bar")
 
 
+# The three finalists' architecture texts (their figures below are made up).
+NAMES = {"a": "8x8gray/d4", "b": "8x8gray/c4k3-p2", "c": "8x8gray/c8k3-p2-c16k3-p2"}
+
+
 def _run(pick_is_best: bool) -> RunData:
     """Three finalists; the pick is the smallest within one SE of the best."""
     accs = {"a": [0.80, 0.82, 0.81], "b": [0.86, 0.88, 0.87], "c": [0.85, 0.89, 0.93]}
@@ -28,14 +32,14 @@ def _run(pick_is_best: bool) -> RunData:
     rows, units = [], []
     for name, acc in accs.items():
         a = np.array(acc)
-        rows.append({"candidate": f"8x8gray/{name}", "params": params[name], "macs": 10 * params[name],
+        rows.append({"candidate": NAMES[name], "params": params[name], "macs": 10 * params[name],
                      "peak_kb": 1.0, "flash_kb": params[name] / 1024, "rung": 1, "epochs": 4,
                      "folds": 3, "acc_mean": a.mean(), "acc_se": a.std(ddof=1) / np.sqrt(3),
                      "train_acc_mean": a.mean() + 0.05, "gap": 0.05,
                      "acc_per_kparam": (a.mean() - 1 / 3) / (params[name] / 1000),
                      "p_vs_best": 0.04, "finalist": True})
         for f, v in enumerate(acc):
-            units.append({"candidate": f"8x8gray/{name}", "fold": f, "rung": 1, "epochs": 4,
+            units.append({"candidate": NAMES[name], "fold": f, "rung": 1, "epochs": 4,
                           "status": "done", "val_acc": v, "train_acc": v + 0.05,
                           "history": json.dumps({"val_acc": [v / 2, v], "train_acc": [v / 2, v]})})
     r = pd.DataFrame(rows)
@@ -65,7 +69,7 @@ def test_why_pick_gives_the_rule_the_bar_and_the_trade():
     """The reason names the rule, the best, the bar (best minus SE) and the size saving."""
     data = _run(pick_is_best=False)
     best, pick = data.best, data.pick
-    assert pick["candidate"] == "8x8gray/b" and best["candidate"] == "8x8gray/c"
+    assert pick["candidate"] == NAMES["b"] and best["candidate"] == NAMES["c"]
     text = why_pick(data)
     bar = best["acc_mean"] - best["acc_se"]
     assert "one-standard-error rule" in text and f"the bar is {100 * bar:.1f}%" in text

@@ -17,6 +17,7 @@ from tinyconv.report.curves import learning_curves
 from tinyconv.report.gallery import (confident_mistakes, confusion_examples,
                                      confusion_gallery, mistakes_gallery)
 from tinyconv.report.pareto import pareto_plot
+from tinyconv.report.pick_cost import pick_cost_table
 from tinyconv.report.rundata import RunData, fold_scores
 
 MAX_FINALIST_CURVES = 6
@@ -104,6 +105,8 @@ def assemble(data: RunData) -> Assembled:
                                              pick=pick["candidate"]))
 
     out.tables["budgets.csv"] = budget_rows(budgets, pick, data.removed)
+    out.tables["pick_cost.csv"] = pick_cost_table(str(pick["candidate"]), len(data.classes),
+                                                  budgets.get("core"), budgets.get("clock_mhz"))
 
     p = data.predictions
     classes = list(data.classes)

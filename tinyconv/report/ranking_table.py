@@ -42,6 +42,9 @@ INT8_COLUMN = Column("int8 accuracy", "int8_acc_mean", pct,
 def group_words(row: pd.Series) -> str:
     """The group of a ranking row in words; a lower rung names its rung and epochs."""
     group = str(row.get("group", ""))
+    if group not in GROUP_WORDS and bool(row.get("finalist", True)):  # a table without groups
+        group = ("pick" if row.get("pick") else "within_one_se" if row.get("within_1se")
+                 else "outside_one_se")
     if group in GROUP_WORDS:
         return GROUP_WORDS[group]
     return f"stopped at rung {int(row['rung']) + 1} ({count(int(row['epochs']), 'epoch')})"
