@@ -12,7 +12,8 @@ import pytest
 
 from tinyconv.report.html import Column, esc, num, page, pct, pvalue, table
 from tinyconv.report.rundata import PickPredictions, RunData
-from tinyconv.report.decision import pick_flags, why_pick
+from tinyconv.report.decision import (against_budget, decision_panel, fewer_parameters,
+                                      pick_flags, why_pick)
 from tinyconv.report.sections import units_summary
 from tinyconv.report.writer import render_report
 
@@ -75,6 +76,26 @@ def test_why_pick_gives_the_rule_the_bar_and_the_trade():
     assert "one-standard-error rule" in text and f"the bar is {100 * bar:.1f}%" in text
     assert "4.5 times fewer" in text          # 9,000 / 2,000 parameters
     assert "2 of the 3 finalists clear it" in text and "p = 0.040" in text
+
+
+@pytest.mark.parametrize("pick,best,words", [
+    (2_000, 9_000, "4.5 times fewer"), (18_000, 19_080, "1,080 fewer (6% fewer)"),
+    (5_000, 9_000, "4,000 fewer (44% fewer)"), (700, 700, "the same number"),
+])
+def test_fewer_parameters_in_plain_words(pick, best, words):
+    """A ratio near 1 reads as a count and a percentage, never as '1.0 times fewer'."""
+    assert fewer_parameters(pick, best) == words
+
+
+def test_the_card_shows_each_cost_against_its_budget_and_points_to_the_cautions():
+    """Tiles give each figure's share of its budget (or say none is set); a link leads to
+    the cautions section."""
+    data = _run(pick_is_best=False)
+    html = decision_panel(data)
+    assert f"{100 * 2_000 / 10_000:.0f}% of the 10,000 budget" in html   # max_params
+    assert html.count("no budget set") == 3             # MACs, flash, peak: no limit given
+    assert '<a href="#cautions">' in html
+    assert against_budget(20.0, 256, " KB") == "8% of the 256 KB budget"
 
 
 def test_why_pick_when_the_best_is_also_the_smallest():

@@ -9,6 +9,32 @@ from tinyconv.report.html import esc, num, paragraph, pct, pvalue, tiles
 from tinyconv.report.rundata import RunData
 from tinyconv.report.words import acc_pm
 
+
+def fewer_parameters(pick: float, best: float) -> str:
+    """How much smaller the pick is than the best, in the plainest words that fit.
+
+    ``'4.5 times fewer'`` from a factor of 2 on, ``'3,000 fewer (25% fewer)'`` below
+    it, ``'the same number'`` when equal.
+    """
+    pick, best = float(pick), float(best)
+    if pick >= best:
+        return "the same number" if pick == best else f"{fmt.count(pick - best)} more"
+    if best >= 2 * pick:
+        return f"{best / max(pick, 1):.1f} times fewer"
+    return f"{fmt.count(best - pick)} fewer ({100 * (1 - pick / best):.0f}% fewer)"
+
+
+def against_budget(value: float, budget: object, unit: str = "", digits: int = 0) -> str:
+    """``'38% of the 50,000 budget'``, or ``'no budget set'``."""
+    try:
+        limit = float(budget)  # type: ignore[arg-type]
+    except (TypeError, ValueError):
+        return "no budget set"
+    if not (math.isfinite(limit) and limit > 0):
+        return "no budget set"
+    return f"{100 * float(value) / limit:.0f}% of the {num(limit, digits)}{unit} budget"
+
+
 def why_pick(data: RunData) -> str:
     """One plain paragraph on why the pick was picked (the one-SE rule)."""
     pick, best = data.pick, data.best
@@ -25,7 +51,7 @@ def why_pick(data: RunData) -> str:
     p = pvalue(pick.get("p_vs_best", math.nan)).replace("&lt;", "<")
     return head + (f". The pick, {pick['candidate']}, has {num(pick['params'])} parameters "
                    f"against the best's {num(best['params'])} "
-                   f"({float(best['params']) / max(float(pick['params']), 1):.1f} times fewer) and "
+                   f"({fewer_parameters(pick['params'], best['params'])}) and "
                    f"scores {acc_pm(pick)}, {100 * (best['acc_mean'] - pick['acc_mean']):.1f} "
                    f"points below the best (corrected paired t-test p = {p}).")
 
@@ -55,17 +81,25 @@ def pick_flags(data: RunData) -> list[str]:
 def decision_panel(data: RunData) -> str:
     """The panel under the header: the pick, in words and headline numbers."""
     pick = data.pick
+    b = data.config.get("budget") or {}
+    timed = "ms" in pick and pick["ms"] == pick["ms"]
     t = tiles((
         ("held-out accuracy", pct(pick["acc_mean"]), f"\u00b1 {pct(pick['acc_se'])} SE over "
          f"{int(pick['folds'])} folds"),
-        ("parameters", num(pick["params"]), f"{num(pick['macs'])} MACs per image"),
-        ("flash", f"{num(pick['flash_kb'], 1)} KB", "int8 weights and tables"),
-        ("peak memory", f"{num(pick['peak_kb'], 1)} KB", "int8 activations"),
-        *((("time", f"{num(pick['ms'], 2)} ms", "per image on the device (cost model)"),)
-          if "ms" in pick and pick["ms"] == pick["ms"] else ()),
+        ("parameters", num(pick["params"]), against_budget(pick["params"], b.get("max_params"))),
+        ("MACs per image", num(pick["macs"]), against_budget(pick["macs"], b.get("max_macs"))),
+        ("flash (int8)", f"{num(pick['flash_kb'], 1)} KB",
+         against_budget(pick["flash_kb"], b.get("max_flash_kb"), " KB")),
+        ("peak activations (int8)", f"{num(pick['peak_kb'], 1)} KB",
+         against_budget(pick["peak_kb"], b.get("max_peak_kb"), " KB")),
+        *((("time per image (model)", f"{num(pick['ms'], 2)} ms",
+            against_budget(pick["ms"], b.get("max_ms"), " ms", 1)),) if timed else ()),
         ("over-fitting gap", pct(pick["gap"]), f"training {pct(pick['train_acc_mean'])}"),
     ))
+    caution = ('<p class="tocautions">Before shipping it, read <a href="#cautions">the '
+               "cautions</a>: accuracy on this data is not accuracy in the world, and what "
+               "the camera and the backgrounds leak into the labels can look like skill.</p>")
     return ('<div class="decision"><div><h2>The pick</h2>'
             f'<p class="arch">{esc(str(pick["candidate"]))}</p>{paragraph(why_pick(data))}'
             + "".join(f'<p class="flag">{esc(f)}</p>' for f in pick_flags(data))
-            + f"</div><div>{t}</div></div>")
+            + caution + f"</div><div>{t}</div></div>")

@@ -167,6 +167,8 @@ nav.toc a span {{ color: var(--muted); margin-right: 4px; }}
 .decision .arch {{ font: 600 17px/1.35 "DejaVu Sans Mono", "Liberation Mono", monospace;
   word-break: break-all; margin: 0 0 10px; }}
 .decision p {{ margin: 0; font-size: 14px; }}
+.decision p.tocautions {{ margin-top: 10px; font-size: 13px; color: var(--muted); }}
+.decision p.tocautions a {{ color: var(--held); font-weight: 600; }}
 .decision p.flag {{ margin-top: 10px; padding: 6px 10px; background: var(--band);
   border-left: 3px solid var(--pick); }}
 .tiles {{ display: grid; grid-template-columns: repeat(3, minmax(120px, 1fr)); gap: 16px 14px; }}
