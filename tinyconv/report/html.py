@@ -187,13 +187,15 @@ h3 {{ font-size: 15px; margin: 22px 0 6px; }}
 table {{ border-collapse: collapse; width: 100%; font-size: 13px; }}
 th, td {{ padding: 6px 8px; border-bottom: 1px solid var(--rule); white-space: nowrap; }}
 td.txt {{ white-space: normal; }}
-table.ranking td.txt {{ min-width: 15em; }}
+table.ranking td.txt {{ min-width: 11em; }}
+table.ranking th, table.ranking td {{ padding: 5px 5px; }}
 th {{ text-align: left; font-size: 11px; text-transform: uppercase; letter-spacing: .03em;
   white-space: normal; vertical-align: bottom;
   color: var(--muted); background: #f3eee3; border-bottom: 1.5px solid var(--ink); }}
 td.num, th.num {{ text-align: right; }}
 td.txt code {{ font: 12px "DejaVu Sans Mono", "Liberation Mono", monospace;
   word-break: break-all; }}
+td.txt code.arch {{ word-break: normal; }}
 tbody tr:nth-child(even) td {{ background: #fcfaf6; }}
 tr.pick td {{ background: var(--band) !important; font-weight: 700; }}
 tr.pick td:first-child {{ box-shadow: inset 5px 0 0 var(--pick); }}

@@ -6,7 +6,7 @@ import pandas as pd
 
 from tinyconv.report.html import Column, Section, esc, num, paragraph, pct, pvalue, table
 from tinyconv.report.rundata import RunData
-from tinyconv.report.words import acc_pm, code, count
+from tinyconv.report.words import acc_pm, arch_code, count
 
 MS_COLUMN = Column("time (ms)", "ms", lambda v: num(v, 2),
                    title="milliseconds per image on the run's device (cost model)")
@@ -18,7 +18,7 @@ RANKING_COLUMNS = (
     Column("group", "_group", esc, numeric=False,
            title="the pick, the others within one standard error of the best, the rest, "
                  "and candidates stopped at a lower rung"),
-    Column("candidate", "candidate", code, numeric=False),
+    Column("candidate", "candidate", arch_code, numeric=False),
     Column("held-out accuracy", "_acc", esc, title="mean over folds \u00b1 standard error"),
     Column("training accuracy", "train_acc_mean", pct),
     Column("over-fitting gap", "gap", lambda v: pct(v, 1),

@@ -50,7 +50,8 @@ def folds_section(a: Assembled) -> Section:
 def pareto_section(a: Assembled) -> Section:
     cap = ("Error bars are one standard error. The shaded band holds the candidates within one "
            "standard error of the best; the stepped line is the front, where nothing is both "
-           "smaller and more accurate.")
+           "smaller and more accurate. The numbers on the front, the pick and the best are "
+           "their rows in the ranking table; the key under the plot names them.")
     figs = (figure(a.figures["pareto_params.png"], "accuracy against parameters", cap)
             + figure(a.figures["pareto_macs.png"], "accuracy against MACs",
                      "The same against multiply-accumulates per image (compute per inference)."))
@@ -61,8 +62,10 @@ def pareto_section(a: Assembled) -> Section:
 
 def curves_section(a: Assembled) -> Section:
     fig = figure(a.figures["curves.png"], "learning curves",
-                 "Held-out (dark) and training (light) accuracy by epoch, averaged over folds; "
-                 "each rung of the schedule has its own line style. Curves still rising at "
+                 "Held-out (dark) and training (light) accuracy by epoch, averaged over folds, "
+                 "with the folds' range of held-out accuracy shaded; each rung of the schedule "
+                 "(counted from 1, as the search prints them) has its own line style. Each "
+                 "panel says whether it is the pick or the best. Curves still rising at "
                  "the end suggest more epochs would help; a training curve pulling away from "
                  "the held-out one is over-fitting.", wide=True)
     names = ", ".join(a.curve_candidates)
@@ -94,9 +97,11 @@ def pick_section(data: RunData, a: Assembled) -> Section:
     if "confusions_gallery.png" in a.figures:
         parts.append("<h3>What it confuses</h3>" + '<div class="figs">' + figure(
             a.figures["confusions_gallery.png"], "gallery of confused images",
-            "Real held-out images from the most frequent confusions, with the probability "
-            "the pick gave its (wrong) answer. Look for what they share: background, "
-            "lighting, framing, the object's size.", wide=True) + "</div>")
+            "Real held-out images from the most frequent confusions, each beside what the "
+            "pick saw of it (its input size and colour mode), with the probability the pick "
+            "gave its (wrong) answer. Look for what they share: background, lighting, "
+            "framing, the object's size; and whether the mark survives the shrinking.",
+            wide=True) + "</div>")
         parts.append("<h3>Its most confident mistakes</h3>" + '<div class="figs">' + figure(
             a.figures["mistakes.png"], "most confident mistakes",
             "Wrong answers given with the highest probability: often label errors in the "

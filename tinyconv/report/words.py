@@ -18,6 +18,12 @@ def code(v: object) -> str:
     return f"<code>{esc(str(v))}</code>"
 
 
+def arch_code(v: object) -> str:
+    """An architecture text as inline code that may break after '/' and '-' only."""
+    text = esc(str(v)).replace("/", "/<wbr>").replace("-", "-<wbr>")
+    return f'<code class="arch">{text}</code>'
+
+
 def acc_pm(row: pd.Series) -> str:
     """A ranking row's held-out accuracy with its standard error."""
     return fmt.accuracy(row["acc_mean"], row["acc_se"])
