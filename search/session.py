@@ -40,6 +40,8 @@ DEFAULT_TRAINING = {"batch_size": 32, "optimizer": "adam", "lr": 0.003, "momentu
                     "weight_decay": 0.0, "decay": "decoupled", "schedule": "cosine",
                     "label_smoothing": 0.0}
 #: Command-line budget names -> the space file's [budget] keys.
+#: The source recorded for the general space (``search/starter.py``), used without --space.
+GENERAL_SPACE = "builtin:general"
 BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
                "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb",
                "max_ms": "max_ms", "core": "core", "clock_mhz": "clock_mhz"}
@@ -51,14 +53,15 @@ class SearchRequest:
 
     ``budgets`` maps ``max_params``, ``max_macs``, ``max_ram_kb`` (int8 peak
     activation memory) and ``max_flash_kb`` to limits that replace the space
-    file's; ``training`` overrides :data:`DEFAULT_TRAINING`. ``workers`` is the
+    file's; ``training`` overrides :data:`DEFAULT_TRAINING`. ``space=None`` searches
+    the general space sized for the data and budgets (:mod:`search.starter`). ``workers`` is the
     number of local processes (default: the number of cores; 0 runs the units
     in this process); ``cluster`` a Dask scheduler address (or a
     ``distributed`` cluster object), used instead of local processes.
     """
 
     data: str
-    space: str
+    space: str | None
     out: Path
     folds: int = 3
     seed: int = 0
@@ -92,17 +95,21 @@ class SearchSummary:
     removed: dict
     workers: str
     rank_by: str = "per_param"
+    space_source: str = ""
+    space_description: str = ""
 
 
-def _budget(space, request: SearchRequest):
-    """The space file's budget with the command line's limits put over it."""
+def merged_budget(base, budgets: dict):
+    """The ``base`` budget (a space file's; none when None) with the command line's
+    ``budgets`` (``SearchRequest.budgets``) put over it."""
+    from search.budget import Budget
     changes = {}
-    for name, value in request.budgets.items():
+    for name, value in budgets.items():
         if name not in BUDGET_KEYS:
             raise ValueError(f"unknown budget {name!r}; expected {', '.join(BUDGET_KEYS)}")
         if value is not None:
             changes[BUDGET_KEYS[name]] = value
-    return dataclasses.replace(space.budget, **changes)
+    return dataclasses.replace(base if base is not None else Budget(), **changes)
 
 
 def run_search(request: SearchRequest, progress: Progress | None = None,
@@ -143,17 +150,23 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
 
 def _search(request: SearchRequest, progress: Progress | None, work, local) -> SearchSummary:
     from search.folds import assign_folds
-    from search.space import enumerate_space, filter_budget, load_space, subsample
+    from search.space import (enumerate_space, filter_budget, load_space, space_from_text,
+                              subsample)
+    from search.starter import data_shape, starter_text
     from tinyconv.data import load_data
 
     # What needs no image first: the options, the space file, the run folder's store.
     _settings(request, None, None, {}, {})
     training = {**DEFAULT_TRAINING, **request.training}
     _check_training(training)
-    space = load_space(request.space)
+    space = load_space(request.space) if request.space is not None else None
     check_folder(request.out)
     dataset = load_data(request.data, skip_bad=request.skip_bad, folds=request.folds)
-    budget = _budget(space, request)
+    if space is None:  # the general space, sized for these data and budgets
+        shape = data_shape(dataset, data_spec(request.data))
+        text = starter_text(shape, merged_budget(None, request.budgets))
+        space = space_from_text(text, GENERAL_SPACE)
+    budget = merged_budget(space.budget, request.budgets)
     n_classes = len(dataset.classes)
     archs = enumerate_space(space)
     filtered = filter_budget(archs, budget, n_classes)
@@ -189,7 +202,8 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     path = save_ranking(ranking, request.out)
     return SearchSummary(Path(request.out), outcome, ranking, path, filtered.n_candidates,
                          len(filtered.survivors), len(texts), dict(filtered.over),
-                         executor.description, request.rank_by)
+                         executor.description, request.rank_by, str(space.source),
+                         space.description)
 
 
 def _settings(request: SearchRequest, space, data, budget: dict,
@@ -198,7 +212,7 @@ def _settings(request: SearchRequest, space, data, budget: dict,
     any image is read: :class:`SearchSettings` checks its values when made)."""
     from tinyconv.data import fingerprint
     return SearchSettings(
-        data=_data_spec(request.data), fingerprint=fingerprint(data) if data else "",
+        data=data_spec(request.data), fingerprint=fingerprint(data) if data else "",
         classes=tuple(data.classes) if data else (),
         n_images=int(data.labels.size) if data else 0,
         space=getattr(space, "text", ""), space_source=str(getattr(space, "source", "")),
@@ -233,7 +247,7 @@ def _executor(request: SearchRequest, data: UnitData, work):
     return InlineWorkers(data, work)
 
 
-def _data_spec(data: str) -> str:
+def data_spec(data: str) -> str:
     """The data spec as stored: a path made absolute, so that the report and the
     export can read it again from any working folder; built-in specs as given."""
     text = str(data)

@@ -48,6 +48,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "check-grads": ("check_grads", "finite-difference check of every gradient of a network"),
     "emulate": ("emulate", "run a network's int8 C on an emulated Cortex-M core: "
                            "instructions, time, flash, RAM, bit-exactness"),
+    "space": ("space", "a commented starter search space sized for your data and budgets"),
     "search": ("search", "budgeted cross-validated search over a space of networks"),
     "report": ("report", "write the HTML report of a run folder"),
     "export": ("export", "retrain the pick on all data; write int8 weights and C code"),

@@ -24,6 +24,33 @@ DATA_HELP = ("a folder with one sub-folder per class, a .npz file (x, y), "
              "builtin:tiles[?n=100&size=32&seed=0] or builtin:digits")
 
 
+def add_budget_options(parser: argparse.ArgumentParser) -> None:
+    """The device budgets (``search`` and ``space``)."""
+    b = parser.add_argument_group("device budgets (override the space file's)")
+    b.add_argument("--max-params", type=positive_int, default=None, metavar="N")
+    b.add_argument("--max-macs", type=positive_int, default=None, metavar="N",
+                   help="multiply-accumulates per image")
+    b.add_argument("--max-ram-kb", type=positive_float, default=None, metavar="KB",
+                   help="int8 peak activation memory (KB = 1,024 bytes)")
+    b.add_argument("--max-flash-kb", type=positive_float, default=None, metavar="KB",
+                   help="int8 weights, tables and per-channel constants")
+    b.add_argument("--max-ms", type=positive_float, default=None, metavar="MS",
+                   help="milliseconds per image on the device (the cost model's time; "
+                        "needs --core or a [device] table)")
+    b.add_argument("--core", default=None, metavar="CORE",
+                   help="the device's core for the time: cortex-m3, cortex-m4, cortex-m7, "
+                        "cortex-m33")
+    b.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
+                   help="the device's clock (default: the core's assumed clock)")
+
+
+def budgets_from(args: argparse.Namespace) -> dict:
+    """The budget options as ``SearchRequest.budgets``."""
+    return {"max_params": args.max_params, "max_macs": args.max_macs,
+            "max_ram_kb": args.max_ram_kb, "max_flash_kb": args.max_flash_kb,
+            "max_ms": args.max_ms, "core": args.core, "clock_mhz": args.clock_mhz}
+
+
 def add_search_options(parser: argparse.ArgumentParser) -> None:
     """Options shared by ``search`` (and read by ``demo``)."""
     g = parser.add_argument_group("cross-validation and schedule")
@@ -51,22 +78,7 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
     g.add_argument("--rank-by", choices=("per-param", "accuracy"), default="per-param",
                    help="order of the ranking: accuracy over chance per 1,000 parameters "
                         "(default) or mean held-out accuracy")
-    b = parser.add_argument_group("device budgets (override the space file's)")
-    b.add_argument("--max-params", type=positive_int, default=None, metavar="N")
-    b.add_argument("--max-macs", type=positive_int, default=None, metavar="N",
-                   help="multiply-accumulates per image")
-    b.add_argument("--max-ram-kb", type=positive_float, default=None, metavar="KB",
-                   help="int8 peak activation memory (KB = 1,024 bytes)")
-    b.add_argument("--max-flash-kb", type=positive_float, default=None, metavar="KB",
-                   help="int8 weights, tables and per-channel constants")
-    b.add_argument("--max-ms", type=positive_float, default=None, metavar="MS",
-                   help="milliseconds per image on the device (the cost model's time; "
-                        "needs --core or a [device] table)")
-    b.add_argument("--core", default=None, metavar="CORE",
-                   help="the device's core for the time: cortex-m3, cortex-m4, cortex-m7, "
-                        "cortex-m33")
-    b.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
-                   help="the device's clock (default: the core's assumed clock)")
+    add_budget_options(parser)
     t = parser.add_argument_group("training of every unit")
     t.add_argument("--lr", type=positive_float, default=None,
                    help="learning rate (default 0.003)")
@@ -88,8 +100,10 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
 def configure(parser: argparse.ArgumentParser) -> None:
     """Add this command's arguments."""
     parser.add_argument("data", metavar="DATA", help=DATA_HELP)
-    parser.add_argument("--space", required=True, metavar="FILE",
-                        help="search-space file (TOML), or builtin:demo")
+    parser.add_argument("--space", default=None, metavar="FILE",
+                        help="search-space file (TOML), or builtin:demo (default: a general "
+                             "space sized for the data and the budgets; 'tinyconv space DATA "
+                             "--write FILE' writes it out to edit)")
     parser.add_argument("--out", required=True, metavar="DIR",
                         help="run folder: created, or resumed when it holds this search")
     parser.add_argument("--skip-bad", action="store_true",
@@ -98,7 +112,7 @@ def configure(parser: argparse.ArgumentParser) -> None:
     add_search_options(parser)
 
 
-def request_from(args: argparse.Namespace, data: str, space: str, out: str):
+def request_from(args: argparse.Namespace, data: str, space: str | None, out: str):
     """A SearchRequest from parsed options."""
     from search.session import SearchRequest
     training = {k: v for k, v in (("lr", args.lr), ("batch_size", args.batch_size),
@@ -107,9 +121,7 @@ def request_from(args: argparse.Namespace, data: str, space: str, out: str):
     return SearchRequest(
         data=data, space=space, out=Path(out), folds=args.folds, seed=args.seed, eta=args.eta,
         max_epochs=args.max_epochs, min_epochs=args.min_epochs, full=args.full, max_candidates=args.max_candidates,
-        budgets={"max_params": args.max_params, "max_macs": args.max_macs,
-                 "max_ram_kb": args.max_ram_kb, "max_flash_kb": args.max_flash_kb,
-                 "max_ms": args.max_ms, "core": args.core, "clock_mhz": args.clock_mhz},
+        budgets=budgets_from(args),
         budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
         budget_epochs=args.budget_epochs, training=training, workers=args.workers,
         cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"),

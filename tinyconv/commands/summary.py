@@ -103,6 +103,9 @@ def summary_lines(summary, top: int = 12) -> list[str]:
              f"{o.failed} failed, {o.retried} retried after a lost worker); training CPU "
              f"{_duration(o.cpu_s)}, {o.epochs} epochs in all; {summary.workers}",
              f"end: {STATE_TEXT.get(o.state, o.state)}"]
+    if getattr(summary, "space_source", "") == "builtin:general":
+        lines.insert(0, f"space: none given, so the {summary.space_description or 'general space'}"
+                        " (tinyconv space DATA --write FILE writes it out to edit)")
     lines += [f"note: {n}" for n in o.notes]
     if t.empty:
         lines.append("no candidate has finished every fold of a rung yet: nothing to rank")
