@@ -49,7 +49,8 @@ def test_one_line_per_rung_and_the_plan_left_in_epochs():
     # 54 of 162 epochs done in 36 s: 108 epochs left, about 72 s at that pace
     assert status == ("progress: 18 units stored, training CPU 36s; at most 108 epochs of the "
                       "plan left (about 1m 12s at this pace)")
-    assert lines[-1] == status                # the last word when the loop ends
+    assert lines[-1] == ("progress: 18 units stored, training CPU 36s; 54 epochs trained "
+                         "in all")                # the last word when the loop ends
 
 
 def test_the_budgets_bound_what_is_left():

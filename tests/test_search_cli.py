@@ -134,3 +134,21 @@ def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monk
     assert config["skip_bad"] is True and config["n_images"] == tiles.labels.size
     # Stored absolute, so the report and the export can read it from anywhere.
     assert config["data"] == str(folder.resolve()), json.dumps(config["data"])
+
+
+def test_a_narrow_terminal_drops_columns_and_says_so():
+    """At 80 columns the table keeps accuracy, parameters, epochs and p, and names the rest."""
+    from tinyconv.commands.summary import ranking_table
+    rows = [{"candidate": f"16x16gray/c{8 * i}k3-p2", "group": g, "pick": g == "pick",
+             "acc_mean": 0.8 - i / 10, "acc_se": 0.01, "train_acc_mean": 0.9,
+             "acc_per_kparam": 0.1, "params": 1000 * i, "macs": 10_000 * i, "peak_kb": 1.0,
+             "flash_kb": 2.0, "ms": float("nan"), "int8_acc_mean": float("nan"),
+             "epochs": 9, "p_vs_best": 0.5} for i, g in
+            ((1, "pick"), (2, "within_one_se"), (3, "outside_one_se"))]
+    table = pd.DataFrame(rows)
+    wide, narrow = ranking_table(table), ranking_table(table, width=80)
+    assert "MACs" in wide[0] and max(map(len, wide)) > 80
+    assert max(map(len, narrow)) <= 80 and "MACs" not in narrow[0]
+    assert "accuracy" in narrow[1] and "parameters" in narrow[1] and "epochs" in narrow[1]
+    assert narrow[-2].startswith("(left out to fit the terminal: MACs per image, training")
+    assert narrow[-1].endswith("ranking.csv has every column)")

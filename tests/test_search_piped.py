@@ -11,8 +11,20 @@ import pandas as pd
 import pytest
 from PIL import Image
 
-from helpers import TINY_DATA, TINY_SPACE
+from helpers import TINY_DATA
+from search.runner import plan_brackets
 from tinyconv.data import load_data
+
+# Two candidates at the default schedule (9 epochs at most, eta 3): three rungs in the
+# first bracket, so every kind of rung line shows, in a few seconds.
+SPACE = """
+[input]
+sizes = [8]
+modes = ["gray"]
+[stages]
+count = [0, 1]
+filters = [2]
+"""
 
 
 def _folder(root):
@@ -30,22 +42,21 @@ def test_piped_search_shows_every_rung_and_no_python_warning_text(tmp_path):
     """Piped, a search prints a line per rung and a status line; data notes are our own."""
     folder = _folder(tmp_path / "photos")
     space = tmp_path / "space.toml"
-    space.write_text(TINY_SPACE)
+    space.write_text(SPACE)
     done = subprocess.run(
         [sys.executable, "-m", "tinyconv", "search", str(folder), "--space", str(space),
-         "--out", str(tmp_path / "run"), "--max-epochs", "3", "--workers", "0",
-         "--batch-size", "16"],
+         "--out", str(tmp_path / "run"), "--workers", "0", "--batch-size", "16"],
         capture_output=True, text=True, cwd=os.getcwd(), timeout=600,
         env={**os.environ, "COLUMNS": "120"})
     assert done.returncode == 0, done.stderr
     err = done.stderr
-    units = pd.read_csv(tmp_path / "run" / "ranking.csv")
-    assert len(units)
+    ranked = pd.read_csv(tmp_path / "run" / "ranking.csv")
+    assert len(ranked) == 2
     rungs = re.findall(r"^rung (\d) of (\d) \((\d) epochs?\)", err, re.M)
-    # max 3 epochs, eta 3: two brackets, the first with rungs of 1 and 3 epochs, the second
-    # with one rung of 3 (Hyperband, Li et al. 2018): three rung lines.
-    assert rungs == [("1", "2", "1"), ("2", "2", "3"), ("2", "2", "3")]
-    assert re.search(r"^progress: \d+ units stored, training CPU .*epochs of the plan left",
+    plan = plan_brackets(["8x8gray", "8x8gray/c2k3-p2"], 9, 3, False, 0)
+    expect = [(str(r.level + 1), "3", str(r.epochs)) for b, _ in plan for r in b.rungs]
+    assert rungs == expect and len(expect) == 6    # brackets of 3, 2 and 1 rungs
+    assert re.search(r"^progress: \d+ units stored, training CPU .*epochs trained in all",
                      err, re.M)
     assert "note: ignored 1 non-image file" in err
     for raw in ("Warning", "warnings.warn", "site-packages", "Traceback", ".py:"):

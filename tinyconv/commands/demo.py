@@ -17,7 +17,7 @@ from pathlib import Path
 
 from tinyconv import fmt
 from tinyconv.commands._notes import kernels_note
-from tinyconv.commands.progress import SearchProgress
+from tinyconv.commands.progress import SearchProgress, terminal_width
 from tinyconv.commands.search import summary_lines, write_report_if_available
 
 #: Data, candidates and epochs of the full and the quick demo. On these tiles a
@@ -96,7 +96,7 @@ def run(args: argparse.Namespace) -> int:
     if note:
         print(note, file=sys.stderr, flush=True)
     summary = run_search(request, SearchProgress(None, None))
-    print("\n".join(summary_lines(summary)))
+    print("\n".join(summary_lines(summary, width=terminal_width(sys.stdout) or None)))
     code = 0
     if not summary.table.empty:
         state, lines = export_pick(out)

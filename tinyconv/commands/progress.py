@@ -114,15 +114,16 @@ class SearchProgress(Progress):
         if self._ticker is not None:
             self._ticker.join(timeout=5)
             self._ticker = None
-            self._say(self.status())
+            self._say(self.status(final=True))
         for bar in (self.rung_bar, self.main):
             if bar is not None:
                 bar.close()
 
     # ------------------------------------------------------------ the status line
 
-    def status(self) -> str:
-        """One line: units stored, training CPU, what is left (in epochs) and the pace."""
+    def status(self, final: bool = False) -> str:
+        """One line: units stored, training CPU, what is left (in epochs) and the pace;
+        ``final``: what was done, the epochs trained in all."""
         with self._lock:
             units, cpu_s, epochs = self.units, self.cpu_s, self.epochs
             session, elapsed = self._session_epochs, self.clock() - self._started
@@ -133,6 +134,8 @@ class SearchProgress(Progress):
         if self.epoch_budget:
             left = min(left, max(0, self.epoch_budget - epochs))
             parts.append(f"epoch budget {self.epoch_budget:,}")
+        if final:
+            return "progress: " + ", ".join(parts) + f"; {epochs:,} epochs trained in all"
         rest = f"at most {left:,} epochs of the plan left"
         if session and elapsed > 0 and left:
             rest += f" (about {format_duration(left * elapsed / session)} at this pace)"

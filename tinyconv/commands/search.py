@@ -17,8 +17,8 @@ from pathlib import Path
 from search.config import parse_duration
 from tinyconv.commands._args import count, positive_float, positive_int
 from tinyconv.commands._notes import kernels_note
-from tinyconv.commands.progress import SearchProgress
-from tinyconv.commands.summary import STATE_TEXT, summary_lines  # noqa: F401  (used by demo)
+from tinyconv.commands.progress import SearchProgress, terminal_width
+from tinyconv.commands.summary import summary_lines
 
 DATA_HELP = ("a folder with one sub-folder per class, a .npz file (x, y), "
              "builtin:tiles[?n=100&size=32&seed=0] or builtin:digits")
@@ -152,7 +152,7 @@ def run(args: argparse.Namespace) -> int:
         print(note, file=sys.stderr, flush=True)
     progress = SearchProgress(request.budget_cpu_s, request.budget_epochs)
     summary = run_search(request, progress)
-    print("\n".join(summary_lines(summary)))
+    print("\n".join(summary_lines(summary, width=terminal_width(sys.stdout) or None)))
     state, text = write_report_if_available(summary.run_dir)
     if state == "written":
         print(f"report: {text}")

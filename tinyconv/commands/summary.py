@@ -68,14 +68,37 @@ def legend(by: str) -> str:
             "against the best.")
 
 
-def ranking_table(table: pd.DataFrame, top: int = 12) -> list[str]:
-    """The first ``top`` rows of the ranking as text, under group headings."""
+#: Columns left out, in this order, when the table is wider than the terminal.
+NARROW_DROPS = ("time", "MACs", "training", "flash", "peak RAM", "gain per", "int8")
+
+
+def ranking_table(table: pd.DataFrame, top: int = 12, width: int | None = None) -> list[str]:
+    """The first ``top`` rows of the ranking as text, under group headings.
+
+    With a terminal ``width``, columns of :data:`NARROW_DROPS` are left out (and
+    said to be) until the table fits; held-out accuracy, parameters, epochs and
+    the p-value always stay.
+    """
     shown = table.head(top)
     cols = _columns(table)
-    cells = [[str(f(r)) for _, _, f in cols] for r in shown.itertuples()]
-    widths = [max([len(a), len(b)] + [len(c[i]) for c in cells])
-              for i, (a, b, _) in enumerate(cols)]
     name_w = max([len("candidate")] + [len(c) + 2 for c in shown["candidate"]])
+
+    def measure(cols: list) -> tuple[list[list[str]], list[int], int]:
+        cells = [[str(f(r)) for _, _, f in cols] for r in shown.itertuples()]
+        widths = [max([len(a), len(b)] + [len(c[i]) for c in cells])
+                  for i, (a, b, _) in enumerate(cols)]
+        return cells, widths, 2 + name_w + 2 + sum(widths) + 2 * (len(widths) - 1)
+
+    cells, widths, total = measure(cols)
+    dropped = []
+    for name in NARROW_DROPS:
+        if width is None or total <= width:
+            break
+        if any(a == name for a, _, _ in cols):
+            cols = [c for c in cols if c[0] != name]
+            dropped.append(" ".join(x for x in next(
+                (a, b) for a, b, _ in _columns(table) if a == name) if x))
+            cells, widths, total = measure(cols)
 
     def line(first: str, parts: Sequence[str]) -> str:
         return ("  " + first.ljust(name_w + 2)
@@ -87,21 +110,26 @@ def ranking_table(table: pd.DataFrame, top: int = 12) -> list[str]:
         g = getattr(r, "group", None)
         if g != group:
             group = g
-            lines += textwrap.wrap(GROUP_HEADINGS.get(str(g), str(g)), WRAP)
+            lines += textwrap.wrap(GROUP_HEADINGS.get(str(g), str(g)),
+                                   min(WRAP, width or WRAP))
         mark = f"{PICK_MARK} " if r.pick else "  "
         lines.append(line(mark + r.candidate, row_cells))
+    if dropped:
+        lines += textwrap.wrap(f"(left out to fit the terminal: {', '.join(dropped)}; "
+                               "ranking.csv has every column)", min(WRAP, width or WRAP))
     return lines
 
 
-def summary_lines(summary, top: int = 12) -> list[str]:
-    """The one-screen summary of a finished (or stopped) search."""
+def summary_lines(summary, top: int = 12, width: int | None = None) -> list[str]:
+    """The one-screen summary of a finished (or stopped) search (``width``: the
+    terminal's, to fit the ranking table in; None for no limit)."""
     o, t = summary.outcome, summary.table
     over = ", ".join(f"{k} {v}" for k, v in summary.removed.items() if v)
     lines = [f"candidates: {summary.n_candidates} in the space, {summary.n_within} within "
              f"budget{f' (over {over})' if over else ''}, {summary.n_searched} searched",
              f"units: {o.units_run} run now, {o.units_stored} stored ({o.diverged} diverged, "
              f"{o.failed} failed, {o.retried} retried after a lost worker); training CPU "
-             f"{_duration(o.cpu_s)}, {o.epochs} epochs in all; {summary.workers}",
+             f"{_duration(o.cpu_s)}, {o.epochs:,} epochs in all; {summary.workers}",
              f"end: {STATE_TEXT.get(o.state, o.state)}"]
     if getattr(summary, "space_source", "") == "builtin:general":
         lines.insert(0, f"space: none given, so the {summary.space_description or 'general space'}"
@@ -110,8 +138,9 @@ def summary_lines(summary, top: int = 12) -> list[str]:
     if t.empty:
         lines.append("no candidate has finished every fold of a rung yet: nothing to rank")
         return lines
-    lines += ["", *textwrap.wrap(legend(getattr(summary, "rank_by", "per_param")), WRAP)]
-    lines += ranking_table(t, top)
+    wrap = min(WRAP, width or WRAP)
+    lines += ["", *textwrap.wrap(legend(getattr(summary, "rank_by", "per_param")), wrap)]
+    lines += ranking_table(t, top, width)
     if len(t) > top:
         lines.append(f"  ... {len(t) - top} more rows in {summary.ranking_path}")
     pick = t[t["pick"]].iloc[0]

@@ -13,7 +13,7 @@ from tinyconv.report.words import acc_pm
 def fewer_parameters(pick: float, best: float) -> str:
     """How much smaller the pick is than the best, in the plainest words that fit.
 
-    ``'4.5 times fewer'`` from a factor of 2 on, ``'3,000 fewer (25% fewer)'`` below
+    ``'4.5 times fewer'`` from a factor of 2 on, ``'3,000 fewer, 25% less'`` below
     it, ``'the same number'`` when equal.
     """
     pick, best = float(pick), float(best)
@@ -21,7 +21,7 @@ def fewer_parameters(pick: float, best: float) -> str:
         return "the same number" if pick == best else f"{fmt.count(pick - best)} more"
     if best >= 2 * pick:
         return f"{best / max(pick, 1):.1f} times fewer"
-    return f"{fmt.count(best - pick)} fewer ({100 * (1 - pick / best):.0f}% fewer)"
+    return f"{fmt.count(best - pick)} fewer, {100 * (1 - pick / best):.0f}% less"
 
 
 def against_budget(value: float, budget: object, unit: str = "", digits: int = 0) -> str:
