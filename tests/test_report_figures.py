@@ -165,7 +165,8 @@ def test_learning_curve_panels_name_pick_and_best_in_full_and_count_rungs_from_1
 
     long_pick = "32x32rgb/c4k3-p2-c8k3-p2-c16k3-p2-c32k3-p2-gap-d64"
     long_best = "32x32rgb/c4k3-p2-c8k3-p2-c16k3-p2-c32k3-p2-d64"
-    hist = [json.dumps({"val_acc": [0.2 + f / 10, 0.4 + f / 10], "train_acc": [0.3, 0.6]})
+    from tinyconv.report.curves import HELD_OUT_KEY, TRAINING_KEY
+    hist = [json.dumps({HELD_OUT_KEY: [0.2 + f / 10, 0.4 + f / 10], TRAINING_KEY: [0.3, 0.6]})
             for f in range(3)]
     units = pd.DataFrame([{"candidate": c, "fold": f, "rung": 0, "epochs": 2, "history": hist[f]}
                           for c in (long_pick, long_best) for f in range(3)])

@@ -75,7 +75,7 @@ def test_search_without_a_space_uses_the_general_one(tmp_path, capsys, monkeypat
     from search.store import RunStore
     monkeypatch.setattr(cmd, "write_report_if_available", lambda d: ("missing", "skipped"))
     data = "builtin:tiles?n=4&size=8&seed=1"
-    assert main(["search", data, "--out", str(tmp_path / "run"), "--max-epochs", "1",
+    assert main(["search", data, "--out", str(tmp_path / "run"), "--budget-epochs", "3",
                  "--workers", "0", "--max-candidates", "3"]) == 0
     out = capsys.readouterr().out
     assert out.startswith("space: none given, so the general space for 8x8 colour images, "

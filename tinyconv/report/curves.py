@@ -24,6 +24,8 @@ from tinyconv.report.axes import PERCENT_FORMAT, chance_line, new_figure
 from tinyconv.report.palette import PALETTE, style
 
 _RUNG_STYLES = ("-", "--", "-.", ":")
+#: The history keys of held-out and training accuracy (as train.History stores them).
+HELD_OUT_KEY, TRAINING_KEY = "val_acc", "train_acc"
 
 
 def history_of(value: object) -> dict[str, list[float]]:
@@ -183,9 +185,10 @@ def learning_curves(units: pd.DataFrame, finalists: Sequence[object], *,
         for ax, cand, title in zip(axes, finalists, titles):
             sub = units[units["candidate"] == cand]
             drew = False
-            for rung, (ep, lo, hi) in fold_range(sub, "val_acc").items():
+            for rung, (ep, lo, hi) in fold_range(sub, HELD_OUT_KEY).items():
                 ax.fill_between(ep, lo, hi, color=PALETTE.band, linewidth=0, zorder=0)
-            for key, colour in (("train_acc", PALETTE.training), ("val_acc", PALETTE.held_out)):
+            for key, colour in ((TRAINING_KEY, PALETTE.training),
+                                (HELD_OUT_KEY, PALETTE.held_out)):
                 for rung, (ep, mean) in mean_curves(sub, key).items():
                     rungs_seen.add(rung)
                     ax.plot(ep, mean, color=colour, linestyle=_RUNG_STYLES[rung % len(_RUNG_STYLES)],
