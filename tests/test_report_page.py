@@ -209,3 +209,25 @@ def test_pick_flags_warn_of_chance_level_and_over_fitting():
     assert len(flags) == 2
     assert "within two standard errors of chance (33.3%)" in flags[0]
     assert "30 points above held-out" in flags[1]
+
+
+def test_the_export_section_names_its_network_and_a_stale_device_measurement():
+    """An export of another candidate says so; a device.json of an earlier export is flagged."""
+    import dataclasses
+
+    from tinyconv.report.shipping import device_section, export_section
+
+    data = _run(pick_is_best=False)
+    export = {"arch": NAMES["c"], "n_eval": 90, "agreement": 0.99, "float_accuracy": 0.9,
+              "int8_accuracy": 0.89, "eval_set": "training (all)", "files": ["out/tc.c"]}
+    device = {"arch": NAMES["b"], "instructions": 1000, "instructions_per_mac": 2.0,
+              "macs": 500, "clock_mhz": 80, "ms_at_clock": 0.1, "flash_bytes": 100,
+              "ram_bytes": 50, "bit_exact": True, "mismatched_images": 0, "core": "cortex-m4",
+              "board": "mps2-an386", "images": 16, "cpi": 1.3, "estimate": {}}
+    data = dataclasses.replace(data, export=export, device=device)
+    body = export_section(data).body
+    assert f"<code>{NAMES['c']}</code> (not the current pick)" in body
+    assert "99.0% of 90 images (the same class chosen)" in body
+    assert "float 90.0%, int8 89.0%" in body and "on images it trained on" in body
+    assert f"This measurement is of {NAMES['b']}, from an earlier export" in \
+        device_section(data).body

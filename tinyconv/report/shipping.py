@@ -5,7 +5,7 @@ from __future__ import annotations
 import pandas as pd
 
 from tinyconv import fmt
-from tinyconv.report.html import Column, Section, esc, num, paragraph, table
+from tinyconv.report.html import Column, Section, esc, notice, num, paragraph, table
 from tinyconv.report.rundata import RunData
 from tinyconv.report.words import code
 
@@ -62,8 +62,7 @@ def export_section(data: RunData) -> Section | None:
     if not e:
         return None
     arch = str(e.get("arch", "?"))
-    which = ("the pick" if arch == data.pick["candidate"]
-             else f"{arch}, not the current pick")
+    which = "the pick" if arch == data.pick["candidate"] else "not the current pick"
     rows = [("exported network", code(arch) + f" ({esc(which)})")]
     if e.get("cv_accuracy") is not None:
         rows.append(("held-out accuracy in the search",
@@ -124,4 +123,9 @@ def device_section(data: RunData) -> Section | None:
         f"exact instruction counting) on {d['images']} images held out of the calibration: "
         f"{exact}. The time assumes {d['cpi']:g} cycles per instruction (QEMU counts "
         "instructions, not cycles); measure on the part before relying on it.")
+    exported = (data.export or {}).get("arch")
+    if exported and exported != d["arch"]:
+        body = notice(f"This measurement is of {d['arch']}, from an earlier export: the last "
+                      f"export wrote {exported} without measuring it. Export again with "
+                      "--core to measure it.") + body
     return Section("device", "On the device", body)
