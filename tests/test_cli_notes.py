@@ -8,7 +8,7 @@ import sys
 import warnings
 
 from tinyconv.cli import OUTPUT_CLOSED, main
-from tinyconv.commands._notes import warning_line
+from tinyconv.notices import warning_line
 from tinyconv.data.dataset import DataNote, DataWarning, LeakageWarning
 
 
@@ -40,7 +40,7 @@ def test_a_warning_during_a_command_prints_as_a_note(tmp_path, capsys, monkeypat
         assert main(["cost", "8x8gray/c2k3-gap"]) == 0
     err = capsys.readouterr().err
     assert err == "note: something ignored on purpose\n"
-    assert warnings.showwarning is not None and "_notes" not in warnings.showwarning.__module__
+    assert warnings.showwarning is not None and "notices" not in warnings.showwarning.__module__
 
 
 def test_output_closed_early_ends_quietly():
@@ -74,3 +74,37 @@ def test_a_cold_kernel_cache_is_told_from_a_warm_one(tmp_path):
     before, after, cold, n = done.stdout.split()
     assert float(before) == 0.0 and cold == "True"
     assert float(after) == 1 / int(n)       # exactly the one kernel just compiled
+
+
+def test_a_warning_in_a_local_worker_prints_as_a_note(tmp_path):
+    """A warning raised inside a search's worker process reaches stderr as one line."""
+    script = tmp_path / "worker_warns.py"       # spawned workers import it by its path
+    script.write_text(_WORKER_WARNS)
+    env = {**os.environ, "PYTHONPATH": os.getcwd()}
+    done = subprocess.run([sys.executable, str(script), str(tmp_path)], env=env,
+                          capture_output=True, text=True, cwd=os.getcwd(), timeout=300)
+    assert done.returncode == 0, done.stderr
+    assert "warning: a unit's own remark\n" in done.stderr
+    assert "UserWarning" not in done.stderr and ".py:" not in done.stderr, done.stderr
+
+
+_WORKER_WARNS = """
+import sys, warnings
+from pathlib import Path
+import numpy as np
+from search.executors import LocalWorkers
+from search.unit import UnitData
+
+def remark(task, data):
+    warnings.warn("a unit's own remark")
+    return task
+
+if __name__ == "__main__":
+    folder = Path(sys.argv[1])
+    UnitData(np.zeros((4, 2, 2, 1), np.uint8), np.array([0, 1, 0, 1]),
+             np.array([0, 0, 1, 1])).save(folder)
+    workers = LocalWorkers(folder, 1, remark)
+    workers.start()
+    workers.submit("unit").result()
+    workers.shutdown()
+"""

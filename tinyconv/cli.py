@@ -19,7 +19,7 @@ Exit codes (the one place they are decided):
   (128 + 13, common practice).
 
 While a command runs, Python warnings print as the tool's own one-line notes
-(``note: ...`` / ``warning: ...``, :mod:`tinyconv.commands._notes`), never
+(``note: ...`` / ``warning: ...``, :mod:`tinyconv.notices`), never
 with a file path and a line of source.
 """
 
@@ -33,7 +33,7 @@ import warnings
 from typing import Sequence
 
 from tinyconv import __version__
-from tinyconv.commands._notes import show_warning
+from tinyconv.notices import show_warning
 from tinyconv.errors import InputError
 from tinyconv.files import WRITE_FAULTS, fix_for, why_not_written
 
