@@ -114,6 +114,10 @@ def _watch_parent(parent: int) -> None:
 
 def _init_worker(data_dir: str, work: Callable, warm: bool, parent: int) -> None:
     end_with_parent(parent)  # first: the warm-up below takes a second or more
+    import warnings
+
+    from tinyconv.notices import show_warning
+    warnings.showwarning = show_warning  # the worker shares the search's stderr
     limit_threads()
     _WORKER.update(data_dir=data_dir, work=work, data=None)
     if warm:

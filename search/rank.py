@@ -32,11 +32,16 @@ fold. The statistics (all over the ``k`` folds of that rung):
 The *finalists* are the rows at the highest rung in the table (with
 ``--full``, every row). A candidate dropped at an earlier rung was measured
 after fewer epochs, so it is listed (with its epochs) but takes no part in
-the best, the fronts, the one-SE set or the pick, and is ordered after the
-finalists. Within that, rows are ordered by ``acc_per_kparam``
-(``by="per_param"``) or by ``acc_mean`` (``by="accuracy"``); both ranks are
-columns. Ties go to fewer parameters, then the text, so the table is the
-same whatever order the units finished in.
+the best, the fronts, the one-SE set or the pick.
+
+The rows come in four groups (column ``group``, :data:`GROUPS`), so that the
+first row is always the answer: the pick; the other finalists within one
+standard error of the best; the remaining finalists; the candidates stopped
+at a lower rung. Within a group, rows are ordered by ``acc_per_kparam``
+(``by="per_param"``) or by ``acc_mean`` (``by="accuracy"``). The two ranks
+(``rank_per_param``, ``rank_accuracy``) are positions by each score alone,
+finalists before the others. Ties go to fewer parameters, then the text, so
+the table is the same whatever order the units finished in.
 """
 
 from __future__ import annotations
@@ -58,7 +63,10 @@ SIMPLEST_WORDS = {"params": "the fewest parameters",
                   "ram": "the least peak activation memory (int8)",
                   "flash": "the least flash (int8)",
                   "ms": "the shortest time per image on the device (cost model)"}
-COLUMNS = ("candidate", "arch", "recipe", "params", "macs", "peak_kb", "flash_kb", "ms", "rung", "epochs", "folds",
+#: The row groups of the ranking, in the order the rows come (see the module notes).
+GROUPS = ("pick", "within_one_se", "outside_one_se", "stopped_early")
+COLUMNS = ("candidate", "group", "arch", "recipe", "params", "macs", "peak_kb", "flash_kb", "ms",
+           "rung", "epochs", "folds",
            "acc_mean", "acc_se", "acc_min", "acc_max", "train_acc_mean", "gap",
            "acc_per_kparam", "t_vs_best", "p_vs_best", "finalist", "pareto_params",
            "pareto_macs", "within_1se", "pick", "rank_per_param", "rank_accuracy",
@@ -316,8 +324,11 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
     table.loc[fin.index[pick], "pick"] = True
     table["rank_per_param"] = _ranks(table, "acc_per_kparam")
     table["rank_accuracy"] = _ranks(table, "acc_mean")
+    table["group"] = [GROUPS[0] if p else GROUPS[1] if w else GROUPS[2] if f else GROUPS[3]
+                      for p, w, f in zip(table["pick"], table["within_1se"], table["finalist"])]
     key = "rank_per_param" if by == "per_param" else "rank_accuracy"
-    table = table.sort_values(key).reset_index(drop=True)
+    table["_group"] = table["group"].map(GROUPS.index)
+    table = table.sort_values(["_group", key]).reset_index(drop=True)
     return table[list(COLUMNS)]
 
 

@@ -46,12 +46,15 @@ from tinyconv.errors import StoreError, WorkersLostError
 class Progress:
     """Hooks the loop calls; the default does nothing (see commands/search.py)."""
 
-    def start(self, plan_units: int, done_units: int, cpu_s: float, epochs: int) -> None:
-        """Before the first unit: units in the full plan and those already stored."""
+    def start(self, plan_units: int, plan_epochs: int, done_units: int, cpu_s: float,
+              epochs: int) -> None:
+        """Before the first unit: the units and epochs of the full plan (upper bounds,
+        :func:`plan_size`), the units already stored and the CPU and epochs they spent."""
 
-    def rung(self, bracket: int, n_brackets: int, rung: int, n_rungs: int,
+    def rung(self, bracket: int, n_brackets: int, level: int, n_levels: int,
              candidates: int, folds: int, epochs: int, done: int) -> None:
-        """A rung starts; ``done`` of its units are already stored."""
+        """A rung starts: its ``level`` in the ladder of ``n_levels`` (0-based, as
+        stored); ``done`` of its units are already stored."""
 
     def unit(self, result: UnitResult, cpu_s: float, epochs: int) -> None:
         """A unit finished; the totals spent so far."""
@@ -110,6 +113,12 @@ def plan_size(plan, folds: int) -> int:
     return folds * sum(rung.size for bracket, _ in plan for rung in bracket.rungs)
 
 
+def plan_epochs(plan, folds: int) -> int:
+    """Training epochs of the plan if every rung runs in full (an upper bound, as
+    :func:`plan_size`)."""
+    return folds * sum(bracket.epoch_cost() for bracket, _ in plan)
+
+
 class SearchLoop:
     """One session of a search over ``candidates`` (texts within budget).
 
@@ -159,14 +168,15 @@ class SearchLoop:
         plan = plan_brackets(self.candidates, int(self.s["max_epochs"]), int(self.s["eta"]),
                              bool(self.s["full"]), int(self.s["seed"]),
                              int(self.s.get("min_epochs", 1)))
-        self.progress.start(plan_size(plan, self.k), len(self.finished), self.cpu_s,
-                            self.epochs)
+        self.n_levels = 1 + max((r.level for bracket, _ in plan for r in bracket.rungs), default=0)
+        self.progress.start(plan_size(plan, self.k), plan_epochs(plan, self.k),
+                            len(self.finished), self.cpu_s, self.epochs)
         ended = False  # the plan ran, or a budget ended it (not an error)
         try:
             for b, (bracket, chosen) in enumerate(plan):
                 current = chosen[:bracket.rungs[0].size]
                 for i, rung in enumerate(bracket.rungs):
-                    self._run_rung(current, rung, (b, len(plan), i, len(bracket.rungs)))
+                    self._run_rung(current, rung, (b, len(plan)))
                     if i + 1 < len(bracket.rungs):
                         current = schedule.promote(self._scores(current, rung.level),
                                                    bracket.rungs[i + 1].size, self.params)
@@ -228,9 +238,9 @@ class SearchLoop:
     def _run_rung(self, current: Sequence[str], rung: schedule.Rung, where) -> None:
         tasks = [self._task(c, f, rung) for c in current for f in range(self.k)]
         todo = [t for t in tasks if t.key not in self.finished]
-        b, nb, i, nr = where
-        self.progress.rung(b, nb, i, nr, len(current), self.k, rung.epochs,
-                           len(tasks) - len(todo))
+        b, nb = where
+        self.progress.rung(b, nb, rung.level, self.n_levels, len(current), self.k,
+                           rung.epochs, len(tasks) - len(todo))
         todo.sort(key=lambda t: -self.costs.get(t.candidate, 0.0))  # stable: ties keep order
         for task in todo:
             while len(self._inflight) >= self.executor.workers:

@@ -2,9 +2,11 @@
 
 :func:`run_search` is what ``tinyconv search`` and ``tinyconv demo`` call:
 
-1. load and fingerprint the data; read the space; apply budgets from the
-   command line over the space file's, and training settings from the
-   command line over the space file's ``[training]`` choices;
+1. read the space and check the run folder's store (both cheap), then load
+   and fingerprint the data, finding every data problem in one pass (the
+   folds included); apply budgets from the command line over the space file's,
+   and training settings from the command line over the space file's
+   ``[training]`` choices;
 2. enumerate the architectures, cost them and drop those over budget (they
    are stored, marked, and never trained); pair each with every recipe
    (:mod:`search.recipes`): a candidate is an architecture plus a recipe;
@@ -35,6 +37,7 @@ from search.recipes import RECIPE_KEYS, candidate_key, make_recipes
 from search.runner import Outcome, Progress, SearchLoop
 from search.schedule import derive_seed
 from search.store import RunStore
+from search.store_writer import check_folder
 from search.unit import UnitData
 
 #: Training settings of every unit unless told otherwise (TrainConfig fields); the
@@ -49,6 +52,12 @@ DEFAULT_TRAINING = {"batch_size": 16, "optimizer": "adam", "lr": 0.005, "momentu
 BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
                "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb",
                "max_ms": "max_ms", "core": "core", "clock_mhz": "clock_mhz"}
+#: Command-line budget names -> the space file's [budget] keys.
+#: The source recorded for the general space (``search/starter.py``), used without --space.
+GENERAL_SPACE = "builtin:general"
+BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
+               "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb",
+               "max_ms": "max_ms", "core": "core", "clock_mhz": "clock_mhz"}
 
 
 @dataclass(frozen=True)
@@ -60,14 +69,16 @@ class SearchRequest:
     file's; ``training`` overrides :data:`DEFAULT_TRAINING`, and its recipe keys
     (augment, copies, lr, weight_decay, schedule) replace the space file's
     ``[training]`` choices by one each. ``simplest_by`` is the cost the
-    one-standard-error pick minimises (``search.rank.SIMPLEST``). ``workers`` is the
+    one-standard-error pick minimises (``search.rank.SIMPLEST``). ``space=None``
+    searches the general space sized for the data and budgets
+    (:mod:`search.starter`). ``workers`` is the
     number of local processes (default: the number of cores; 0 runs the units
     in this process); ``cluster`` a Dask scheduler address (or a
     ``distributed`` cluster object), used instead of local processes.
     """
 
     data: str
-    space: str
+    space: str | None
     out: Path
     folds: int = 3
     seed: int = 0
@@ -101,18 +112,23 @@ class SearchSummary:
     n_searched: int
     removed: dict
     workers: str
+    rank_by: str = "per_param"
+    space_source: str = ""
+    space_description: str = ""
     simplest_by: str = "params"
 
 
-def _budget(space, request: SearchRequest):
-    """The space file's budget with the command line's limits put over it."""
+def merged_budget(base, budgets: dict):
+    """The ``base`` budget (a space file's; none when None) with the command line's
+    ``budgets`` (``SearchRequest.budgets``) put over it."""
+    from search.budget import Budget
     changes = {}
-    for name, value in request.budgets.items():
+    for name, value in budgets.items():
         if name not in BUDGET_KEYS:
             raise ValueError(f"unknown budget {name!r}; expected {', '.join(BUDGET_KEYS)}")
         if value is not None:
             changes[BUDGET_KEYS[name]] = value
-    return dataclasses.replace(space.budget, **changes)
+    return dataclasses.replace(base if base is not None else Budget(), **changes)
 
 
 def run_search(request: SearchRequest, progress: Progress | None = None,
@@ -156,17 +172,27 @@ def run_search(request: SearchRequest, progress: Progress | None = None,
 
 def _search(request: SearchRequest, progress: Progress | None, work, local) -> SearchSummary:
     from search.folds import assign_folds
-    from search.space import enumerate_space, filter_budget, load_space, subsample
-    from tinyconv.data import fingerprint, load_data
+    from search.space import (enumerate_space, filter_budget, load_space, space_from_text,
+                              subsample)
+    from search.starter import data_shape, starter_text
+    from tinyconv.data import load_data
 
-    dataset = load_data(request.data, skip_bad=request.skip_bad)
-    space = load_space(request.space)
-    budget = _budget(space, request)
+    # What needs no image first: the options, the space file, the run folder's store.
+    _settings(request, None, None, {}, {}, ())
+    base = {**DEFAULT_TRAINING, **request.training}
+    _check_training(base)
+    space = load_space(request.space) if request.space is not None else None
+    check_folder(request.out)
+    dataset = load_data(request.data, skip_bad=request.skip_bad, folds=request.folds)
+    if space is None:  # the general space, sized for these data and budgets
+        shape = data_shape(dataset, data_spec(request.data))
+        text = starter_text(shape, merged_budget(None, request.budgets))
+        space = space_from_text(text, GENERAL_SPACE)
+    budget = merged_budget(space.budget, request.budgets)
     _check_simplest(request.simplest_by, budget)
     n_classes = len(dataset.classes)
     archs = enumerate_space(space)
     filtered = filter_budget(archs, budget, n_classes)
-    base = {**DEFAULT_TRAINING, **request.training}
     recipes = make_recipes(space.training, request.training, base)
     several = len(recipes) > 1
     survivors = [str(a) for a in filtered.survivors]
@@ -176,16 +202,9 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     if request.max_candidates is not None:
         pool = subsample(keys, request.max_candidates, derive_seed(request.seed, "subsample"))
     texts = list(pool)
-    settings = SearchSettings(
-        data=_data_spec(request.data), fingerprint=fingerprint(dataset), classes=tuple(dataset.classes),
-        n_images=int(dataset.labels.size), space=space.text, space_source=str(space.source),
-        folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
-        min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
-        budget={k: getattr(budget, k) for k in BUDGET_KEYS.values()},
-        budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
-        training={k: v for k, v in base.items() if k not in RECIPE_KEYS},
-        skip_bad=request.skip_bad, int8=request.int8,
-        recipes=tuple(str(r) for r in recipes), simplest_by=request.simplest_by)
+    settings = _settings(request, space, dataset,
+                         {k: getattr(budget, k) for k in BUDGET_KEYS.values()},
+                         {k: v for k, v in base.items() if k not in RECIPE_KEYS}, recipes)
     for recipe in recipes:
         _check_training({**settings.training, **recipe.settings()})
     folds = assign_folds(dataset.labels, request.folds, derive_seed(request.seed, "folds"),
@@ -213,9 +232,26 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
     finally:
         store.close()  # the folder holds no open file of this search after it
     path = save_ranking(ranking, request.out)
-    return SearchSummary(Path(request.out), outcome, ranking, path, len(table),
-                         len(keys), len(texts), removed, executor.description,
-                         request.simplest_by)
+    return SearchSummary(Path(request.out), outcome, ranking, path, len(table), len(keys),
+                         len(texts), removed, executor.description, request.rank_by,
+                         str(space.source), space.description, request.simplest_by)
+
+
+def _settings(request: SearchRequest, space, data, budget: dict, training: dict,
+              recipes) -> SearchSettings:
+    """The settings to store; with ``data=None`` a check of the options alone (before
+    any image is read: :class:`SearchSettings` checks its values when made)."""
+    from tinyconv.data import fingerprint
+    return SearchSettings(
+        data=data_spec(request.data), fingerprint=fingerprint(data) if data else "",
+        classes=tuple(data.classes) if data else (),
+        n_images=int(data.labels.size) if data else 0,
+        space=getattr(space, "text", ""), space_source=str(getattr(space, "source", "")),
+        folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
+        min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
+        budget=budget, budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
+        training=training, skip_bad=request.skip_bad, int8=request.int8,
+        recipes=tuple(str(r) for r in recipes), simplest_by=request.simplest_by)
 
 
 def _check_training(training: dict) -> None:
@@ -271,7 +307,7 @@ def _executor(request: SearchRequest, data: UnitData, work):
     return InlineWorkers(data, work)
 
 
-def _data_spec(data: str) -> str:
+def data_spec(data: str) -> str:
     """The data spec as stored: a path made absolute, so that the report and the
     export can read it again from any working folder; built-in specs as given."""
     text = str(data)

@@ -105,6 +105,7 @@ from search.budget import Budget, Filtered, budget_from_table, filter_budget  # 
 from search.recipes import RECIPE_KEYS, TrainingChoices, read_training
 
 __all__ = ["SpaceError", "Space", "StageChoices", "Budget", "Filtered", "load_space",
+           "space_from_text",
            "builtin_space_text", "enumerate_space", "subsample", "filter_budget"]
 
 CONV_KINDS = ("standard", "separable")
@@ -291,6 +292,17 @@ def load_space(spec: Union[str, Path]) -> Space:
         source, text = "<text>", spec
     else:
         source, text = spec, Path(spec).read_text(encoding="utf-8")
+    return space_from_text(text, source)
+
+
+def space_from_text(text: str, source: str) -> Space:
+    """A space from its TOML ``text``; ``source`` names it in messages and the record.
+
+    Raises
+    ------
+    SpaceError
+        As :func:`load_space`.
+    """
     try:
         data = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:

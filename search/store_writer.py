@@ -203,6 +203,26 @@ class RunWriter(RunStore):
                         "the ranking order is not recorded")
 
 
+def check_folder(run_dir: str | Path) -> None:
+    """Refuse now what :meth:`RunWriter.start` would refuse without looking at the data:
+    a damaged store, or files of an earlier search whose store is gone.
+
+    Cheap (no image is read); a search calls it before reading its data, so that a
+    fault of the folder does not wait for every image to be read.
+
+    Raises
+    ------
+    StoreError
+        As :meth:`RunWriter.start` does for the same faults.
+    """
+    run_dir = Path(run_dir)
+    if (run_dir / FILE).exists():
+        with RunStore(run_dir) as store:
+            store.config()
+    elif run_dir.is_dir():
+        _refuse_orphaned_files(run_dir)
+
+
 def _refuse_orphaned_files(run_dir: Path) -> None:
     """Refuse to start a store where an earlier run's store was removed."""
     found = [name for name in RUN_FILES if (run_dir / name).exists()]

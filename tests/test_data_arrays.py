@@ -131,3 +131,19 @@ def test_cross_class_duplicate_in_arrays_warns(tmp_path):
     with pytest.warns(LeakageWarning, match=r"\(#0 = #3\) in 0/1"):
         ds = load_data(_save(tmp_path, x=x, y=np.array([0, 0, 1, 1])))
     assert ds.warnings[0].startswith("serious:")
+
+
+@pytest.mark.parametrize("shape,hint", [
+    ((4, 6, 6, 4), r"got \(4, 6, 6, 4\); drop the alpha channel with x\[\.\.\., :3\]$"),
+    ((4, 3, 6, 6), r"got \(4, 3, 6, 6\); it looks channels-first \(n, c, h, w\): move the "
+                   r"channels last with np\.moveaxis\(x, 1, -1\)$"),
+    ((4, 36), r"got \(4, 36\); each image is a flat row: give them their height and "
+              r"width, e.g\. x\.reshape\(n, h, w\)$"),
+    ((4, 6, 6, 2), r"got \(4, 6, 6, 2\)$"),
+])
+def test_wrong_image_shapes_get_the_fix_that_applies(tmp_path, shape, hint):
+    """The alpha hint only for channels-last RGBA; channels-first and flat arrays get theirs."""
+    path = tmp_path / "x.npz"
+    np.savez(path, x=np.zeros(shape, np.uint8), y=np.array([0, 1, 0, 1]))
+    with pytest.raises(DataError, match=hint):
+        load_data(path)

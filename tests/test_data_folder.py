@@ -66,9 +66,51 @@ def test_unreadable_files_all_listed_at_once(tmp_path):
     root = make_messy(tmp_path / "d", empty=False)
     with pytest.raises(DataError, match=r"(?s)2 unreadable image files; fix or remove them, "
                        r"or pass skip_bad \(--skip-bad\) to leave them out:"
-                       r"(?=.*\n  \S*truncated\.jpg \(cannot be decoded, truncated or corrupt)"
-                       r"(?=.*\n  \S*zero\.png \(the file is empty \(0 bytes\)\))"):
+                       r"(?=.*\n    \S*truncated\.jpg \(cannot be decoded, truncated or corrupt)"
+                       r"(?=.*\n    \S*zero\.png \(the file is empty \(0 bytes\)\))"):
         load_data(root)
+
+
+def test_every_problem_is_found_in_one_pass(tmp_path):
+    """Bad files, an empty class folder and a class too small for the folds: one error."""
+    root = make_messy(tmp_path / "d")
+    with pytest.raises(DataError) as caught:
+        load_data(root, folds=3)
+    text = str(caught.value)
+    assert text.startswith(f"{root}: 3 problems stop a search on this data; fix them all")
+    assert "\n  - 2 unreadable image files; fix or remove them" in text
+    assert "truncated.jpg (cannot be decoded" in text and "zero.png (the file is empty" in text
+    assert "\n  - 1 class folder has no readable images: 'empty'" in text
+    assert "\n  - class 'small' has 2 images, fewer than the 3 folds asked for" in text
+
+
+def test_survey_keeps_the_inventory_beside_the_problems(tmp_path):
+    """A survey of a folder with problems still holds every class, its counts and bad files."""
+    from tinyconv.data import survey
+    root = make_messy(tmp_path / "d")
+    found = survey(root, folds=3)
+    assert found.classes == ("cross", "empty", "ring", "small")
+    assert found.counts == (3, 0, 4, 2)
+    assert found.unreadable_in("ring") == 1 and found.unreadable_in("cross") == 1
+    assert found.dataset is not None and found.dataset.n == 9 and len(found.problems) == 3
+
+
+def test_pillow_warnings_become_notes(tmp_path, monkeypatch):
+    """Pillow's decompression-bomb warning is kept as a note naming the file, not a warning."""
+    rng = np.random.default_rng(2)
+    for c in ("a", "b"):
+        (tmp_path / c).mkdir()
+        for i in range(2):
+            _rgb(rng).save(tmp_path / c / f"{i}.png")
+    _rgb(rng, 40, 40).save(tmp_path / "b" / "big.png")
+    # Pillow warns above MAX_IMAGE_PIXELS and refuses above twice that (Pillow documentation)
+    monkeypatch.setattr(Image, "MAX_IMAGE_PIXELS", 1000)
+    with warnings.catch_warnings(record=True) as shown:
+        warnings.simplefilter("always")
+        ds = load_data(tmp_path)
+    assert not [w for w in shown if issubclass(w.category, Image.DecompressionBombWarning)]
+    assert any(w.startswith("note: 1 image holds more pixels than Pillow's safety limit "
+                            "(1,000 pixels)") and "b/big.png" in w for w in ds.warnings)
 
 
 def test_skip_bad_skips_and_counts(tmp_path):

@@ -84,11 +84,24 @@ def test_cli_exports_the_best_candidate(run_dir, tmp_path):
     assert summary.cv_accuracy == pytest.approx(0.59)
     assert f"flash         {cost.flash_bytes:,} bytes" in stdout
     assert "top-1 agreement on 48 training (all) images" in stdout
-    assert "epoch 2/2" in stderr
+    assert "2 of 2 epochs: training loss" in stderr
     saved = Network.load(out / "network.npz")
     assert str(saved.network.arch) == best and saved.meta["epochs"] == 2
     assert saved.arrays["norm_mean"].shape == (3,)
     assert json.loads((out / "summary.json").read_text())["classes"][0] == "ring"
+
+
+def test_retraining_is_told_in_a_few_lines(run_dir, tmp_path):
+    """27 epochs of retraining print 4 lines on stderr (each quarter and the last), all
+    of them with --each-epoch; none of them on stdout, which keeps the summary."""
+    for extra, expect in (((), [7, 14, 21, 27]), (("--each-epoch",), list(range(1, 28)))):
+        code, stdout, stderr = cli("export", str(run_dir), "--out", str(tmp_path / "x"),
+                                   "--epochs", "27", "--calib", "8", *extra)
+        assert code == 0, stderr
+        shown = [int(m) for m in re.findall(r"^  (\d+) of 27 epochs: training loss", stderr,
+                                            re.M)]
+        assert shown == expect
+        assert "epochs: training loss" not in stdout and stdout.startswith("architecture")
 
 
 def test_one_se_pick_and_default_epochs(run_dir, tmp_path):
@@ -125,3 +138,21 @@ def test_not_a_run_folder(tmp_path):
     """A folder without a store is refused with exit code 2."""
     code, _, stderr = cli("export", str(tmp_path))
     assert code == 2 and "no run here" in stderr
+
+
+@pytest.mark.slow
+def test_export_into_the_run_folder_refreshes_the_report(tmp_path):
+    """After `tinyconv export DIR` the report shows the int8 agreement and the per-layer costs."""
+    run = make_run(tmp_path / "run")
+    code, stdout, stderr = cli("export", str(run), "--calib", "8")
+    assert code == 0, stderr
+    assert stdout.rstrip().endswith(f"report: {run / 'report.html'}")
+    page = (run / "report.html").read_text(encoding="utf-8")
+    summary = json.loads((run / "export" / "summary.json").read_text())
+    assert "int8 agreement with the float network" in page
+    assert f"{100 * summary['agreement']:.1f}% of 48 images (the same class chosen)" in page
+    assert '<section id="cost">' in page
+    costs = pd.read_csv(run / "pick_cost.csv")
+    assert list(costs["step"]) == [r.name for r in cost_of(summary["arch"], 8).rows]
+    for step in costs["step"]:
+        assert f"<code>{step}</code>" in page

@@ -136,13 +136,29 @@ def test_table_statistics_and_ranks():
     assert t.at["mid", "pick"] and t["pick"].sum() == 1
     assert t.at["big", "within_1se"] and t.at["mid", "within_1se"]
     assert not t.at["tiny", "within_1se"]
-    assert table["rank_per_param"].tolist() == [1, 2, 3, 4]
-    assert list(table["candidate"][:3]) == ["tiny", "mid", "big"]
-    by_acc = rank.rank_units(units, _toy_candidates({"big": 8000, "mid": 2000, "tiny": 100,
-                                                     "early": 50}), 4, 3, by="accuracy")
-    assert list(by_acc["candidate"]) == ["big", "mid", "tiny", "early"]
-    assert by_acc["rank_accuracy"].tolist() == [1, 2, 3, 4]
+    # Ranks are positions by each score alone; rows come pick first (see the next test).
+    assert t["rank_per_param"].to_dict() == {"tiny": 1, "mid": 2, "big": 3, "early": 4}
+    assert t["rank_accuracy"].to_dict() == {"big": 1, "mid": 2, "tiny": 3, "early": 4}
     assert list(table.columns) == list(rank.COLUMNS)
+
+
+@pytest.mark.parametrize("by,order", [
+    ("per_param", ["mid", "small", "big", "tiny", "wide", "early"]),
+    ("accuracy", ["mid", "big", "small", "wide", "tiny", "early"]),
+])
+def test_rows_lead_with_the_pick_then_the_one_se_set_then_the_rest(by, order):
+    """Row 1 is the pick, then the one-SE set, the other finalists, the early stops; by score."""
+    accs = {"big": [0.9, 0.92, 0.88], "mid": [0.9, 0.9, 0.88], "small": [0.89, 0.90, 0.88],
+            "tiny": [0.6, 0.5, 0.55], "wide": [0.7, 0.72, 0.68], "early": [0.4, 0.45, 0.5]}
+    params = {"big": 8000, "mid": 2000, "small": 2500, "tiny": 100, "wide": 9000, "early": 50}
+    table = rank.rank_units(_toy_units(accs, rung={"early": 0}), _toy_candidates(params),
+                            n_classes=4, folds=3, by=by)
+    assert list(table["candidate"]) == order
+    assert table["pick"].iloc[0]
+    groups = dict(zip(table["candidate"], table["group"]))
+    assert groups == {"mid": "pick", "big": "within_one_se", "small": "within_one_se",
+                      "tiny": "outside_one_se", "wide": "outside_one_se",
+                      "early": "stopped_early"}
 
 
 def test_incomplete_rungs_do_not_count():

@@ -100,6 +100,22 @@ def test_pareto_plot_draws_budget_band_and_chance(axis, budget):
     _valid_png(fig)
 
 
+def test_pareto_points_carry_names_with_a_key():
+    """Front, pick and best points carry their label; the key under the axes names each."""
+    r = _ranking()
+    names = {c: str(i) for i, c in enumerate(r["candidate"], 1)}
+    fig = pareto_plot(r, "macs", names=names)
+    ax, key = fig.axes[0], fig.axes[1]
+    labels = sorted(t.get_text() for t in ax.texts if t.get_text().isdigit())
+    # on the MACs front: 1, 2 and 4; 3 is off it but is the pick; 4 is also the best
+    assert labels == ["1", "2", "3", "4"]
+    assert [t.get_text().split() for t in key.texts] == [[n, c] for c, n in names.items()]
+    r.loc[0, "pareto_macs"] = False                      # off the front, not pick nor best
+    fig = pareto_plot(r, "macs", names=names)
+    assert "1" not in [t.get_text() for t in fig.axes[0].texts]
+    _valid_png(fig)
+
+
 def test_pareto_plot_rejects_unknown_axis():
     """Only params and MACs are size axes."""
     with pytest.raises(ValueError, match="'params' or 'macs'"):
@@ -140,6 +156,31 @@ def test_learning_curves_render_with_and_without_history():
     _valid_png(fig)
     with pytest.raises(ValueError, match="at least one finalist"):
         learning_curves(units, [])
+
+
+def test_learning_curve_panels_name_pick_and_best_in_full_and_count_rungs_from_1():
+    """Long texts are wrapped, not cut; the pick and the best say so; rung 0 is 'rung 1';
+    the folds' range of held-out accuracy is shaded."""
+    from matplotlib.collections import PolyCollection
+
+    long_pick = "32x32rgb/c4k3-p2-c8k3-p2-c16k3-p2-c32k3-p2-gap-d64"
+    long_best = "32x32rgb/c4k3-p2-c8k3-p2-c16k3-p2-c32k3-p2-d64"
+    from tinyconv.report.curves import HELD_OUT_KEY, TRAINING_KEY
+    hist = [json.dumps({HELD_OUT_KEY: [0.2 + f / 10, 0.4 + f / 10], TRAINING_KEY: [0.3, 0.6]})
+            for f in range(3)]
+    units = pd.DataFrame([{"candidate": c, "fold": f, "rung": 0, "epochs": 2, "history": hist[f]}
+                          for c in (long_pick, long_best) for f in range(3)])
+    fig = learning_curves(units, [long_pick, long_best], pick=long_pick, best=long_best)
+    titles = [ax.get_title(loc="left") for ax in fig.axes if ax.get_visible()]
+    assert titles[0].startswith("\u2605 the pick\n") and titles[1].startswith("the best")
+    for text, title in zip((long_pick, long_best), titles):
+        assert title.split("\n", 1)[1].replace("\n", "") == text and "\u2026" not in title
+    legend = [t.get_text() for lg in fig.legends for t in lg.get_texts()]
+    assert "rung 1 (2 epochs)" in legend and "held-out, range over folds" in legend
+    band = [c for c in fig.axes[0].collections if isinstance(c, PolyCollection)][0]
+    ys = band.get_paths()[0].vertices[:, 1]
+    assert ys.min() == pytest.approx(0.2) and ys.max() == pytest.approx(0.6)  # folds 0 and 2
+    _valid_png(fig)
 
 
 def _predictions(n=200, seed=1):
@@ -238,3 +279,33 @@ def test_budget_rows_compare_the_pick_in_the_budget_unit():
     assert rows["removed"].tolist() == [3, 0]
     assert axis_budget({"max_macs": 5_000}, "macs") == 5_000
     assert axis_budget({"max_flash_kb": 64}, "params") is None
+
+
+def test_galleries_show_the_network_view_beside_each_image():
+    """Each thumbnail pairs a 32x32 colour image with its 16x16 grey view at the same height."""
+    from tinyconv.arch import InputSpec
+    from tinyconv.data import prepare
+    from tinyconv.quant import as_pixels
+    from tinyconv.report.gallery import PAIR_GAP, network_view, side_by_side, thumbnail
+
+    rng = np.random.default_rng(4)
+    images = rng.integers(0, 256, (6, 32, 32, 3), dtype=np.uint8)
+    spec = InputSpec(16, 16, "gray")
+    view = network_view(images, spec)
+    np.testing.assert_array_equal(view, as_pixels(prepare(images, spec)))
+    assert view.shape == (6, 16, 16, 1)
+    left = thumbnail(images[0])                        # 96 x 96: 32 enlarged 3 times
+    pair = side_by_side(images[0], view[0])
+    assert pair.shape == (96, 96 + PAIR_GAP + 96, 3)
+    np.testing.assert_array_equal(pair[:, :96], left)
+    right = pair[:, 96 + PAIR_GAP:]
+    np.testing.assert_array_equal(right[::6, ::6, 0], view[0][..., 0])   # 16 enlarged 6 times
+    assert (right[..., 0] == right[..., 2]).all()                       # grey
+    # ycc is not viewable as colours: the view is the resized RGB
+    ycc = network_view(images, InputSpec(16, 16, "ycc"))
+    np.testing.assert_array_equal(ycc, as_pixels(prepare(images, InputSpec(16, 16, "rgb"))))
+    labels, preds = np.arange(6) % K, (np.arange(6) + 1) % K
+    fig = mistakes_gallery(images, np.arange(6), labels, preds, np.full(6, 0.9), CLASSES,
+                           seen=dict(enumerate(view)), seen_as="16x16 gray")
+    assert any("as the network saw it (16x16 gray)" in t.get_text() for t in fig.texts)
+    _valid_png(fig)

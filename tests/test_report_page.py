@@ -12,10 +12,16 @@ import pytest
 
 from tinyconv.report.html import Column, esc, num, page, pct, pvalue, table
 from tinyconv.report.rundata import PickPredictions, RunData
-from tinyconv.report.sections import pick_flags, units_summary, why_pick
+from tinyconv.report.decision import (against_budget, decision_panel, fewer_parameters,
+                                      pick_flags, why_pick)
+from tinyconv.report.sections import units_summary
 from tinyconv.report.writer import render_report
 
 CLASSES = ("ring", "<b>cross</b> & co", "bar")
+
+
+# The three finalists' architecture texts (their figures below are made up).
+NAMES = {"a": "8x8gray/d4", "b": "8x8gray/c4k3-p2", "c": "8x8gray/c8k3-p2-c16k3-p2"}
 
 
 def _run(pick_is_best: bool) -> RunData:
@@ -27,14 +33,14 @@ def _run(pick_is_best: bool) -> RunData:
     rows, units = [], []
     for name, acc in accs.items():
         a = np.array(acc)
-        rows.append({"candidate": f"8x8gray/{name}", "params": params[name], "macs": 10 * params[name],
+        rows.append({"candidate": NAMES[name], "params": params[name], "macs": 10 * params[name],
                      "peak_kb": 1.0, "flash_kb": params[name] / 1024, "rung": 1, "epochs": 4,
                      "folds": 3, "acc_mean": a.mean(), "acc_se": a.std(ddof=1) / np.sqrt(3),
                      "train_acc_mean": a.mean() + 0.05, "gap": 0.05,
                      "acc_per_kparam": (a.mean() - 1 / 3) / (params[name] / 1000),
                      "p_vs_best": 0.04, "finalist": True})
         for f, v in enumerate(acc):
-            units.append({"candidate": f"8x8gray/{name}", "fold": f, "rung": 1, "epochs": 4,
+            units.append({"candidate": NAMES[name], "fold": f, "rung": 1, "epochs": 4,
                           "status": "done", "val_acc": v, "train_acc": v + 0.05,
                           "history": json.dumps({"val_acc": [v / 2, v], "train_acc": [v / 2, v]})})
     r = pd.DataFrame(rows)
@@ -64,12 +70,32 @@ def test_why_pick_gives_the_rule_the_bar_and_the_trade():
     """The reason names the rule, the best, the bar (best minus SE) and the size saving."""
     data = _run(pick_is_best=False)
     best, pick = data.best, data.pick
-    assert pick["candidate"] == "8x8gray/b" and best["candidate"] == "8x8gray/c"
+    assert pick["candidate"] == NAMES["b"] and best["candidate"] == NAMES["c"]
     text = why_pick(data)
     bar = best["acc_mean"] - best["acc_se"]
     assert "one-standard-error rule" in text and f"the bar is {100 * bar:.1f}%" in text
     assert "4.5 times fewer" in text          # 9,000 / 2,000 parameters
     assert "2 of the 3 finalists clear it" in text and "p = 0.040" in text
+
+
+@pytest.mark.parametrize("pick,best,words", [
+    (2_000, 9_000, "4.5 times fewer"), (18_000, 19_080, "1,080 fewer, 6% less"),
+    (5_000, 9_000, "4,000 fewer, 44% less"), (700, 700, "the same number"),
+])
+def test_fewer_parameters_in_plain_words(pick, best, words):
+    """A ratio near 1 reads as a count and a percentage, never as '1.0 times fewer'."""
+    assert fewer_parameters(pick, best) == words
+
+
+def test_the_card_shows_each_cost_against_its_budget_and_points_to_the_cautions():
+    """Tiles give each figure's share of its budget (or say none is set); a link leads to
+    the cautions section."""
+    data = _run(pick_is_best=False)
+    html = decision_panel(data)
+    assert f"{100 * 2_000 / 10_000:.0f}% of the 10,000 budget" in html   # max_params
+    assert html.count("no budget set") == 3             # MACs, flash, peak: no limit given
+    assert '<a href="#cautions">' in html
+    assert against_budget(20.0, 256, " KB") == "8% of the 256 KB budget"
 
 
 def test_why_pick_when_the_best_is_also_the_smallest():
@@ -193,3 +219,25 @@ def test_pick_flags_warn_of_chance_level_and_over_fitting():
     assert len(flags) == 2
     assert "within two standard errors of chance (33.3%)" in flags[0]
     assert "30 points above held-out" in flags[1]
+
+
+def test_the_export_section_names_its_network_and_a_stale_device_measurement():
+    """An export of another candidate says so; a device.json of an earlier export is flagged."""
+    import dataclasses
+
+    from tinyconv.report.shipping import device_section, export_section
+
+    data = _run(pick_is_best=False)
+    export = {"arch": NAMES["c"], "n_eval": 90, "agreement": 0.99, "float_accuracy": 0.9,
+              "int8_accuracy": 0.89, "eval_set": "training (all)", "files": ["out/tc.c"]}
+    device = {"arch": NAMES["b"], "instructions": 1000, "instructions_per_mac": 2.0,
+              "macs": 500, "clock_mhz": 80, "ms_at_clock": 0.1, "flash_bytes": 100,
+              "ram_bytes": 50, "bit_exact": True, "mismatched_images": 0, "core": "cortex-m4",
+              "board": "mps2-an386", "images": 16, "cpi": 1.3, "estimate": {}}
+    data = dataclasses.replace(data, export=export, device=device)
+    body = export_section(data).body
+    assert f"<code>{NAMES['c']}</code> (not the current pick)" in body
+    assert "99.0% of 90 images (the same class chosen)" in body
+    assert "float 90.0%, int8 89.0%" in body and "on images it trained on" in body
+    assert f"This measurement is of {NAMES['b']}, from an earlier export" in \
+        device_section(data).body

@@ -115,19 +115,24 @@ def test_ranking_csv_equals_the_ranking(run_dir):
 
 
 def test_page_ranking_table_shows_the_ranking_values(run_dir):
-    """The page's ranking rows follow the ranking: order, counts, accuracy ± SE, the pick."""
+    """The page's ranking rows follow the ranking: the pick first, groups, counts, accuracy."""
     with RunStore(run_dir) as store:
         ranking = rank_run(store)
     _, p = _parse(run_dir)
     rows = [(cls, cells) for cls, cells in p.rows if len(cells) == 13 and cells[0].isdigit()]
     assert len(rows) == len(ranking)
+    assert rows[0][0] == "pick" and rows[0][1][1] == "the pick"
     for (cls, cells), (_, r) in zip(rows, ranking.iterrows()):
-        assert cells[1] == r["candidate"]
-        assert cells[2] == f"{int(r['params']):,}"
-        assert cells[3] == f"{int(r['macs']):,}"
-        assert cells[7] == f"{100 * r['acc_mean']:.1f}% \u00b1 {100 * r['acc_se']:.1f}%"
-        assert cells[8] == f"{100 * r['train_acc_mean']:.1f}%"
+        assert cells[2] == r["candidate"]
+        assert cells[3] == f"{100 * r['acc_mean']:.1f}% \u00b1 {100 * r['acc_se']:.1f}%"
+        assert cells[4] == f"{100 * r['train_acc_mean']:.1f}%"
+        assert cells[7] == f"{int(r['params']):,}"
+        assert cells[8] == f"{int(r['macs']):,}"
         assert (cls == "pick") == bool(r["pick"])
+        if not r["finalist"]:   # a lower rung is explained where it is listed
+            assert cells[1] == f"stopped at rung {int(r['rung']) + 1} ({int(r['epochs'])} epochs)"
+    headers = next(cells for _, cells in p.rows if "candidate" in cells)
+    assert not {"pp acc", "pk KB", "fl KB", "params"} & set(headers)
 
 
 def test_report_follows_the_ranking_order_the_search_stored(run_dir, tmp_path):

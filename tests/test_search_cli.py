@@ -36,8 +36,21 @@ def test_search_prints_summary_and_pick(space, tmp_path, capsys, monkeypatch):
     pick = table[table["pick"]].iloc[0]
     assert f"pick: {pick.candidate}" in text
     assert "recipe of every candidate: aug=none copies=1 lr=0.01 wd=0 sched=constant" in text
-    assert "* = pick (one-SE rule: the fewest parameters)" in text
-    assert list(table["rank_accuracy"]) == list(range(1, len(table) + 1))
+    assert "the pick first (the fewest parameters within one standard error" in " ".join(
+        text.split())
+    # Row 1 of ranking.csv is the pick; then the groups in order, each by the asked order.
+    assert table["pick"].iloc[0] and table["group"].iloc[0] == "pick"
+    order = ["pick", "within_one_se", "outside_one_se", "stopped_early"]
+    assert list(table["group"].map(order.index)) == sorted(table["group"].map(order.index))
+    for _, rows in table.groupby("group"):
+        assert list(rows["rank_accuracy"]) == sorted(rows["rank_accuracy"])
+    # The terminal table has the same rows in the same order, the pick starred first.
+    names = set(table["candidate"])
+    shown = [word for line in text.splitlines() if line.startswith("  ")
+             for word in line.split()[:2] if word in names]
+    assert shown == list(table["candidate"])
+    assert text.count("\u2605") == 1 and f"\u2605 {pick.candidate}" in text
+    assert "pp acc" not in text and "pk KB" not in text and "fl KB" not in text
     assert f"ranking: {out / 'ranking.csv'}" in text
 
 
@@ -66,10 +79,29 @@ def test_bad_options_exit_2(space, tmp_path, capsys, extra, message):
     assert message in capsys.readouterr().err
 
 
-def test_missing_space_file_exit_2(tmp_path, capsys):
-    """A space file that does not exist exits 2 naming the path."""
+def test_missing_space_file_exit_2(tmp_path, capsys, monkeypatch):
+    """A space file that does not exist exits 2 naming the path, before any image is read."""
+    import tinyconv.data.load as load
+
+    def no_reading(*args, **kwargs):
+        raise AssertionError("the data were read before the space file was checked")
+
+    monkeypatch.setattr(load, "survey", no_reading)
     assert main(_args(tmp_path / "nope.toml", tmp_path / "run")) == 2
     assert "nope.toml" in capsys.readouterr().err
+
+
+def test_a_damaged_store_is_found_before_any_image_is_read(space, tmp_path, capsys,
+                                                           monkeypatch):
+    """A run folder whose store is damaged exits 2 without reading the data first."""
+    import tinyconv.data.load as load
+
+    run = tmp_path / "run"
+    run.mkdir()
+    (run / "run.sqlite").write_bytes(b"not a database, " * 512)
+    monkeypatch.setattr(load, "survey", lambda *a, **k: pytest.fail("the data were read"))
+    assert main(_args(space, run)) == 2
+    assert "run.sqlite" in capsys.readouterr().err
 
 
 def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monkeypatch):
@@ -80,7 +112,7 @@ def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monk
 
     import tinyconv.commands.search as cmd
     from search.store import RunStore
-    from tinyconv.data import DataWarning, load_data
+    from tinyconv.data import load_data
     monkeypatch.setattr(cmd, "write_report_if_available", lambda d: ("missing", "skipped"))
     tiles = load_data(DATA)
     folder = tmp_path / "photos"
@@ -97,10 +129,29 @@ def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monk
     assert main(args + ["--out", "first"]) == 2
     err = capsys.readouterr().err
     assert "1 unreadable image file" in err and str(broken) in err and "--skip-bad" in err
-    with pytest.warns(DataWarning, match="skipped 1 unreadable image file"):
-        assert main(args + ["--out", "second", "--skip-bad"]) == 0
+    assert main(args + ["--out", "second", "--skip-bad"]) == 0
+    # the data warning reaches the user as the tool's own line (no Python warning text)
+    assert "\nwarning: skipped 1 unreadable image file: " in "\n" + capsys.readouterr().err
     with RunStore(tmp_path / "second") as store:
         config = store.config()
     assert config["skip_bad"] is True and config["n_images"] == tiles.labels.size
     # Stored absolute, so the report and the export can read it from anywhere.
     assert config["data"] == str(folder.resolve()), json.dumps(config["data"])
+
+
+def test_a_narrow_terminal_drops_columns_and_says_so():
+    """At 80 columns the table keeps accuracy, parameters, epochs and p, and names the rest."""
+    from tinyconv.commands.summary import ranking_table
+    rows = [{"candidate": f"16x16gray/c{8 * i}k3-p2", "group": g, "pick": g == "pick",
+             "acc_mean": 0.8 - i / 10, "acc_se": 0.01, "train_acc_mean": 0.9,
+             "acc_per_kparam": 0.1, "params": 1000 * i, "macs": 10_000 * i, "peak_kb": 1.0,
+             "flash_kb": 2.0, "ms": float("nan"), "int8_acc_mean": float("nan"),
+             "epochs": 9, "p_vs_best": 0.5} for i, g in
+            ((1, "pick"), (2, "within_one_se"), (3, "outside_one_se"))]
+    table = pd.DataFrame(rows)
+    wide, narrow = ranking_table(table), ranking_table(table, width=80)
+    assert "MACs" in wide[0] and max(map(len, wide)) > 80
+    assert max(map(len, narrow)) <= 80 and "MACs" not in narrow[0]
+    assert "accuracy" in narrow[1] and "parameters" in narrow[1] and "epochs" in narrow[1]
+    assert narrow[-2].startswith("(left out to fit the terminal: MACs per image, training")
+    assert narrow[-1].endswith("ranking.csv has every column)")

@@ -13,19 +13,32 @@ Exit codes (the one place they are decided):
   folder, a folder another search holds, workers that went away); the
   message says
   ``error: <what>`` and how to fix it, and finished work is kept;
-* 130 — interrupted (Ctrl-C); whatever was finished is kept.
+* 130 — interrupted (Ctrl-C); whatever was finished is kept;
+* 141 — whoever read the output closed it early (``tinyconv cost ... --json |
+  head``): the command stops quietly, as programs killed by SIGPIPE do
+  (128 + 13, common practice).
+
+While a command runs, Python warnings print as the tool's own one-line notes
+(``note: ...`` / ``warning: ...``, :mod:`tinyconv.notices`), never
+with a file path and a line of source.
 """
 
 from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
+import warnings
 from typing import Sequence
 
 from tinyconv import __version__
+from tinyconv.notices import show_warning
 from tinyconv.errors import InputError
 from tinyconv.files import WRITE_FAULTS, fix_for, why_not_written
+
+#: The exit code when the reader of the output closed it (see the module notes).
+OUTPUT_CLOSED = 141
 
 # name -> (module under tinyconv.commands, one-line help)
 COMMANDS: dict[str, tuple[str, str]] = {
@@ -35,6 +48,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "check-grads": ("check_grads", "finite-difference check of every gradient of a network"),
     "emulate": ("emulate", "run a network's int8 C on an emulated Cortex-M core: "
                            "instructions, time, flash, RAM, bit-exactness"),
+    "space": ("space", "a commented starter search space sized for your data and budgets"),
     "search": ("search", "budgeted cross-validated search over a space of networks"),
     "report": ("report", "write the HTML report of a run folder"),
     "export": ("export", "retrain the pick on all data; write int8 weights and C code"),
@@ -76,8 +90,14 @@ def main(argv: Sequence[str] | None = None) -> int:
         parser.print_help()
         return 2
     module = importlib.import_module(f"tinyconv.commands.{COMMANDS[args.command][0]}")
+    shown, warnings.showwarning = warnings.showwarning, show_warning
     try:
-        return int(module.run(args) or 0)
+        code = int(module.run(args) or 0)
+        sys.stdout.flush()   # a closed pipe shows here, not at the interpreter's exit
+        return code
+    except BrokenPipeError:
+        _silence_stdout()
+        return OUTPUT_CLOSED
     except InputError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 2
@@ -94,3 +114,16 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted; finished work is kept", file=sys.stderr)
         return 130
+    finally:
+        warnings.showwarning = shown
+
+
+def _silence_stdout() -> None:
+    """Point stdout at the null device, so that Python's last flush at exit does not
+    fail again on the closed pipe (the Python documentation's advice for SIGPIPE)."""
+    try:
+        null = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(null, sys.stdout.fileno())
+        os.close(null)
+    except (OSError, ValueError):  # stdout is not a file descriptor (e.g. a test's buffer)
+        pass

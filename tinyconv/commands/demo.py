@@ -15,7 +15,10 @@ import sys
 import time
 from pathlib import Path
 
-from tinyconv.commands.search import (BarProgress, summary_lines, write_report_if_available)
+from tinyconv import fmt
+from tinyconv.commands._notes import kernels_note
+from tinyconv.commands.progress import SearchProgress, terminal_width
+from tinyconv.commands.search import summary_lines, write_report_if_available
 
 #: Data, candidates and epochs of the full and the quick demo. On these tiles a
 #: network says little about its final accuracy before about 9 epochs (rank
@@ -89,10 +92,11 @@ def run(args: argparse.Namespace) -> int:
     request = demo_request(out, args.quick, args.workers)
     print(f"demo: searching the tile demo space on {request.data} ({'quick' if args.quick else 'full'}"
           f" demo) into {out}", file=sys.stderr, flush=True)
-    print("demo: the first run on a machine also compiles the engine's kernels (about 20 s; "
-          "cached for later runs)", file=sys.stderr, flush=True)
-    summary = run_search(request, BarProgress(None, None))
-    print("\n".join(summary_lines(summary)))
+    note = kernels_note()
+    if note:
+        print(note, file=sys.stderr, flush=True)
+    summary = run_search(request, SearchProgress(None, None))
+    print("\n".join(summary_lines(summary, width=terminal_width(sys.stdout) or None)))
     code = 0
     if not summary.table.empty:
         state, lines = export_pick(out)
@@ -104,7 +108,7 @@ def run(args: argparse.Namespace) -> int:
     pick = summary.table[summary.table["pick"]] if not summary.table.empty else None
     if pick is not None and len(pick):
         row = pick.iloc[0]
-        print(f"demo pick: {row.candidate} ({row.acc_mean:.3f} ± {row.acc_se:.3f} held-out "
-              f"accuracy, {int(row.params):,} parameters) in "
+        print(f"demo pick: {row.candidate} ({fmt.accuracy(row.acc_mean, row.acc_se)} held-out "
+              f"accuracy, {fmt.count(row.params)} parameters) in "
               f"{time.perf_counter() - start:.0f} s")
     return code

@@ -7,7 +7,10 @@ given), quantises it to int8 with
 ``--calib`` calibration images and writes ``network.npz``, ``{prefix}.c``,
 ``{prefix}.h`` and ``summary.json`` into ``--out`` (default ``DIR/export``).
 Prints the sizes and how often the int8 network picks the float network's
-class. Exit codes: 0 done, 1 the retraining diverged, 2 bad input.
+class; the retraining's progress goes to stderr in a few lines (``--each-epoch``
+for all). When the files go into ``DIR/export``, the run's report is written
+again, so that it shows the export's figures. Exit codes: 0 done, 1 the
+retraining diverged (or the report failed), 2 bad input.
 """
 
 from __future__ import annotations
@@ -19,6 +22,7 @@ from typing import Callable
 
 import numpy as np
 
+from tinyconv import fmt
 from tinyconv.commands._args import positive_float, positive_int
 
 PICKS = ("one-se", "best")
@@ -48,6 +52,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                              "assumed clock)")
     parser.add_argument("--device-images", type=positive_int, default=16, metavar="N",
                         help="images for the device run (default 16)")
+    parser.add_argument("--each-epoch", action="store_true",
+                        help="print a line for every epoch of the retraining (default: a few "
+                             "lines, on stderr)")
 
 
 def run(args: argparse.Namespace) -> int:
@@ -61,17 +68,30 @@ def run(args: argparse.Namespace) -> int:
         summary = export_run(args.run_dir, pick=args.pick, out_dir=args.out,
                              epochs=args.epochs, calib=args.calib, prefix=args.prefix, log=log,
                              core=args.core, clock_mhz=args.clock_mhz,
-                             device_images=args.device_images)
+                             device_images=args.device_images, each_epoch=args.each_epoch)
     except DivergedError as exc:
         print(f"error: {exc}", file=sys.stderr)
         return 1
     for line in summary.lines():
         print(line)
-    if summary.device is not None and (Path(args.run_dir) / "report.html").exists():
+    if args.out is None:  # the report reads DIR/export: show the export's figures there
         from tinyconv.commands.search import write_report_if_available
         state, text = write_report_if_available(Path(args.run_dir))
         print(f"report: {text}", file=sys.stdout if state == "written" else sys.stderr)
+        return 1 if state == "failed" else 0
     return 0
+
+
+def epoch_lines(epochs: int, log: Callable[[str], None], each: bool = False):
+    """An ``on_epoch`` hook that logs the retraining in a few lines (every epoch with
+    ``each``): after each quarter of the epochs and after the last."""
+    step = 1 if each else max(1, -(-epochs // 4))
+
+    def on_epoch(epoch: int, stats: dict) -> None:
+        if epoch % step == 0 or epoch == epochs:
+            log(f"  {epoch} of {epochs} epochs: training loss {stats['train_loss']:.3f}, "
+                f"{fmt.percent(stats['train_acc'])} of the training images right")
+    return on_epoch
 
 
 def choose(table, pick: str, run_dir) -> dict:
@@ -104,7 +124,8 @@ def choose(table, pick: str, run_dir) -> dict:
 def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None = None,
                calib: int = 256, prefix: str = "tc",
                log: Callable[[str], None] | None = None, core: str | None = None,
-               clock_mhz: float | None = None, device_images: int = 16):
+               clock_mhz: float | None = None, device_images: int = 16,
+               each_epoch: bool = False):
     """Retrain a run's chosen candidate on all its data and export it.
 
     Parameters
@@ -131,6 +152,8 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
         The part's clock for the time figure.
     device_images : int
         Images for the device run.
+    each_epoch : bool
+        Log every epoch of the retraining, not just a few (:func:`epoch_lines`).
 
     Returns
     -------
@@ -193,12 +216,9 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
     net = Network.from_arch(arch, n_classes, seed=derive_seed(seed, "export", candidate,
                                                               "weights"))
     recipe = recipe_of(cfg, candidate)
-    log(f"training {arch} ({recipe}) on all {len(data.labels)} images for {epochs} epochs")
+    log(f"retraining {arch} ({recipe}) on all {len(data.labels)} images for {epochs} epochs")
 
-    def on_epoch(epoch: int, stats: dict) -> None:
-        log(f"  epoch {epoch}/{epochs}: loss {stats['train_loss']:.4f}, "
-            f"accuracy {stats['train_acc']:.3f}")
-
+    on_epoch = epoch_lines(epochs, log, each_epoch)
     with np.errstate(over="ignore", invalid="ignore"):  # divergence is reported below
         hist = fit(net, normalise(x, mean, std), data.labels, config, on_epoch=on_epoch)
     if hist.status == "diverged":

@@ -28,8 +28,7 @@ def _pixels(x: np.ndarray, where: str) -> np.ndarray:
         x = x[..., None]
     if x.ndim != 4 or x.shape[3] not in (1, 3):
         raise DataError(f"{where}: x must have shape (n, h, w) or (n, h, w, c) with c 1 "
-                        f"(grey) or 3 (RGB), got {x.shape}; drop an alpha channel with "
-                        "x[..., :3]")
+                        f"(grey) or 3 (RGB), got {x.shape}{_shape_hint(x.shape)}")
     if x.shape[0] == 0 or x.shape[1] == 0 or x.shape[2] == 0:
         raise DataError(f"{where}: x holds no pixels (shape {x.shape})")
     if x.dtype == np.uint8:
@@ -51,6 +50,20 @@ def _pixels(x: np.ndarray, where: str) -> np.ndarray:
         return x.astype(np.uint8)
     raise DataError(f"{where}: x has dtype {x.dtype}; store uint8 (0..255) or float "
                     "in [0, 1]")
+
+
+def _shape_hint(shape: tuple[int, ...]) -> str:
+    """How to fix an image array of the wrong shape, for the shapes where one fix is clear."""
+    if len(shape) == 4 and shape[3] == 4:
+        return "; drop the alpha channel with x[..., :3]"
+    if len(shape) == 4 and shape[1] in (1, 3, 4) and shape[3] > 4:
+        return ("; it looks channels-first (n, c, h, w): move the channels last with "
+                "np.moveaxis(x, 1, -1)" + (" and drop the alpha channel with x[..., :3]"
+                                            if shape[1] == 4 else ""))
+    if len(shape) == 2:
+        return ("; each image is a flat row: give them their height and width, e.g. "
+                "x.reshape(n, h, w)")
+    return ""
 
 
 def load_arrays(path: str | Path) -> tuple[Dataset, Intake]:

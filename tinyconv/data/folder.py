@@ -5,9 +5,11 @@ order. PNG, JPEG, BMP and GIF files are read (see :mod:`.images`); hidden
 entries (names starting with ``.``) and files of other types are ignored with
 a note; sub-folders inside a class folder are ignored with a note.
 
-Problems are reported all at once: every unreadable file in one error (or,
-with ``skip_bad=True``, skipped and counted), every empty class folder in one
-error. Images with a side over :data:`MAX_SIDE` pixels are shrunk by a whole
+Problems are reported all at once (:func:`survey_folder`): every unreadable
+file (or, with ``skip_bad=True``, skipped and counted), every empty class
+folder, too few classes and, when the folds are known, classes too small for
+them, in one error. What Pillow warns of while reading (its suspicion of a
+decompression bomb included) becomes a note. Images with a side over :data:`MAX_SIDE` pixels are shrunk by a whole
 factor as they are read (block means), so folders of camera photos stay small
 in memory. Images of different sizes are resized to the most common size (area
 averaging or bilinear, :mod:`.resize`), with a warning when sizes lie far
@@ -17,16 +19,19 @@ grey images are repeated to RGB.
 
 from __future__ import annotations
 
+import warnings
 from collections import Counter
 from pathlib import Path
 
 import numpy as np
+from PIL import Image
 
 from tinyconv.errors import DataError
 
 from .dataset import Dataset, Intake, WarningLog
 from .images import EXTENSIONS, UnreadableImage, read_image, reduce_by
 from .resize import resize_uint8
+from .survey import Survey, fold_problems, refusal
 from .validate import check_classes, listing, warn_duplicates
 
 FAR_APART = 2.0  # a side more than this factor from the common size draws a warning
@@ -96,8 +101,49 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
     Raises
     ------
     DataError
-        Unreadable images (all listed, unless ``skip_bad``), empty class
-        folders (all listed), fewer than two classes, no sub-folders.
+        Listing every problem at once (:func:`survey_folder`): unreadable
+        images (unless ``skip_bad``), empty class folders, fewer than two
+        classes, no sub-folders.
+    """
+    found = survey_folder(root, skip_bad=skip_bad)
+    if found.problems:
+        raise refusal(found)
+    assert found.dataset is not None
+    return found.dataset, found.intake
+
+
+def _read(f: Path, pillow: list[str], huge: list[str]) -> tuple[np.ndarray, str]:
+    """One image; what Pillow warns of is kept as notes, not shown as Python warnings."""
+    with warnings.catch_warnings(record=True) as caught:
+        warnings.simplefilter("always")
+        try:
+            return read_image(f)
+        finally:
+            for w in caught:
+                where = f"{f.parent.name}/{f.name}"
+                if issubclass(w.category, Image.DecompressionBombWarning):
+                    huge.append(where)
+                else:
+                    pillow.append(f"{where} ({str(w.message).strip().splitlines()[0]})")
+
+
+def survey_folder(root: str | Path, *, skip_bad: bool = False,
+                  folds: int | None = None) -> Survey:
+    """Read an image folder and find every problem in one pass (see :mod:`.survey`).
+
+    Parameters
+    ----------
+    root : str or Path
+        Folder with one sub-folder per class.
+    skip_bad : bool
+        Unreadable images are left out and noted instead of being a problem.
+    folds : int, optional
+        Also a problem: classes with fewer usable images than this many folds.
+
+    Raises
+    ------
+    DataError
+        Only when there is nothing to survey: no sub-folders at all.
     """
     root = Path(root)
     log = WarningLog()
@@ -108,12 +154,14 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
     kinds: Counter[str] = Counter()
     bad: list[tuple[str, str]] = []          # (path, reason)
     large: list[str] = []
+    pillow: list[str] = []
+    huge: list[str] = []
     seen: Counter[str] = Counter()
     names = list(scanned)
     for c, name in enumerate(names):
         for f in scanned[name]:
             try:
-                im, kind = read_image(f)
+                im, kind = _read(f, pillow, huge)
             except UnreadableImage as exc:
                 bad.append((str(f), str(exc)))
                 continue
@@ -125,34 +173,51 @@ def load_folder(root: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, I
             labels.append(c)
             paths.append(str(f))
             kinds[kind] += 1
+    problems: list[str] = []
     skipped: tuple[str, ...] = ()
     if bad:
         what = f"{len(bad)} unreadable image {'file' if len(bad) == 1 else 'files'}"
-        if not skip_bad:
-            every = "".join(f"\n  {path} ({why})" for path, why in bad)
-            raise DataError(f"{root}: {what}; fix or remove them, or pass skip_bad "
-                            f"(--skip-bad) to leave them out:{every}")
-        skipped = tuple(path for path, _ in bad)
-        log.warn(f"skipped {what}: {listing([f'{p} ({why})' for p, why in bad])}")
+        if skip_bad:
+            skipped = tuple(path for path, _ in bad)
+            log.warn(f"skipped {what}: {listing([f'{p} ({why})' for p, why in bad])}")
+        else:
+            every = "".join(f"\n    {path} ({why})" for path, why in bad)
+            problems.append(f"{what}; fix or remove them, or pass skip_bad (--skip-bad) to "
+                            f"leave them out:{every}")
+    if huge:
+        log.note(f"{len(huge)} {'image holds' if len(huge) == 1 else 'images hold'} more "
+                 f"pixels than Pillow's safety limit "
+                 f"({Image.MAX_IMAGE_PIXELS:,} pixels), above which it suspects a file made to "
+                 f"exhaust memory: {listing(huge)}; they were read and shrunk; if such large "
+                 "images are unexpected, check where they came from")
+    if pillow:
+        log.note(f"Pillow remarked on {len(pillow)} files while reading them: "
+                 f"{listing(pillow, 4)}")
     if large:
         log.note(f"{len(large)} images larger than {MAX_SIDE} pixels were shrunk by whole "
                  f"factors while reading (block means) to save memory: {listing(large)}")
     counts = np.bincount(np.array(labels, dtype=np.int64), minlength=len(names))
     empty = [names[i] for i in range(len(names)) if counts[i] == 0]
     if empty:
-        raise DataError(f"{root}: {len(empty)} class "
+        problems.append(f"{len(empty)} class "
                         f"{'folder has' if len(empty) == 1 else 'folders have'} no readable "
-                        f"images: {listing(repr(e) for e in empty)}; add PNG, JPEG, BMP or "
+                        f"images: {listing([repr(e) for e in empty])}; add PNG, JPEG, BMP or "
                         "GIF images to it, or remove the folder")
-    check_classes(names, counts, str(root))
-    images = _stack(pixels, paths, log)
+    try:
+        check_classes(names, counts, str(root))
+    except DataError as exc:
+        problems.append(str(exc).removeprefix(f"{root}: "))
     label_arr = np.array(labels, dtype=np.int64)
-    within, across = warn_duplicates(images, label_arr, names, paths, log)
-    ds = Dataset(images, label_arr, tuple(names), tuple(paths), str(root), skipped,
-                 tuple(log.messages))
-    intake = Intake(tuple(seen.most_common()), tuple(kinds.most_common()),
-                    tuple(within), tuple(across))
-    return ds, intake
+    problems += fold_problems(label_arr, folds, names)
+    ds, intake = None, Intake(tuple(seen.most_common()), tuple(kinds.most_common()))
+    if pixels:
+        images = _stack(pixels, paths, log)
+        within, across = warn_duplicates(images, label_arr, names, paths, log)
+        ds = Dataset(images, label_arr, tuple(names), tuple(paths), str(root), skipped,
+                     tuple(log.messages))
+        intake = Intake(intake.sizes, intake.kinds, tuple(within), tuple(across))
+    return Survey(str(root), tuple(names), tuple(int(n) for n in counts), tuple(bad), ds,
+                  intake, tuple(log.messages), tuple(problems))
 
 
 def _stack(pixels: list[np.ndarray], paths: list[str], log: WarningLog) -> np.ndarray:

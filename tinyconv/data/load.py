@@ -22,7 +22,8 @@ from . import tiles
 from .arrays import load_arrays
 from .dataset import Dataset, Intake
 from .digits import SPEC as DIGITS_SPEC, load_digits
-from .folder import load_folder
+from .folder import survey_folder
+from .survey import Survey, fold_problems, refusal
 from .validate import find_duplicates
 
 TILES_DEFAULTS = {"n": 100, "size": 32, "seed": 0}
@@ -43,8 +44,41 @@ def _tiles_options(query: str, spec: str) -> dict[str, int]:
     return options
 
 
-def load_with_intake(spec: str | Path, *, skip_bad: bool = False) -> tuple[Dataset, Intake]:
+def survey(spec: str | Path, *, skip_bad: bool = False, folds: int | None = None) -> Survey:
+    """What ``spec`` holds and every problem that stops a search (:mod:`.survey`).
+
+    An image folder is read whole, whatever its problems, so that all of them
+    are found in one pass; arrays and built-in sets are loaded (their faults
+    of form are raised at once: nothing can be listed before them), then
+    checked against ``folds``.
+
+    Raises
+    ------
+    DataError
+        When the source cannot be read at all (no such path, no class
+        sub-folders, malformed arrays).
+    """
+    text = str(spec)
+    if not text.startswith("builtin:") and Path(spec).is_dir():
+        return survey_folder(Path(spec), skip_bad=skip_bad, folds=folds)
+    ds, intake = _load(spec, skip_bad)
+    counts = tuple(int(n) for n in ds.class_counts)
+    return Survey(ds.source, ds.classes, counts, (), ds, intake, ds.warnings,
+                  tuple(fold_problems(ds.labels, folds, ds.classes)))
+
+
+def load_with_intake(spec: str | Path, *, skip_bad: bool = False,
+                     folds: int | None = None) -> tuple[Dataset, Intake]:
     """Like :func:`load_data`, also returning what was seen on the way in."""
+    found = survey(spec, skip_bad=skip_bad, folds=folds)
+    if found.problems:
+        raise refusal(found)
+    assert found.dataset is not None
+    return found.dataset, found.intake
+
+
+def _load(spec: str | Path, skip_bad: bool) -> tuple[Dataset, Intake]:
+    """A built-in set or a .npz (or a folder, refusing it at its problems)."""
     text = str(spec)
     if text.startswith("builtin:"):
         name, _, query = text[len("builtin:"):].partition("?")
@@ -68,7 +102,10 @@ def load_with_intake(spec: str | Path, *, skip_bad: bool = False) -> tuple[Datas
                         "are builtin:tiles and builtin:digits")
     path = Path(spec)
     if path.is_dir():
-        return load_folder(path, skip_bad=skip_bad)
+        found = survey_folder(path, skip_bad=skip_bad)
+        if found.problems:
+            raise refusal(found)
+        return found.dataset, found.intake  # type: ignore[return-value]
     if path.is_file():
         if path.suffix.lower() == ".npz":
             return load_arrays(path)
@@ -77,7 +114,7 @@ def load_with_intake(spec: str | Path, *, skip_bad: bool = False) -> tuple[Datas
     raise DataError(f"{text}: no such file or folder; give {_KINDS}")
 
 
-def load_data(spec: str | Path, *, skip_bad: bool = False) -> Dataset:
+def load_data(spec: str | Path, *, skip_bad: bool = False, folds: int | None = None) -> Dataset:
     """Load and validate a data set.
 
     Parameters
@@ -87,6 +124,9 @@ def load_data(spec: str | Path, *, skip_bad: bool = False) -> Dataset:
         ``builtin:digits`` (see the module docstring).
     skip_bad : bool
         For folders: skip unreadable images instead of refusing the folder.
+    folds : int, optional
+        Also refuse classes too small for this many stratified folds, together
+        with every other problem (a search passes its ``--folds``).
 
     Returns
     -------
@@ -96,8 +136,9 @@ def load_data(spec: str | Path, *, skip_bad: bool = False) -> Dataset:
     ------
     DataError
         Whatever makes the data unusable, named with the file or array, the
-        rule broken and the fix. Usable-but-doubtful data gives
+        rule broken and the fix; every such problem of a folder in one error.
+        Usable-but-doubtful data gives
         :class:`~tinyconv.data.dataset.DataWarning` warnings instead, also
         recorded in ``Dataset.warnings``.
     """
-    return load_with_intake(spec, skip_bad=skip_bad)[0]
+    return load_with_intake(spec, skip_bad=skip_bad, folds=folds)[0]

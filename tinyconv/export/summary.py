@@ -6,6 +6,8 @@ import json
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
+from tinyconv import fmt
+
 
 @dataclass(frozen=True)
 class ExportSummary:
@@ -105,14 +107,14 @@ class ExportSummary:
                f"calibration   {self.calibration} over {self.n_calib} images; weights "
                f"rounded with {self.rounding}"]
         if self.cv_accuracy is not None:
-            out.append(f"search        cross-validated float accuracy {self.cv_accuracy:.2%} "
-                       f"+- {self.cv_accuracy_se or 0.0:.2%} (SE)")
+            out.append(f"search        cross-validated float accuracy "
+                       f"{fmt.accuracy(self.cv_accuracy, self.cv_accuracy_se or 0.0)} (SE)")
         if self.n_eval:
-            line = (f"int8 vs float {self.agreement:.2%} top-1 agreement on {self.n_eval} "
-                    f"{self.eval_set} images")
+            line = (f"int8 vs float {fmt.percent(self.agreement)} top-1 agreement on "
+                    f"{self.n_eval} {self.eval_set} images")
             if self.float_accuracy is not None:
-                line += (f"; accuracy float {self.float_accuracy:.2%}, "
-                         f"int8 {self.int8_accuracy:.2%}")
+                line += (f"; accuracy float {fmt.percent(self.float_accuracy)}, "
+                         f"int8 {fmt.percent(self.int8_accuracy)}")
             out.append(line)
         if self.device:
             d = self.device

@@ -14,9 +14,11 @@ from tinyconv.report.budgets import axis_budget, budget_rows
 from tinyconv.report.confusion import (confusion_counts, confusion_figure, per_class_table,
                                        top_confusions)
 from tinyconv.report.curves import learning_curves
+from tinyconv.arch import parse
 from tinyconv.report.gallery import (confident_mistakes, confusion_examples,
-                                     confusion_gallery, mistakes_gallery)
+                                     confusion_gallery, mistakes_gallery, network_view)
 from tinyconv.report.pareto import pareto_plot
+from tinyconv.report.pick_cost import pick_cost_table
 from tinyconv.report.rundata import RunData, fold_scores
 
 MAX_FINALIST_CURVES = 6
@@ -107,17 +109,23 @@ def assemble(data: RunData) -> Assembled:
                                        pick=pick["candidate"]))
 
     fin = data.finalists
+    order = {c: str(i) for i, c in enumerate(ranking["candidate"], 1)}   # as the table shows
     for axis in ("params", "macs"):
         _keep(out, f"pareto_{axis}.png",
-              pareto_plot(fin, axis, budget=axis_budget(budgets, axis), chance=chance))
+              pareto_plot(fin, axis, budget=axis_budget(budgets, axis), chance=chance,
+                          names=order))
 
     out.curve_candidates = curve_finalists(data)
     done = data.units[data.units["status"] == "done"]
     _keep(out, "curves.png", learning_curves(done, out.curve_candidates, chance=chance,
                                              pick=pick["candidate"],
-                                             labels=recipe_titles(data.ranking)))
+                                             labels=recipe_titles(data.ranking),
+                                             best=data.best["candidate"]))
 
     out.tables["budgets.csv"] = budget_rows(budgets, pick, data.removed)
+    arch = str(pick["arch"]) if "arch" in pick else str(pick["candidate"])
+    out.tables["pick_cost.csv"] = pick_cost_table(arch, len(data.classes),
+                                                  budgets.get("core"), budgets.get("clock_mhz"))
 
     p = data.predictions
     classes = list(data.classes)
@@ -148,8 +156,15 @@ def assemble(data: RunData) -> Assembled:
     if data.images is None:
         return out
     examples = confusion_examples(p.label, p.pred, conf, pairs, PER_CONFUSION)
+    shown = sorted({int(p.index[q]) for *_, pos in examples for q in pos}
+                   | {int(p.index[q]) for q in wrong})
+    spec = parse(str(pick["arch"]) if "arch" in pick else str(pick["candidate"])).input
+    seen = dict(zip(shown, network_view(data.images[shown], spec))) if shown else None
+    seen_as = f"{spec.h}x{spec.w} {spec.mode}"
     _keep(out, "confusions_gallery.png",
-          confusion_gallery(data.images, examples, classes, confidence=conf, source=p.index))
+          confusion_gallery(data.images, examples, classes, confidence=conf, source=p.index,
+                            seen=seen, seen_as=seen_as))
     _keep(out, "mistakes.png", mistakes_gallery(data.images, wrong, p.label, p.pred, conf,
-                                                classes, source=p.index))
+                                                classes, source=p.index, seen=seen,
+                                                seen_as=seen_as))
     return out

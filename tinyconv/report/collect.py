@@ -46,7 +46,8 @@ def collect(run_dir: str | Path, rank_by: str | None = None) -> RunData:
     with RunStore(run_dir) as store:
         config = store.config() or {}
         classes = tuple(str(c) for c in config.get("classes", ()))
-        ranking = rank_run(store, by=rank_by)   # None: the order the search was asked for
+        rank_by = rank_by or store.rank_order() or "per_param"
+        ranking = rank_run(store, by=rank_by)
         if ranking.empty:
             n = len(store.units())
             raise RunError(f"{run_dir}: nothing to report yet: {n} units finished, and no "
@@ -70,7 +71,19 @@ def collect(run_dir: str | Path, rank_by: str | None = None) -> RunData:
     return RunData(run_dir=run_dir, config=config, classes=classes, ranking=ranking,
                    units=units, predictions=predictions, images=images, paths=paths,
                    candidates=candidates, removed=removed, outcome=outcome,
-                   notices=tuple(notes), device=_device(run_dir))
+                   notices=tuple(notes), device=_device(run_dir), rank_by=rank_by,
+                   export=_exported(run_dir))
+
+
+def _exported(run_dir: Path) -> dict | None:
+    """The export's summary (``export/summary.json``), if the run was exported."""
+    import json
+
+    try:
+        data = json.loads((Path(run_dir) / "export" / "summary.json").read_text())
+    except (OSError, ValueError):
+        return None
+    return data if isinstance(data, dict) and "arch" in data else None
 
 
 def _device(run_dir: Path) -> dict | None:

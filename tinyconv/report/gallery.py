@@ -2,22 +2,27 @@
 
 Each gallery is drawn as one mosaic image on a single axes (thumbnails
 enlarged by a whole factor, pixels kept sharp) with the captions as text:
-far quicker to lay out than one axes per thumbnail.
+far quicker to lay out than one axes per thumbnail. Given what the network
+saw of each image (:func:`network_view`: its input size and colour mode), a
+thumbnail shows the original and, beside it, that view at the same size.
 """
 
 from __future__ import annotations
 
-from typing import Sequence
+from typing import Mapping, Sequence
 
 import matplotlib as mpl
 import numpy as np
 from matplotlib.figure import Figure
+
+from tinyconv.arch import InputSpec
 
 from tinyconv.report.palette import PALETTE, style
 
 THUMB = 72     # displayed thumbnail side, in mosaic pixels (at least)
 GAP = 10       # pixels between thumbnails
 CAPTION = 30   # pixels under each thumbnail for its caption
+PAIR_GAP = 4   # pixels between an image and the network's view of it
 
 
 def confusion_examples(labels: np.ndarray, preds: np.ndarray, confidence: np.ndarray,
@@ -74,6 +79,38 @@ def thumbnail(image: np.ndarray, side: int = THUMB) -> np.ndarray:
     return np.repeat(np.repeat(img, f, axis=0), f, axis=1)   # nearest-neighbour, (f*h, f*w, 3)
 
 
+def network_view(images: np.ndarray, spec: InputSpec) -> np.ndarray:
+    """What a network reading ``spec`` sees of ``images``, as viewable 8-bit pixels.
+
+    The images resized to the network's input (:func:`tinyconv.data.prepare`)
+    and, for ``gray``, turned grey; the ``ycc`` and ``hsv`` modes are not
+    viewable as colours, so for them the resized RGB is shown (the caption
+    names the mode). Returns (n, spec.h, spec.w, 1 or 3) uint8.
+    """
+    from tinyconv.data import prepare
+    from tinyconv.quant import as_pixels
+
+    shown = spec if spec.mode in ("rgb", "gray") else InputSpec(spec.h, spec.w, "rgb")
+    return as_pixels(prepare(np.asarray(images), shown))
+
+
+def side_by_side(original: np.ndarray, seen: np.ndarray | None,
+                 side: int = THUMB) -> np.ndarray:
+    """The original's thumbnail and, when given, the network's view at the same height."""
+    left = thumbnail(original, side)
+    if seen is None:
+        return left
+    view = np.asarray(seen)
+    f = max(1, round(left.shape[0] / view.shape[0]))
+    right = thumbnail(view, 1)
+    right = np.repeat(np.repeat(right, f, axis=0), f, axis=1)
+    h = max(left.shape[0], right.shape[0])
+    out = np.full((h, left.shape[1] + PAIR_GAP + right.shape[1], 3), 255, np.uint8)
+    out[:left.shape[0], :left.shape[1]] = left
+    out[:right.shape[0], left.shape[1] + PAIR_GAP:] = right
+    return out
+
+
 class _Mosaic:
     """A white canvas of cells; thumbnails pasted centred in their cell."""
 
@@ -118,14 +155,25 @@ def _figure(canvas: np.ndarray, title: str) -> tuple[Figure, object]:
     return fig, ax
 
 
-def _cell_size(images: np.ndarray) -> tuple[int, int]:
-    t = thumbnail(images[0])
+def _cell_size(images: np.ndarray, seen: Mapping[int, np.ndarray] | None) -> tuple[int, int]:
+    first = next(iter(seen.values())) if seen else None
+    t = side_by_side(images[0], first)
     return t.shape[0], t.shape[1]
+
+
+def _thumb(images: np.ndarray, i: int, seen: Mapping[int, np.ndarray] | None) -> np.ndarray:
+    return side_by_side(images[i], seen.get(i) if seen else None)
+
+
+def _title(title: str, seen_as: str | None) -> str:
+    return title if not seen_as else f"{title}: each image, then as the network saw it ({seen_as})"
 
 
 def confusion_gallery(images: np.ndarray, examples: list[tuple[int, int, int, np.ndarray]],
                       classes: Sequence[str], *, confidence: np.ndarray | None = None,
-                      source: np.ndarray | None = None) -> Figure:
+                      source: np.ndarray | None = None,
+                      seen: Mapping[int, np.ndarray] | None = None,
+                      seen_as: str | None = None) -> Figure:
     """One row per frequent confusion: the two classes and the count, then real thumbnails.
 
     Parameters
@@ -138,20 +186,23 @@ def confusion_gallery(images: np.ndarray, examples: list[tuple[int, int, int, np
         Probability of the predicted class per position (shown under each image).
     source : ndarray, shape (n,), optional
         Index into ``images`` of each position (identity when omitted).
+    seen : mapping of image index to the network's view (:func:`network_view`), optional
+    seen_as : the network's input (e.g. ``16x16 gray``) for the title, with ``seen``
     """
-    title = "Most frequent confusions of the pick (real held-out images)"
+    title = _title("Most frequent confusions of the pick (real held-out images)", seen_as)
     with mpl.rc_context(style()):
         if not examples:
             fig, ax = _figure(np.full((60, 480, 3), 255, np.uint8), title)
             ax.text(240, 30, "no mistakes on the held-out folds", ha="center", va="center")
             return fig
         per = max(len(e[3]) for e in examples)
-        cell = _cell_size(images)
+        cell = _cell_size(images, seen)
         label_w = 150
         m = _Mosaic(len(examples), per, cell, left=label_w)
         for r, (_t, _p, _c, pos) in enumerate(examples):
             for k, q in enumerate(pos):
-                m.paste(r, k, thumbnail(images[int(source[q]) if source is not None else int(q)]))
+                m.paste(r, k, _thumb(images, int(source[q]) if source is not None else int(q),
+                                     seen))
         fig, ax = _figure(m.canvas, title)
         for r, (t, p, c, pos) in enumerate(examples):
             y, _x = m.origin(r, 0)
@@ -171,22 +222,25 @@ def confusion_gallery(images: np.ndarray, examples: list[tuple[int, int, int, np
 
 def mistakes_gallery(images: np.ndarray, positions: np.ndarray, labels: np.ndarray,
                      preds: np.ndarray, confidence: np.ndarray, classes: Sequence[str], *,
-                     source: np.ndarray | None = None, cols: int = 6) -> Figure:
-    """A grid of the most confident mistakes, true and predicted class under each."""
-    title = "Most confident mistakes of the pick"
+                     source: np.ndarray | None = None, cols: int = 6,
+                     seen: Mapping[int, np.ndarray] | None = None,
+                     seen_as: str | None = None) -> Figure:
+    """A grid of the most confident mistakes, true and predicted class under each
+    (with the network's view beside each image when ``seen`` is given)."""
+    title = _title("Most confident mistakes of the pick", seen_as)
     n = len(positions)
     with mpl.rc_context(style()):
         if n == 0:
             fig, ax = _figure(np.full((60, 480, 3), 255, np.uint8), title)
             ax.text(240, 30, "no mistakes on the held-out folds", ha="center", va="center")
             return fig
-        cell = _cell_size(images)
+        cell = _cell_size(images, seen)
         cell = (cell[0], max(cell[1], 110))          # room for the two-line caption
         rows = -(-n // cols)
         m = _Mosaic(rows, min(cols, n), cell)
         for i, q in enumerate(positions):
             m.paste(i // cols, i % cols,
-                    thumbnail(images[int(source[q]) if source is not None else int(q)]))
+                    _thumb(images, int(source[q]) if source is not None else int(q), seen))
         fig, ax = _figure(m.canvas, title)
         for i, q in enumerate(positions):
             y, x = m.origin(i // cols, i % cols)

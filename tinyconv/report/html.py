@@ -15,6 +15,7 @@ from typing import Callable, Iterable, Mapping, Sequence
 
 import pandas as pd
 
+from tinyconv import fmt
 from tinyconv.report.axes import DPI, SCREEN_DPI
 from tinyconv.report.palette import PALETTE
 
@@ -110,12 +111,8 @@ def bullet_list(items: Iterable[str]) -> str:
 
 
 def pct(v: object, digits: int = 1) -> str:
-    """0.9234 -> '92.3%'; missing -> an en dash."""
-    try:
-        f = float(v)  # type: ignore[arg-type]
-    except (TypeError, ValueError):
-        return "\u2013"
-    return "\u2013" if not math.isfinite(f) else f"{100 * f:.{digits}f}%"
+    """0.9234 -> '92.3%'; missing -> an en dash (:func:`tinyconv.fmt.percent`)."""
+    return fmt.percent(v, digits)
 
 
 def num(v: object, digits: int = 0) -> str:
@@ -170,6 +167,8 @@ nav.toc a span {{ color: var(--muted); margin-right: 4px; }}
 .decision .arch {{ font: 600 17px/1.35 "DejaVu Sans Mono", "Liberation Mono", monospace;
   word-break: break-all; margin: 0 0 10px; }}
 .decision p {{ margin: 0; font-size: 14px; }}
+.decision p.tocautions {{ margin-top: 10px; font-size: 13px; color: var(--muted); }}
+.decision p.tocautions a {{ color: var(--held); font-weight: 600; }}
 .decision p.flag {{ margin-top: 10px; padding: 6px 10px; background: var(--band);
   border-left: 3px solid var(--pick); }}
 .tiles {{ display: grid; grid-template-columns: repeat(3, minmax(120px, 1fr)); gap: 16px 14px; }}
@@ -188,13 +187,15 @@ h3 {{ font-size: 15px; margin: 22px 0 6px; }}
 table {{ border-collapse: collapse; width: 100%; font-size: 13px; }}
 th, td {{ padding: 6px 8px; border-bottom: 1px solid var(--rule); white-space: nowrap; }}
 td.txt {{ white-space: normal; }}
-table.ranking td.txt {{ min-width: 15em; }}
+table.ranking td.txt {{ min-width: 11em; }}
+table.ranking th, table.ranking td {{ padding: 5px 5px; }}
 th {{ text-align: left; font-size: 11px; text-transform: uppercase; letter-spacing: .03em;
   white-space: normal; vertical-align: bottom;
   color: var(--muted); background: #f3eee3; border-bottom: 1.5px solid var(--ink); }}
 td.num, th.num {{ text-align: right; }}
 td.txt code {{ font: 12px "DejaVu Sans Mono", "Liberation Mono", monospace;
   word-break: break-all; }}
+td.txt code.arch {{ word-break: normal; }}
 tbody tr:nth-child(even) td {{ background: #fcfaf6; }}
 tr.pick td {{ background: var(--band) !important; font-weight: 700; }}
 tr.pick td:first-child {{ box-shadow: inset 5px 0 0 var(--pick); }}

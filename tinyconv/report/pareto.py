@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from typing import Mapping
+
 import matplotlib as mpl
 import numpy as np
 import pandas as pd
@@ -18,7 +20,8 @@ FRONT_COLUMNS = {"params": "pareto_params", "macs": "pareto_macs"}
 
 
 def pareto_plot(ranking: pd.DataFrame, x: str = "params", *, budget: float | None = None,
-                chance: float | None = None) -> Figure:
+                chance: float | None = None,
+                names: Mapping[str, str] | None = None) -> Figure:
     """Mean held-out accuracy (± one SE) against ``x`` for every ranked candidate.
 
     Parameters
@@ -33,6 +36,10 @@ def pareto_plot(ranking: pd.DataFrame, x: str = "params", *, budget: float | Non
         The run's budget on this axis, drawn as a dashed vertical line.
     chance : float, optional
         Chance accuracy 1/K, a dotted horizontal line.
+    names : mapping of candidate to a short label, optional
+        The points on the front, the pick and the best carry their label (the
+        report uses the row's place in the ranking table), and a key under the
+        axes gives each label's architecture text.
 
     Returns
     -------
@@ -55,9 +62,14 @@ def pareto_plot(ranking: pd.DataFrame, x: str = "params", *, budget: float | Non
     best = int(np.nanargmax(ys))
     lo_band = ys[best] - se[best]
 
+    named = _named(df, front | pick | (np.arange(len(df)) == best), names)
     with mpl.rc_context(style()):
-        fig = new_figure(6.4, 4.9)
-        ax = fig.add_subplot()
+        fig = new_figure(6.4, 4.9 + 0.16 * len(named))
+        if named:
+            ax, key = fig.subplots(2, 1, height_ratios=(4.4, 0.16 * len(named) + 0.1))
+            _key(key, named)
+        else:
+            ax = fig.add_subplot()
         ax.axhspan(lo_band, ys[best], color=PALETTE.band, linewidth=0, zorder=0)
         ax.axhline(lo_band, color=PALETTE.training, linewidth=1.0, linestyle="-", zorder=1)
         chance_line(ax, chance)
@@ -85,6 +97,9 @@ def pareto_plot(ranking: pd.DataFrame, x: str = "params", *, budget: float | Non
             ax.annotate("pick", (xs[i], ys[i]), xytext=(-10 if right else 10, -16),
                         textcoords="offset points", ha="right" if right else "left",
                         color=PALETTE.pick, fontweight="bold", fontsize=9)
+        for i, label in _labels(df, named):
+            ax.annotate(label, (xs[i], ys[i]), xytext=(5, 5), textcoords="offset points",
+                        fontsize=8, fontweight="bold", color=PALETTE.ink, zorder=6)
         if spans_decades(xs):
             ax.set_xscale("log")
             ax.set_xlabel(AXIS_LABELS[x].replace(")", ", log scale)"))
@@ -113,3 +128,27 @@ def pareto_plot(ranking: pd.DataFrame, x: str = "params", *, budget: float | Non
         word = "parameters" if x == "params" else "MACs"
         ax.set_title(f"Held-out accuracy against {word}")
     return fig
+
+
+def _named(df: pd.DataFrame, shown: np.ndarray, names: Mapping[str, str] | None
+           ) -> list[tuple[str, str]]:
+    """(label, candidate) of the points that carry a label, in the labels' order."""
+    if not names:
+        return []
+    found = [(names[c], c) for c, s in zip(df["candidate"], shown) if s and c in names]
+    return sorted(found, key=lambda item: (len(item[0]), item[0]))
+
+
+def _labels(df: pd.DataFrame, named: list[tuple[str, str]]) -> list[tuple[int, str]]:
+    """(position in ``df``, label) of each labelled point."""
+    where = {c: i for i, c in enumerate(df["candidate"])}
+    return [(where[c], label) for label, c in named]
+
+
+def _key(ax, named: list[tuple[str, str]]) -> None:
+    """Each label with its architecture text, one a line, on an empty axes."""
+    ax.axis("off")
+    n = len(named)
+    for i, (label, cand) in enumerate(named):
+        ax.text(0.0, 1.0 - (i + 0.5) / n, f"{label:>3}  {cand}", transform=ax.transAxes,
+                ha="left", va="center", fontsize=7.5, family="monospace", color=PALETTE.ink)

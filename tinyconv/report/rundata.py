@@ -56,6 +56,8 @@ class RunData:
     outcome : how the last search session ended (``RunStore.outcome()``), if known
     notices : plain sentences about what the report had to leave out
     device : the export's device measurement (``export/device.json``), when made
+    rank_by : the order of the ranking's groups (``per_param`` or ``accuracy``)
+    export : the export's summary (``export/summary.json``), when the run was exported
     """
 
     run_dir: Path
@@ -71,6 +73,8 @@ class RunData:
     outcome: dict[str, Any] | None = None
     notices: tuple[str, ...] = field(default=())
     device: dict[str, Any] | None = None
+    rank_by: str = "per_param"
+    export: dict[str, Any] | None = None
 
     @property
     def chance(self) -> float:

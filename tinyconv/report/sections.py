@@ -6,13 +6,14 @@ import json
 import math
 from typing import Any
 
-import pandas as pd
-
 from tinyconv.report.assemble import Assembled
 from tinyconv.report.html import (Column, Section, bullet_list, definitions, esc, figure, notice,
-                                  num, paragraph, pct, pvalue, table, tiles)
+                                  num, paragraph, pct, table)
+from tinyconv.report.ranking_table import ranking_section
 from tinyconv.report.rundata import RunData
+from tinyconv.report.shipping import cost_section, device_section, export_section
 from tinyconv.report.tables import TABLE_FILES
+from tinyconv.report.words import code, count
 
 CAUTIONS = (
     "Held-out accuracy measures how well the network does on this data set, split this way; "
@@ -33,174 +34,6 @@ CAUTIONS = (
 )
 
 
-def _count(n: int, noun: str) -> str:
-    """'1 candidate', '3 candidates'."""
-    return f"{n} {noun}" if n == 1 else f"{n} {noun}s"
-
-
-def _code(v: object) -> str:
-    return f"<code>{esc(str(v))}</code>"
-
-
-def _acc_pm(row: pd.Series) -> str:
-    return f"{pct(row['acc_mean'])} \u00b1 {pct(row['acc_se'])}"
-
-
-MS_COLUMN = Column("ms", "ms", lambda v: num(v, 2),
-                   title="milliseconds per image on the run's device (cost model)")
-RANKING_COLUMNS = (
-    Column("rank per kparam", "rank_per_param", num,
-           title="rank by accuracy over chance per 1000 parameters"),
-    Column("candidate", "candidate", _code, numeric=False),
-    Column("params", "params", num),
-    Column("MACs", "macs", num, title="multiply-accumulates per image"),
-    Column("peak KB", "peak_kb", lambda v: num(v, 1), title="peak activation memory, int8"),
-    Column("flash KB", "flash_kb", lambda v: num(v, 1), title="int8 weights and tables"),
-    Column("epochs", "epochs", num),
-    Column("held-out acc", "_acc", esc, title="mean over folds \u00b1 standard error"),
-    Column("train acc", "train_acc_mean", pct),
-    Column("gap", "gap", lambda v: pct(v, 1), title="training minus held-out accuracy"),
-    Column("acc / kparam", "acc_per_kparam", lambda v: num(v, 3),
-           title="(accuracy - 1/K) per 1000 parameters"),
-    Column("p vs best", "p_vs_best", pvalue, title="corrected resampled t-test against the best"),
-    Column("rank by accuracy", "rank_accuracy", num, title="rank by mean held-out accuracy"),
-)
-# Shown when the run trained candidates with several recipes.
-RECIPE_COLUMN = Column("recipe", "recipe", _code, numeric=False,
-                       title="augmentation, copies per epoch, learning rate, weight decay, "
-                             "schedule")
-# Shown when the search scored the int8 form (search --int8).
-INT8_COLUMN = Column("int8 acc", "int8_acc_mean", pct,
-                     title="mean held-out accuracy of the int8 quantised network")
-
-
-#: --simplest-by name -> (ranking column, how to show a value, "N times ..." word,
-#: the superlative).
-MEASURES = {"params": ("params", lambda v: f"{num(v)} parameters", "fewer", "smallest"),
-            "macs": ("macs", lambda v: f"{num(v)} MACs per image", "fewer", "cheapest"),
-            "ram": ("peak_kb", lambda v: f"{num(v, 1)} KB of peak activation memory", "less",
-                    "leanest"),
-            "flash": ("flash_kb", lambda v: f"{num(v, 1)} KB of flash", "less", "smallest"),
-            "ms": ("ms", lambda v: f"{num(v, 2)} ms per image (cost model)", "faster",
-                   "fastest")}
-
-
-def simplest_by(data: RunData) -> str:
-    """What the run's one-SE pick minimised (``params`` for runs that did not say)."""
-    return str(data.config.get("simplest_by") or "params")
-
-
-def why_pick(data: RunData) -> str:
-    """One plain paragraph on why the pick was picked (the one-SE rule, by the run's measure)."""
-    from search.rank import SIMPLEST_WORDS
-
-    pick, best = data.pick, data.best
-    fin = data.finalists
-    n_within = int(fin["within_1se"].astype(bool).sum())
-    threshold = float(best["acc_mean"]) - float(best["acc_se"])
-    measure = simplest_by(data)
-    column, show, fewer, most = MEASURES[measure]
-    head = (f"The one-standard-error rule picks the candidate with {SIMPLEST_WORDS[measure]} "
-            f"among those whose mean held-out accuracy is within one standard error of the "
-            f"best (this run's --simplest-by {measure}). The "
-            f"best, {best['candidate']}, scores {_acc_pm(best)}, so the bar is "
-            f"{pct(threshold)}; {n_within} of the {len(fin)} finalists clear it")
-    if pick["candidate"] == best["candidate"]:
-        return head + (f", and the best is itself the {most} of them "
-                       f"({show(pick[column])}).")
-    p = pvalue(pick.get("p_vs_best", math.nan)).replace("&lt;", "<")
-    ratio = float(best[column]) / float(pick[column]) if float(pick[column]) > 0 else math.nan
-    times = f" ({ratio:.1f} times {fewer})" if ratio == ratio and ratio > 1 else ""
-    return head + (f". The pick, {pick['candidate']}, has {show(pick[column])} "
-                   f"against the best's {show(best[column])}{times} and "
-                   f"scores {_acc_pm(pick)}, {100 * (best['acc_mean'] - pick['acc_mean']):.1f} "
-                   f"points below the best (corrected paired t-test p = {p}).")
-
-
-def several_recipes(data: RunData) -> bool:
-    """Whether the run trained its candidates with more than one recipe."""
-    r = data.ranking
-    return "recipe" in r.columns and r["recipe"].nunique() > 1
-
-
-# A training accuracy this far above held-out accuracy is worth a warning (common
-# practice: a gap of several points already means the network memorises).
-GAP_WARN = 0.10
-
-
-def pick_flags(data: RunData) -> list[str]:
-    """Plain warnings about the pick: near chance, or over-fitting."""
-    pick = data.pick
-    out = []
-    acc, se, chance = float(pick["acc_mean"]), float(pick["acc_se"]), data.chance
-    if acc - 2 * se <= chance:
-        out.append(f"Its held-out accuracy ({pct(acc)} \u00b1 {pct(se)}) is within two standard "
-                   f"errors of chance ({pct(chance)}): no candidate learned much. Try more "
-                   "images, more epochs or another space before shipping anything.")
-    gap = float(pick["gap"])
-    if gap > GAP_WARN:
-        out.append(f"It over-fits: training accuracy is {100 * gap:.0f} points above held-out "
-                   "accuracy. More images, regularisation (weight decay, "
-                   "dropout), augmentation that keeps the labels true (a [training] "
-                   "augment choice) or a smaller network may generalise better.")
-    return out
-
-
-def decision_panel(data: RunData) -> str:
-    """The panel under the header: the pick, in words and headline numbers."""
-    pick = data.pick
-    t = tiles((
-        ("held-out accuracy", pct(pick["acc_mean"]), f"\u00b1 {pct(pick['acc_se'])} SE over "
-         f"{int(pick['folds'])} folds"),
-        ("parameters", num(pick["params"]), f"{num(pick['macs'])} MACs per image"),
-        ("flash", f"{num(pick['flash_kb'], 1)} KB", "int8 weights and tables"),
-        ("peak memory", f"{num(pick['peak_kb'], 1)} KB", "int8 activations"),
-        *((("time", f"{num(pick['ms'], 2)} ms", "per image on the device (cost model)"),)
-          if "ms" in pick and pick["ms"] == pick["ms"] else ()),
-        ("over-fitting gap", pct(pick["gap"]), f"training {pct(pick['train_acc_mean'])}"),
-    ))
-    arch = pick["arch"] if "arch" in pick else pick["candidate"]
-    recipe = (paragraph(f"Trained with the recipe {pick['recipe']}.")
-              if "recipe" in pick and pick["recipe"] else "")
-    return ('<div class="decision"><div><h2>The pick</h2>'
-            f'<p class="arch">{esc(str(arch))}</p>{recipe}{paragraph(why_pick(data))}'
-            + "".join(f'<p class="flag">{esc(f)}</p>' for f in pick_flags(data))
-            + f"</div><div>{t}</div></div>")
-
-
-def ranking_section(data: RunData) -> Section:
-    frame = data.ranking.copy()
-    frame["_acc"] = [_acc_pm(r) for _, r in frame.iterrows()]
-    columns = RANKING_COLUMNS
-    extra = []
-    if several_recipes(data):  # the architecture and its recipe side by side
-        columns = (columns[0], Column("architecture", "arch", _code, numeric=False),
-                   RECIPE_COLUMN) + columns[2:]
-    elif "recipe" in frame and len(frame) and frame["recipe"].iloc[0]:
-        extra.append(f"Every candidate was trained with one recipe: {frame['recipe'].iloc[0]} "
-                     "(augmentation, copies of each image per epoch, learning rate, weight "
-                     "decay, schedule).")
-    if "int8_acc_mean" in frame and frame["int8_acc_mean"].notna().any():
-        at = [c.key for c in columns].index("_acc") + 1        # after the held-out accuracy
-        columns = columns[:at] + (INT8_COLUMN,) + columns[at:]
-    if "ms" in frame and frame["ms"].notna().any():  # the run names a device
-        at = [c.key for c in columns].index("flash_kb") + 1    # after the flash
-        columns = columns[:at] + (MS_COLUMN,) + columns[at:]
-    body = table(frame, columns, highlight=list(frame["pick"].astype(bool)), css="ranking")
-    n_lower = int((~data.ranking.get("finalist", pd.Series(True, index=frame.index))
-                   .astype(bool)).sum())
-    if n_lower:
-        extra.append(f"{_count(n_lower, 'candidate')} stopped at a lower rung (fewer epochs): "
-                     "listed after the finalists, taking no part in the pick.")
-    extra.append(f"Chance accuracy with {len(data.classes)} classes is {pct(data.chance)}; "
-                 "accuracy per thousand parameters counts only the part above chance.")
-    return Section("ranking", "Ranking", body + "".join(paragraph(t) for t in extra),
-                   lead="Mean held-out accuracy over the cross-validation folds with its "
-                        "standard error, the size and cost of each candidate, and how it "
-                        "compares with the best. The highlighted row is the pick (one-SE "
-                        f"rule, simplest by {simplest_by(data)}).")
-
-
 def folds_section(a: Assembled) -> Section:
     fig = figure(a.figures["folds.png"], "box plots of per-fold accuracy",
                  "Each pair of boxes is one candidate: the dark box its held-out accuracy on "
@@ -209,7 +42,7 @@ def folds_section(a: Assembled) -> Section:
     lead = "Per-fold accuracy, ordered by parameter count."
     if a.boxes_left_out:
         lead += (f" Only the finalists and the best-ranked others are drawn; "
-                 f"{_count(a.boxes_left_out, 'candidate')} more are in folds.csv.")
+                 f"{count(a.boxes_left_out, 'candidate')} more are in folds.csv.")
     return Section("folds", "Spread and over-fitting", f'<div class="figs">{fig}</div>',
                    lead=lead)
 
@@ -217,7 +50,8 @@ def folds_section(a: Assembled) -> Section:
 def pareto_section(a: Assembled) -> Section:
     cap = ("Error bars are one standard error. The shaded band holds the candidates within one "
            "standard error of the best; the stepped line is the front, where nothing is both "
-           "smaller and more accurate.")
+           "smaller and more accurate. The numbers on the front, the pick and the best are "
+           "their rows in the ranking table; the key under the plot names them.")
     figs = (figure(a.figures["pareto_params.png"], "accuracy against parameters", cap)
             + figure(a.figures["pareto_macs.png"], "accuracy against MACs",
                      "The same against multiply-accumulates per image (compute per inference)."))
@@ -228,8 +62,10 @@ def pareto_section(a: Assembled) -> Section:
 
 def curves_section(a: Assembled) -> Section:
     fig = figure(a.figures["curves.png"], "learning curves",
-                 "Held-out (dark) and training (light) accuracy by epoch, averaged over folds; "
-                 "each rung of the schedule has its own line style. Curves still rising at "
+                 "Held-out (dark) and training (light) accuracy by epoch, averaged over folds, "
+                 "with the folds' range of held-out accuracy shaded; each rung of the schedule "
+                 "(counted from 1, as the search prints them) has its own line style. Each "
+                 "panel says whether it is the pick or the best. Curves still rising at "
                  "the end suggest more epochs would help; a training curve pulling away from "
                  "the held-out one is over-fitting.", wide=True)
     names = ", ".join(a.curve_candidates)
@@ -240,7 +76,7 @@ def curves_section(a: Assembled) -> Section:
 def pick_section(data: RunData, a: Assembled) -> Section:
     parts = []
     if "confusion.png" in a.figures:
-        parts.append(f'<div class="figs">'
+        parts.append('<div class="figs">'
                      + figure(a.figures["confusion.png"], "confusion matrix",
                               "Rows are the true class, columns the predicted class, over all "
                               "held-out folds (each image predicted once, by the network that "
@@ -261,9 +97,11 @@ def pick_section(data: RunData, a: Assembled) -> Section:
     if "confusions_gallery.png" in a.figures:
         parts.append("<h3>What it confuses</h3>" + '<div class="figs">' + figure(
             a.figures["confusions_gallery.png"], "gallery of confused images",
-            "Real held-out images from the most frequent confusions, with the probability "
-            "the pick gave its (wrong) answer. Look for what they share: background, "
-            "lighting, framing, the object's size.", wide=True) + "</div>")
+            "Real held-out images from the most frequent confusions, each beside what the "
+            "pick saw of it (its input size and colour mode), with the probability the pick "
+            "gave its (wrong) answer. Look for what they share: background, lighting, "
+            "framing, the object's size; and whether the mark survives the shrinking.",
+            wide=True) + "</div>")
         parts.append("<h3>Its most confident mistakes</h3>" + '<div class="figs">' + figure(
             a.figures["mistakes.png"], "most confident mistakes",
             "Wrong answers given with the highest probability: often label errors in the "
@@ -282,14 +120,14 @@ def budget_summary(data: RunData) -> str:
     n = len(cands)
     within = int(cands["within_budget"].astype(bool).sum())
     over = ", ".join(f"{k}: {v}" for k, v in data.removed.items() if v)
-    text = (f"The space held {_count(n, 'candidate')}; {within} fit every budget"
+    text = (f"The space held {count(n, 'candidate')}; {within} fit every budget"
             + (f" (removed, per budget: {over}; a candidate over two budgets counts twice)"
                if over else ""))
     if "scheduled" in cands.columns:
         scheduled = int(cands["scheduled"].astype(bool).sum())
         if scheduled != within:
             text += f", and {scheduled} of those were taken into the search"
-    text += (f". {_count(len(data.ranking), 'candidate')} finished every fold of a rung "
+    text += (f". {count(len(data.ranking), 'candidate')} finished every fold of a rung "
              "and are ranked.")
     if data.outcome and data.outcome.get("state"):
         text += (f" The last search session ended: {data.outcome['state']} (details under "
@@ -311,7 +149,7 @@ def units_summary(data: RunData) -> str:
     bad = u[u["status"] != "done"]
     if len(bad):
         html += "<h3>Units that did not finish</h3>" + table(bad.head(50), (
-            Column("candidate", "candidate", _code, numeric=False),
+            Column("candidate", "candidate", code, numeric=False),
             Column("fold", "fold", num), Column("rung", "rung", num),
             Column("epochs", "epochs", num),
             Column("status", "status", esc, numeric=False),
@@ -337,7 +175,7 @@ def budget_section(data: RunData, a: Assembled) -> Section:
                            for v, u in zip(b["limit"], b["unit"])]
         shown["_pick"] = [num(v, 0 if u in ("count", "MACs") else 1)
                           for v, u in zip(b["pick"], b["unit"])]
-        body = table(shown, (Column("budget", "budget", _code, numeric=False),
+        body = table(shown, (Column("budget", "budget", code, numeric=False),
                              Column("limits", "limits", esc, numeric=False),
                              Column("limit", "_limit", esc), Column("pick", "_pick", esc),
                              Column("unit", "unit", esc, numeric=False),
@@ -364,7 +202,7 @@ def _config_value(v: Any) -> str:
     if v is None:
         return "\u2013"
     if isinstance(v, str):
-        return f"<pre>{esc(v.rstrip())}</pre>" if "\n" in v else _code(v)
+        return f"<pre>{esc(v.rstrip())}</pre>" if "\n" in v else code(v)
     if isinstance(v, (list, tuple)) and all(not isinstance(x, (dict, list)) for x in v):
         return esc(", ".join(str(x) for x in v))
     if isinstance(v, dict):
@@ -385,37 +223,6 @@ def _plain(x: Any) -> str:
     return str(x)
 
 
-def device_section(data: RunData) -> Section | None:
-    """The exported pick measured on an emulated core (``export/device.json``)."""
-    d = data.device
-    if not d:
-        return None
-    est = d.get("estimate", {})
-
-    def row(what: str, measured: object, model: object, digits: int = 0) -> tuple:
-        return (what, num(measured, digits), num(model, digits))
-    rows = [row("instructions per image", d["instructions"], est.get("instructions")),
-            row("instructions per MAC", d["instructions_per_mac"],
-                (est.get("instructions") or 0) / max(d.get("macs") or 1, 1), 2),
-            row(f"ms per image at {num(d['clock_mhz'])} MHz", d["ms_at_clock"],
-                est.get("ms_at_clock"), 2),
-            row("flash bytes (code + constants)", d["flash_bytes"], est.get("flash_bytes")),
-            row("RAM bytes (activations + stack)", d["ram_bytes"], est.get("ram_bytes"))]
-    body = ("<table><thead><tr><th>figure</th><th>measured</th><th>cost model</th></tr>"
-            "</thead><tbody>" + "".join(f"<tr><td>{esc(a)}</td><td>{b}</td><td>{c}</td></tr>"
-                                        for a, b, c in rows) + "</tbody></table>")
-    exact = ("every logit of every image equals the NumPy integer reference (bit-exact)"
-             if d["bit_exact"] else f"{d['mismatched_images']} images differ from the "
-             "NumPy integer reference: do not ship this build")
-    body += paragraph(
-        f"The exported int8 C of {d['arch']}, cross-compiled with arm-none-eabi-gcc "
-        f"{d.get('compiler_opt', '')} for {d['core']} and run under QEMU ({d['board']}, "
-        f"exact instruction counting) on {d['images']} images held out of the calibration: "
-        f"{exact}. The time assumes {d['cpi']:g} cycles per instruction (QEMU counts "
-        "instructions, not cycles); measure on the part before relying on it.")
-    return Section("device", "On the device", body)
-
-
 def cautions_section() -> Section:
     return Section("cautions", "Before you trust it",
                    f'<div class="cautions">{bullet_list(CAUTIONS)}</div>')
@@ -423,7 +230,8 @@ def cautions_section() -> Section:
 
 def all_sections(data: RunData, a: Assembled) -> list[Section]:
     """The page's sections in order."""
-    device = device_section(data)
+    shipping = [cost_section(data, a.tables["pick_cost.csv"]), export_section(data),
+                device_section(data)]
     return [ranking_section(data), folds_section(a), pareto_section(a), curves_section(a),
-            pick_section(data, a), *((device,) if device else ()), budget_section(data, a),
-            cautions_section()]
+            pick_section(data, a), *(s for s in shipping if s is not None),
+            budget_section(data, a), cautions_section()]

@@ -21,6 +21,8 @@ TABLE_FILES: dict[str, str] = {
     "confusions.csv": "the pick's most frequent confusions",
     "mistakes.csv": "the pick's most confident mistakes, with data set index and path",
     "budgets.csv": "each budget of the run beside the pick's value",
+    "pick_cost.csv": "the pick's cost per step of the int8 network (and the device model's "
+                     "time when the run names a core)",
 }
 
 

@@ -11,7 +11,8 @@ from tinyconv.files import why_not_written, writable_folder, write_bytes_whole
 from tinyconv.report.assemble import assemble
 from tinyconv.report.html import page
 from tinyconv.report.rundata import RunData
-from tinyconv.report.sections import all_sections, decision_panel
+from tinyconv.report.decision import decision_panel
+from tinyconv.report.sections import all_sections
 from tinyconv.report.tables import REPORT_AGAIN, write_tables
 
 PAGE_NAME = "report.html"
