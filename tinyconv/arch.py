@@ -2,7 +2,9 @@
 
 A text names one candidate, e.g. ``32x32rgb/c8k3-p2-c16k3-p2-gap``:
 
-* the input ``{h}x{w}{mode}``, mode one of ``rgb``, ``gray``, ``ycc``, ``hsv``;
+* the input ``{h}x{w}{mode}``, mode one of ``rgb``, ``gray``, ``ycc``, ``hsv``,
+  or several joined by ``+`` (``32x32rgb+hsv``: the channels of each mode
+  stacked in that order, 6 here; each mode at most once);
 * then, after ``/``, layer tokens joined by ``-``:
 
   ======================  ==============================================
@@ -18,9 +20,18 @@ A text names one candidate, e.g. ``32x32rgb/c8k3-p2-c16k3-p2-gap``:
   ``s2`` is stride 2 (stride 1 is the default and is not written); ``v`` is
   valid padding (same padding is the default and needs an odd kernel).
 
+* ``[`` before a layer and ``]`` after a later one (or the same one) make the
+  layers between a residual block: the block's input is added to its output,
+  so the two must have the same shape, e.g. the inverted bottleneck
+  ``32x32rgb/c16k3-p2-[c48k1-dw3-c16k1]-p2-gap``. Blocks do not nest, and
+  positions keep counting the layer tokens inside them.
+
 ReLU follows every convolution and hidden dense layer; when a batch norm
 follows such a layer directly, the ReLU goes after the batch norm
-(conv, norm, ReLU: common practice). The classifier head (a flatten when the
+(conv, norm, ReLU: common practice). Inside a block the last conv, depthwise
+or dense layer has no ReLU (nor has the batch norm right after it), and the
+addition has none either, so a block adds a linear correction to its input:
+the inverted bottleneck's "linear bottleneck" (common practice). The classifier head (a flatten when the
 map is still spatial, then a dense layer to the number of classes) is implicit,
 so one text serves any number of classes. A text with no layers (``8x8gray``)
 is softmax regression on the pixels.
@@ -39,13 +50,14 @@ from __future__ import annotations
 import re
 
 from tinyconv.arch_json import from_dict, to_dict
-from tinyconv.arch_specs import (MAX_SIDE, MAX_WIDTH, MODES, Arch, ArchError, BatchNorm, Conv,
-                                 Dense, Depthwise, Dropout, GlobalPool, InputSpec, LayerSpec,
-                                 Pool)
+from tinyconv.arch_specs import (MAX_SIDE, MAX_WIDTH, MODE_JOIN, MODES, Arch, ArchError,
+                                 BatchNorm, Block, Conv, Dense, Depthwise, Dropout, GlobalPool,
+                                 InputSpec, LayerSpec, Pool, flat_layers, token_count)
 from tinyconv.ops import Op, check_classes, conv_output, expand, expand_head, expand_layer
 
-__all__ = ["MAX_SIDE", "MAX_WIDTH", "MODES", "Arch", "ArchError", "BatchNorm", "Conv", "Dense",
-           "Depthwise", "Dropout", "GlobalPool", "InputSpec", "LayerSpec", "Pool", "Op",
+__all__ = ["MAX_SIDE", "MAX_WIDTH", "MODE_JOIN", "MODES", "Arch", "ArchError", "BatchNorm",
+           "Block", "Conv", "Dense", "Depthwise", "Dropout", "GlobalPool", "InputSpec",
+           "LayerSpec", "Pool", "flat_layers", "token_count", "Op",
            "check_classes", "conv_output", "expand", "expand_head", "expand_layer", "parse",
            "parse_input", "from_dict", "to_dict"]
 
@@ -53,7 +65,7 @@ __all__ = ["MAX_SIDE", "MAX_WIDTH", "MODES", "Arch", "ArchError", "BatchNorm", "
 
 # [0-9], not \d: \d also matches other scripts' digits, which int() accepts but
 # which would not print back the same (the text must round-trip exactly).
-_INPUT = re.compile(r"([0-9]+)x([0-9]+)([a-z]+)")
+_INPUT = re.compile(r"([0-9]+)x([0-9]+)([a-z]+(?:\+[a-z]+)*)")
 _CONV = re.compile(r"c([0-9]+)k([0-9]+)(s[0-9]+)?(v)?")
 _DW = re.compile(r"dw([0-9]+)(s[0-9]+)?(v)?")
 _POOL = re.compile(r"([pa])([0-9]+)")
@@ -89,10 +101,19 @@ def parse_input(text: str) -> InputSpec:
         raise ArchError(f"input {text!r}: sizes must be written without leading zeros",
                         text=text, position=0, token=text) from None
     mode = m.group(3)
-    if mode not in MODES:
-        raise ArchError(f"input {text!r}: unknown colour mode {mode!r}; "
-                        f"expected one of {', '.join(MODES)}",
-                        text=text, position=0, token=text)
+    parts = mode.split(MODE_JOIN)
+    for part in parts:
+        if part not in MODES:
+            raise ArchError(f"input {text!r}: unknown colour mode {part!r}; "
+                            f"expected one of {', '.join(MODES)}, or several joined by "
+                            f"'{MODE_JOIN}' (e.g. rgb{MODE_JOIN}hsv)",
+                            text=text, position=0, token=text)
+    for part in parts:
+        if parts.count(part) > 1:
+            raise ArchError(f"input {text!r}: colour mode {part!r} is stacked "
+                            f"{parts.count(part)} times; stack each mode at most once, "
+                            f"e.g. {MODE_JOIN.join(dict.fromkeys(parts))}",
+                            text=text, position=0, token=text)
     if not (1 <= h <= MAX_SIDE and 1 <= w <= MAX_SIDE):
         raise ArchError(f"input {text!r}: sides must be between 1 and {MAX_SIDE}, "
                         f"got {h}x{w}", text=text, position=0, token=text)
@@ -160,6 +181,26 @@ def _check_kernel(kernel: int, valid: bool) -> None:
                          f"use k{kernel - 1} or k{kernel + 1}, or valid padding (suffix v)")
 
 
+def _brackets(tok: str) -> tuple[bool, str, bool]:
+    """(opens a block, the layer token inside the brackets, closes a block)."""
+    opens = tok.startswith("[")
+    core = tok[1:] if opens else tok
+    closes = core.endswith("]")
+    core = core[:-1] if closes else core
+    if "[" in core or "]" in core:
+        if core.startswith("["):
+            raise ValueError("blocks do not nest: one '[' opens a block; close it with ']' "
+                             "before opening the next")
+        if core.endswith("]"):
+            raise ValueError("one ']' closes a block; remove the second")
+        raise ValueError("brackets go around whole layers: '[' before a block's first layer "
+                         "and ']' after its last, e.g. [c48k1-dw3-c16k1]")
+    if not core:
+        raise ValueError("a bracket needs a layer beside it, e.g. [c16k3-c16k3]; "
+                         "an empty block adds nothing")
+    return opens, core, closes
+
+
 def parse(text: str) -> Arch:
     """Parse an architecture text and validate it against its own input size.
 
@@ -168,7 +209,8 @@ def parse(text: str) -> Arch:
     TypeError
         If ``text`` is not a string.
     ArchError
-        Naming the token, its position and what was expected, or the size it met.
+        Naming the token, its position and what was expected, or the size it met;
+        for a block, the position and text of its first token.
     """
     if not isinstance(text, str):
         raise TypeError(f"architecture text must be a str, got {type(text).__name__}")
@@ -178,6 +220,13 @@ def parse(text: str) -> Arch:
         raise ArchError(f"{text!r}: nothing after '/'; write {head!r} for a network "
                         "with only the classifier head", text=text, position=1, token="")
     layers: list[LayerSpec] = []
+    block: list[LayerSpec] | None = None  # the layers of the open block
+    opened = (0, "")  # position and token of the open block's first layer
+
+    def fail(pos: int, tok: str, why: str) -> ArchError:
+        return ArchError(f"{text!r}: layer {pos} {tok!r}: {why}", text=text, position=pos,
+                         token=tok)
+
     if body:
         for pos, tok in enumerate(body.split("-"), 1):
             if not tok:
@@ -185,11 +234,30 @@ def parse(text: str) -> Arch:
                                 f"(two '-' in a row, or one at an end); expected {_EXPECTED}",
                                 text=text, position=pos, token=tok)
             try:
-                layers.append(_parse_token(tok))
+                opens, core, closes = _brackets(tok)
+                layer = _parse_token(core)
             except ValueError as exc:
-                raise ArchError(f"{text!r}: layer {pos} {tok!r}: {exc}",
-                                text=text, position=pos, token=tok) from None
+                raise fail(pos, tok, str(exc)) from None
+            if opens and block is not None:
+                raise fail(pos, tok, f"a block opens inside the block opened at layer "
+                                     f"{opened[0]} {opened[1]!r}; blocks do not nest, so close "
+                                     "that one with ']' first")
+            if closes and block is None and not opens:
+                raise fail(pos, tok, "']' closes no block; put '[' before the block's first "
+                                     "layer, e.g. [c48k1-dw3-c16k1]")
+            if opens:
+                block, opened = [], (pos, tok)
+            if block is None:
+                layers.append(layer)
+                continue
+            block.append(layer)
+            if closes:
+                layers.append(Block(tuple(block)))
+                block = None
+    if block is not None:
+        raise ArchError(f"{text!r}: layer {opened[0]} {opened[1]!r}: the block opened here is "
+                        "never closed; end its last layer with ']'", text=text,
+                        position=opened[0], token=opened[1])
     arch = Arch(spec, tuple(layers))
     expand(arch, n_classes=2, text=text)  # validates sizes against the input
     return arch
-

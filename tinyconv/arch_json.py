@@ -5,23 +5,27 @@ from __future__ import annotations
 import json
 from dataclasses import fields
 
-from tinyconv.arch_specs import (Arch, ArchError, BatchNorm, Conv, Dense, Depthwise, Dropout,
-                                 GlobalPool, InputSpec, Pool)
+from tinyconv.arch_specs import (Arch, ArchError, BatchNorm, Block, Conv, Dense, Depthwise,
+                                 Dropout, GlobalPool, InputSpec, LayerSpec, Pool, token_count)
 
 _TYPES = {"conv": Conv, "depthwise": Depthwise, "pool": Pool, "gap": GlobalPool,
           "dense": Dense, "bn": BatchNorm, "dropout": Dropout}
 _TYPE_NAMES = {cls: name for name, cls in _TYPES.items()}
 
 
+def _entry(layer: LayerSpec) -> dict:
+    """One layer as plain data; a residual block as ``{"type": "block", "layers": [...]}``."""
+    if isinstance(layer, Block):
+        return {"type": "block", "layers": [_entry(inner) for inner in layer.layers]}
+    entry = {"type": _TYPE_NAMES[type(layer)]}
+    entry.update({f.name: getattr(layer, f.name) for f in fields(layer)})
+    return entry
+
+
 def to_dict(arch: Arch) -> dict:
     """Plain-data form of an architecture (for JSON)."""
-    layers = []
-    for layer in arch.layers:
-        entry = {"type": _TYPE_NAMES[type(layer)]}
-        entry.update({f.name: getattr(layer, f.name) for f in fields(layer)})
-        layers.append(entry)
     return {"input": {"h": arch.input.h, "w": arch.input.w, "mode": arch.input.mode},
-            "layers": layers}
+            "layers": [_entry(layer) for layer in arch.layers]}
 
 
 _TYPE_WORDS = {int: "an integer", bool: "true or false", str: "a string"}
@@ -54,44 +58,67 @@ def from_dict(data: dict) -> Arch:
     for key, typ in (("h", int), ("w", int), ("mode", str)):
         if not isinstance(inp[key], typ) or isinstance(inp[key], bool):
             raise bad(f"input {key} = {inp[key]!r} is not {_TYPE_WORDS[typ]}", 0)
-    entries = data.get("layers", [])
-    if not isinstance(entries, list):
-        raise bad(f"'layers' is a {type(entries).__name__}, not a list")
-    layers = []
-    for i, entry in enumerate(entries, 1):
-        if not isinstance(entry, dict) or "type" not in entry:
-            raise bad(f"layer {i} is {entry!r}, not an object with a 'type'", i)
-        kind = entry["type"]
-        if kind not in _TYPES:
-            raise ArchError(f"layer {i}: unknown type {kind!r}; expected one of "
-                            f"{', '.join(sorted(_TYPES))}", position=i, token=str(kind))
-        cls = _TYPES[kind]
-        known = {f.name: f for f in fields(cls)}
-        args = {k: v for k, v in entry.items() if k != "type"}
-        if set(args) - set(known):
-            raise bad(f"layer {i} ({kind}) has unknown fields {sorted(set(args) - set(known))}; "
-                      f"known: {sorted(known) or 'none'}", i)
-        for key, value in args.items():
-            want = {"int": int, "bool": bool, "str": str}[str(known[key].type)]
-            if not isinstance(value, want) or (want is int and isinstance(value, bool)):
-                raise bad(f"layer {i} ({kind}) field {key} = {value!r} is not "
-                          f"{_TYPE_WORDS[want]}", i)
-        try:
-            layers.append(cls(**args))
-        except TypeError as exc:  # a required field left out
-            raise bad(f"layer {i} ({kind}): {exc}", i) from None
+    layers = _layers(data.get("layers", []), "'layers'", bad, 1, nested=False)
     built = Arch(InputSpec(inp["h"], inp["w"], inp["mode"]), tuple(layers))
     # Through the text, so that the same rules apply to both forms; a value the
     # text cannot say (stride 3, pool kind 'min') prints as something else.
     from tinyconv.arch import parse
     arch = parse(str(built))
     if arch != built:
-        for i, (a, b) in enumerate(zip(arch.layers, built.layers), 1):
+        pos = 1
+        for a, b in zip(arch.layers, built.layers):
             if a != b:
-                raise bad(f"layer {i} {b!r} has a value the architecture rules do not "
-                          f"allow (it would read back as {a!r})", i)
+                raise bad(f"layer {pos} {b!r} has a value the architecture rules do not "
+                          f"allow (it would read back as {a!r})", pos)
+            pos += token_count(b)
         raise bad(f"input {built.input!r} would read back as {arch.input!r}", 0)
     return arch
+
+
+def _layers(entries, where: str, bad, pos: int, nested: bool) -> tuple[LayerSpec, ...]:
+    """The layer specs of a list of entries whose first layer is at position ``pos``."""
+    if not isinstance(entries, list):
+        raise bad(f"{where} is a {type(entries).__name__}, not a list")
+    layers: list[LayerSpec] = []
+    for entry in entries:
+        if not isinstance(entry, dict) or "type" not in entry:
+            raise bad(f"layer {pos} is {entry!r}, not an object with a 'type'", pos)
+        kind = entry["type"]
+        if kind == "block":
+            if nested:
+                raise bad(f"layer {pos}: a block inside a block; blocks do not nest", pos)
+            if set(entry) != {"type", "layers"}:
+                raise bad(f"layer {pos} (block) has keys {sorted(entry)}, needs exactly "
+                          "type and layers", pos)
+            inner = _layers(entry["layers"], f"the layers of the block at layer {pos}", bad,
+                            pos, nested=True)
+            if not inner:
+                raise bad(f"layer {pos}: an empty block; give it at least one layer", pos)
+            layers.append(Block(inner))
+            pos += len(inner)
+            continue
+        if kind not in _TYPES:
+            raise ArchError(f"layer {pos}: unknown type {kind!r}; expected one of "
+                            f"{', '.join(sorted(_TYPES) + ['block'])}", position=pos,
+                            token=str(kind))
+        cls = _TYPES[kind]
+        known = {f.name: f for f in fields(cls)}
+        args = {k: v for k, v in entry.items() if k != "type"}
+        if set(args) - set(known):
+            raise bad(f"layer {pos} ({kind}) has unknown fields "
+                      f"{sorted(set(args) - set(known))}; known: {sorted(known) or 'none'}",
+                      pos)
+        for key, value in args.items():
+            want = {"int": int, "bool": bool, "str": str}[str(known[key].type)]
+            if not isinstance(value, want) or (want is int and isinstance(value, bool)):
+                raise bad(f"layer {pos} ({kind}) field {key} = {value!r} is not "
+                          f"{_TYPE_WORDS[want]}", pos)
+        try:
+            layers.append(cls(**args))
+        except TypeError as exc:  # a required field left out
+            raise bad(f"layer {pos} ({kind}): {exc}", pos) from None
+        pos += 1
+    return tuple(layers)
 
 
 

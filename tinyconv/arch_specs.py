@@ -15,6 +15,8 @@ from tinyconv.errors import InputError
 MODES = {"rgb": 3, "gray": 1, "ycc": 3, "hsv": 3}
 MAX_SIDE = 4096
 MAX_WIDTH = 65536
+#: joins the colour modes of a stacked input, e.g. ``32x32rgb+hsv``
+MODE_JOIN = "+"
 
 
 class ArchError(InputError):
@@ -43,15 +45,24 @@ class ArchError(InputError):
 
 @dataclass(frozen=True)
 class InputSpec:
-    """Image size and colour mode the network reads, e.g. ``32x32rgb``."""
+    """Image size and colour mode the network reads, e.g. ``32x32rgb``.
+
+    ``mode`` may join several colour modes with ``+`` (``"rgb+hsv"``): the
+    network then reads the channels of each, stacked in that order (6 here).
+    """
 
     h: int
     w: int
     mode: str = "rgb"
 
     @property
+    def modes(self) -> tuple[str, ...]:
+        """The colour modes stacked, in order (one for a plain mode)."""
+        return tuple(self.mode.split(MODE_JOIN))
+
+    @property
     def channels(self) -> int:
-        return MODES[self.mode]
+        return sum(MODES[m] for m in self.modes)
 
     @property
     def shape(self) -> tuple[int, int, int]:
@@ -139,7 +150,38 @@ class Dropout:
         return f"x{self.pct}"
 
 
-LayerSpec = Union[Conv, Depthwise, Pool, GlobalPool, Dense, BatchNorm, Dropout]
+@dataclass(frozen=True)
+class Block:
+    """A residual block: ``layers`` run in order and the block's input is added to
+    their output, so the two must have the same shape.
+
+    Inside a block the last conv, depthwise or dense layer has no ReLU (nor has
+    a batch norm right after it), and the addition has none either: the block
+    adds a linear correction to its input, as inverted bottlenecks do (common
+    practice). Blocks do not nest.
+    """
+
+    layers: tuple["LayerSpec", ...]
+
+    def __str__(self) -> str:
+        return "[" + "-".join(str(layer) for layer in self.layers) + "]"
+
+
+LayerSpec = Union[Conv, Depthwise, Pool, GlobalPool, Dense, BatchNorm, Dropout, Block]
+
+
+def flat_layers(layers: tuple[LayerSpec, ...]):
+    """Every layer spec in order, those inside blocks included (not the blocks)."""
+    for layer in layers:
+        if isinstance(layer, Block):
+            yield from layer.layers
+        else:
+            yield layer
+
+
+def token_count(layer: LayerSpec) -> int:
+    """Layer tokens ``layer`` takes in the text (a block: one per layer inside)."""
+    return len(layer.layers) if isinstance(layer, Block) else 1
 
 
 @dataclass(frozen=True)
