@@ -53,12 +53,14 @@ from tinyconv.arch_json import from_dict, to_dict
 from tinyconv.arch_specs import (MAX_SIDE, MAX_WIDTH, MODE_JOIN, MODES, Arch, ArchError,
                                  BatchNorm, Block, Conv, Dense, Depthwise, Dropout, GlobalPool,
                                  InputSpec, LayerSpec, Pool, flat_layers, token_count)
-from tinyconv.ops import Op, check_classes, conv_output, expand, expand_head, expand_layer
+from tinyconv.ops import (Op, check_classes, conv_output, expand, expand_block, expand_head,
+                          expand_layer, sources)
 
 __all__ = ["MAX_SIDE", "MAX_WIDTH", "MODE_JOIN", "MODES", "Arch", "ArchError", "BatchNorm",
            "Block", "Conv", "Dense", "Depthwise", "Dropout", "GlobalPool", "InputSpec",
            "LayerSpec", "Pool", "flat_layers", "token_count", "Op",
-           "check_classes", "conv_output", "expand", "expand_head", "expand_layer", "parse",
+           "check_classes", "conv_output", "expand", "expand_block", "expand_head",
+           "expand_layer", "sources", "parse",
            "parse_input", "from_dict", "to_dict"]
 
 # ---------------------------------------------------------------- the parser
