@@ -18,6 +18,7 @@ from tinyconv.report.gallery import (confident_mistakes, confusion_examples,
                                      confusion_gallery, mistakes_gallery)
 from tinyconv.report.pareto import pareto_plot
 from tinyconv.report.rundata import RunData, fold_scores
+from tinyconv.report.structure import structure_table
 
 MAX_FINALIST_CURVES = 6
 MAX_BOXES = 40   # more pairs of boxes than this are unreadable on one axis
@@ -104,6 +105,9 @@ def assemble(data: RunData) -> Assembled:
                                              pick=pick["candidate"]))
 
     out.tables["budgets.csv"] = budget_rows(budgets, pick, data.removed)
+    structures = structure_table(ranking)
+    if structures[["structure", "colour"]].drop_duplicates().shape[0] > 1:
+        out.tables["structures.csv"] = structures
 
     p = data.predictions
     classes = list(data.classes)

@@ -12,6 +12,7 @@ from tinyconv.report.assemble import Assembled
 from tinyconv.report.html import (Column, Section, bullet_list, definitions, esc, figure, notice,
                                   num, paragraph, pct, pvalue, table, tiles)
 from tinyconv.report.rundata import RunData
+from tinyconv.report.structure import structure_section
 from tinyconv.report.tables import TABLE_FILES
 
 CAUTIONS = (
@@ -378,6 +379,8 @@ def cautions_section() -> Section:
 def all_sections(data: RunData, a: Assembled) -> list[Section]:
     """The page's sections in order."""
     device = device_section(data)
-    return [ranking_section(data), folds_section(a), pareto_section(a), curves_section(a),
+    structure = structure_section(data.ranking)
+    return [ranking_section(data), folds_section(a), pareto_section(a),
+            *((structure,) if structure else ()), curves_section(a),
             pick_section(data, a), *((device,) if device else ()), budget_section(data, a),
             cautions_section()]

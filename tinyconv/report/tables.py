@@ -21,6 +21,8 @@ TABLE_FILES: dict[str, str] = {
     "confusions.csv": "the pick's most frequent confusions",
     "mistakes.csv": "the pick's most confident mistakes, with data set index and path",
     "budgets.csv": "each budget of the run beside the pick's value",
+    "structures.csv": "per size class, the best candidate of each structure and colour mode, "
+                      "and which won (when the run compared more than one)",
 }
 
 
