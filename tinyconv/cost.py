@@ -30,7 +30,7 @@ Counting rules (the contract in DEVELOPERS.md, "Cost"):
   that closes the block reads it. ReLU, batch norm, dropout and flatten work
   in place and add nothing. The C places every tensor and scratch at an
   offset planned from these live ranges, in one buffer of exactly the int8
-  peak (:mod:`tinyconv.export.arena`). int8 bytes = elements + scratch;
+  peak (:mod:`tinyconv.export.placement`). int8 bytes = elements + scratch;
   float32 bytes = 4 x elements. The input quantisation reads the caller's raw
   pixels (a buffer outside the arena, e.g. the camera's frame) and writes the
   int8 input, so it counts ``h*w*c``.

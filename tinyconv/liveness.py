@@ -9,7 +9,7 @@ the block); at each step the tensors alive are exactly those that must sit in
 memory together, beside the step's kernel scratch. The cost model's peak is
 the largest such sum (:mod:`tinyconv.cost`), and the C writer places every
 tensor so that the ones alive together never overlap
-(:mod:`tinyconv.export.arena`).
+(:mod:`tinyconv.export.placement`).
 """
 
 from __future__ import annotations

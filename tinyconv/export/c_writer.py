@@ -7,9 +7,9 @@ C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
   and per conv/dwconv/dense layer the int8 weights and the int32 bias,
   multiplier and shift per output channel (the deployment layout of
   DEVELOPERS.md, so flash = the sum of their ``sizeof``);
-* one ``static int8_t`` arena of exactly the cost model's int8 peak, each
-  tensor and scratch at an offset planned from the live ranges
-  (:mod:`tinyconv.export.arena`): tensors alive at one step never overlap, a
+* one ``static int8_t`` activation buffer of exactly the cost model's int8
+  peak, each tensor and scratch at an offset planned from the live ranges
+  (:mod:`tinyconv.export.placement`): tensors alive at one step never overlap, a
   residual block's input stays in place until its addition;
 * ``int32_t {prefix}_classify(const uint8_t *image, int8_t *logits)``: the
   image is ``h x w x c`` uint8 in row-major HWC order, already in the
@@ -35,7 +35,7 @@ import numpy as np
 from tinyconv import __version__
 from tinyconv.errors import InputError
 from tinyconv.export import c_fast, c_kernels, c_layout
-from tinyconv.export.arena import plan_arena
+from tinyconv.export.placement import plan_buffer
 from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer
 
 #: kernel styles and the function that writes each one's kernels
@@ -230,8 +230,7 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
         add(f"{base}_mult", "int32_t", layer.multiplier)
         add(f"{base}_shift", "int32_t", layer.shift)
     flash = sum(a.nbytes for a in arrays)
-    plan = plan_arena(qnet, style)
-    arena = plan.size
+    plan = plan_buffer(qnet, style)
 
     last_dst = plan.steps[-1].dst
     body = [f"int32_t {p}_classify(const uint8_t *image, int8_t *logits)\n{{\n",
@@ -242,17 +241,19 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
             "    }\n"]
     body.insert(2, f"    {P}_MARK(0);\n")
     last = len(qnet.layers) - 1
+    def ptr(offset: int) -> str:  # C: an address in the static buffer
+        return f"{p}_arena + {offset}"
+
     for j, (layer, at) in enumerate(zip(qnet.layers, plan.steps)):
         body.append(f"    /* {_comment_safe(_describe(layer))} */\n")
         body.append(f"    {P}_MARK({j + 1});\n")
-        body.append(_call(layer, p, f"{p}_arena + {at.src}", f"{p}_arena + {at.dst}",
-                          f"{p}_arena + {at.scratch}", j == last, style,
-                          "" if at.skip is None else f"{p}_arena + {at.skip}"))
+        body.append(_call(layer, p, ptr(at.src), ptr(at.dst), ptr(at.scratch), j == last,
+                          style, "" if at.skip is None else ptr(at.skip)))
     body += [f"    {P}_MARK({last + 2});\n",
              f"    memcpy(logits, {p}_arena + {last_dst}, {k});\n",
              "    return best;\n}\n"]
 
-    info = _info_comment(qnet, classes, flash, arena, macs)
+    info = _info_comment(qnet, classes, flash, plan.size, macs)
     source = (info + "\n#include <stdint.h>\n#include <string.h>\n\n"
               f'#include "{p}.h"\n\n'
               f"/* a build may define {P}_MARK(step) to time each step */\n"
@@ -265,7 +266,7 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
     header = (info + f"\n#ifndef {P}_H\n#define {P}_H\n\n#include <stdint.h>\n\n"
               f"#define {P}_INPUT_H {h}\n#define {P}_INPUT_W {w}\n#define {P}_INPUT_C {c}\n"
               f"#define {P}_INPUT_BYTES {h * w * c}\n#define {P}_CLASSES {k}\n"
-              f"#define {P}_ARENA_BYTES {arena}\n#define {P}_FLASH_BYTES {flash}\n"
+              f"#define {P}_ARENA_BYTES {plan.size}\n#define {P}_FLASH_BYTES {flash}\n"
               f"#define {P}_LOGIT_ZERO_POINT {qnet.logits_zp}\n\n"
               + (_dsp_switch(P) if style == "fast" else "")
               + f"/* Classify one image: {P}_INPUT_BYTES uint8 values in row-major HWC order,\n"
@@ -274,7 +275,7 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
               "   at 8 more fractional bits than the logits (the first of equal values).\n"
               "   Uses one static arena: not re-entrant. */\n"
               f"int32_t {p}_classify(const uint8_t *image, int8_t *logits);\n\n#endif\n")
-    return CCode(p, source, header, tuple(arrays), arena, flash)
+    return CCode(p, source, header, tuple(arrays), plan.size, flash)
 
 
 def _info_comment(qnet: QuantizedNetwork, classes, flash: int, arena: int,

@@ -58,7 +58,7 @@ class StepPlace:
 
 
 @dataclass(frozen=True)
-class ArenaPlan:
+class BufferPlan:
     """The buffer size, every tensor's place, and each layer's offsets.
 
     ``tensors[0]`` is the input step's tensor; ``tensors[j + 1]`` is written by
@@ -70,7 +70,7 @@ class ArenaPlan:
     steps: tuple[StepPlace, ...]
 
 
-def plan_arena(qnet: QuantizedNetwork, style: str = "fast") -> ArenaPlan:
+def plan_buffer(qnet: QuantizedNetwork, style: str = "fast") -> BufferPlan:
     """Plan the offsets of every tensor and scratch of ``qnet``'s C.
 
     Parameters
@@ -81,7 +81,7 @@ def plan_arena(qnet: QuantizedNetwork, style: str = "fast") -> ArenaPlan:
 
     Returns
     -------
-    ArenaPlan
+    BufferPlan
         With ``size`` the largest sum of alive tensors and scratch of any step
         (equal to :attr:`tinyconv.cost.Cost.peak_int8_bytes` in the fast style).
     """
@@ -130,7 +130,7 @@ def plan_arena(qnet: QuantizedNetwork, style: str = "fast") -> ArenaPlan:
                                scratch_bytes=scratch[j]))
     names = ["input"] + [layer.op.name for layer in layers]
     tensors = tuple(Placed(names[t], t - 1, last[t], offset[t], sizes[t]) for t in range(n + 1))
-    return ArenaPlan(size, tensors, tuple(steps))
+    return BufferPlan(size, tensors, tuple(steps))
 
 
 def _free_run(spans: list[tuple[int, int]], size: int, need: int) -> int:
@@ -143,7 +143,7 @@ def _free_run(spans: list[tuple[int, int]], size: int, need: int) -> int:
     raise ValueError(f"no free run of {need} bytes in a buffer of {size} holding {spans}")
 
 
-def overlaps(plan: ArenaPlan) -> list[str]:
+def overlaps(plan: BufferPlan) -> list[str]:
     """Every pair of things alive at one step that share a byte (empty for a sound plan).
 
     The things of step ``j``: the tensors alive during it and its scratch; the
