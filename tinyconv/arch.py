@@ -31,10 +31,11 @@ follows such a layer directly, the ReLU goes after the batch norm
 (conv, norm, ReLU: common practice). Inside a block the last conv, depthwise
 or dense layer has no ReLU (nor has the batch norm right after it), and the
 addition has none either, so a block adds a linear correction to its input:
-the inverted bottleneck's "linear bottleneck" (common practice). The classifier head (a flatten when the
-map is still spatial, then a dense layer to the number of classes) is implicit,
-so one text serves any number of classes. A text with no layers (``8x8gray``)
-is softmax regression on the pixels.
+the inverted bottleneck's "linear bottleneck" (common practice). The
+classifier head (a flatten when the map is still spatial, then a dense layer
+to the number of classes) is implicit, so one text serves any number of
+classes. A text with no layers (``8x8gray``) is softmax regression on the
+pixels.
 
 The text round-trips exactly: ``str(parse(t)) == t``.
 

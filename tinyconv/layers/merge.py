@@ -5,9 +5,10 @@ Both take several inputs, so beyond the single-input contract of
 one gradient per input:
 
 * :class:`Add` (``y = x + skip``) closes a residual block: ``forward(x,
-  training, skip=...)`` (or ``forward_all((x, skip))``); ``backward(g)`` returns ``(g_x, g_skip)``, both equal
-  to ``g``, as the derivative of a sum is one for each term (the network adds
-  ``g_skip`` to the gradient of the block's input when its backward reaches it);
+  training, skip=...)`` (or ``forward_all((x, skip))``); ``backward(g)``
+  returns ``(g_x, g_skip)``, both equal to ``g``, as the derivative of a sum
+  is one for each term (the network adds ``g_skip`` to the gradient of the
+  block's input when its backward reaches it);
 * :class:`Stack` concatenates maps along the channel axis (the colour planes of
   a stacked input such as ``rgb+hsv``): ``forward_all(xs)``; ``backward(g)``
   returns the gradient of each input, the matching channel slice of ``g``.
