@@ -13,8 +13,10 @@ import shutil
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
 
 from helpers import walk_peak
+from test_arch_blocks import block_texts
 from test_export_c import build, random_setup
 from tinyconv.arch import expand, parse
 from tinyconv.cost import cost_of, scratch_bytes
@@ -107,6 +109,16 @@ def test_buffer_is_the_peak_and_nothing_alive_overlaps(text, k):
         spans.sort()
         assert spans[0][0] >= 0 and spans[-1][1] <= plan.size, j
         assert all(a[1] <= b[0] for a, b in zip(spans, spans[1:])), (j, spans)
+
+
+@settings(max_examples=25, deadline=None)
+@given(block_texts())
+def test_plans_of_generated_block_networks_are_sound(text):
+    """On generated texts with blocks the plan is the peak and nothing alive overlaps."""
+    net, mean, std, images = random_setup(text, 3, seed=1)
+    plan = plan_buffer(quantize_network(net, mean, std, images[:4], rounding="nearest"))
+    assert plan.size == cost_of(text, 3).peak_int8_bytes
+    assert overlaps(plan) == []
 
 
 def test_a_broken_plan_is_caught():

@@ -74,3 +74,12 @@ def test_section_only_when_structures_differ():
     section = structure_section(RANKING)
     assert section is not None and "inverted bottleneck" in section.body
     assert "stopped earlier: not compared" in section.body
+
+
+def test_unreadable_candidates_are_left_out():
+    """A candidate text that does not parse takes no part; none readable: no section."""
+    damaged = RANKING.copy()
+    damaged.loc[0, "candidate"] = "8x8gray/a"
+    table = structure_table(damaged)
+    assert "8x8gray/a" not in set(table["candidate"]) and len(table) == 4  # of 5 rows
+    assert structure_section(damaged.assign(candidate="8x8gray/a")) is None

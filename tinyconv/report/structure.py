@@ -17,7 +17,7 @@ import math
 
 import pandas as pd
 
-from tinyconv.arch import Block, Conv, Depthwise, parse
+from tinyconv.arch import ArchError, Block, Conv, Depthwise, parse
 from tinyconv.report.html import Column, Section, esc, num, paragraph, pct, table
 
 #: upper edges of the size classes, in parameters (the last class is open)
@@ -45,6 +45,14 @@ def structure_of(text: str) -> str:
     if not kinds:
         return "chain"
     return kinds.pop() if len(kinds) == 1 else "mixed blocks"
+
+
+def _parses(text: str) -> bool:
+    try:
+        parse(text)
+    except ArchError:
+        return False
+    return True
 
 
 def size_class(params: int) -> str:
@@ -83,10 +91,12 @@ def structure_table(ranking: pd.DataFrame) -> pd.DataFrame:
     candidates in that class all stopped before the class's longest training;
     ``won`` marks the best compared one; ``lead_se`` is its lead over the
     runner-up in the runner-up's standard errors (NaN without a runner-up).
+    A candidate whose text does not parse (a damaged store) is left out.
     """
-    if ranking.empty:
+    readable = [_parses(t) for t in ranking["candidate"]] if len(ranking) else []
+    frame = ranking[readable].copy() if len(ranking) else ranking
+    if frame.empty:
         return pd.DataFrame(columns=list(COLUMNS))
-    frame = ranking.copy()
     frame["structure"] = [structure_of(t) for t in frame["candidate"]]
     frame["colour"] = [parse(t).input.mode for t in frame["candidate"]]
     frame["size"] = [size_class(int(p)) for p in frame["params"]]
