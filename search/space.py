@@ -10,7 +10,8 @@ comments give the default of each optional key::
 
     [input]
     sizes = [32, "32x24"]           # a side (square) or "HxW"
-    modes = ["rgb", "gray"]         # rgb, gray, ycc, hsv: every size in every mode
+    modes = ["rgb", "gray"]         # rgb, gray, ycc, hsv, or stacked such as "rgb+hsv":
+                                    # every size in every mode
     # specs = ["32x32rgb", "16x16gray"]  # instead of sizes and modes: just these
 
     [stages]
@@ -35,6 +36,11 @@ comments give the default of each optional key::
     [options]
     batch_norm = [false, true]      # true: bn after every conv and hidden dense ([false])
     dropout = [0, 20]               # percent, before the classifier; 0 = none ([0])
+
+    [blocks]                        # residual blocks inside the stages (search/space_blocks.py)
+    count = [0, 1]                  # blocks after each stage's convolution ([0])
+    kind = ["bottleneck", "pair"]   # inverted bottleneck or plain pair (["bottleneck"])
+    expansion = [2, 4]              # a bottleneck's widening ([4])
 
     [budget]                        # one value each; leave a key out for no limit
     max_params = 50000              # trained parameters
@@ -61,7 +67,9 @@ What a stage is, in the architecture text form (:mod:`tinyconv.arch`), for
   a 1x1 convolution);
 * ``pool``: ``max`` appends ``p{pool_size}``, ``avg`` appends ``a{pool_size}``,
   ``none`` nothing, ``stride`` gives the stage's first convolution stride 2;
-* with batch norm, ``bn`` follows every convolution (and the hidden dense layer).
+* with batch norm, ``bn`` follows every convolution (and the hidden dense layer);
+* residual blocks (``[blocks]``, :mod:`search.space_blocks`) come after the
+  stage's convolution, before its pooling.
 
 The head: ``gap`` appends global average pooling (only when a stage exists and
 the map is larger than 1x1: otherwise it is the same network as ``flatten``,
@@ -72,8 +80,9 @@ hidden 32 and batch norm give ``dw3-bn-c8k1-bn-p2-dw3-bn-c16k1-bn-p2-gap-d32-bn`
 
 Enumeration (:func:`enumerate_space`) is deterministic: inputs (sizes, then
 modes, in file order; or specs in order), stage count, the shared choices, the
-width plans, the per-stage choices (stage 1 slowest), head kind, hidden width,
-batch norm, dropout. A text seen before is dropped (equivalent candidates
+width plans, the per-stage choices (stage 1 slowest), the block plans (counts
+stage by stage, then kind and expansion), head kind, hidden width, batch
+norm, dropout. A text seen before is dropped (equivalent candidates
 appear once), and so are combinations that do not fit their input (e.g.
 pooling a 2x2 map by 4). :func:`subsample` draws a seeded subset when there are
 more candidates than wanted, and :func:`filter_budget` keeps those within a
@@ -103,6 +112,8 @@ from tinyconv.errors import InputError
 
 from search.budget import Budget, Filtered, budget_from_table, filter_budget  # noqa: F401  (re-exported)
 from search.recipes import RECIPE_KEYS, TrainingChoices, read_training
+from search.space_blocks import KNOWN as BLOCK_KEYS
+from search.space_blocks import BlockChoices, block_layers, read_blocks
 
 __all__ = ["SpaceError", "Space", "StageChoices", "Budget", "Filtered", "load_space",
            "space_from_text",
@@ -116,7 +127,7 @@ MAX_STAGES = 8
 
 _KNOWN = {
     "": ("format", "description", "input", "stages", "head", "options", "budget", "device",
-         "training"),
+         "training", "blocks"),
     "input": ("sizes", "modes", "specs"),
     "stages": ("count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
                "shared", "widening"),
@@ -125,6 +136,7 @@ _KNOWN = {
     "budget": ("max_params", "max_macs", "max_peak_kb", "max_flash_kb", "max_ms"),
     "device": ("core", "clock_mhz"),
     "training": RECIPE_KEYS,
+    "blocks": BLOCK_KEYS,
 }
 
 
@@ -171,6 +183,7 @@ class Space:
     source: str = "<text>"
     widths: tuple[tuple[int, ...], ...] = ()
     training: TrainingChoices = field(default_factory=TrainingChoices)
+    blocks: BlockChoices = field(default_factory=BlockChoices)
 
     def size_bound(self) -> int:
         """Combinations before removing duplicates and misfits (an upper bound)."""
@@ -185,7 +198,7 @@ class Space:
                 for name in SHAREABLE:
                     if name not in self.shared:
                         per *= len(getattr(st, name + "s"))
-            total += per
+            total += per * self.blocks.multiplicity(count)
         return (total * len(self.inputs) * len(self.heads) * len(self.hidden)
                 * len(self.batch_norm) * len(self.dropout))
 
@@ -345,8 +358,10 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
             if key not in inp:
                 raise SpaceError(f"{source}: missing key input.{key}; e.g. sizes = [32], "
                                  "modes = [\"rgb\"] (or specs = [\"32x32rgb\"])")
-        modes = r.choices(inp["modes"], "input.modes", lambda m: isinstance(m, str) and m in MODES,
-                          f"a colour mode ({', '.join(MODES)})")
+        modes = r.choices(inp["modes"], "input.modes",
+                          lambda m: isinstance(m, str) and _parsed_spec(f"1x1{m}") is not None,
+                          f"a colour mode ({', '.join(MODES)}) or several joined by '+', "
+                          "e.g. \"rgb+hsv\"")
         sizes = r.choices(inp["sizes"], "input.sizes", lambda s: _input_spec(s, "rgb"),
                           f"a side from 1 to {MAX_SIDE} or a string \"HxW\"")
         inputs = tuple(_input_spec(s, m) for s in sizes for m in modes)
@@ -416,6 +431,7 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
     dropout = r.choices(opts.get("dropout", [0]), "options.dropout",
                         lambda p: _is_int(p, 0, 99), "a percent 0..99 (0 for none)")
     budget = budget_from_table(r.table(data, "budget"), source, r.table(data, "device"))
+    blocks = read_blocks(r, r.table(data, "blocks"), n)
     training = read_training(r.table(data, "training"), r)
     oblong = [str(spec) for spec in inputs if spec.h != spec.w]
     turning = [a for a in training.augment if "turn" in a.split("+")]
@@ -425,19 +441,24 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
                      f"inputs, but the space has {oblong[0]}; take turn out or give square "
                      "inputs only")
     return Space(inputs, counts, stages, pool_size, tuple(shared), widening, heads, hidden,
-                 batch_norm, dropout, budget, description, text, source, widths, training)
+                 batch_norm, dropout, budget, description, text, source, widths, training,
+                 blocks)
 
 
 # ---------------------------------------------------------------- enumerating
 
 
-def _stage_layers(f: int, k: int, conv: str, pool: str, pool_size: int, bn: bool) -> list:
+def _stage_layers(f: int, k: int, conv: str, pool: str, pool_size: int, bn: bool,
+                  blocks: tuple[int, str, int] = (0, "", 0)) -> list:
     stride = 2 if pool == "stride" else 1
     norm = [BatchNorm()] if bn else []
     if conv == "standard":
         layers = [Conv(f, k, stride)] + norm
     else:
         layers = [Depthwise(k, stride)] + norm + [Conv(f, 1)] + norm
+    count, kind, expansion = blocks
+    for _ in range(count):
+        layers += block_layers(f, k, kind, expansion, bn)
     if pool in ("max", "avg"):
         layers.append(Pool(pool, pool_size))
     return layers
@@ -489,11 +510,11 @@ def enumerate_space(space: Space, max_candidates: int | None = None,
     first_error: ArchError | None = None
     stage_cache: dict = {}
 
-    def stage(opts: tuple, bn: bool) -> tuple[tuple, str]:
+    def stage(opts: tuple, bn: bool, blocks: tuple = (0, "", 0)) -> tuple[tuple, str]:
         """Layers and text of one stage (cached: the same stage recurs a lot)."""
-        key = (opts, bn)
+        key = (opts, bn, blocks)
         if key not in stage_cache:
-            layers = tuple(_stage_layers(*opts, space.pool_size, bn))
+            layers = tuple(_stage_layers(*opts, space.pool_size, bn, blocks))
             stage_cache[key] = layers, "-".join(map(str, layers))
         return stage_cache[key]
 
@@ -508,25 +529,27 @@ def enumerate_space(space: Space, max_candidates: int | None = None,
         spec_text = str(spec)
         for count in space.counts:
             for combo in _stage_options(space, count):
-                bodies = {bn: [stage(opts, bn) for opts in combo] for bn in space.batch_norm}
                 plain = tuple(layer for opts in combo for layer in stage(opts, False)[0])
-                try:  # shapes do not depend on batch norm: check the plain body once
+                try:  # shapes depend on neither batch norm nor blocks: check the plain body once
                     ops = expand(Arch(spec, plain), 2)
                     shape = next(op.in_shape for op in ops if op.kind in ("flatten", "dense"))
                 except ArchError as exc:
                     first_error = first_error or exc
                     continue
                 spatial = count > 0 and len(shape) == 3 and shape[:2] != (1, 1)
-                for head, hidden, bn, drop in itertools.product(
-                        space.heads, space.hidden, space.batch_norm, space.dropout):
-                    tail, tail_text = tails[head == "gap" and spatial, hidden, bn, drop]
-                    parts = [t for _, t in bodies[bn]] + ([tail_text] if tail_text else [])
-                    # the same text as str(Arch(...)), built from cached pieces
-                    text = spec_text + ("/" + "-".join(parts) if parts else "")
-                    if text not in seen:
-                        seen.add(text)
-                        out.append(Arch(spec, tuple(layer for lay, _ in bodies[bn]
-                                                    for layer in lay) + tail))
+                for plan in space.blocks.plans(count):
+                    bodies = {bn: [stage(opts, bn, blocks) for opts, blocks in zip(combo, plan)]
+                              for bn in space.batch_norm}
+                    for head, hidden, bn, drop in itertools.product(
+                            space.heads, space.hidden, space.batch_norm, space.dropout):
+                        tail, tail_text = tails[head == "gap" and spatial, hidden, bn, drop]
+                        parts = [t for _, t in bodies[bn]] + ([tail_text] if tail_text else [])
+                        # the same text as str(Arch(...)), built from cached pieces
+                        text = spec_text + ("/" + "-".join(parts) if parts else "")
+                        if text not in seen:
+                            seen.add(text)
+                            out.append(Arch(spec, tuple(layer for lay, _ in bodies[bn]
+                                                        for layer in lay) + tail))
     if not out:
         raise SpaceError(f"{space.source}: no combination of the space fits its input; the "
                          f"first problem: {first_error}; use larger inputs or fewer stages")

@@ -107,3 +107,35 @@ def units_stored(path) -> int:
             con.close()
     except sqlite3.Error:
         return 0
+
+
+def walk_peak(ops, in_shape, scratch=lambda op: 0) -> int:
+    """Peak activation memory by walking live ranges, written apart from the package.
+
+    Each op that writes a buffer (every kind but relu, bn, dropout and flatten,
+    which work in place) makes a tensor; an op reads the tensor of the op
+    before it, and an ``add`` also that of the op ``reach + 1`` before it. A
+    tensor is alive from its writer to its last reader; at each writing step
+    the alive tensors' elements are summed with ``scratch(op)``. The input
+    tensor is written by the input step, where it is alone.
+    """
+    in_place = {"relu", "bn", "dropout", "flatten"}
+    holder = {-1: "in"}  # op index -> id of the tensor its output is
+    size = {"in": int(np.prod(in_shape))}
+    born, last = {"in": -1}, {"in": -1}
+    for i, op in enumerate(ops):
+        read = [holder[i - 1]] + ([holder[i - 1 - op.reach]] if op.kind == "add" else [])
+        for t in read:
+            last[t] = i
+        if op.kind in in_place:
+            holder[i] = holder[i - 1]
+        else:
+            holder[i] = f"t{i}"
+            size[holder[i]] = int(np.prod(op.out_shape))
+            born[holder[i]] = last[holder[i]] = i
+    best = size["in"]
+    for i, op in enumerate(ops):
+        if op.kind not in in_place:
+            alive = sum(size[t] for t in size if born[t] <= i <= last[t])
+            best = max(best, alive + scratch(op))
+    return best

@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from test_export_blocks import BLOCK_NETS
 from tinyconv.cli import main
 from tinyconv.cost import cost_of
 from tinyconv.device import harness
@@ -50,6 +51,8 @@ HELD_OUT = [
     ("24x24hsv/dw5-c8k1-p2-c16k3-p3-gap-d8", 3),
     ("20x20gray/c16k3-bn-p2-c16k3-bn-a2-gap", 6),
     ("8x8rgb/c4k1-d6", 2),
+    ("24x24rgb/c12k3-p2-[c36k1-dw3-c12k1]-p2-gap", 6),
+    ("16x16ycc+hsv/c8k3s2-[c8k3-c8k3]-a2-d12", 4),
 ]
 
 
@@ -72,12 +75,27 @@ def test_emulated_logits_equal_the_integer_reference(text, k, core):
 
 @needs_device
 @pytest.mark.slow
+@pytest.mark.parametrize("core", ["cortex-m3", "cortex-m4"])
+@pytest.mark.parametrize("text, k", BLOCK_NETS)
+def test_emulated_blocks_equal_the_integer_reference(text, k, core):
+    """Networks with residual blocks: every logit and class from the emulated core equals
+    the integer reference, and the static buffer is the cost model's live-range peak."""
+    qnet, images = random_network(text, k, seed=len(text))
+    m = measure(qnet, images[:4], core_named(core), steps=False)
+    assert m.bit_exact and m.mismatched_images == 0
+    cost = cost_of(text, k)
+    assert m.ram_static_bytes == cost.peak_int8_bytes
+    assert m.flash_data_bytes == cost.flash_bytes
+
+
+@needs_device
+@pytest.mark.slow
 @pytest.mark.parametrize("opt", ["-O0", "-O2", "-Os"])
 @pytest.mark.parametrize("dsp", ["1", "0"])
 def test_dsp_and_portable_paths_bit_exact_at_every_optimisation_level(opt, dsp):
     """On a Cortex-M4 the DSP path and the portable C, at -O0, -O2 and -Os, equal the
     integer reference (and so each other)."""
-    for text, k in (BIT_EXACT[0], ("12x12rgb/c7k3-c5k1-dw3s2-d9", 3)):
+    for text, k in (BIT_EXACT[0], ("12x12rgb/c7k3-c5k1-dw3s2-d9", 3), BLOCK_NETS[1]):
         qnet, images = random_network(text, k, seed=11)
         m = measure(qnet, images[:3], CORES["cortex-m4"], opt=opt, steps=False,
                     extra_flags=(f"-DTC_USE_DSP={dsp}",))

@@ -128,7 +128,7 @@ widths = [[4, 8], [4, 16]]
     assert got == ["8x8gray/c4k3-p2", "8x8gray/c4k3-p2-c8k3-p2", "8x8gray/c4k3-p2-c16k3-p2"]
 
 
-@pytest.mark.parametrize("name", ["demo", "demo-quick"])
+@pytest.mark.parametrize("name", ["demo", "demo-quick", "blocks"])
 def test_shipped_spaces_are_unique_valid_and_deterministic(name):
     """Every shipped space: unique texts that parse back to the same Arch, same order twice."""
     space = load_space(f"builtin:{name}")
@@ -228,7 +228,7 @@ def test_errors_name_the_file_and_builtin_names(tmp_path: Path):
     with pytest.raises(SpaceError, match=f"{path}: head.hidden = \\[-1\\]"):
         load_space(path)
     with pytest.raises(SpaceError, match="builtin:nope: no such space shipped; known: "
-                                         "builtin:demo, builtin:demo-quick"):
+                                         "builtin:blocks, builtin:demo, builtin:demo-quick"):
         load_space("builtin:nope")
     path.write_text("[input]\nspecs = ['8x8gray']\n", encoding="utf-8")
     assert load_space(str(path)).source == str(path)

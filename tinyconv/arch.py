@@ -2,7 +2,9 @@
 
 A text names one candidate, e.g. ``32x32rgb/c8k3-p2-c16k3-p2-gap``:
 
-* the input ``{h}x{w}{mode}``, mode one of ``rgb``, ``gray``, ``ycc``, ``hsv``;
+* the input ``{h}x{w}{mode}``, mode one of ``rgb``, ``gray``, ``ycc``, ``hsv``,
+  or several joined by ``+`` (``32x32rgb+hsv``: the channels of each mode
+  stacked in that order, 6 here; each mode at most once);
 * then, after ``/``, layer tokens joined by ``-``:
 
   ======================  ==============================================
@@ -18,281 +20,55 @@ A text names one candidate, e.g. ``32x32rgb/c8k3-p2-c16k3-p2-gap``:
   ``s2`` is stride 2 (stride 1 is the default and is not written); ``v`` is
   valid padding (same padding is the default and needs an odd kernel).
 
+* ``[`` before a layer and ``]`` after a later one (or the same one) make the
+  layers between a residual block: the block's input is added to its output,
+  so the two must have the same shape, e.g. the inverted bottleneck
+  ``32x32rgb/c16k3-p2-[c48k1-dw3-c16k1]-p2-gap``. Blocks do not nest, and
+  positions keep counting the layer tokens inside them.
+
 ReLU follows every convolution and hidden dense layer; when a batch norm
 follows such a layer directly, the ReLU goes after the batch norm
-(conv, norm, ReLU: common practice). The classifier head (a flatten when the
-map is still spatial, then a dense layer to the number of classes) is implicit,
-so one text serves any number of classes. A text with no layers (``8x8gray``)
-is softmax regression on the pixels.
+(conv, norm, ReLU: common practice). Inside a block the last conv, depthwise
+or dense layer has no ReLU (nor has the batch norm right after it), and the
+addition has none either, so a block adds a linear correction to its input:
+the inverted bottleneck's "linear bottleneck" (common practice). The
+classifier head (a flatten when the map is still spatial, then a dense layer
+to the number of classes) is implicit, so one text serves any number of
+classes. A text with no layers (``8x8gray``) is softmax regression on the
+pixels.
 
 The text round-trips exactly: ``str(parse(t)) == t``.
 
-:func:`expand` turns an architecture into the flat list of :class:`Op` with
-shapes: the one description that the engine, the cost model, the quantiser
-and the C writer all build from.
+:func:`expand` (in :mod:`tinyconv.ops`, re-exported here) turns an
+architecture into the flat list of :class:`Op` with shapes: the one
+description that the engine, the cost model, the quantiser and the C writer
+all build from. The dataclasses are in :mod:`tinyconv.arch_specs`, the JSON
+form in :mod:`tinyconv.arch_json`.
 """
 
 from __future__ import annotations
 
-import json
 import re
-from dataclasses import dataclass, fields
-from typing import Union
 
-from tinyconv.errors import InputError
+from tinyconv.arch_json import from_dict, to_dict
+from tinyconv.arch_specs import (MAX_SIDE, MAX_WIDTH, MODE_JOIN, MODES, Arch, ArchError,
+                                 BatchNorm, Block, Conv, Dense, Depthwise, Dropout, GlobalPool,
+                                 InputSpec, LayerSpec, Pool, flat_layers, token_count)
+from tinyconv.ops import (Op, check_classes, conv_output, expand, expand_block, expand_head,
+                          expand_layer, sources)
 
-MODES = {"rgb": 3, "gray": 1, "ycc": 3, "hsv": 3}
-MAX_SIDE = 4096
-MAX_WIDTH = 65536
-
-
-class ArchError(InputError):
-    """A bad architecture text, or one that does not fit its input.
-
-    Attributes
-    ----------
-    text : str
-        The whole text, when known.
-    position : int or None
-        1-based position of the offending layer token (0 for the input).
-    token : str or None
-        The offending token.
-    """
-
-    def __init__(self, message: str, *, text: str = "", position: int | None = None,
-                 token: str | None = None):
-        super().__init__(message)
-        self.text = text
-        self.position = position
-        self.token = token
-
-
-# ---------------------------------------------------------------- the specs
-
-
-@dataclass(frozen=True)
-class InputSpec:
-    """Image size and colour mode the network reads, e.g. ``32x32rgb``."""
-
-    h: int
-    w: int
-    mode: str = "rgb"
-
-    @property
-    def channels(self) -> int:
-        return MODES[self.mode]
-
-    @property
-    def shape(self) -> tuple[int, int, int]:
-        """Per-image shape (h, w, c)."""
-        return (self.h, self.w, self.channels)
-
-    def __str__(self) -> str:
-        return f"{self.h}x{self.w}{self.mode}"
-
-
-@dataclass(frozen=True)
-class Conv:
-    """Standard convolution: ``filters`` output channels, square kernel."""
-
-    filters: int
-    kernel: int
-    stride: int = 1
-    valid: bool = False
-
-    def __str__(self) -> str:
-        return (f"c{self.filters}k{self.kernel}" + ("s2" if self.stride == 2 else "")
-                + ("v" if self.valid else ""))
-
-
-@dataclass(frozen=True)
-class Depthwise:
-    """Depthwise convolution: one k x k filter per input channel."""
-
-    kernel: int
-    stride: int = 1
-    valid: bool = False
-
-    def __str__(self) -> str:
-        return f"dw{self.kernel}" + ("s2" if self.stride == 2 else "") + ("v" if self.valid else "")
-
-
-@dataclass(frozen=True)
-class Pool:
-    """Max (``kind='max'``) or average (``kind='avg'``) pooling, size = stride."""
-
-    kind: str
-    size: int
-
-    def __str__(self) -> str:
-        return ("p" if self.kind == "max" else "a") + str(self.size)
-
-
-@dataclass(frozen=True)
-class GlobalPool:
-    """Global average pooling: (h, w, c) -> (c,)."""
-
-    def __str__(self) -> str:
-        return "gap"
-
-
-@dataclass(frozen=True)
-class Dense:
-    """Hidden dense (fully connected) layer of ``units`` outputs."""
-
-    units: int
-
-    def __str__(self) -> str:
-        return f"d{self.units}"
-
-
-@dataclass(frozen=True)
-class BatchNorm:
-    """Batch normalisation over the last (channel) axis."""
-
-    def __str__(self) -> str:
-        return "bn"
-
-
-@dataclass(frozen=True)
-class Dropout:
-    """Inverted dropout of ``pct`` percent of activations, training only."""
-
-    pct: int
-
-    @property
-    def rate(self) -> float:
-        return self.pct / 100.0
-
-    def __str__(self) -> str:
-        return f"x{self.pct}"
-
-
-LayerSpec = Union[Conv, Depthwise, Pool, GlobalPool, Dense, BatchNorm, Dropout]
-
-
-@dataclass(frozen=True)
-class Arch:
-    """A network architecture: input spec and hidden layers (head implicit)."""
-
-    input: InputSpec
-    layers: tuple[LayerSpec, ...] = ()
-
-    def __str__(self) -> str:
-        if not self.layers:
-            return str(self.input)
-        return f"{self.input}/" + "-".join(str(layer) for layer in self.layers)
-
-    def with_input(self, spec: InputSpec) -> "Arch":
-        """The same layers on another input."""
-        return Arch(spec, self.layers)
-
-    # -------- JSON form, for files
-    def to_json(self) -> str:
-        """A JSON object: ``{"input": {...}, "layers": [{"type": ..., ...}]}``."""
-        return json.dumps(to_dict(self), sort_keys=True)
-
-    @staticmethod
-    def from_json(text: str) -> "Arch":
-        """Inverse of :meth:`to_json`; bad JSON or content raises :class:`ArchError`."""
-        try:
-            data = json.loads(text)
-        except json.JSONDecodeError as exc:
-            raise ArchError(f"architecture JSON does not parse: {exc}; expected "
-                            f"{_SHAPE_HINT}") from None
-        return from_dict(data)
-
-
-_TYPES = {"conv": Conv, "depthwise": Depthwise, "pool": Pool, "gap": GlobalPool,
-          "dense": Dense, "bn": BatchNorm, "dropout": Dropout}
-_TYPE_NAMES = {cls: name for name, cls in _TYPES.items()}
-
-
-def to_dict(arch: Arch) -> dict:
-    """Plain-data form of an architecture (for JSON)."""
-    layers = []
-    for layer in arch.layers:
-        entry = {"type": _TYPE_NAMES[type(layer)]}
-        entry.update({f.name: getattr(layer, f.name) for f in fields(layer)})
-        layers.append(entry)
-    return {"input": {"h": arch.input.h, "w": arch.input.w, "mode": arch.input.mode},
-            "layers": layers}
-
-
-_TYPE_WORDS = {int: "an integer", bool: "true or false", str: "a string"}
-_SHAPE_HINT = '{"input": {"h": 32, "w": 32, "mode": "rgb"}, "layers": [{"type": "conv", ...}]}'
-
-
-def from_dict(data: dict) -> Arch:
-    """Inverse of :func:`to_dict`; the result is validated like a parsed text.
-
-    Raises
-    ------
-    ArchError
-        When ``data`` is not of the shape :func:`to_dict` writes, a layer type or
-        field is unknown, a value has the wrong type, or the architecture it
-        describes breaks a rule of the text form (same messages as :func:`parse`).
-    """
-
-    def bad(why: str, position: int | None = None) -> ArchError:
-        return ArchError(f"not an architecture object: {why}; expected {_SHAPE_HINT}",
-                         position=position)
-
-    if not isinstance(data, dict) or not isinstance(data.get("input"), dict):
-        raise bad(f"got {type(data).__name__} without an 'input' object")
-    unknown = set(data) - {"input", "layers"}
-    if unknown:
-        raise bad(f"unknown keys {sorted(unknown)}")
-    inp = data["input"]
-    if set(inp) != {"h", "w", "mode"}:
-        raise bad(f"'input' has keys {sorted(inp)}, needs exactly h, w, mode", 0)
-    for key, typ in (("h", int), ("w", int), ("mode", str)):
-        if not isinstance(inp[key], typ) or isinstance(inp[key], bool):
-            raise bad(f"input {key} = {inp[key]!r} is not {_TYPE_WORDS[typ]}", 0)
-    entries = data.get("layers", [])
-    if not isinstance(entries, list):
-        raise bad(f"'layers' is a {type(entries).__name__}, not a list")
-    layers = []
-    for i, entry in enumerate(entries, 1):
-        if not isinstance(entry, dict) or "type" not in entry:
-            raise bad(f"layer {i} is {entry!r}, not an object with a 'type'", i)
-        kind = entry["type"]
-        if kind not in _TYPES:
-            raise ArchError(f"layer {i}: unknown type {kind!r}; expected one of "
-                            f"{', '.join(sorted(_TYPES))}", position=i, token=str(kind))
-        cls = _TYPES[kind]
-        known = {f.name: f for f in fields(cls)}
-        args = {k: v for k, v in entry.items() if k != "type"}
-        if set(args) - set(known):
-            raise bad(f"layer {i} ({kind}) has unknown fields {sorted(set(args) - set(known))}; "
-                      f"known: {sorted(known) or 'none'}", i)
-        for key, value in args.items():
-            want = {"int": int, "bool": bool, "str": str}[str(known[key].type)]
-            if not isinstance(value, want) or (want is int and isinstance(value, bool)):
-                raise bad(f"layer {i} ({kind}) field {key} = {value!r} is not "
-                          f"{_TYPE_WORDS[want]}", i)
-        try:
-            layers.append(cls(**args))
-        except TypeError as exc:  # a required field left out
-            raise bad(f"layer {i} ({kind}): {exc}", i) from None
-    built = Arch(InputSpec(inp["h"], inp["w"], inp["mode"]), tuple(layers))
-    # Through the text, so that the same rules apply to both forms; a value the
-    # text cannot say (stride 3, pool kind 'min') prints as something else.
-    arch = parse(str(built))
-    if arch != built:
-        for i, (a, b) in enumerate(zip(arch.layers, built.layers), 1):
-            if a != b:
-                raise bad(f"layer {i} {b!r} has a value the architecture rules do not "
-                          f"allow (it would read back as {a!r})", i)
-        raise bad(f"input {built.input!r} would read back as {arch.input!r}", 0)
-    return arch
-
+__all__ = ["MAX_SIDE", "MAX_WIDTH", "MODE_JOIN", "MODES", "Arch", "ArchError", "BatchNorm",
+           "Block", "Conv", "Dense", "Depthwise", "Dropout", "GlobalPool", "InputSpec",
+           "LayerSpec", "Pool", "flat_layers", "token_count", "Op",
+           "check_classes", "conv_output", "expand", "expand_block", "expand_head",
+           "expand_layer", "sources", "parse",
+           "parse_input", "from_dict", "to_dict"]
 
 # ---------------------------------------------------------------- the parser
 
 # [0-9], not \d: \d also matches other scripts' digits, which int() accepts but
 # which would not print back the same (the text must round-trip exactly).
-_INPUT = re.compile(r"([0-9]+)x([0-9]+)([a-z]+)")
+_INPUT = re.compile(r"([0-9]+)x([0-9]+)([a-z]+(?:\+[a-z]+)*)")
 _CONV = re.compile(r"c([0-9]+)k([0-9]+)(s[0-9]+)?(v)?")
 _DW = re.compile(r"dw([0-9]+)(s[0-9]+)?(v)?")
 _POOL = re.compile(r"([pa])([0-9]+)")
@@ -328,10 +104,19 @@ def parse_input(text: str) -> InputSpec:
         raise ArchError(f"input {text!r}: sizes must be written without leading zeros",
                         text=text, position=0, token=text) from None
     mode = m.group(3)
-    if mode not in MODES:
-        raise ArchError(f"input {text!r}: unknown colour mode {mode!r}; "
-                        f"expected one of {', '.join(MODES)}",
-                        text=text, position=0, token=text)
+    parts = mode.split(MODE_JOIN)
+    for part in parts:
+        if part not in MODES:
+            raise ArchError(f"input {text!r}: unknown colour mode {part!r}; "
+                            f"expected one of {', '.join(MODES)}, or several joined by "
+                            f"'{MODE_JOIN}' (e.g. rgb{MODE_JOIN}hsv)",
+                            text=text, position=0, token=text)
+    for part in parts:
+        if parts.count(part) > 1:
+            raise ArchError(f"input {text!r}: colour mode {part!r} is stacked "
+                            f"{parts.count(part)} times; stack each mode at most once, "
+                            f"e.g. {MODE_JOIN.join(dict.fromkeys(parts))}",
+                            text=text, position=0, token=text)
     if not (1 <= h <= MAX_SIDE and 1 <= w <= MAX_SIDE):
         raise ArchError(f"input {text!r}: sides must be between 1 and {MAX_SIDE}, "
                         f"got {h}x{w}", text=text, position=0, token=text)
@@ -399,6 +184,26 @@ def _check_kernel(kernel: int, valid: bool) -> None:
                          f"use k{kernel - 1} or k{kernel + 1}, or valid padding (suffix v)")
 
 
+def _brackets(tok: str) -> tuple[bool, str, bool]:
+    """(opens a block, the layer token inside the brackets, closes a block)."""
+    opens = tok.startswith("[")
+    core = tok[1:] if opens else tok
+    closes = core.endswith("]")
+    core = core[:-1] if closes else core
+    if "[" in core or "]" in core:
+        if core.startswith("["):
+            raise ValueError("blocks do not nest: one '[' opens a block; close it with ']' "
+                             "before opening the next")
+        if core.endswith("]"):
+            raise ValueError("one ']' closes a block; remove the second")
+        raise ValueError("brackets go around whole layers: '[' before a block's first layer "
+                         "and ']' after its last, e.g. [c48k1-dw3-c16k1]")
+    if not core:
+        raise ValueError("a bracket needs a layer beside it, e.g. [c16k3-c16k3]; "
+                         "an empty block adds nothing")
+    return opens, core, closes
+
+
 def parse(text: str) -> Arch:
     """Parse an architecture text and validate it against its own input size.
 
@@ -407,7 +212,8 @@ def parse(text: str) -> Arch:
     TypeError
         If ``text`` is not a string.
     ArchError
-        Naming the token, its position and what was expected, or the size it met.
+        Naming the token, its position and what was expected, or the size it met;
+        for a block, the position and text of its first token.
     """
     if not isinstance(text, str):
         raise TypeError(f"architecture text must be a str, got {type(text).__name__}")
@@ -417,6 +223,13 @@ def parse(text: str) -> Arch:
         raise ArchError(f"{text!r}: nothing after '/'; write {head!r} for a network "
                         "with only the classifier head", text=text, position=1, token="")
     layers: list[LayerSpec] = []
+    block: list[LayerSpec] | None = None  # the layers of the open block
+    opened = (0, "")  # position and token of the open block's first layer
+
+    def fail(pos: int, tok: str, why: str) -> ArchError:
+        return ArchError(f"{text!r}: layer {pos} {tok!r}: {why}", text=text, position=pos,
+                         token=tok)
+
     if body:
         for pos, tok in enumerate(body.split("-"), 1):
             if not tok:
@@ -424,188 +237,30 @@ def parse(text: str) -> Arch:
                                 f"(two '-' in a row, or one at an end); expected {_EXPECTED}",
                                 text=text, position=pos, token=tok)
             try:
-                layers.append(_parse_token(tok))
+                opens, core, closes = _brackets(tok)
+                layer = _parse_token(core)
             except ValueError as exc:
-                raise ArchError(f"{text!r}: layer {pos} {tok!r}: {exc}",
-                                text=text, position=pos, token=tok) from None
+                raise fail(pos, tok, str(exc)) from None
+            if opens and block is not None:
+                raise fail(pos, tok, f"a block opens inside the block opened at layer "
+                                     f"{opened[0]} {opened[1]!r}; blocks do not nest, so close "
+                                     "that one with ']' first")
+            if closes and block is None and not opens:
+                raise fail(pos, tok, "']' closes no block; put '[' before the block's first "
+                                     "layer, e.g. [c48k1-dw3-c16k1]")
+            if opens:
+                block, opened = [], (pos, tok)
+            if block is None:
+                layers.append(layer)
+                continue
+            block.append(layer)
+            if closes:
+                layers.append(Block(tuple(block)))
+                block = None
+    if block is not None:
+        raise ArchError(f"{text!r}: layer {opened[0]} {opened[1]!r}: the block opened here is "
+                        "never closed; end its last layer with ']'", text=text,
+                        position=opened[0], token=opened[1])
     arch = Arch(spec, tuple(layers))
     expand(arch, n_classes=2, text=text)  # validates sizes against the input
     return arch
-
-
-# ---------------------------------------------------------------- expansion
-
-
-@dataclass(frozen=True)
-class Op:
-    """One concrete operation of a network, with its shapes.
-
-    ``kind`` is one of ``conv``, ``dwconv``, ``maxpool``, ``avgpool``, ``gap``,
-    ``flatten``, ``dense``, ``relu``, ``bn``, ``dropout``. ``position`` is the
-    1-based position of the text token it comes from (0 for the implicit
-    head). Shapes are per image: (h, w, c) or (n_features,).
-    """
-
-    kind: str
-    in_shape: tuple[int, ...]
-    out_shape: tuple[int, ...]
-    position: int = 0
-    token: str = ""
-    filters: int = 0
-    kernel: int = 0
-    stride: int = 1
-    padding: str = "same"
-    pads: tuple[int, int, int, int] = (0, 0, 0, 0)
-    size: int = 0
-    units: int = 0
-    rate: float = 0.0
-
-    @property
-    def name(self) -> str:
-        """A short label such as ``3:c8k3`` or ``head:dense``."""
-        return f"{self.position}:{self.token}" if self.position else f"head:{self.kind}"
-
-
-def conv_output(size: int, kernel: int, stride: int, valid: bool) -> tuple[int, int, int]:
-    """Output size and (before, after) padding of one spatial axis.
-
-    Notes
-    -----
-    Valid: ``out = floor((size - k) / s) + 1`` with no padding. Same:
-    ``out = ceil(size / s)``, total padding ``max((out - 1) s + k - size, 0)``
-    split with the extra pixel after (common practice).
-    """
-    if valid:
-        return (size - kernel) // stride + 1, 0, 0
-    out = -(-size // stride)
-    total = max((out - 1) * stride + kernel - size, 0)
-    return out, total // 2, total - total // 2
-
-
-def expand(arch: Arch, n_classes: int, *, text: str = "") -> tuple[Op, ...]:
-    """The concrete operations of ``arch`` for ``n_classes`` outputs.
-
-    Raises
-    ------
-    ArchError
-        When a layer does not fit the map it meets, naming token, position and size.
-    InputError
-        When ``n_classes`` is not an integer >= 2.
-    """
-    check_classes(n_classes)
-    ops: list[Op] = []
-    shape: tuple[int, ...] = arch.input.shape
-    layers = arch.layers
-    for i, layer in enumerate(layers):
-        prev = layers[i - 1] if i > 0 else None
-        follows_bn = i + 1 < len(layers) and isinstance(layers[i + 1], BatchNorm)
-        step, shape = expand_layer(layer, shape, i + 1, prev, follows_bn,
-                                   lambda: text or str(arch))
-        ops.extend(step)
-    ops.extend(expand_head(shape, n_classes))
-    return tuple(ops)
-
-
-def check_classes(n_classes: int) -> int:
-    """``n_classes`` if it is an integer >= 2, else :class:`InputError`."""
-    if isinstance(n_classes, bool) or not isinstance(n_classes, int) or n_classes < 2:
-        raise InputError(f"number of classes must be an integer of at least 2, got "
-                         f"{n_classes!r}")
-    return n_classes
-
-
-def expand_head(shape: tuple[int, ...], n_classes: int) -> list[Op]:
-    """The implicit head on a map or vector of ``shape``: flatten if spatial, dense."""
-    ops = []
-    if len(shape) == 3:
-        flat = (shape[0] * shape[1] * shape[2],)
-        ops.append(Op("flatten", shape, flat))
-        shape = flat
-    ops.append(Op("dense", shape, (n_classes,), units=n_classes))
-    return ops
-
-
-def expand_layer(layer: LayerSpec, shape: tuple[int, ...], pos: int,
-                 prev: LayerSpec | None, follows_bn: bool, text=lambda: ""
-                 ) -> tuple[list[Op], tuple[int, ...]]:
-    """The ops of one layer (1-based position ``pos``) meeting a map of ``shape``.
-
-    ``prev`` is the layer before (None for the first) and ``follows_bn`` says
-    whether a batch norm comes next: they decide where the ReLU goes. The ops
-    depend only on (layer, shape, whether prev is conv/depthwise/dense,
-    follows_bn) apart from their ``position``, so callers may reuse them.
-    ``text`` is called for the error message only.
-
-    Returns
-    -------
-    ops : list of Op
-    out_shape : tuple of int
-
-    Raises
-    ------
-    ArchError
-        When the layer does not fit ``shape``.
-    """
-    tok = str(layer)
-    ops: list[Op] = []
-
-    def fail(why: str) -> None:
-        whole = text()
-        raise ArchError(f"{whole!r}: layer {pos} {tok!r}: {why}", text=whole,
-                        position=pos, token=tok)
-
-    if isinstance(layer, (Conv, Depthwise)):
-        if len(shape) != 3:
-            fail(f"a convolution needs an image map, but meets a vector of "
-                 f"{shape[0]} features (after gap or dense); move it earlier")
-        h, w, c = shape
-        k, s = layer.kernel, layer.stride
-        if layer.valid and (k > h or k > w):
-            fail(f"kernel {k} is larger than the input map {h}x{w}; "
-                 "use a smaller kernel or same padding")
-        oh, pt, pb = conv_output(h, k, s, layer.valid)
-        ow, pl, pr = conv_output(w, k, s, layer.valid)
-        f = layer.filters if isinstance(layer, Conv) else c
-        kind = "conv" if isinstance(layer, Conv) else "dwconv"
-        ops.append(Op(kind, shape, (oh, ow, f), pos, tok, filters=f, kernel=k, stride=s,
-                      padding="valid" if layer.valid else "same", pads=(pt, pb, pl, pr)))
-        shape = (oh, ow, f)
-        if not follows_bn:
-            ops.append(Op("relu", shape, shape, pos, tok))
-    elif isinstance(layer, Pool):
-        if len(shape) != 3:
-            fail(f"pooling needs an image map, but meets a vector of "
-                 f"{shape[0]} features; move it before gap or dense")
-        h, w, c = shape
-        if layer.size > h or layer.size > w:
-            fail(f"pool size {layer.size} is larger than the map {h}x{w} it "
-                 "meets (it would shrink it below 1x1); use a smaller pool "
-                 "or fewer pooling layers")
-        out = (h // layer.size, w // layer.size, c)
-        ops.append(Op("maxpool" if layer.kind == "max" else "avgpool", shape, out, pos,
-                      tok, size=layer.size, stride=layer.size))
-        shape = out
-    elif isinstance(layer, GlobalPool):
-        if len(shape) != 3:
-            fail(f"global pooling needs an image map, but meets a vector of "
-                 f"{shape[0]} features; keep one gap, before any dense layer")
-        ops.append(Op("gap", shape, (shape[2],), pos, tok))
-        shape = (shape[2],)
-    elif isinstance(layer, Dense):
-        if len(shape) == 3:
-            flat = (shape[0] * shape[1] * shape[2],)
-            ops.append(Op("flatten", shape, flat, pos, tok))
-            shape = flat
-        ops.append(Op("dense", shape, (layer.units,), pos, tok, units=layer.units))
-        shape = (layer.units,)
-        if not follows_bn:
-            ops.append(Op("relu", shape, shape, pos, tok))
-    elif isinstance(layer, BatchNorm):
-        ops.append(Op("bn", shape, shape, pos, tok))
-        if isinstance(prev, (Conv, Depthwise, Dense)):
-            ops.append(Op("relu", shape, shape, pos, tok))
-    elif isinstance(layer, Dropout):
-        ops.append(Op("dropout", shape, shape, pos, tok, rate=layer.rate))
-    else:  # pragma: no cover - the parser makes only the types above
-        raise TypeError(f"unknown layer spec {layer!r}")
-    return ops, shape

@@ -19,14 +19,19 @@ Counting rules (the contract in DEVELOPERS.md, "Cost"):
   shift); a batch norm directly after conv/dwconv/dense is folded into it and
   costs nothing. A batch norm anywhere else has no int8 form: the exporter
   refuses it, and :attr:`Cost.exportable` is False (its flash counts 0).
-* **peak activation memory**: the largest, over the ops that write a new
-  buffer (the input quantisation, conv, dwconv, maxpool, avgpool, gap,
-  dense), of input elements + output elements, plus in int8 the scratch its
-  kernel needs (a convolution's two int16 patches, ``4 k k c_in`` bytes; see
-  :func:`scratch_bytes`). ReLU, batch norm, dropout and flatten work in place
-  and add nothing; each op reads from one end of the arena and writes to the
-  other, its scratch between them, so the arena is exactly the int8 peak.
-  int8 bytes = elements + scratch; float32 bytes = 4 x elements. The input quantisation reads the caller's raw
+* **peak activation memory**: tensors live from the step that writes them
+  to the last step that reads them (:mod:`tinyconv.liveness`; the steps are
+  the input quantisation and the ops that write a new buffer: conv, dwconv,
+  maxpool, avgpool, gap, dense, add). At each step the tensors alive together
+  are summed, plus in int8 the scratch its kernel needs (a convolution's two
+  int16 patches, ``4 k k c_in`` bytes; see :func:`scratch_bytes`); the peak
+  is the largest such sum. In a chain that is the step's input + output;
+  inside a residual block the block's input is alive too, until the addition
+  that closes the block reads it. ReLU, batch norm, dropout and flatten work
+  in place and add nothing. The C places every tensor and scratch at an
+  offset planned from these live ranges, in one buffer of exactly the int8
+  peak (:mod:`tinyconv.export.placement`). int8 bytes = elements + scratch;
+  float32 bytes = 4 x elements. The input quantisation reads the caller's raw
   pixels (a buffer outside the arena, e.g. the camera's frame) and writes the
   int8 input, so it counts ``h*w*c``.
 
@@ -42,11 +47,13 @@ from typing import Union
 import pandas as pd
 
 from tinyconv.arch import (Arch, BatchNorm, Conv, Dense, Depthwise, Op, check_classes, expand,
-                           expand_head, expand_layer, parse)
+                           expand_head, expand_layer, parse, token_count)
 from tinyconv.errors import InputError
+from tinyconv.liveness import BUFFER_KINDS, Lives, live_ranges
 
-#: op kinds that write a new activation buffer (the others work in place)
-BUFFER_KINDS = frozenset({"input", "conv", "dwconv", "maxpool", "avgpool", "gap", "dense"})
+__all__ = ["BUFFER_KINDS", "WEIGHT_KINDS", "OpCost", "Cost", "Totals", "cost_of", "totals_of",
+           "scratch_bytes", "op_cost", "input_cost", "folded_flags", "training_memory",
+           "TrainingMemory"]
 #: op kinds with int8 weights in flash
 WEIGHT_KINDS = frozenset({"conv", "dwconv", "dense"})
 #: flash bytes per output channel of a weighted op: int32 bias, multiplier, shift
@@ -79,12 +86,17 @@ class OpCost:
     flash_bytes : int
         int8 deployment bytes of this op (0 for folded batch norm).
     live_elements : int
-        Input + output elements when the op writes a new buffer, else 0.
+        Elements of every tensor alive while the op runs, when it writes a new
+        buffer (its input(s), its output, and a residual block's input held
+        for the addition); 0 for in-place ops.
     folded : bool
         True for a batch norm folded into the conv/dwconv/dense before it.
     scratch_bytes : int
         Scratch the int8 kernel needs beside its input and output
         (:func:`scratch_bytes`); counted in the int8 peak, not in float32.
+    alive : tuple of str
+        The tensors behind ``live_elements``, each named by the step that
+        wrote it (``input``, ``3:c48k1``, ...); empty for in-place ops.
     """
 
     index: int
@@ -100,6 +112,7 @@ class OpCost:
     live_elements: int
     folded: bool = False
     scratch_bytes: int = 0
+    alive: tuple[str, ...] = ()
 
 
 @dataclass(frozen=True)
@@ -158,12 +171,14 @@ class Cost:
         return {k: v for k, v in asdict(self).items() if k != "rows"}
 
     def table(self) -> pd.DataFrame:
-        """One row per :class:`OpCost` (the input first); shapes as ``8x8x16`` text."""
+        """One row per :class:`OpCost` (the input first); shapes as ``8x8x16`` text,
+        the tensors alive as ``input + 1:c8k3``."""
         records = []
         for row in self.rows:
             rec = asdict(row)
             rec["in_shape"] = "x".join(map(str, row.in_shape))
             rec["out_shape"] = "x".join(map(str, row.out_shape))
+            rec["alive"] = " + ".join(row.alive)
             records.append(rec)
         return pd.DataFrame.from_records(records, columns=list(OpCost.__dataclass_fields__))
 
@@ -190,32 +205,31 @@ def scratch_bytes(op: Op) -> int:
     return 0
 
 
-def _numbers(op: Op) -> tuple[int, int, int, int, int, int]:
-    """(params, state, macs, out_elements, flash_bytes, live_elements) of one op."""
+def _numbers(op: Op) -> tuple[int, int, int, int, int]:
+    """(params, state, macs, out_elements, flash_bytes) of one op."""
     shape_in, shape_out = op.in_shape, op.out_shape
     n_in, n_out = prod(shape_in), prod(shape_out)
     kind = op.kind
-    live = n_in + n_out if kind in BUFFER_KINDS else 0
     if kind == "conv":
         f = op.filters
         weights = op.kernel * op.kernel * shape_in[2] * f
         return (weights + f, 0, shape_out[0] * shape_out[1] * weights, n_out,
-                weights + CHANNEL_BYTES * f, live)
+                weights + CHANNEL_BYTES * f)
     if kind == "dwconv":
         c = shape_in[2]
         weights = op.kernel * op.kernel * c
         return (weights + c, 0, shape_out[0] * shape_out[1] * weights, n_out,
-                weights + CHANNEL_BYTES * c, live)
+                weights + CHANNEL_BYTES * c)
     if kind == "dense":
         weights = n_in * n_out
-        return weights + n_out, 0, weights, n_out, weights + CHANNEL_BYTES * n_out, live
+        return weights + n_out, 0, weights, n_out, weights + CHANNEL_BYTES * n_out
     if kind == "bn":
         c = shape_in[-1]
-        return 2 * c, 2 * c, 0, n_out, 0, live
-    return 0, 0, 0, n_out, 0, live
+        return 2 * c, 2 * c, 0, n_out, 0
+    return 0, 0, 0, n_out, 0
 
 
-def op_cost(op: Op, index: int, folded: bool = False) -> OpCost:
+def op_cost(op: Op, index: int, folded: bool = False, lives: Lives | None = None) -> OpCost:
     """The cost of one :class:`~tinyconv.arch.Op`.
 
     Parameters
@@ -225,9 +239,20 @@ def op_cost(op: Op, index: int, folded: bool = False) -> OpCost:
         Its index in ``expand()``.
     folded : bool
         For a batch norm: whether it is folded into the op before it.
+    lives : Lives, optional
+        The live ranges of the whole network (:func:`tinyconv.liveness.live_ranges`),
+        which give the tensors alive during the op; without them, a buffer
+        op counts its input and output alone (the rule of a plain chain).
     """
+    if lives is not None:
+        alive = lives.alive[index]
+        live, names = lives.elements(alive), tuple(lives.tensors[t].name for t in alive)
+    else:
+        live = prod(op.in_shape) + prod(op.out_shape) if op.kind in BUFFER_KINDS else 0
+        names = ()
     return OpCost(index, op.name, op.kind, op.in_shape, op.out_shape, *_numbers(op),
-                  folded=folded, scratch_bytes=scratch_bytes(op))
+                  live_elements=live, folded=folded, scratch_bytes=scratch_bytes(op),
+                  alive=names)
 
 
 def input_cost(arch: Arch) -> OpCost:
@@ -236,7 +261,7 @@ def input_cost(arch: Arch) -> OpCost:
     shape = arch.input.shape
     n = prod(shape)
     return OpCost(-1, "input", "input", shape, shape, 0, 0, 0, n,
-                  INPUT_TABLE_ROWS * shape[2], n)
+                  INPUT_TABLE_ROWS * shape[2], n, alive=("input",))
 
 
 def folded_flags(ops: tuple[Op, ...]) -> tuple[bool, ...]:
@@ -270,7 +295,8 @@ def cost_of(arch: Union[Arch, str], n_classes: int) -> Cost:
     arch = _as_arch(arch)
     ops = expand(arch, n_classes)
     flags = folded_flags(ops)
-    rows = (input_cost(arch),) + tuple(op_cost(op, i, f)
+    lives = live_ranges(ops, arch.input.shape)
+    rows = (input_cost(arch),) + tuple(op_cost(op, i, f, lives)
                                        for i, (op, f) in enumerate(zip(ops, flags)))
     exportable = all(f for op, f in zip(ops, flags) if op.kind == "bn")
     # first of equal maxima; int8 counts the kernels' scratch, float32 the tensors only
@@ -336,15 +362,16 @@ def totals_of(arch: Union[Arch, str], n_classes: int, cache: dict | None = None)
     exportable = True
     layers = arch.layers
     prev = None
+    pos = 1
     for i, layer in enumerate(layers):
         follows_bn = i + 1 < len(layers) and type(layers[i + 1]) is BatchNorm
         after_weights = isinstance(prev, _WEIGHTED_SPECS)
         key = (layer, shape, after_weights, follows_bn)
         hit = cache.get(key)
         if hit is None:
-            ops, out = expand_layer(layer, shape, i + 1, prev, follows_bn,
+            ops, out = expand_layer(layer, shape, pos, prev, follows_bn,
                                     lambda: str(arch))
-            hit = _summed(ops) + (after_weights or type(layer) is not BatchNorm, out)
+            hit = _summed(ops, shape) + (_exportable(ops, after_weights), out)
             cache[key] = hit
         params += hit[0]
         macs += hit[1]
@@ -353,10 +380,11 @@ def totals_of(arch: Union[Arch, str], n_classes: int, cache: dict | None = None)
         exportable = exportable and hit[4]
         shape = hit[5]
         prev = layer
+        pos += token_count(layer)
     key = ("head", shape, n_classes)
     hit = cache.get(key)
     if hit is None:
-        hit = cache[key] = _summed(expand_head(shape, n_classes))
+        hit = cache[key] = _summed(expand_head(shape, n_classes), shape)
     return Totals(str(arch), n_classes, params + hit[0], macs + hit[1], flash + hit[2],
                   max(peak, hit[3]), exportable)
 
@@ -364,14 +392,28 @@ def totals_of(arch: Union[Arch, str], n_classes: int, cache: dict | None = None)
 _WEIGHTED_SPECS = (Conv, Depthwise, Dense)
 
 
-def _summed(ops) -> tuple[int, int, int, int]:
-    """(params, macs, flash_bytes, largest live_elements) over ``ops``."""
+def _summed(ops, in_shape: tuple[int, ...]) -> tuple[int, int, int, int]:
+    """(params, macs, flash_bytes, largest int8 live bytes) over the ops of one layer.
+
+    The layer's input counts as written before its first op: the tensors alive
+    at a step inside a layer are those of the layer's own walk (a residual
+    block's input is the layer's input; nothing written earlier outlives it).
+    """
+    lives = live_ranges(ops, in_shape)
     params = macs = flash = peak = 0
-    for op in ops:
-        p, _, m, _, f, live = _numbers(op)
-        live += scratch_bytes(op) if live else 0
-        params, macs, flash, peak = params + p, macs + m, flash + f, max(peak, live)
+    for i, op in enumerate(ops):
+        p, _, m, _, f = _numbers(op)
+        if op.kind in BUFFER_KINDS:
+            peak = max(peak, lives.elements(lives.alive[i]) + scratch_bytes(op))
+        params, macs, flash = params + p, macs + m, flash + f
     return params, macs, flash, peak
+
+
+def _exportable(ops, after_weights: bool) -> bool:
+    """Whether every batch norm of one layer's ops can be folded (directly after a
+    weighted op; the layer's first op after the previous layer's weights)."""
+    return all(i > 0 and ops[i - 1].kind in WEIGHT_KINDS if i else after_weights
+               for i, op in enumerate(ops) if op.kind == "bn")
 
 
 # ---------------------------------------------------------------- training memory

@@ -304,6 +304,66 @@ def check_network(net, x: np.ndarray, y: np.ndarray, *, seed: int = 0, step: flo
     return rows
 
 
+def check_joining(layer, xs: Sequence[np.ndarray], *, seed: int = 0, step: float = STEP,
+                  threshold: float = THRESHOLD,
+                  max_coords: int | None = MAX_COORDS) -> list[GradRow]:
+    """Check a layer of several inputs (``layer.arity``; the residual addition, the
+    channel stacking) against central differences, one row per input.
+
+    ``layer.forward_all(xs, training)`` is checked through ``sum(y * G)`` with a
+    random upstream ``G``, like :func:`check_layer`; ``layer.backward(G)`` must
+    return one gradient per input. Rows are named ``x0``, ``x1``, ...
+    """
+    rng = _generator(seed)
+    layer = copy.deepcopy(layer)
+    xs = [np.array(x, dtype=np.float64) for x in xs]
+    y = layer.forward_all(xs, training=True)
+    upstream = rng.standard_normal(y.shape)
+    grads = layer.backward(upstream.copy())
+    evaluate = lambda: layer.forward_all(xs, training=True)  # noqa: E731
+    common = dict(rng=rng, step=step, threshold=threshold, max_coords=max_coords, notes=[],
+                  scale=_scale(list(grads)))
+    return [_check_tensor(x, g, evaluate, upstream, [], [layer], layer=layer.name,
+                          tensor=f"x{k}", **common) for k, (x, g) in enumerate(zip(xs, grads))]
+
+
+def check_stacked_input(net, parts: Sequence[np.ndarray], names: Sequence[str],
+                        y: np.ndarray, *, seed: int = 0, step: float = STEP,
+                        threshold: float = THRESHOLD,
+                        max_coords: int | None = MAX_COORDS) -> list[GradRow]:
+    """Check the gradient of a network's loss with respect to each stacked input part.
+
+    The network reads the colour planes of several modes stacked along the
+    channels (``32x32rgb+hsv``); here the loss is a function of the planes
+    ``parts`` (one array per mode, in order) through the stacking op
+    (:class:`~tinyconv.layers.merge.Stack`) and the network, and the analytic
+    gradient of each part is the stacking op's backward of the network's input
+    gradient. One row per part, layer ``"input:{name}"``, tensor ``"x"``.
+    """
+    from tinyconv.layers.merge import Stack
+    from tinyconv.losses import softmax_cross_entropy as loss
+
+    rng = _generator(seed)
+    net = copy.deepcopy(net)
+    for layer in net.layers:
+        layer.astype(np.float64)
+    _prepare_for_check(net.layers)
+    stack = Stack([p.shape[-1] for p in parts])
+    parts = [np.array(p, dtype=np.float64) for p in parts]
+    labels = np.asarray(y)
+    _, grad_logits = loss(net.forward(stack.forward_all(parts), training=True), labels)
+    base_states = _kink_states(net.layers)
+    grads = stack.backward(net.backward(np.asarray(grad_logits, dtype=np.float64)))
+    evaluate = lambda: loss(net.forward(stack.forward_all(parts), training=True),  # noqa: E731
+                            labels)[0]
+    # the floor of check_network: the largest gradient of the input and every parameter
+    scale = _scale(list(grads) + [np.asarray(g) for _, g in net.grad_list()])
+    common = dict(rng=rng, step=step, threshold=threshold, max_coords=max_coords, notes=[],
+                  scale=scale)
+    return [_check_tensor(p, g, evaluate, 1.0, base_states, net.layers, layer=f"input:{name}",
+                          tensor="x", **common) for p, g, name in zip(parts, grads, names)]
+
+
 def all_passed(rows: Sequence[GradRow]) -> bool:
     """True when every row passed (and there is at least one)."""
     return bool(rows) and all(row.passed for row in rows)

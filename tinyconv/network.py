@@ -134,14 +134,27 @@ class Network:
         ndarray, shape (n, K)
         """
         out = self.check_images(x)
+        keep, reader = self._skips()
+        saved = {-1: out} if -1 in keep else {}
         for step in self._plan():
             layer = self.layers[step[0]]
-            if len(step) == 1:
-                out = layer.forward(out, training)
-            else:  # conv / depthwise / dense with the ReLU after it, in one pass
+            if len(step) == 2:  # conv / depthwise / dense with the ReLU after it, in one pass
                 out = self.layers[step[1]].adopt(layer.forward(out, training, relu=True),
                                                  training)
+            elif step[0] in reader:  # a residual addition: the block's input joins in
+                out = layer.forward(out, training, skip=saved.pop(reader[step[0]]))
+            else:
+                out = layer.forward(out, training)
+            if step[-1] in keep:
+                saved[step[-1]] = out
         return out
+
+    def _skips(self) -> tuple[frozenset[int], dict[int, int]]:
+        """Ops whose outputs a residual addition reads later (-1: the images), and
+        per addition the op it reads besides the one before it."""
+        reader = {i: reads[1] for i, reads in enumerate(arch_mod.sources(self.ops))
+                  if len(reads) == 2}
+        return frozenset(reader.values()), reader
 
     def _plan(self) -> list[tuple[int, ...]]:
         """The passes: ``(i,)`` runs layer i alone, ``(i, i + 1)`` layer i with its ReLU fused.
@@ -151,11 +164,13 @@ class Network:
         over memory, and ReLU after a bias add gives the same bits either way.
         """
         layers, plan, i = self.layers, [], 0
+        keep = self._skips()[0]
         while i < len(layers):
             layer = layers[i]
             nxt = layers[i + 1] if i + 1 < len(layers) else None
             if (isinstance(nxt, layers_mod.ReLU) and not getattr(layer, "relu", True)
-                    and type(layer) in _FUSES_RELU and type(nxt) is layers_mod.ReLU):
+                    and type(layer) in _FUSES_RELU and type(nxt) is layers_mod.ReLU
+                    and i not in keep):  # a pre-ReLU map a block reads stays visible
                 plan.append((i, i + 1))
                 i += 2
             else:
@@ -191,12 +206,22 @@ class Network:
         """
         grad = np.asarray(grad_logits, dtype=self.dtype)
         plan = self._plan()
+        keep, reader = self._skips()
+        pending: dict[int, np.ndarray] = {}  # gradients of block inputs from their additions
         skip = None if input_grad else _first_weighted(self.layers)
         masked = False  # grad already carries the ReLU mask of the fused pass below
         for at in range(len(plan) - 1, -1, -1):
             step = plan[at]
             i = step[0]
             layer = self.layers[i]
+            if step[-1] in pending:  # this output also fed an addition: the gradients add up
+                grad, masked = grad + pending.pop(step[-1]), False
+            if i in reader:
+                grad, from_skip = layer.backward(grad)
+                src = reader[i]
+                pending[src] = pending[src] + from_skip if src in pending else from_skip
+                masked = False
+                continue
             if i == skip:
                 saved, layer.input_grad = layer.input_grad, False
                 try:
@@ -204,8 +229,12 @@ class Network:
                 finally:
                     layer.input_grad = saved
                 return None
-            grad, masked = self._backward_step(layer, step, grad, masked,
-                                               plan[at - 1] if at else None)
+            below = plan[at - 1] if at else None
+            if below is not None and below[-1] in keep:
+                below = None  # its output's gradient gains a term first: no fused masking
+            grad, masked = self._backward_step(layer, step, grad, masked, below)
+        if -1 in pending:
+            grad = grad + pending.pop(-1)
         return grad
 
     def _backward_step(self, layer, step, grad, masked, below=None):

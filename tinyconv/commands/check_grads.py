@@ -2,7 +2,10 @@
 
 Builds the network in float64, feeds a seeded random batch through the loss
 and compares every analytic gradient (input and each parameter tensor) with
-central differences (:func:`tinyconv.gradients.check_network`), then prints
+central differences (:func:`tinyconv.gradients.check_network`; residual
+additions also alone, through :func:`~tinyconv.gradients.check_joining`, and a
+stacked input such as ``rgb+hsv`` per colour mode through the stacking op,
+:func:`~tinyconv.gradients.check_stacked_input`), then prints
 one row per layer and tensor, and which algorithm each standard convolution
 ran (``--conv`` forces one: im2col, or Winograd F(2x2, 3x3) / F(4x4, 3x3)
 where the layer is 3 x 3 of stride 1). Exit 0 when every tensor passes, 1
@@ -17,7 +20,8 @@ import textwrap
 import numpy as np
 
 from tinyconv import gradients
-from tinyconv.arch import BatchNorm, parse, parse_input
+from tinyconv.arch import BatchNorm, flat_layers, parse, parse_input
+from tinyconv.layers.merge import Add
 from tinyconv.errors import InputError
 from tinyconv.layers import Conv
 from tinyconv.layers.conv import ALGORITHMS
@@ -107,7 +111,7 @@ def run(args: argparse.Namespace) -> int:
         arch = parse(str(arch.with_input(parse_input(args.input))))
     if args.classes < 2:
         raise InputError(f"--classes must be at least 2, got {args.classes}")
-    has_bn = any(isinstance(layer, BatchNorm) for layer in arch.layers)
+    has_bn = any(isinstance(layer, BatchNorm) for layer in flat_layers(arch.layers))
     least = 2 if has_bn else 1
     if args.batch < least:
         raise InputError(f"--batch must be at least {least}"
@@ -122,6 +126,19 @@ def run(args: argparse.Namespace) -> int:
     y = rng.integers(0, args.classes, size=args.batch)
     shift_away_from_kinks(net, rng)
     rows = gradients.check_network(net, x, y, seed=args.seed)
+    modes = arch.input.modes
+    if len(modes) > 1:
+        # the same images as planes per colour mode, through the stacking op
+        bounds = np.cumsum([0] + [int(parse_input(f"1x1{m}").channels) for m in modes])
+        parts = [x[..., a:b] for a, b in zip(bounds, bounds[1:])]
+        rows += gradients.check_stacked_input(net, parts, modes, y, seed=args.seed)
+    for i, op in enumerate(net.ops):
+        if op.kind == "add":
+            # the addition alone too: its two inputs drawn at the map's shape
+            pair = [rng.standard_normal((args.batch, *op.in_shape)) for _ in range(2)]
+            layer = Add()
+            layer.name = f"{i}:{op.name}"
+            rows += gradients.check_joining(layer, pair, seed=args.seed)
 
     print(f"gradient check of {arch} with {args.classes} classes")
     print(f"float64, a batch of {args.batch} standard-normal images, seed {args.seed}")

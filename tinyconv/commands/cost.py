@@ -22,7 +22,7 @@ DEFAULT_INPUT = "32x32rgb"
 # table columns shown, and their headings
 _COLUMNS = {"name": "layer", "kind": "op", "in_shape": "in", "out_shape": "out",
             "params": "params", "macs": "MACs", "flash_bytes": "flash B",
-            "live_elements": "live int8 B"}
+            "live_elements": "live int8 B", "scratch_bytes": "scratch B"}
 
 
 def _classes(value: str) -> int:
@@ -125,6 +125,8 @@ def run(args: argparse.Namespace) -> int:
         table["instructions"] = [f"{v:,.0f}" if v else "-" for v in instr]
         table[f"ms @{clock:g}MHz"] = [f"{v * core.cpi / (clock * 1e3):.3f}" if v else "-"
                                       for v in instr]
+    # last, as it is the widest: what is alive at each step (residual blocks hold their input)
+    table["alive"] = cost.table()["alive"]
     print(f"{cost.arch}  ({cost.n_classes} classes)")
     print(table.to_string(index=False))
     totals = pd.Series({

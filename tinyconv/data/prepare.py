@@ -18,7 +18,8 @@ def prepare(images: np.ndarray, spec: InputSpec) -> np.ndarray:
     images : ndarray, shape (n, h, w, c), c 1 or 3
         uint8 (0..255) or float in [0, 1].
     spec : InputSpec
-        Target ``h``, ``w`` and ``mode`` (rgb, gray, ycc, hsv).
+        Target ``h``, ``w`` and ``mode`` (rgb, gray, ycc, hsv, or several joined
+        by ``+``: each converted, then stacked along the channels in order).
 
     Returns
     -------
@@ -39,5 +40,11 @@ def prepare(images: np.ndarray, spec: InputSpec) -> np.ndarray:
     else:
         raise TypeError(f"images must be uint8 or float, got {images.dtype}")
     x = resize(x, spec.h, spec.w)
-    x = convert(x, spec.mode)
+    planes = [convert(x, mode) for mode in spec.modes]
+    if len(planes) > 1:
+        # the engine's stacking op (imported here: plain modes need no engine import)
+        from tinyconv.layers.merge import stack_forward
+        x = stack_forward(planes)
+    else:
+        x = planes[0]
     return np.clip(x, 0.0, 1.0).astype(np.float32, copy=False)

@@ -1,7 +1,7 @@
 """The device part of the cost model: instructions, flash and RAM per core, before training.
 
 Instructions: each step the C runs (the input quantisation, then every conv,
-depthwise, dense, pooling step and the head) costs a linear function of a few
+depthwise, dense, pooling step, residual addition and the head) costs a linear function of a few
 counts of its loop nest: output values, kernel rows and columns visited, taps
 inside the image, multiply-accumulates done. The coefficients are fitted per
 core and step kind to emulator counts (``constants.json`` beside this file,
@@ -31,11 +31,12 @@ from tinyconv.device.cores import Core, core_named, milliseconds
 from tinyconv.errors import InputError
 
 #: op kinds that are steps of the C (the others are fused, folded or free)
-STEP_KINDS = ("conv", "dwconv", "dense", "maxpool", "avgpool", "gap")
+STEP_KINDS = ("conv", "dwconv", "dense", "maxpool", "avgpool", "gap", "add")
 #: the C kernels (templates) each step kind needs; code size is fitted per kernel
 KERNELS = {"input": (), "conv": ("scale", "conv"), "dwconv": ("scale", "dwconv"),
            "dense": ("scale", "dot", "dense"), "head": ("scale", "dot", "head"),
-           "maxpool": ("maxpool",), "avgpool": ("rdiv", "avgpool"), "gap": ("rdiv", "gap")}
+           "maxpool": ("maxpool",), "avgpool": ("rdiv", "avgpool"), "gap": ("rdiv", "gap"),
+           "add": ("scale", "add")}
 CONSTANTS_FILE = "constants.json"
 
 
@@ -75,6 +76,7 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
     c``; one requantisation per output. Dense: pairs of outputs, steps of four
     inputs, single ones. Depthwise: blocks of four channels per pixel, kernel
     rows inside, products inside, and the padding's taps of edge pixels.
+    Residual addition: the values of its output.
     """
     if kind == "input":
         # the loop indexes the table by ``i % c``: free for one channel, a mask for a
@@ -89,6 +91,9 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
     if kind == "gap":
         h, w, c = op.in_shape
         return {"one": 1.0, "outputs": float(c), "reads": float(h * w * c)}
+    if kind == "add":
+        # one pass over the values, three fixed-point rescalings each
+        return {"one": 1.0, "values": float(prod(op.out_shape))}
     if kind in ("maxpool", "avgpool"):
         oh, ow, c = op.out_shape
         size = op.size

@@ -29,7 +29,8 @@ from tinyconv.device.model import KERNELS, device_steps, step_features
 from tinyconv.device.toolchain import find_toolchain
 
 #: networks the constants are fitted on: every step kind, strides, valid padding,
-#: 1 to 48 channels, 6x6 to 48x48 maps (the tests hold out others)
+#: 1 to 48 channels, 6x6 to 48x48 maps, residual blocks and stacked colour
+#: modes (the tests hold out others)
 FIT_NETWORKS = (
     ("8x8gray", 3),
     ("8x8gray/c4k3-gap", 3),
@@ -59,6 +60,11 @@ FIT_NETWORKS = (
     ("30x30gray/c5k5v-p2-c10k3v-p3-a2-d10", 10),
     ("16x16rgb/dw3-c16k1-p2-dw3-c24k1-a2-dw3-c32k1-gap", 8),
     ("10x10ycc/c20k3-c20k3-gap-d40-d20", 6),
+    ("16x16rgb/c8k3-[c16k1-dw3-c8k1]-p2-[c8k3-c8k3]-gap", 5),
+    ("12x12gray/[c1k3]-c6k3s2-[c12k1-dw5-c6k1]-d8", 4),
+    ("20x20hsv/c12k3-p2-[c24k1-bn-dw3-bn-c12k1-bn]-gap", 7),
+    ("8x8rgb+ycc/c4k3-[x20]-[c4k1]-d6", 3),
+    ("32x32gray/c16k3-p2-[c32k1-dw3-c16k1]-[c32k1-dw3-c16k1]-p2-gap", 8),
 )
 FILE = Path(__file__).with_name("constants.json")
 STACK_MARGIN = 1.25

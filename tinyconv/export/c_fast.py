@@ -18,7 +18,9 @@ the NumPy reference, bit for bit, but arranged for a small core:
 * **requantisation** on the magnitude with one 32 x 32 -> 64-bit product,
   hoisted out of every inner loop; the general slow form handles the rare
   multipliers outside its range;
-* **pooling** with the channel loop innermost.
+* **pooling** with the channel loop innermost;
+* the **residual addition** (:mod:`tinyconv.export.c_add`): one pass over the
+  values, three rescalings each, on the magnitude like the requantisation.
 
 With ``@U@_USE_DSP`` (on by default when the compiler targets a core with the
 DSP extension: Cortex-M4, M7, M33) the products use the Arm C Language
@@ -501,15 +503,17 @@ NEEDS = {
     "maxpool": ("MAXPOOL",),
     "avgpool": ("RDIV", "AVGPOOL"),
     "gap": ("RDIV", "GAP"),
+    "add": ("SCALE", "DSP", "REQUANT", "ADD"),
 }
 ORDER = ("KERNEL", "SCALE", "RDIV", "DSP", "LD16", "REQUANT", "PATCH", "CONV", "DOT_DIRECT", "DENSE",
-         "HEAD", "DWCONV", "MAXPOOL", "AVGPOOL", "GAP")
+         "HEAD", "DWCONV", "MAXPOOL", "AVGPOOL", "GAP", "ADD")
 
 
 def templates() -> dict[str, str]:
     """Name -> text of every template of this style (shared ones from the plain style)."""
-    from tinyconv.export import c_kernels
+    from tinyconv.export import c_add, c_kernels
     return {"KERNEL": c_kernels.KERNEL, "SCALE": c_kernels.SCALE, "RDIV": c_kernels.RDIV,
+            "ADD": c_add.ADD_FAST,
             "DSP": DSP, "LD16": LD16, "REQUANT": REQUANT, "PATCH": PATCH, "CONV": CONV,
             "DOT_DIRECT": DOT_DIRECT, "DENSE": DENSE, "HEAD": HEAD, "DWCONV": DWCONV,
             "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}

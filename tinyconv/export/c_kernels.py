@@ -7,8 +7,10 @@ written on the magnitude (so no negative number is ever right-shifted, which
 C99 leaves to the implementation), and integer division that truncates toward
 zero (which C99 defines). ``@P@`` is replaced by the symbol prefix.
 Only the kernels a network uses are emitted (``-Wall`` rejects unused static
-functions).
+functions). The residual addition's template is in :mod:`tinyconv.export.c_add`.
 """
+
+from tinyconv.export import c_add
 
 SCALE = r"""
 /* acc * mult * 2^-31 * 2^-shift, rounded half away from zero, integers only. */
@@ -238,6 +240,7 @@ NEEDS = {
     "maxpool": ("MAXPOOL",),
     "avgpool": ("RDIV", "AVGPOOL"),
     "gap": ("RDIV", "GAP"),
+    "add": ("SCALE", "ADD"),
 }
 KERNEL = r"""
 /* Each kernel stays one generic out-of-line function, so a step costs what its
@@ -253,9 +256,10 @@ KERNEL = r"""
 #endif
 """
 
-ORDER = ("KERNEL", "SCALE", "OUT", "RDIV", "CONV", "DWCONV", "DENSE", "HEAD", "MAXPOOL", "AVGPOOL", "GAP")
+ORDER = ("KERNEL", "SCALE", "OUT", "RDIV", "CONV", "DWCONV", "DENSE", "HEAD", "MAXPOOL", "AVGPOOL", "GAP",
+         "ADD")
 TEMPLATES = {"KERNEL": KERNEL, "SCALE": SCALE, "OUT": OUT, "RDIV": RDIV, "CONV": CONV, "DWCONV": DWCONV, "DENSE": DENSE,
-             "HEAD": HEAD, "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
+             "HEAD": HEAD, "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP, "ADD": c_add.ADD}
 
 
 def kernels_for(kinds, prefix: str) -> str:

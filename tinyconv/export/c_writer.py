@@ -7,10 +7,10 @@ C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
   and per conv/dwconv/dense layer the int8 weights and the int32 bias,
   multiplier and shift per output channel (the deployment layout of
   DEVELOPERS.md, so flash = the sum of their ``sizeof``);
-* one ``static int8_t`` arena of exactly the cost model's int8 peak: the
-  input quantisation writes at the start of the arena; each later step reads
-  the buffer the step before wrote and writes at the other end (the start,
-  or flush with the end), so a step's input and output never overlap;
+* one ``static int8_t`` activation buffer of exactly the cost model's int8
+  peak, each tensor and scratch at an offset planned from the live ranges
+  (:mod:`tinyconv.export.placement`): tensors alive at one step never overlap, a
+  residual block's input stays in place until its addition;
 * ``int32_t {prefix}_classify(const uint8_t *image, int8_t *logits)``: the
   image is ``h x w x c`` uint8 in row-major HWC order, already in the
   network's input size and colour mode; it writes the K int8 logits and
@@ -35,7 +35,7 @@ import numpy as np
 from tinyconv import __version__
 from tinyconv.errors import InputError
 from tinyconv.export import c_fast, c_kernels, c_layout
-from tinyconv.cost import scratch_bytes
+from tinyconv.export.placement import plan_buffer
 from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer
 
 #: kernel styles and the function that writes each one's kernels
@@ -99,37 +99,6 @@ def check_prefix(prefix: str) -> str:
     return prefix
 
 
-def arena_layout(qnet: QuantizedNetwork, style: str = "fast"
-                 ) -> tuple[int, list[tuple[int, int, int]]]:
-    """Arena size and, per step, the (input, output, scratch) offsets in it.
-
-    The input quantisation (step 0) reads the caller's image and writes at
-    offset 0; step ``j`` reads where step ``j - 1`` wrote and writes at the
-    other end; its scratch (the fast conv's patch buffer) sits right after the
-    buffer at the start. The size is the largest input + output + scratch of
-    any step, with the input quantisation counted as its int8 output only (the
-    raw image stays in the caller's buffer), as the cost model counts it.
-
-    Returns
-    -------
-    arena_bytes : int
-    offsets : list of (int, int, int), one per layer of ``qnet``
-    """
-    n_in = prod(qnet.input_shape)
-    sizes = [(prod(layer.op.in_shape), prod(layer.op.out_shape),
-              scratch_bytes(layer.op) if style == "fast" else 0) for layer in qnet.layers]
-    arena = max([n_in] + [a + b + t for a, b, t in sizes])
-    offsets = []
-    at_start = True  # where the last written buffer sits
-    src = 0
-    for n_src, n_out, _ in sizes:
-        dst = arena - n_out if at_start else 0
-        scratch = n_src if at_start else n_out
-        offsets.append((src, dst, scratch))
-        src, at_start = dst, not at_start
-    return arena, offsets
-
-
 def _numbers(values: np.ndarray, per_line: int) -> str:
     """Comma-separated integers, ``per_line`` a line, indented."""
     flat = [str(int(v)) for v in np.asarray(values).reshape(-1)]
@@ -150,9 +119,15 @@ def _comment_safe(text: str) -> str:
 
 
 def _call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, head: bool = False,
-          style: str = "fast") -> str:
-    """The kernel call of one step (``head``: the last layer, which gives the class)."""
+          style: str = "fast", skip: str = "") -> str:
+    """The kernel call of one step (``head``: the last layer, which gives the class;
+    ``skip``: a residual addition's second input)."""
     op = layer.op
+    if layer.kind == "add":
+        (ma, mb, my), (na, nb, ny) = layer.multiplier, layer.shift
+        return (f"    {p}_add({src}, {skip}, {dst}, {prod(op.out_shape)}, {layer.in_zp}, "
+                f"{layer.skip_zp},\n        {ma}, {na}, {mb}, {nb}, {my}, {ny}, "
+                f"{layer.out_zp});\n")
     arrays = (f"{p}_l{layer.index}_w, {p}_l{layer.index}_bias, {p}_l{layer.index}_mult, "
               f"{p}_l{layer.index}_shift")
     # the fast dense and head kernels have the input zero point folded into the bias
@@ -255,9 +230,9 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
         add(f"{base}_mult", "int32_t", layer.multiplier)
         add(f"{base}_shift", "int32_t", layer.shift)
     flash = sum(a.nbytes for a in arrays)
-    arena, offsets = arena_layout(qnet, style)
+    plan = plan_buffer(qnet, style)
 
-    last_dst = offsets[-1][1]
+    last_dst = plan.steps[-1].dst
     body = [f"int32_t {p}_classify(const uint8_t *image, int8_t *logits)\n{{\n",
             "    int32_t i, best;\n",
             f"    /* input: raw pixel -> quantised normalised value, arena[0 .. {h * w * c}) */\n",
@@ -266,29 +241,32 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
             "    }\n"]
     body.insert(2, f"    {P}_MARK(0);\n")
     last = len(qnet.layers) - 1
-    for j, (layer, (src, dst, scratch)) in enumerate(zip(qnet.layers, offsets)):
+    def ptr(offset: int) -> str:  # C: an address in the static buffer
+        return f"{p}_arena + {offset}"
+
+    for j, (layer, at) in enumerate(zip(qnet.layers, plan.steps)):
         body.append(f"    /* {_comment_safe(_describe(layer))} */\n")
         body.append(f"    {P}_MARK({j + 1});\n")
-        body.append(_call(layer, p, f"{p}_arena + {src}", f"{p}_arena + {dst}",
-                          f"{p}_arena + {scratch}", j == last, style))
+        body.append(_call(layer, p, ptr(at.src), ptr(at.dst), ptr(at.scratch), j == last,
+                          style, "" if at.skip is None else ptr(at.skip)))
     body += [f"    {P}_MARK({last + 2});\n",
              f"    memcpy(logits, {p}_arena + {last_dst}, {k});\n",
              "    return best;\n}\n"]
 
-    info = _info_comment(qnet, classes, flash, arena, macs)
+    info = _info_comment(qnet, classes, flash, plan.size, macs)
     source = (info + "\n#include <stdint.h>\n#include <string.h>\n\n"
               f'#include "{p}.h"\n\n'
               f"/* a build may define {P}_MARK(step) to time each step */\n"
               f"#ifndef {P}_MARK\n#define {P}_MARK(step) ((void)0)\n#endif\n\n"
               + "\n".join(blocks) + "\n"
-              f"/* activations: each step reads one end and writes the other */\n"
+              f"/* activations: each tensor at the offset planned from the live ranges */\n"
               f"static int8_t {p}_arena[{P}_ARENA_BYTES];\n"
               + KERNELS[style]([layer.kind for layer in qnet.layers[:-1]] + ["head"], p)
               + "\n" + "".join(body))
     header = (info + f"\n#ifndef {P}_H\n#define {P}_H\n\n#include <stdint.h>\n\n"
               f"#define {P}_INPUT_H {h}\n#define {P}_INPUT_W {w}\n#define {P}_INPUT_C {c}\n"
               f"#define {P}_INPUT_BYTES {h * w * c}\n#define {P}_CLASSES {k}\n"
-              f"#define {P}_ARENA_BYTES {arena}\n#define {P}_FLASH_BYTES {flash}\n"
+              f"#define {P}_ARENA_BYTES {plan.size}\n#define {P}_FLASH_BYTES {flash}\n"
               f"#define {P}_LOGIT_ZERO_POINT {qnet.logits_zp}\n\n"
               + (_dsp_switch(P) if style == "fast" else "")
               + f"/* Classify one image: {P}_INPUT_BYTES uint8 values in row-major HWC order,\n"
@@ -297,7 +275,7 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
               "   at 8 more fractional bits than the logits (the first of equal values).\n"
               "   Uses one static arena: not re-entrant. */\n"
               f"int32_t {p}_classify(const uint8_t *image, int8_t *logits);\n\n#endif\n")
-    return CCode(p, source, header, tuple(arrays), arena, flash)
+    return CCode(p, source, header, tuple(arrays), plan.size, flash)
 
 
 def _info_comment(qnet: QuantizedNetwork, classes, flash: int, arena: int,

@@ -19,6 +19,8 @@ so a network built by :func:`build` follows the contract exactly):
   the fused ReLU's mask; ``relu_mask=True`` (max-pool ``backward``) applies the
   mask of a ReLU just before the pool while routing the gradient.
 * ``hold_mask`` (dropout): reuse the last mask, for gradient checks.
+* ``arity`` (:class:`Add`, :class:`Stack`): layers of several inputs, whose
+  ``backward`` returns one gradient per input (:mod:`tinyconv.layers.merge`).
 * ``kink_state()`` (ReLU, max pool, fused-ReLU layers): the sign mask or the
   max-pool winners of the last training forward, so the gradient checker can
   tell when a finite-difference step crosses a kink.
@@ -40,15 +42,16 @@ from tinyconv.layers.conv import Conv
 from tinyconv.layers.dense import Dense
 from tinyconv.layers.depthwise import Depthwise
 from tinyconv.layers.dropout import Dropout
+from tinyconv.layers.merge import Add, Stack
 from tinyconv.layers.norm import BatchNorm
 from tinyconv.layers.pool import AvgPool, GlobalAvgPool, MaxPool
 from tinyconv.layers.reshape import Flatten
 
 __all__ = ["Layer", "Conv", "Depthwise", "MaxPool", "AvgPool", "GlobalAvgPool", "Dense",
-           "ReLU", "Flatten", "Dropout", "BatchNorm", "build", "KINDS"]
+           "ReLU", "Flatten", "Dropout", "BatchNorm", "Add", "Stack", "build", "KINDS"]
 
 KINDS = ("conv", "dwconv", "maxpool", "avgpool", "gap", "flatten", "dense", "relu", "bn",
-         "dropout")
+         "dropout", "add")
 
 
 def build(op: Op, rng: np.random.Generator, dtype=np.float32) -> Layer:
@@ -92,6 +95,8 @@ def build(op: Op, rng: np.random.Generator, dtype=np.float32) -> Layer:
         layer = BatchNorm(op.in_shape[-1], dtype=dtype)
     elif kind == "dropout":
         layer = Dropout(op.rate, rng=rng)
+    elif kind == "add":
+        layer = Add()
     else:
         raise ValueError(f"op {op.name!r}: unknown kind {kind!r}; expected one of "
                          f"{', '.join(KINDS)}")

@@ -240,3 +240,41 @@ def batchnorm_train(x, gamma, beta, eps):
         for r in range(rows.shape[0]):
             out[r, ch] = gamma[ch] * (col[r] - mean) / np.sqrt(var + eps) + beta[ch]
     return out.reshape(x.shape)
+
+
+def residual_add(x, skip):
+    """``y[i] = x[i] + skip[i]`` over every index of two arrays of one shape."""
+    y = np.zeros(x.shape, dtype=np.float64)
+    for idx in np.ndindex(*x.shape):
+        y[idx] = x[idx] + skip[idx]
+    return y
+
+
+def stack_channels(xs):
+    """``y[b, i, j, offset_k + ch] = xs[k][b, i, j, ch]``: maps stacked along the channels."""
+    n, h, w = xs[0].shape[:3]
+    y = np.zeros((n, h, w, sum(x.shape[3] for x in xs)), dtype=np.float64)
+    for b in range(n):
+        for i in range(h):
+            for j in range(w):
+                at = 0
+                for x in xs:
+                    for ch in range(x.shape[3]):
+                        y[b, i, j, at + ch] = x[b, i, j, ch]
+                    at += x.shape[3]
+    return y
+
+
+def split_channels(grad_out, channels):
+    """The inverse of :func:`stack_channels` on a gradient: each input's channels."""
+    n, h, w, _ = grad_out.shape
+    parts = [np.zeros((n, h, w, c), dtype=np.float64) for c in channels]
+    for b in range(n):
+        for i in range(h):
+            for j in range(w):
+                at = 0
+                for part, c in zip(parts, channels):
+                    for ch in range(c):
+                        part[b, i, j, ch] = grad_out[b, i, j, at + ch]
+                    at += c
+    return parts

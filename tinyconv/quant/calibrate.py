@@ -21,7 +21,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from tinyconv.quant.fold import Step
+from tinyconv.quant.fold import Step, run_graph
 from tinyconv.quant.floatref import run_step
 from tinyconv.quant.patches import conv_patches
 from tinyconv.quant.rounding import MIN_SAMPLES_PER_INPUT
@@ -116,15 +116,20 @@ def calibrate(steps: tuple[Step, ...], x: np.ndarray, batch: int = 64,
     sums: list[np.ndarray | None] = [None] * len(steps)
     lo = [np.inf] * len(steps)
     hi = [-np.inf] * len(steps)
+    index = {id(step): i for i, step in enumerate(steps)}
+
+    def measured(step: Step, y: np.ndarray, skip: np.ndarray | None) -> np.ndarray:
+        i = index[id(step)]
+        if want[i]:
+            part = _moment(step, y)
+            sums[i] = part if sums[i] is None else sums[i] + part
+        y = run_step(step, y, skip)
+        lo[i] = min(lo[i], float(y.min()))
+        hi[i] = max(hi[i], float(y.max()))
+        return y
+
     for start in range(0, n, batch):
-        y = np.asarray(x[start:start + batch], np.float64)
-        for i, step in enumerate(steps):
-            if want[i]:
-                part = _moment(step, y)
-                sums[i] = part if sums[i] is None else sums[i] + part
-            y = run_step(step, y)
-            lo[i] = min(lo[i], float(y.min()))
-            hi[i] = max(hi[i], float(y.max()))
+        run_graph(steps, np.asarray(x[start:start + batch], np.float64), measured)
     samples = [n * _positions(s) if w else 0 for s, w in zip(steps, want)]
     mom = [m / c if m is not None else None for m, c in zip(sums, samples)]
     return Calibration(list(zip(lo, hi)), mom, samples)

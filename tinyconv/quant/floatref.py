@@ -9,11 +9,11 @@ from __future__ import annotations
 
 import numpy as np
 
-from tinyconv.quant.fold import Step
+from tinyconv.quant.fold import Step, run_graph
 from tinyconv.quant.patches import conv_patches, pool_windows
 
 
-def run_step(step: Step, x: np.ndarray) -> np.ndarray:
+def run_step(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
     """Apply one step to a batch.
 
     Parameters
@@ -21,6 +21,8 @@ def run_step(step: Step, x: np.ndarray) -> np.ndarray:
     x : ndarray, shape (n, *step.op.in_shape)
         float input; a flat (n, features) input reaches a dense step, a map
         otherwise (a flatten before dense is done here, in NHWC order).
+    skip : ndarray, optional
+        For an ``add``: the block's input, added to ``x``.
 
     Returns
     -------
@@ -45,6 +47,8 @@ def run_step(step: Step, x: np.ndarray) -> np.ndarray:
         y = pool_windows(x, step.op.size).mean(axis=3)
     elif kind == "gap":
         y = x.mean(axis=(1, 2))
+    elif kind == "add":
+        y = x + np.asarray(skip, np.float64).reshape(x.shape)
     else:
         raise ValueError(f"unknown step kind {kind!r}")
     if step.relu:
@@ -64,9 +68,4 @@ def run_steps(steps: tuple[Step, ...], x: np.ndarray, keep: bool = False):
     -------
     ndarray, shape (n, K), or list of ndarray (one per step) when ``keep``.
     """
-    outs = []
-    for step in steps:
-        x = run_step(step, x)
-        if keep:
-            outs.append(x)
-    return outs if keep else x
+    return run_graph(steps, x, run_step, keep)

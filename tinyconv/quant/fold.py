@@ -12,6 +12,9 @@ DEVELOPERS.md). Everything else disappears into a step:
 * dropout is the identity at inference;
 * flatten is a new name for the same bytes (NHWC order is kept).
 
+A residual block's ``add`` is a step of its own that reads two tensors: the
+output of the step before it and the block's input (:attr:`Step.skip`).
+
 Batch norm anywhere else (after pooling, dropout, another batch norm or the
 input) has no layer to fold into and is refused with the position and the fix.
 """
@@ -26,6 +29,8 @@ from tinyconv.arch import ArchError, Op
 
 WEIGHTED = ("conv", "dwconv", "dense")
 POOLS = ("maxpool", "avgpool", "gap")
+#: step kinds, in the order of the module docstring
+STEP_KINDS = WEIGHTED + POOLS + ("add",)
 
 
 @dataclass(frozen=True, eq=False)
@@ -35,7 +40,7 @@ class Step:
     Attributes
     ----------
     kind : str
-        ``conv``, ``dwconv``, ``dense``, ``maxpool``, ``avgpool`` or ``gap``.
+        ``conv``, ``dwconv``, ``dense``, ``maxpool``, ``avgpool``, ``gap`` or ``add``.
     op : Op
         The op that writes the buffer (shapes, kernel, stride, pads).
     index : int
@@ -50,6 +55,10 @@ class Step:
         float64 bias, batch norm folded in.
     relu : bool
         Whether a ReLU follows (clamp at real 0).
+    skip : int or None
+        For an ``add``: the index of the step whose output is the block's input
+        (-1: the network's input); None for the other kinds. Every step also
+        reads the output of the step before it (the first: the input).
     """
 
     kind: str
@@ -59,6 +68,7 @@ class Step:
     w: np.ndarray | None = None
     b: np.ndarray | None = None
     relu: bool = False
+    skip: int | None = None
 
 
 def fold_batch_norm(w: np.ndarray, b: np.ndarray, gamma: np.ndarray, beta: np.ndarray,
@@ -118,11 +128,15 @@ def build_steps(ops: tuple[Op, ...], params: list[dict[str, np.ndarray]],
             steps.append(dict(kind=op.kind, op=op, index=i, covers=pending + [i],
                               w=np.asarray(p["w"], np.float64).copy(),
                               b=np.asarray(p["b"], np.float64).copy(), relu=False,
-                              open=True))
+                              open=True, skip=None))
             pending = []
-        elif op.kind in POOLS:
+        elif op.kind in POOLS or op.kind == "add":
+            skip = None
+            if op.kind == "add":  # the step whose covers hold the block's input (-1: none)
+                src = i - 1 - op.reach
+                skip = next((j for j, st in enumerate(steps) if src in st["covers"]), -1)
             steps.append(dict(kind=op.kind, op=op, index=i, covers=pending + [i], w=None,
-                              b=None, relu=False, open=False))
+                              b=None, relu=False, open=False, skip=skip))
             pending = []
         elif op.kind == "bn":
             prev = ops[i - 1] if i else None
@@ -152,7 +166,25 @@ def build_steps(ops: tuple[Op, ...], params: list[dict[str, np.ndarray]],
         else:
             raise ValueError(f"op {i}: unknown kind {op.kind!r}")
     return tuple(Step(kind=s["kind"], op=s["op"], index=s["index"], covers=tuple(s["covers"]),
-                      w=s["w"], b=s["b"], relu=s["relu"]) for s in steps)
+                      w=s["w"], b=s["b"], relu=s["relu"], skip=s["skip"]) for s in steps)
+
+
+def run_graph(steps, x, run, keep: bool = False):
+    """Run ``steps`` in order, each through ``run(step, x, skip)``, and hold each block's
+    input until its addition (``skip`` is None for the other steps).
+
+    Returns the last output, or every step's output when ``keep``.
+    """
+    wanted = {s.skip for s in steps if s.skip is not None}
+    held = {-1: x} if -1 in wanted else {}
+    outs = []
+    for j, step in enumerate(steps):
+        x = run(step, x, None if step.skip is None else held[step.skip])
+        if j in wanted:
+            held[j] = x
+        if keep:
+            outs.append(x)
+    return outs if keep else x
 
 
 def network_steps(net) -> tuple[Step, ...]:

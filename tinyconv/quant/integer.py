@@ -14,6 +14,7 @@ import numpy as np
 from tinyconv.quant.fixed_point import multiply_by_quantized_multiplier
 from tinyconv.quant.patches import conv_patches, pool_windows
 from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer, check_images
+from tinyconv.quant.residual import add_integer
 
 
 def quantize_input(qnet: QuantizedNetwork, images: np.ndarray) -> np.ndarray:
@@ -100,12 +101,14 @@ def accumulate(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
     return acc + layer.bias
 
 
-def run_layer(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
+def run_layer(layer: QuantLayer, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
     """Apply one int8 layer.
 
     Parameters
     ----------
     x : ndarray of int8, shape (n, *layer.op.in_shape)
+    skip : ndarray of int8, optional
+        For an ``add``: the block's input (on its own grid).
 
     Returns
     -------
@@ -123,6 +126,9 @@ def run_layer(layer: QuantLayer, x: np.ndarray) -> np.ndarray:
     if kind == "gap":
         h, w = x.shape[1], x.shape[2]
         return rounding_divide(x.astype(np.int64).sum(axis=(1, 2)), h * w).astype(np.int8)
+    if kind == "add":
+        return add_integer(x, layer.in_zp, skip.reshape(x.shape), layer.skip_zp,
+                           layer.multiplier, layer.shift, layer.out_zp)
     raise ValueError(f"unknown layer kind {kind!r}")
 
 
@@ -170,10 +176,14 @@ def int8_outputs(qnet: QuantizedNetwork, images: np.ndarray,
     images = check_images(images, qnet.input_shape)
     logits, classes = [], []
     head = qnet.layers[-1]
+    wanted = {layer.skip for layer in qnet.layers if layer.skip is not None}
     for start in range(0, images.shape[0], batch):
         x = quantize_input(qnet, images[start:start + batch])
-        for layer in qnet.layers[:-1]:
-            x = run_layer(layer, x)
+        held = {-1: x} if -1 in wanted else {}  # blocks' inputs, until their additions
+        for j, layer in enumerate(qnet.layers[:-1]):
+            x = run_layer(layer, x, None if layer.skip is None else held.pop(layer.skip))
+            if j in wanted:
+                held[j] = x
         acc = accumulate(head, x)
         logits.append(requantize(acc, head))
         classes.append(head_classes(head, acc))

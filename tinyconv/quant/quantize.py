@@ -11,6 +11,9 @@
   multiplier and shift (:mod:`tinyconv.quant.fixed_point`); a following ReLU is
   the clamp ``[max(Z_out, -128), 127]``.
 * Pooling works on int8 directly and keeps its input's scale and zero point.
+* The residual addition reads two tensors on their own grids and writes a
+  third, calibrated like a weighted step's output
+  (:mod:`tinyconv.quant.residual`: three fixed-point multipliers).
 * The input: a ``256 x c`` table from a raw pixel value ``p`` of channel ``ch``
   to ``q(((p / 255) - mean_ch) / std_ch)``; its range is the exact range the
   table can take, so no input is ever clipped.
@@ -27,6 +30,7 @@ from tinyconv.errors import DataError, InputError
 from tinyconv.quant.calibrate import QMAX, QMIN, calibrate, scale_zero_point
 from tinyconv.quant.fixed_point import INT32_MAX, quantize_multiplier
 from tinyconv.quant.fold import WEIGHTED, Step
+from tinyconv.quant.residual import add_multipliers
 from tinyconv.quant.rounding import METHODS, round_weights
 
 MAX_PRODUCT = 255 * 127  # |q_in - Z_in| * |q_w| at most
@@ -40,7 +44,7 @@ class QuantLayer:
     Attributes
     ----------
     kind : str
-        ``conv``, ``dwconv``, ``dense``, ``maxpool``, ``avgpool``, ``gap``.
+        ``conv``, ``dwconv``, ``dense``, ``maxpool``, ``avgpool``, ``gap``, ``add``.
     op : Op
         Shapes and geometry of the step.
     index : int
@@ -51,11 +55,18 @@ class QuantLayer:
         In the layer's float layout: conv ``(k, k, c_in, f)``, dwconv
         ``(k, k, c)``, dense ``(n_in, n_out)``.
     bias, multiplier, shift : ndarray of int32, shape (f,), or None
+        (an ``add``: no bias; ``multiplier`` and ``shift`` of shape (3,), see
+        :func:`~tinyconv.quant.residual.add_multipliers`)
     w_scale : ndarray of float64, shape (f,), or None
         Per-channel weight scales (for the record; not used by integers).
     lo, hi : int
         Output clamp (``lo = max(Z_out, -128)`` when a ReLU follows).
     relu : bool
+    skip : int or None
+        For an ``add``: the index of the layer whose output is the block's input
+        (-1: the input quantisation); None otherwise.
+    skip_scale, skip_zp : float, int
+        For an ``add``: the quantisation of that input.
     """
 
     kind: str
@@ -74,6 +85,9 @@ class QuantLayer:
     lo: int = QMIN
     hi: int = QMAX
     relu: bool = False
+    skip: int | None = None
+    skip_scale: float = 0.0
+    skip_zp: int = 0
 
     @property
     def fan_in(self) -> int:
@@ -261,6 +275,15 @@ def quantize_steps(steps: tuple[Step, ...], arch: str, n_classes: int,
             out_scale, out_zp = scale_zero_point(lo, hi)
             layer = quantize_weighted(step, scale, zp, out_scale, out_zp, moment, samples,
                                       rounding)
+            scale, zp = out_scale, out_zp
+        elif step.kind == "add":
+            out_scale, out_zp = scale_zero_point(lo, hi)
+            b = layers[step.skip] if step.skip >= 0 else None
+            b_scale, b_zp = (b.out_scale, b.out_zp) if b is not None else (in_scale, in_zp)
+            mult, shift = add_multipliers(scale, b_scale, out_scale)
+            layer = QuantLayer("add", step.op, step.index, step.covers, scale, zp, out_scale,
+                               out_zp, multiplier=mult, shift=shift, skip=step.skip,
+                               skip_scale=b_scale, skip_zp=b_zp)
             scale, zp = out_scale, out_zp
         else:
             layer = QuantLayer(step.kind, step.op, step.index, step.covers, scale, zp, scale, zp)

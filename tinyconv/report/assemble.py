@@ -20,6 +20,7 @@ from tinyconv.report.gallery import (confident_mistakes, confusion_examples,
 from tinyconv.report.pareto import pareto_plot
 from tinyconv.report.pick_cost import pick_cost_table
 from tinyconv.report.rundata import RunData, fold_scores
+from tinyconv.report.structure import structure_table
 
 MAX_FINALIST_CURVES = 6
 MAX_BOXES = 40   # more pairs of boxes than this are unreadable on one axis
@@ -126,6 +127,9 @@ def assemble(data: RunData) -> Assembled:
     arch = str(pick["arch"]) if "arch" in pick else str(pick["candidate"])
     out.tables["pick_cost.csv"] = pick_cost_table(arch, len(data.classes),
                                                   budgets.get("core"), budgets.get("clock_mhz"))
+    structures = structure_table(ranking)
+    if structures[["structure", "colour"]].drop_duplicates().shape[0] > 1:
+        out.tables["structures.csv"] = structures
 
     p = data.predictions
     classes = list(data.classes)

@@ -12,6 +12,7 @@ from tinyconv.report.html import (Column, Section, bullet_list, definitions, esc
 from tinyconv.report.ranking_table import ranking_section
 from tinyconv.report.rundata import RunData
 from tinyconv.report.shipping import cost_section, device_section, export_section
+from tinyconv.report.structure import structure_section
 from tinyconv.report.tables import TABLE_FILES
 from tinyconv.report.words import code, count
 
@@ -232,6 +233,8 @@ def all_sections(data: RunData, a: Assembled) -> list[Section]:
     """The page's sections in order."""
     shipping = [cost_section(data, a.tables["pick_cost.csv"]), export_section(data),
                 device_section(data)]
-    return [ranking_section(data), folds_section(a), pareto_section(a), curves_section(a),
+    structure = structure_section(data.ranking)
+    return [ranking_section(data), folds_section(a), pareto_section(a),
+            *((structure,) if structure else ()), curves_section(a),
             pick_section(data, a), *(s for s in shipping if s is not None),
             budget_section(data, a), cautions_section()]

@@ -23,6 +23,8 @@ TABLE_FILES: dict[str, str] = {
     "budgets.csv": "each budget of the run beside the pick's value",
     "pick_cost.csv": "the pick's cost per step of the int8 network (and the device model's "
                      "time when the run names a core)",
+    "structures.csv": "per size class, the best candidate of each structure and colour mode, "
+                      "and which won (when the run compared more than one)",
 }
 
 
