@@ -80,7 +80,7 @@ def run_cell(data: str, arch: str, seed: int, epochs: int, training: dict) -> di
     with tempfile.TemporaryDirectory() as tmp:
         summary = run_search(SearchRequest(
             data=data, space=one_candidate_space(arch), out=Path(tmp) / "run", folds=3,
-            seed=seed, max_epochs=epochs, full=True, workers=0, training=training))
+            seed=seed, top_epochs=epochs, full=True, workers=0, training=training))
         row = summary.table.iloc[0]
         assert row["candidate"].split(" ")[0] == arch, row["candidate"]
         with RunStore(Path(tmp) / "run") as store:

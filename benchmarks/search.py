@@ -71,7 +71,7 @@ def throughput(root: Path, data: str, sample: int, epochs: int, repeats: int = 3
     for r in range(repeats):
         for workers in (1, 2):
             summary, wall = _run(root / f"throughput_w{workers}_{r}", workers, data=data,
-                                 full=True, max_epochs=epochs, max_candidates=sample)
+                                 full=True, top_epochs=epochs, max_candidates=sample)
             walls[workers].append(wall)
             cpus[workers].append(summary.outcome.cpu_s)
             units[workers] = summary.outcome.units_run
@@ -89,12 +89,12 @@ def throughput(root: Path, data: str, sample: int, epochs: int, repeats: int = 3
           f"{', '.join(f'{x:.2f}x' for x in per_run)}); rankings identical: {len(tables) == 1}")
 
 
-def halving_vs_full(root: Path, data: str, epochs: int, min_epochs: int, sample: int | None,
+def halving_vs_full(root: Path, data: str, epochs: int, base_epochs: int, sample: int | None,
                     workers: int) -> None:
     print(f"\nsuccessive halving vs --full: {data}, R = {epochs} epochs (rungs from "
-          f"{min_epochs}), eta = 3, 3 folds, {'all' if sample is None else sample} "
+          f"{base_epochs}), eta = 3, 3 folds, {'all' if sample is None else sample} "
           f"candidates, {workers} workers")
-    common = dict(data=data, max_epochs=epochs, min_epochs=min_epochs, max_candidates=sample)
+    common = dict(data=data, top_epochs=epochs, base_epochs=base_epochs, max_candidates=sample)
     sh, sh_wall = _run(root / "halving", workers, **common)
     full, full_wall = _run(root / "full", workers, full=True, **common)
     print(f"{'run':>8}  {'units':>5}  {'epochs':>6}  {'CPU s':>8}  {'wall s':>7}")
@@ -126,7 +126,7 @@ def main(argv=None) -> int:
                         help="sample N candidates of the space for part 2 (default: all)")
     parser.add_argument("--epochs", type=int, default=None, metavar="R",
                         help="final epochs R for part 2 (default: the demo's)")
-    parser.add_argument("--min-epochs", type=int, default=None, metavar="N",
+    parser.add_argument("--base-epochs", type=int, default=None, metavar="N",
                         help="shortest rung for part 2 (default: the demo's)")
     parser.add_argument("--throughput-candidates", type=int, default=None, metavar="N",
                         help="candidates of part 1 (default 40; 4 with --quick)")
@@ -141,8 +141,8 @@ def main(argv=None) -> int:
         LR.append(args.lr)
     from tinyconv.commands.demo import FULL, QUICK
     demo = QUICK if args.quick else FULL
-    data, sample, epochs, min_epochs = (demo["data"], demo["max_candidates"],
-                                        demo["max_epochs"], demo["min_epochs"])
+    data, sample, epochs, base_epochs = (demo["data"], demo["max_candidates"],
+                                        demo["top_epochs"], demo["base_epochs"])
     # The demo's 40 candidates at its final 27 epochs: 120 units, about a
     # minute of CPU on a 2-core machine of 2026, the size of a real search, in
     # which the once-per-run worker start-up (about 1 s: imports and Numba's
@@ -152,7 +152,7 @@ def main(argv=None) -> int:
     t_epochs = args.throughput_epochs or t_epochs
     sample = args.candidates if args.candidates is not None else sample
     epochs = args.epochs if args.epochs is not None else epochs
-    min_epochs = args.min_epochs if args.min_epochs is not None else min_epochs
+    base_epochs = args.base_epochs if args.base_epochs is not None else base_epochs
     load = os.getloadavg()[0] if hasattr(os, "getloadavg") else float("nan")
     print(f"machine: {os.cpu_count()} cores, load average {load:.1f} at the start "
           "(wall-clock figures mean little when it exceeds the core count)")
@@ -165,7 +165,7 @@ def main(argv=None) -> int:
         if args.part in ("all", "throughput"):
             throughput(root, data, t_sample, t_epochs, 1 if args.quick else args.repeats)
         if args.part in ("all", "sh"):
-            halving_vs_full(root, data, epochs, min_epochs, sample, workers=2)
+            halving_vs_full(root, data, epochs, base_epochs, sample, workers=2)
     finally:
         if not args.keep:
             shutil.rmtree(root, ignore_errors=True)

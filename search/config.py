@@ -82,12 +82,12 @@ class SearchSettings:
         The run seed; every unit's seed derives from it.
     eta : int
         Halving rate (>= 2).
-    max_epochs : int
+    top_epochs : int
         ``R``: epochs of the final rung (>= 1).
-    min_epochs : int
-        The fewest epochs of any rung (1 .. max_epochs).
+    base_epochs : int
+        The fewest epochs of any rung (1 .. top_epochs).
     full : bool
-        Train every surviving candidate for ``max_epochs`` on every fold.
+        Train every surviving candidate for ``top_epochs`` on every fold.
     max_candidates : int or None
         Seeded subsample of the surviving candidates.
     budget : dict
@@ -123,9 +123,9 @@ class SearchSettings:
     folds: int = 3
     seed: int = 0
     eta: int = 3
-    max_epochs: int = 9
+    top_epochs: int = 9
     full: bool = False
-    min_epochs: int = 1
+    base_epochs: int = 1
     max_candidates: int | None = None
     budget: dict = field(default_factory=dict)
     budget_cpu_s: float | None = None
@@ -139,11 +139,11 @@ class SearchSettings:
     def __post_init__(self) -> None:
         _positive_int("folds", self.folds, 2, "--folds")
         _positive_int("eta", self.eta, 2, "--eta")
-        _positive_int("max epochs", self.max_epochs, 1, "--max-epochs")
-        _positive_int("min epochs", self.min_epochs, 1, "--min-epochs")
-        if self.min_epochs > self.max_epochs:
-            raise InputError(f"min epochs {self.min_epochs} is more than max epochs "
-                             f"{self.max_epochs}; lower --min-epochs or raise --max-epochs")
+        _positive_int("top epochs", self.top_epochs, 1, "--top-epochs")
+        _positive_int("base epochs", self.base_epochs, 1, "--base-epochs")
+        if self.base_epochs > self.top_epochs:
+            raise InputError(f"base epochs {self.base_epochs} is more than top epochs "
+                             f"{self.top_epochs}; lower --base-epochs or raise --top-epochs")
         if not isinstance(self.seed, int) or isinstance(self.seed, bool):
             raise InputError(f"seed must be an integer, got {self.seed!r}")
         if self.max_candidates is not None:

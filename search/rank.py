@@ -233,7 +233,7 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
 
     Parameters
     ----------
-    units : DataFrame with candidate, fold, rung, epochs, status, val_acc, train_acc
+    units : DataFrame with candidate, fold, rung, epochs, status, held_acc, train_acc
     candidates : DataFrame with candidate, params, macs, peak_int8_bytes, flash_bytes
         (and ``arch``, ``recipe``; without them the candidate is its own
         architecture and the recipe is "")
@@ -270,7 +270,7 @@ def rank_units(units: pd.DataFrame, candidates: pd.DataFrame, n_classes: int, fo
     rows, fold_acc = [], {}
     for cand, rung in sorted(top.items()):
         sel = done[(done["candidate"] == cand) & (done["rung"] == rung)].sort_values("fold")
-        acc = sel["val_acc"].to_numpy(np.float64)
+        acc = sel["held_acc"].to_numpy(np.float64)
         fold_acc[cand] = acc
         params = int(cost.at[cand, "params"])
         mean = float(acc.mean())

@@ -97,14 +97,14 @@ class _BudgetStop(Exception):
         self.state = state
 
 
-def plan_brackets(candidates: Sequence[str], max_epochs: int, eta: int, full: bool,
-                  seed: int, min_epochs: int = 1
+def plan_brackets(candidates: Sequence[str], top_epochs: int, eta: int, full: bool,
+                  seed: int, base_epochs: int = 1
                   ) -> list[tuple[schedule.Bracket, tuple[str, ...]]]:
     """The brackets and the candidates each starts with."""
     if full:
-        (bracket,) = schedule.full_plan(max_epochs, len(candidates), eta, min_epochs)
+        (bracket,) = schedule.full_plan(top_epochs, len(candidates), eta, base_epochs)
         return [(bracket, tuple(sorted(candidates)))]
-    return schedule.assign(candidates, schedule.hyperband(max_epochs, eta, min_epochs), seed)
+    return schedule.assign(candidates, schedule.hyperband(top_epochs, eta, base_epochs), seed)
 
 
 def plan_size(plan, folds: int) -> int:
@@ -129,7 +129,7 @@ class SearchLoop:
     candidates : sequence of str
     params : mapping of candidate text to parameter count (promotion ties)
     settings : dict
-        ``SearchSettings.as_dict()`` (folds, seed, eta, max_epochs, full,
+        ``SearchSettings.as_dict()`` (folds, seed, eta, top_epochs, full,
         budget_cpu_s, budget_epochs, training, classes).
     progress : Progress, optional
     costs : mapping of candidate text to a cost estimate (MACs per image), optional
@@ -165,9 +165,9 @@ class SearchLoop:
     # ------------------------------------------------------------ the plan
 
     def run(self) -> Outcome:
-        plan = plan_brackets(self.candidates, int(self.s["max_epochs"]), int(self.s["eta"]),
+        plan = plan_brackets(self.candidates, int(self.s["top_epochs"]), int(self.s["eta"]),
                              bool(self.s["full"]), int(self.s["seed"]),
-                             int(self.s.get("min_epochs", 1)))
+                             int(self.s.get("base_epochs", 1)))
         self.n_levels = 1 + max((r.level for bracket, _ in plan for r in bracket.rungs), default=0)
         self.progress.start(plan_size(plan, self.k), plan_epochs(plan, self.k),
                             len(self.finished), self.cpu_s, self.epochs)
@@ -231,7 +231,7 @@ class SearchLoop:
                         schedule.unit_seed(int(self.s["seed"]), arch_of(cand), fold, rung.level),
                         self.n_classes, self._training[cand],
                         # int8 figures for the finalists: units of the last rung only
-                        bool(self.s.get("int8")) and rung.epochs == int(self.s["max_epochs"]))
+                        bool(self.s.get("int8")) and rung.epochs == int(self.s["top_epochs"]))
 
     # ------------------------------------------------------------ one rung
 
@@ -365,7 +365,7 @@ class SearchLoop:
     def _keep(self, result: UnitResult) -> None:
         self.store.record(result)
         key = result.task.key
-        self.finished[key] = (result.status, result.val_acc)
+        self.finished[key] = (result.status, result.held_acc)
         self.cpu_s += float(result.cpu_s)
         self.epochs += int(result.task.epochs)
         self.outcome.units_run += 1

@@ -13,8 +13,8 @@ JMLR 18(185), 2018). With ``R`` the most epochs any unit trains for:
   epochs; its rung ``i`` keeps ``n_i = floor(n / eta**i)`` candidates at
   ``r_i = r * eta**i`` epochs.
 
-A rung shorter than ``min_epochs`` can be asked to be left out: the ladder
-then starts at ``min_epochs`` or above (fewer levels, fewer brackets), for
+A rung shorter than ``base_epochs`` can be asked to be left out: the ladder
+then starts at ``base_epochs`` or above (fewer levels, fewer brackets), for
 data on which a few epochs say nothing yet about the final ranking.
 
 Here the epochs of every bracket come from one *ladder* of levels,
@@ -75,58 +75,58 @@ class Bracket:
         return sum(r.size * r.epochs for r in self.rungs)
 
 
-def _check(max_epochs: int, eta: int) -> None:
-    for name, value, low in (("max_epochs", max_epochs, 1), ("eta", eta, 2)):
+def _check(top_epochs: int, eta: int) -> None:
+    for name, value, low in (("top_epochs", top_epochs, 1), ("eta", eta, 2)):
         if isinstance(value, bool) or not isinstance(value, (int, np.integer)):
             raise TypeError(f"{name} must be an integer, got {type(value).__name__}")
         if value < low:
             raise ValueError(f"{name} must be at least {low}, got {value}")
 
 
-def max_bracket(max_epochs: int, eta: int, min_epochs: int = 1) -> int:
-    """``s_max``: the largest ``s`` with ``min_epochs * eta**s <= max_epochs``.
+def max_bracket(top_epochs: int, eta: int, base_epochs: int = 1) -> int:
+    """``s_max``: the largest ``s`` with ``base_epochs * eta**s <= top_epochs``.
 
-    With ``min_epochs = 1`` this is ``floor(log_eta(max_epochs))``, by an
+    With ``base_epochs = 1`` this is ``floor(log_eta(top_epochs))``, by an
     integer loop.
 
     >>> max_bracket(81, 3), max_bracket(80, 3), max_bracket(243, 3), max_bracket(27, 3, 9)
     (4, 3, 5, 1)
     """
-    _check(max_epochs, eta)
-    if isinstance(min_epochs, bool) or not isinstance(min_epochs, (int, np.integer)) \
-            or not 1 <= min_epochs <= max_epochs:
-        raise ValueError(f"min_epochs must be an integer from 1 to max_epochs "
-                         f"({max_epochs}), got {min_epochs!r}")
+    _check(top_epochs, eta)
+    if isinstance(base_epochs, bool) or not isinstance(base_epochs, (int, np.integer)) \
+            or not 1 <= base_epochs <= top_epochs:
+        raise ValueError(f"base_epochs must be an integer from 1 to top_epochs "
+                         f"({top_epochs}), got {base_epochs!r}")
     s, power = 0, eta
-    while power * min_epochs <= max_epochs:
+    while power * base_epochs <= top_epochs:
         s += 1
         power *= eta
     return s
 
 
-def ladder(max_epochs: int, eta: int, min_epochs: int = 1) -> tuple[int, ...]:
-    """Epochs per level: ``max_epochs // eta**(s_max - j)``, ``j = 0..s_max``.
+def ladder(top_epochs: int, eta: int, base_epochs: int = 1) -> tuple[int, ...]:
+    """Epochs per level: ``top_epochs // eta**(s_max - j)``, ``j = 0..s_max``.
 
-    The entries strictly increase, none is below ``min_epochs``, and the last
-    is ``max_epochs``.
+    The entries strictly increase, none is below ``base_epochs``, and the last
+    is ``top_epochs``.
 
-    >>> ladder(81, 3), ladder(20, 3), ladder(27, 3, min_epochs=9)
+    >>> ladder(81, 3), ladder(20, 3), ladder(27, 3, base_epochs=9)
     ((1, 3, 9, 27, 81), (2, 6, 20), (9, 27))
     """
-    s_max = max_bracket(max_epochs, eta, min_epochs)
-    return tuple(max_epochs // eta ** (s_max - j) for j in range(s_max + 1))
+    s_max = max_bracket(top_epochs, eta, base_epochs)
+    return tuple(top_epochs // eta ** (s_max - j) for j in range(s_max + 1))
 
 
-def hyperband(max_epochs: int, eta: int = 3, min_epochs: int = 1) -> tuple[Bracket, ...]:
+def hyperband(top_epochs: int, eta: int = 3, base_epochs: int = 1) -> tuple[Bracket, ...]:
     """The textbook brackets, most aggressive first (``s = s_max, ..., 0``).
 
     Parameters
     ----------
-    max_epochs : int
+    top_epochs : int
         ``R``, the most epochs one unit trains for (>= 1).
     eta : int
         The halving rate (>= 2): each rung keeps ``1/eta`` of the previous one.
-    min_epochs : int
+    base_epochs : int
         The fewest epochs of any rung: where held-out accuracy starts to say
         something about the final ranking (1 gives the textbook brackets).
 
@@ -136,7 +136,7 @@ def hyperband(max_epochs: int, eta: int = 3, min_epochs: int = 1) -> tuple[Brack
         Rung sizes ``n_i = floor(n / eta**i)`` with
         ``n = ceil((s_max + 1) eta**s / (s + 1))`` (Li et al. 2018, Algorithm 1).
     """
-    epochs = ladder(max_epochs, eta, min_epochs)
+    epochs = ladder(top_epochs, eta, base_epochs)
     s_max = len(epochs) - 1
     brackets = []
     for s in range(s_max, -1, -1):
@@ -147,18 +147,18 @@ def hyperband(max_epochs: int, eta: int = 3, min_epochs: int = 1) -> tuple[Brack
     return tuple(brackets)
 
 
-def full_plan(max_epochs: int, n_candidates: int, eta: int = 3,
-              min_epochs: int = 1) -> tuple[Bracket, ...]:
-    """One bracket of one rung: every candidate at ``max_epochs`` (``--full``).
+def full_plan(top_epochs: int, n_candidates: int, eta: int = 3,
+              base_epochs: int = 1) -> tuple[Bracket, ...]:
+    """One bracket of one rung: every candidate at ``top_epochs`` (``--full``).
 
     The rung sits at the top level of the ladder, so its units are the same
     (same seeds) as the final rung of a successive-halving run with the same
-    ``max_epochs``, ``eta`` and ``min_epochs``.
+    ``top_epochs``, ``eta`` and ``base_epochs``.
     """
-    s_max = max_bracket(max_epochs, eta, min_epochs)
+    s_max = max_bracket(top_epochs, eta, base_epochs)
     if n_candidates < 1:
         raise ValueError(f"n_candidates must be at least 1, got {n_candidates}")
-    return (Bracket(0, (Rung(s_max, max_epochs, n_candidates),)),)
+    return (Bracket(0, (Rung(s_max, top_epochs, n_candidates),)),)
 
 
 def fit_to_pool(bracket: Bracket, n_candidates: int) -> Bracket:

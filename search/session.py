@@ -83,8 +83,8 @@ class SearchRequest:
     folds: int = 3
     seed: int = 0
     eta: int = 3
-    max_epochs: int = 9
-    min_epochs: int = 1
+    top_epochs: int = 9
+    base_epochs: int = 1
     full: bool = False
     max_candidates: int | None = None
     budgets: dict = field(default_factory=dict)
@@ -247,8 +247,8 @@ def _settings(request: SearchRequest, space, data, budget: dict, training: dict,
         classes=tuple(data.classes) if data else (),
         n_images=int(data.labels.size) if data else 0,
         space=getattr(space, "text", ""), space_source=str(getattr(space, "source", "")),
-        folds=request.folds, seed=request.seed, eta=request.eta, max_epochs=request.max_epochs,
-        min_epochs=request.min_epochs, full=request.full, max_candidates=request.max_candidates,
+        folds=request.folds, seed=request.seed, eta=request.eta, top_epochs=request.top_epochs,
+        base_epochs=request.base_epochs, full=request.full, max_candidates=request.max_candidates,
         budget=budget, budget_cpu_s=request.budget_cpu_s, budget_epochs=request.budget_epochs,
         training=training, skip_bad=request.skip_bad, int8=request.int8,
         recipes=tuple(str(r) for r in recipes), simplest_by=request.simplest_by)

@@ -21,9 +21,9 @@ comments give the default of each optional key::
     # widths = [[4, 8], [16, 32]]   # instead of filters: whole plans; a candidate
                                     # with n stages uses a plan's first n widths
     kernel = [3]                    # odd sizes; one list, or a list per stage ([3])
-    conv = ["standard", "separable"]  # standard | separable (["standard"])
+    conv = ["standard", "depthwise"]  # standard | depthwise (["standard"])
     pool = ["max"]                  # max | avg | none | stride (["max"])
-    pool_size = 2                   # one value: size and stride of the pooling (2)
+    pool_window = 2                   # one value: size and stride of the pooling (2)
     shared = ["kernel", "conv", "pool"]  # chosen once per candidate for all its
                                     # stages, not stage by stage (all three)
     widening = true                 # one value: filters never decrease from a
@@ -63,9 +63,9 @@ comments give the default of each optional key::
 What a stage is, in the architecture text form (:mod:`tinyconv.arch`), for
 ``f`` filters and kernel ``k``:
 
-* ``standard``: ``c{f}k{k}``; ``separable``: ``dw{k}-c{f}k1`` (depthwise then
+* ``standard``: ``c{f}k{k}``; ``depthwise``: ``dw{k}-c{f}k1`` (depthwise then
   a 1x1 convolution);
-* ``pool``: ``max`` appends ``p{pool_size}``, ``avg`` appends ``a{pool_size}``,
+* ``pool``: ``max`` appends ``p{pool_window}``, ``avg`` appends ``a{pool_window}``,
   ``none`` nothing, ``stride`` gives the stage's first convolution stride 2;
 * with batch norm, ``bn`` follows every convolution (and the hidden dense layer);
 * residual blocks (``[blocks]``, :mod:`search.space_blocks`) come after the
@@ -75,7 +75,7 @@ The head: ``gap`` appends global average pooling (only when a stage exists and
 the map is larger than 1x1: otherwise it is the same network as ``flatten``,
 which is the implicit head); a hidden width ``n > 0`` appends ``d{n}``; dropout
 ``p > 0`` appends ``x{p}``. The final dense layer to the classes is implicit.
-For example ``count = 2``, filters 8 then 16, separable, max pooling, gap,
+For example ``count = 2``, filters 8 then 16, depthwise, max pooling, gap,
 hidden 32 and batch norm give ``dw3-bn-c8k1-bn-p2-dw3-bn-c16k1-bn-p2-gap-d32-bn``.
 
 Enumeration (:func:`enumerate_space`) is deterministic: inputs (sizes, then
@@ -119,7 +119,7 @@ __all__ = ["SpaceError", "Space", "StageChoices", "Budget", "Filtered", "load_sp
            "space_from_text",
            "builtin_space_text", "enumerate_space", "subsample", "filter_budget"]
 
-CONV_KINDS = ("standard", "separable")
+CONV_KINDS = ("standard", "depthwise")
 POOL_KINDS = ("max", "avg", "none", "stride")
 HEAD_KINDS = ("gap", "flatten")
 SHAREABLE = ("kernel", "conv", "pool")
@@ -129,7 +129,7 @@ _KNOWN = {
     "": ("format", "description", "input", "stages", "head", "options", "budget", "device",
          "training", "blocks"),
     "input": ("sizes", "modes", "specs"),
-    "stages": ("count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
+    "stages": ("count", "filters", "widths", "kernel", "conv", "pool", "pool_window",
                "shared", "widening"),
     "head": ("kind", "hidden"),
     "options": ("batch_norm", "dropout"),
@@ -170,7 +170,7 @@ class Space:
     inputs: tuple[InputSpec, ...]
     counts: tuple[int, ...]
     stages: tuple[StageChoices, ...]
-    pool_size: int = 2
+    pool_window: int = 2
     shared: tuple[str, ...] = SHAREABLE
     widening: bool = True
     heads: tuple[str, ...] = ("flatten",)
@@ -402,9 +402,9 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
                         lambda c: c in CONV_KINDS, f"one of {', '.join(CONV_KINDS)}")
     pools = r.per_stage(st.get("pool", ["max"]), "stages.pool", n,
                         lambda p: p in POOL_KINDS, f"one of {', '.join(POOL_KINDS)}")
-    pool_size = st.get("pool_size", 2)
-    if not _is_int(pool_size, 2, MAX_SIDE):
-        raise r.fail("stages.pool_size", pool_size, f"must be one integer 2..{MAX_SIDE}")
+    pool_window = st.get("pool_window", 2)
+    if not _is_int(pool_window, 2, MAX_SIDE):
+        raise r.fail("stages.pool_window", pool_window, f"must be one integer 2..{MAX_SIDE}")
     shared: tuple[str, ...] = ()
     if st.get("shared", SHAREABLE) != []:  # [] (nothing shared) is allowed here
         shared = r.choices(st.get("shared", list(SHAREABLE)), "stages.shared",
@@ -440,7 +440,7 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
                      f"{turning[0]!r} turns images by quarter turns, which needs square "
                      f"inputs, but the space has {oblong[0]}; take turn out or give square "
                      "inputs only")
-    return Space(inputs, counts, stages, pool_size, tuple(shared), widening, heads, hidden,
+    return Space(inputs, counts, stages, pool_window, tuple(shared), widening, heads, hidden,
                  batch_norm, dropout, budget, description, text, source, widths, training,
                  blocks)
 
@@ -448,7 +448,7 @@ def _space_from_data(data: dict, text: str, source: str) -> Space:
 # ---------------------------------------------------------------- enumerating
 
 
-def _stage_layers(f: int, k: int, conv: str, pool: str, pool_size: int, bn: bool,
+def _stage_layers(f: int, k: int, conv: str, pool: str, pool_window: int, bn: bool,
                   blocks: tuple[int, str, int] = (0, "", 0)) -> list:
     stride = 2 if pool == "stride" else 1
     norm = [BatchNorm()] if bn else []
@@ -460,7 +460,7 @@ def _stage_layers(f: int, k: int, conv: str, pool: str, pool_size: int, bn: bool
     for _ in range(count):
         layers += block_layers(f, k, kind, expansion, bn)
     if pool in ("max", "avg"):
-        layers.append(Pool(pool, pool_size))
+        layers.append(Pool(pool, pool_window))
     return layers
 
 
@@ -514,7 +514,7 @@ def enumerate_space(space: Space, max_candidates: int | None = None,
         """Layers and text of one stage (cached: the same stage recurs a lot)."""
         key = (opts, bn, blocks)
         if key not in stage_cache:
-            layers = tuple(_stage_layers(*opts, space.pool_size, bn, blocks))
+            layers = tuple(_stage_layers(*opts, space.pool_window, bn, blocks))
             stage_cache[key] = layers, "-".join(map(str, layers))
         return stage_cache[key]
 

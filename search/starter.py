@@ -165,7 +165,7 @@ def starter_text(shape: DataShape, budget: Budget | None = None) -> str:
             "# filters per stage, as whole plans: a candidate of n stages uses a plan's first n",
             f"widths = [{widths}]",
             _note("kernel = [3]", "odd sizes"),
-            _note('conv = ["standard", "separable"]', "c{f}k3, or dw3-c{f}k1 (fewer MACs)"),
+            _note('conv = ["standard", "depthwise"]', "c{f}k3, or dw3-c{f}k1 (fewer MACs)"),
             _note('pool = ["max"]', "halve the map after each stage"),
             "",
             "[head]",

@@ -61,7 +61,7 @@ CREATE TABLE IF NOT EXISTS units (
     id INTEGER PRIMARY KEY, candidate TEXT NOT NULL REFERENCES candidates(candidate),
     fold INTEGER NOT NULL, rung INTEGER NOT NULL, epochs INTEGER NOT NULL,
     seed INTEGER NOT NULL, status TEXT NOT NULL, message TEXT NOT NULL,
-    train_acc REAL, train_loss REAL, val_acc REAL, val_loss REAL, int8_acc REAL,
+    train_acc REAL, train_loss REAL, held_acc REAL, held_loss REAL, int8_acc REAL,
     cpu_s REAL NOT NULL, wall_s REAL NOT NULL, history TEXT NOT NULL,
     finished REAL NOT NULL, UNIQUE (candidate, fold, rung));
 CREATE TABLE IF NOT EXISTS predictions (
@@ -70,7 +70,7 @@ CREATE TABLE IF NOT EXISTS predictions (
 """
 
 UNIT_COLUMNS = ("candidate", "fold", "rung", "epochs", "status", "message", "train_acc",
-                "train_loss", "val_acc", "val_loss", "int8_acc", "cpu_s", "wall_s", "history",
+                "train_loss", "held_acc", "held_loss", "int8_acc", "cpu_s", "wall_s", "history",
                 "seed", "unit_id")
 CANDIDATE_COLUMNS = ("candidate", "params", "macs", "peak_int8_bytes", "flash_bytes",
                      "within_budget", "over", "scheduled")
@@ -200,7 +200,7 @@ class RunStore:
 
     def config(self) -> dict[str, Any]:
         """The run's settings (``SearchSettings.as_dict()``): data, fingerprint, classes,
-        space text, folds, seed, budgets, eta, max_epochs, training settings."""
+        space text, folds, seed, budgets, eta, top_epochs, training settings."""
         return self._meta("settings")
 
     def removed(self) -> dict[str, Any]:
@@ -229,7 +229,7 @@ class RunStore:
         """Finished units, ordered by (rung, candidate, fold).
 
         Columns: candidate, fold, rung, epochs, status, message, train_acc,
-        train_loss, val_acc, val_loss, cpu_s, wall_s, history (JSON text of
+        train_loss, held_acc, held_loss, cpu_s, wall_s, history (JSON text of
         per-epoch lists), seed, unit_id.
         """
         cols = ", ".join("id AS unit_id" if c == "unit_id" else c for c in UNIT_COLUMNS)
@@ -241,8 +241,8 @@ class RunStore:
         return self._frame(sql + " ORDER BY rung, candidate, fold", params)
 
     def finished(self) -> dict[tuple[str, int, int], tuple[str, float | None]]:
-        """(candidate, fold, rung) -> (status, val_acc) of every finished unit."""
-        rows = self._rows("SELECT candidate, fold, rung, status, val_acc FROM units")
+        """(candidate, fold, rung) -> (status, held_acc) of every finished unit."""
+        rows = self._rows("SELECT candidate, fold, rung, status, held_acc FROM units")
         return {(c, f, r): (s, a) for c, f, r, s, a in rows}
 
     def spent(self) -> tuple[float, int]:

@@ -278,10 +278,10 @@ def _insert_unit(con: sqlite3.Connection, result: UnitResult) -> None:
     t = result.task
     cur = con.execute(
         "INSERT INTO units (candidate, fold, rung, epochs, seed, status, message, "
-        "train_acc, train_loss, val_acc, val_loss, int8_acc, cpu_s, wall_s, history, "
+        "train_acc, train_loss, held_acc, held_loss, int8_acc, cpu_s, wall_s, history, "
         "finished) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
         (t.candidate, t.fold, t.rung, t.epochs, t.seed, result.status, result.message,
-         result.train_acc, result.train_loss, result.val_acc, result.val_loss,
+         result.train_acc, result.train_loss, result.held_acc, result.held_loss,
          result.int8_acc, float(result.cpu_s), float(result.wall_s), result.history_json(),
          time.time()))
     if result.status == "done":

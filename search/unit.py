@@ -66,13 +66,13 @@ class UnitResult:
     status : {"done", "diverged", "failed"}
     message : str
         Why it diverged or failed ("" when done).
-    train_acc, train_loss, val_acc, val_loss : float or None
+    train_acc, train_loss, held_acc, held_loss : float or None
         After the last epoch, in evaluation mode, on the training part and the
         held-out fold (None unless done).
     cpu_s, wall_s : float
         CPU seconds of the worker process (``time.process_time``) and wall seconds.
     history : dict of str to list of float
-        Per epoch: train_loss, train_acc (training mode), val_loss, val_acc.
+        Per epoch: train_loss, train_acc (training mode), held_loss, held_acc.
     index : ndarray, shape (m,), int64
         Held-out images (indices into the data set), ascending.
     label, pred : ndarray, shape (m,), int64
@@ -88,8 +88,8 @@ class UnitResult:
     message: str = ""
     train_acc: float | None = None
     train_loss: float | None = None
-    val_acc: float | None = None
-    val_loss: float | None = None
+    held_acc: float | None = None
+    held_loss: float | None = None
     cpu_s: float = 0.0
     wall_s: float = 0.0
     history: dict = field(default_factory=dict)
@@ -237,7 +237,7 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     with np.errstate(over="ignore", invalid="ignore"):  # divergence is reported, not warned
         hist = fit(net, x_train, y_train, config, x_held, y_held)
     history = {"train_loss": list(hist.train_loss), "train_acc": list(hist.train_acc),
-               "val_loss": list(hist.val_loss), "val_acc": list(hist.val_acc)}
+               "held_loss": list(hist.held_loss), "held_acc": list(hist.held_acc)}
     if hist.status == "diverged":
         return UnitResult(task, "diverged",
                           f"the training loss was not finite in epoch {hist.diverged_epoch} "
@@ -250,8 +250,8 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     logp = np.concatenate([log_softmax(net.forward(x_eval[i:i + 256], training=False))
                            for i in range(0, x_eval.shape[0], 256)])      # (m, K)
     pred = logp.argmax(axis=1).astype(np.int64)
-    val_loss = float(-logp[np.arange(y_held.size), y_held].astype(np.float64).mean())
-    val_acc = float(np.mean(pred == y_held))
+    held_loss = float(-logp[np.arange(y_held.size), y_held].astype(np.float64).mean())
+    held_acc = float(np.mean(pred == y_held))
     probs = np.exp(logp).astype(np.float32)
     int8_acc = None
     if task.int8:
@@ -259,7 +259,7 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
         calib = train[np.linspace(0, train.size - 1, min(CALIB_IMAGES, train.size)).astype(int)]
         int8_acc = int8_accuracy(net, mean, std, as_pixels(x_all[calib]),
                                  as_pixels(x_all[held]), y_held)
-    return UnitResult(task, "done", "", float(train_acc), float(train_loss), float(val_acc),
-                      float(val_loss), time.process_time() - cpu0,
+    return UnitResult(task, "done", "", float(train_acc), float(train_loss), float(held_acc),
+                      float(held_loss), time.process_time() - cpu0,
                       time.perf_counter() - wall0, history, held.astype(np.int64),
                       y_held.astype(np.int64), pred, probs, int8_acc)

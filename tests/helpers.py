@@ -89,7 +89,7 @@ def tiny_request(out, **change):
     """A SearchRequest of the tiny search (TINY_DATA, TINY_SPACE; in-process unless
     ``workers`` is given) with ``change`` applied."""
     from search.session import SearchRequest
-    base = dict(data=TINY_DATA, space=TINY_SPACE, out=out, folds=3, seed=2, max_epochs=3,
+    base = dict(data=TINY_DATA, space=TINY_SPACE, out=out, folds=3, seed=2, top_epochs=3,
                 workers=0, training={"batch_size": 16, "lr": 0.01})
     base.update(change)
     return SearchRequest(**base)

@@ -36,7 +36,7 @@ def build_run(run_dir: Path) -> Path:
     settings = SearchSettings(
         data=DATA_SPEC, fingerprint=fingerprint(data), classes=tuple(data.classes),
         n_images=len(data.labels), space="# report test candidates\n" + "\n".join(CANDIDATES),
-        space_source="tests/report_fixture.py", folds=FOLDS, seed=5, eta=3, max_epochs=4,
+        space_source="tests/report_fixture.py", folds=FOLDS, seed=5, eta=3, top_epochs=4,
         budget={k: getattr(BUDGET, k) for k in ("max_params", "max_macs", "max_peak_kb",
                                                  "max_flash_kb")},
         training=dict(TRAINING))

@@ -28,7 +28,7 @@ def search_argv(space: Path, out: Path, *extra: str, workers: int = 0) -> list[s
     """``tinyconv search`` arguments of the tiny search (the settings of
     ``helpers.tiny_request``), so its ranking equals an in-process run's."""
     return ["search", TINY_DATA, "--space", str(space), "--out", str(out), "--folds", "3",
-            "--seed", "2", "--max-epochs", "3", "--workers", str(workers),
+            "--seed", "2", "--top-epochs", "3", "--workers", str(workers),
             "--batch-size", "16", "--lr", "0.01", *extra]
 
 

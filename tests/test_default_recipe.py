@@ -25,7 +25,7 @@ def test_default_recipe_reaches_three_quarters_on_the_tiles(tmp_path):
     assert DEFAULT_TRAINING["augment"] == "none" and DEFAULT_TRAINING["copies"] == 1
     summary = run_search(SearchRequest(
         data="builtin:tiles?n=80&size=32&seed=0", space=PICK_SPACE, out=tmp_path / "run",
-        folds=3, seed=0, max_epochs=27, full=True, workers=0))
+        folds=3, seed=0, top_epochs=27, full=True, workers=0))
     row = summary.table.iloc[0]
     assert row["candidate"] == "16x16gray/c32k3-p2-c32k3-p2-c32k3-p2-gap"
     assert row["recipe"] == "aug=none copies=1 lr=0.005 wd=0 sched=constant"

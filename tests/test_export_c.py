@@ -42,9 +42,9 @@ int main(int argc, char **argv)
     static uint8_t image[@U@_INPUT_BYTES];
     int8_t logits[@U@_CLASSES];
     (void)argv;
-    if (argc > 1) { /* sizes of the arrays and of the arena */
+    if (argc > 1) { /* sizes of the arrays and of the activation buffer */
         @SIZES@
-        printf("arena %lu\n", (unsigned long)sizeof(@P@_arena));
+        printf("buffer %lu\n", (unsigned long)sizeof(@P@_activations));
         return 0;
     }
     while (fread(image, 1, sizeof image, stdin) == sizeof image) {
@@ -110,11 +110,11 @@ def test_c_matches_integer_reference(tmp_path, text, k):
     # the class is an arg-max of the int8 logits too, up to ties at int8
     assert (want[np.arange(len(best)), best] == want.max(axis=1)).all()
 
-    # sizes: the arena is the cost model's int8 peak; flash is the sum of sizeof
+    # sizes: the activation buffer is the cost model's int8 peak; flash is the sum of sizeof
     cost = cost_of(text, k)
-    assert sizes.pop("arena") == cost.peak_int8_bytes == code.arena_bytes
+    assert sizes.pop("buffer") == cost.peak_int8_bytes == code.activation_bytes
     assert sum(sizes.values()) == cost.flash_bytes == code.flash_bytes
-    assert f"#define TCX_ARENA_BYTES {cost.peak_int8_bytes}\n" in code.header
+    assert f"#define TCX_ACTIVATION_BYTES {cost.peak_int8_bytes}\n" in code.header
     assert f"#define TCX_FLASH_BYTES {cost.flash_bytes}\n" in code.header
 
 

@@ -34,7 +34,7 @@ def make_run(run_dir, fp: str | None = None):
     k = len(data.classes)
     settings = SearchSettings(data=DATA, fingerprint=fp or fingerprint(data),
                               classes=tuple(data.classes), n_images=len(data.labels),
-                              space="\n".join(SCORES), folds=2, seed=4, max_epochs=2,
+                              space="\n".join(SCORES), folds=2, seed=4, top_epochs=2,
                               training=dict(TRAINING))
     rows = []
     for cand in SCORES:
@@ -77,8 +77,8 @@ def test_cli_exports_the_best_candidate(run_dir, tmp_path):
     summary = ExportSummary.from_json((out / "summary.json").read_text())
     assert summary.arch == best and summary.n_calib == 20 and summary.prefix == "marks"
     cost = cost_of(best, 8)
-    assert (summary.arena_bytes, summary.flash_bytes) == (cost.peak_int8_bytes, cost.flash_bytes)
-    assert f"#define MARKS_ARENA_BYTES {cost.peak_int8_bytes}" in (out / "marks.h").read_text()
+    assert (summary.activation_bytes, summary.flash_bytes) == (cost.peak_int8_bytes, cost.flash_bytes)
+    assert f"#define MARKS_ACTIVATION_BYTES {cost.peak_int8_bytes}" in (out / "marks.h").read_text()
     assert "marks_classify" in (out / "marks.c").read_text()
     assert summary.n_eval == 48 and 0.0 <= summary.agreement <= 1.0
     assert summary.cv_accuracy == pytest.approx(0.59)

@@ -32,7 +32,7 @@ def test_writes_weights_code_and_summary(tmp_path):
     names = sorted(p.name for p in (tmp_path / "out").iterdir())
     assert names == ["calibration.npz", "network.npz", "summary.json", "unit.c", "unit.h"]
     cost = cost_of(TEXT, 3)
-    assert (s.flash_bytes, s.arena_bytes, s.macs, s.params) == (
+    assert (s.flash_bytes, s.activation_bytes, s.macs, s.params) == (
         cost.flash_bytes, cost.peak_int8_bytes, cost.macs, cost.params)
     assert s.classes == ("a", "b", "c") and s.n_calib == 20 and s.n_eval == 20
     # the summary's accuracies are those of the integer reference and the float network

@@ -4,7 +4,7 @@ import numpy as np
 import pytest
 
 from tinyconv.arch import expand, parse
-from tinyconv.commands.check_grads import shift_away_from_kinks
+from tinyconv.commands.gradients import shift_away_from_kinks
 from tinyconv.errors import DataError
 from tinyconv.gradients import check_network
 from tinyconv.losses import softmax_cross_entropy

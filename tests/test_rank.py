@@ -104,7 +104,7 @@ def _toy_units(accs: dict[str, list[float]], rung: dict[str, int] | None = None)
         r = (rung or {}).get(cand, 1)
         for fold, v in enumerate(values):
             rows.append({"candidate": cand, "fold": fold, "rung": r, "epochs": 3 ** r,
-                         "status": "done", "val_acc": v, "train_acc": min(1.0, v + 0.05)})
+                         "status": "done", "held_acc": v, "train_acc": min(1.0, v + 0.05)})
     return pd.DataFrame(rows)
 
 
@@ -166,7 +166,7 @@ def test_incomplete_rungs_do_not_count():
     units = _toy_units({"a": [0.8, 0.7, 0.9]}, rung={"a": 0})
     upper = _toy_units({"a": [0.95, 0.96]}, rung={"a": 1})
     diverged = pd.DataFrame([{"candidate": "a", "fold": 2, "rung": 1, "epochs": 3,
-                              "status": "diverged", "val_acc": np.nan, "train_acc": np.nan}])
+                              "status": "diverged", "held_acc": np.nan, "train_acc": np.nan}])
     table = rank.rank_units(pd.concat([units, upper, diverged]),
                             _toy_candidates({"a": 10}), 2, 3)
     assert table["rung"].tolist() == [0]

@@ -55,7 +55,7 @@ def _folds(ranking: pd.DataFrame, k: int = 3, seed: int = 0) -> pd.DataFrame:
         for f in range(k):
             v = r["acc_mean"] + rng.normal(0, 0.01)
             rows.append({"candidate": r["candidate"], "params": r["params"], "fold": f,
-                         "val_acc": v, "train_acc": v + 0.05})
+                         "held_acc": v, "train_acc": v + 0.05})
     return pd.DataFrame(rows)
 
 
@@ -81,7 +81,7 @@ def test_fold_boxes_falls_back_to_even_spacing_for_close_counts():
 def test_fold_boxes_refuses_empty_input():
     """No fold rows is an error saying what is needed."""
     with pytest.raises(ValueError, match="at least one"):
-        fold_boxes(pd.DataFrame(columns=["candidate", "params", "fold", "val_acc", "train_acc"]))
+        fold_boxes(pd.DataFrame(columns=["candidate", "params", "fold", "held_acc", "train_acc"]))
 
 
 @pytest.mark.parametrize("axis,budget", [("params", 50_000.0), ("macs", 5e6)])
@@ -124,20 +124,20 @@ def test_pareto_plot_rejects_unknown_axis():
 
 def test_history_of_reads_stored_json_and_tolerates_gaps():
     """Stored JSON histories parse to lists; missing or broken ones give an empty dict."""
-    text = json.dumps({"val_acc": [0.1, 0.2], "train_acc": [0.2, None]})
+    text = json.dumps({"held_acc": [0.1, 0.2], "train_acc": [0.2, None]})
     h = history_of(text)
-    assert h["val_acc"] == [0.1, 0.2] and np.isnan(h["train_acc"][1])
+    assert h["held_acc"] == [0.1, 0.2] and np.isnan(h["train_acc"][1])
     assert history_of(None) == {} and history_of("not json") == {} and history_of(3) == {}
 
 
 def test_mean_curves_average_over_folds_and_align_resumed_units():
     """Rung curves are per-epoch means over folds; a shorter stored history ends at its epochs."""
     units = pd.DataFrame([
-        {"rung": 0, "epochs": 2, "history": {"val_acc": [0.2, 0.4]}},
-        {"rung": 0, "epochs": 2, "history": {"val_acc": [0.4, 0.6]}},
-        {"rung": 1, "epochs": 6, "history": {"val_acc": [0.7, 0.8]}},   # resumed: epochs 5-6
+        {"rung": 0, "epochs": 2, "history": {"held_acc": [0.2, 0.4]}},
+        {"rung": 0, "epochs": 2, "history": {"held_acc": [0.4, 0.6]}},
+        {"rung": 1, "epochs": 6, "history": {"held_acc": [0.7, 0.8]}},   # resumed: epochs 5-6
     ])
-    out = mean_curves(units, "val_acc")
+    out = mean_curves(units, "held_acc")
     np.testing.assert_array_equal(out[0][0], [1, 2])
     np.testing.assert_allclose(out[0][1], [0.3, 0.5])
     np.testing.assert_array_equal(out[1][0], [5, 6])
@@ -145,7 +145,7 @@ def test_mean_curves_average_over_folds_and_align_resumed_units():
 
 def test_learning_curves_render_with_and_without_history():
     """Learning curves render; a finalist without stored history gets a visible note."""
-    hist = json.dumps({"val_acc": [0.3, 0.5, 0.6], "train_acc": [0.3, 0.6, 0.8]})
+    hist = json.dumps({"held_acc": [0.3, 0.5, 0.6], "train_acc": [0.3, 0.6, 0.8]})
     units = pd.DataFrame([{"candidate": "a", "fold": f, "rung": r, "epochs": 3, "history": hist}
                           for f in range(3) for r in (0, 1)]
                          + [{"candidate": "b", "fold": 0, "rung": 0, "epochs": 3,

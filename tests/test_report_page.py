@@ -41,8 +41,8 @@ def _run(pick_is_best: bool) -> RunData:
                      "p_vs_best": 0.04, "finalist": True})
         for f, v in enumerate(acc):
             units.append({"candidate": NAMES[name], "fold": f, "rung": 1, "epochs": 4,
-                          "status": "done", "val_acc": v, "train_acc": v + 0.05,
-                          "history": json.dumps({"val_acc": [v / 2, v], "train_acc": [v / 2, v]})})
+                          "status": "done", "held_acc": v, "train_acc": v + 0.05,
+                          "history": json.dumps({"held_acc": [v / 2, v], "train_acc": [v / 2, v]})})
     r = pd.DataFrame(rows)
     best = int(r["acc_mean"].idxmax())
     r.loc[best, "p_vs_best"] = np.nan
@@ -171,7 +171,7 @@ def test_units_that_did_not_finish_are_listed_with_their_reason():
     """Diverged or failed units are counted and listed with their message."""
     data = _run(False)
     extra = pd.DataFrame([{"candidate": "8x8gray/d", "fold": 0, "rung": 0, "epochs": 2,
-                           "status": "diverged", "val_acc": None, "train_acc": None,
+                           "status": "diverged", "held_acc": None, "train_acc": None,
                            "message": "loss not finite in epoch 2 of 2; try a smaller lr",
                            "history": "{}"}])
     units = pd.concat([data.units.assign(cpu_s=1.5), extra.assign(cpu_s=0.5)],

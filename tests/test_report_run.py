@@ -160,8 +160,8 @@ def test_folds_csv_are_the_stored_unit_accuracies(run_dir):
     for _, r in ranking.iterrows():
         mine = folds[folds["candidate"] == r["candidate"]].sort_values("fold")
         theirs = units[(units["candidate"] == r["candidate"]) & (units["rung"] == r["rung"])]
-        np.testing.assert_array_equal(mine["val_acc"], theirs.sort_values("fold")["val_acc"])
-        assert mine["val_acc"].mean() == pytest.approx(r["acc_mean"], abs=1e-12)
+        np.testing.assert_array_equal(mine["held_acc"], theirs.sort_values("fold")["held_acc"])
+        assert mine["held_acc"].mean() == pytest.approx(r["acc_mean"], abs=1e-12)
 
 
 def test_confusion_tables_match_the_stored_predictions(run_dir):

@@ -62,9 +62,9 @@ def test_ladder_not_power_of_eta():
     assert schedule.ladder(9, 3) == (1, 3, 9)
 
 
-@pytest.mark.parametrize("bad,match", [(0, "max_epochs must be at least 1"),
-                                       (2.5, "max_epochs must be an integer")])
-def test_bad_max_epochs(bad, match):
+@pytest.mark.parametrize("bad,match", [(0, "top_epochs must be at least 1"),
+                                       (2.5, "top_epochs must be an integer")])
+def test_bad_top_epochs(bad, match):
     """A non-integer or non-positive R is refused with the rule in the message."""
     with pytest.raises((ValueError, TypeError), match=match):
         schedule.hyperband(bad, 3)
@@ -144,14 +144,14 @@ def test_unit_seed_stable_across_processes():
     assert 0 <= here < 2 ** 32
 
 
-def test_min_epochs_drops_short_rungs():
+def test_base_epochs_drops_short_rungs():
     """A shortest rung of 9 epochs leaves the ladder 9, 27 and two brackets for R = 27."""
     # Hyperband with r_min = 9 and R = 27: the resource ratio R / r_min = 3, s_max = 1
     # (Li et al. 2018, with resources counted in units of r_min).
-    assert schedule.ladder(27, 3, min_epochs=9) == (9, 27)
-    assert _table(schedule.hyperband(27, 3, min_epochs=9)) == {1: [(3, 9), (1, 27)],
+    assert schedule.ladder(27, 3, base_epochs=9) == (9, 27)
+    assert _table(schedule.hyperband(27, 3, base_epochs=9)) == {1: [(3, 9), (1, 27)],
                                                                 0: [(2, 27)]}
-    assert schedule.ladder(20, 3, min_epochs=5) == (6, 20)
-    assert min(schedule.ladder(100, 3, min_epochs=7)) >= 7
-    with pytest.raises(ValueError, match="min_epochs must be an integer from 1 to max_epochs"):
-        schedule.ladder(9, 3, min_epochs=10)
+    assert schedule.ladder(20, 3, base_epochs=5) == (6, 20)
+    assert min(schedule.ladder(100, 3, base_epochs=7)) >= 7
+    with pytest.raises(ValueError, match="base_epochs must be an integer from 1 to top_epochs"):
+        schedule.ladder(9, 3, base_epochs=10)

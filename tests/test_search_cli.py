@@ -12,7 +12,7 @@ DATA, SPACE = TINY_DATA, TINY_SPACE
 
 
 def _args(space, out, *extra):
-    return ["search", DATA, "--space", str(space), "--out", str(out), "--max-epochs", "3",
+    return ["search", DATA, "--space", str(space), "--out", str(out), "--top-epochs", "3",
             "--workers", "0", "--batch-size", "16", "--lr", "0.01", *extra]
 
 
@@ -71,7 +71,7 @@ def test_other_settings_exit_2(space, tmp_path, capsys, monkeypatch):
     (["--folds", "1"], "folds must be an integer >= 2, got 1; set --folds"),
     (["--max-params", "3"], "budget"),
     (["--eta", "1"], "eta must be an integer >= 2"),
-    (["--min-epochs", "5"], "min epochs 5 is more than max epochs 3"),
+    (["--base-epochs", "5"], "base epochs 5 is more than top epochs 3"),
 ])
 def test_bad_options_exit_2(space, tmp_path, capsys, extra, message):
     """Unusable options exit 2 with a message naming the value and the rule."""
@@ -123,7 +123,7 @@ def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monk
     broken.write_bytes(b"\xff\xd8\xff\xe0 not a picture")
     space = tmp_path / "space.toml"
     space.write_text('[input]\nspecs = ["8x8rgb"]\n')
-    args = ["search", str(folder), "--space", str(space), "--max-epochs", "1",
+    args = ["search", str(folder), "--space", str(space), "--top-epochs", "1",
             "--workers", "0", "--batch-size", "16"]
     monkeypatch.chdir(tmp_path)
     assert main(args + ["--out", "first"]) == 2

@@ -28,8 +28,8 @@ def request(out: Path, **change) -> SearchRequest:
 
 
 def _same_units(a: Path, b: Path) -> None:
-    cols = ["candidate", "fold", "rung", "epochs", "status", "val_acc", "train_acc",
-            "val_loss", "history", "seed"]
+    cols = ["candidate", "fold", "rung", "epochs", "status", "held_acc", "train_acc",
+            "held_loss", "history", "seed"]
     ua, ub = RunStore(a).units()[cols], RunStore(b).units()[cols]
     assert ua.equals(ub)
     for cand in ua["candidate"].unique():
@@ -62,7 +62,7 @@ def test_sigkill_then_rerun_gives_same_ranking(reference, tmp_path):
     space.write_text(SPACE)
     out = tmp_path / "run"
     cmd = [sys.executable, "-m", "tinyconv", "search", DATA, "--space", str(space), "--out",
-           str(out), "--folds", "3", "--seed", "2", "--max-epochs", "3", "--workers", "2",
+           str(out), "--folds", "3", "--seed", "2", "--top-epochs", "3", "--workers", "2",
            "--batch-size", "16", "--lr", "0.01"]
     rng = np.random.default_rng(int(time.time()))  # a different moment each run
     target = int(rng.integers(1, 12))

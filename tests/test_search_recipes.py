@@ -94,11 +94,11 @@ def test_each_unit_was_trained_with_its_own_recipe(reference):
         task = UnitTask(row.candidate, row.fold, row.rung, int(row.epochs), int(row.seed),
                         len(cfg["classes"]), tuple(sorted(training.items())))
         again = run_unit(task, data)
-        assert again.val_loss == row.val_loss and again.status == "done"
+        assert again.held_loss == row.held_loss and again.status == "done"
         np.testing.assert_array_equal(
             again.probs, store.prediction_probs(row.candidate, 0)[
                 store.predictions(row.candidate, 0)["fold"].to_numpy() == 1])
-        accs.append(row.val_loss)
+        accs.append(row.held_loss)
     assert len(set(accs)) == len(accs)
 
 
@@ -131,7 +131,7 @@ def test_killed_recipe_search_resumes_bit_identically(reference, tmp_path):
     space.write_text(SPACE)
     out = tmp_path / "run"
     cmd = [sys.executable, "-m", "tinyconv", "search", TINY_DATA, "--space", str(space),
-           "--out", str(out), "--folds", "3", "--seed", "2", "--max-epochs", "3",
+           "--out", str(out), "--folds", "3", "--seed", "2", "--top-epochs", "3",
            "--workers", "1", "--batch-size", "16"]
     proc = subprocess.Popen(cmd, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
                             start_new_session=True, cwd=Path(__file__).resolve().parents[1])
@@ -147,7 +147,7 @@ def test_killed_recipe_search_resumes_bit_identically(reference, tmp_path):
     again = run_search(request(out, space=str(space)))
     assert again.outcome.units_run == len(RunStore(ref).units()) - stored
     assert (out / "ranking.csv").read_bytes() == (ref / "ranking.csv").read_bytes()
-    cols = ["candidate", "fold", "rung", "epochs", "status", "train_acc", "val_loss",
+    cols = ["candidate", "fold", "rung", "epochs", "status", "train_acc", "held_loss",
             "history", "seed"]
     assert RunStore(out).units()[cols].equals(RunStore(ref).units()[cols])
 

@@ -56,7 +56,7 @@ def test_search_completes_and_ranks(finished):
     for row in table.itertuples():
         got = units[(units.candidate == row.candidate) & (units.rung == row.rung)]
         assert sorted(got["fold"]) == [0, 1, 2]
-        assert row.acc_mean == pytest.approx(got["val_acc"].mean())
+        assert row.acc_mean == pytest.approx(got["held_acc"].mean())
     on_disk = pd.read_csv(out / "ranking.csv")
     assert list(on_disk["candidate"]) == list(table["candidate"])
 
@@ -106,7 +106,7 @@ def test_diverging_candidate_is_recorded(tmp_path):
     assert summary.outcome.state == "complete" and summary.outcome.diverged >= 3
     units = RunStore(tmp_path).units()
     bad = units[units.candidate == DIVERGING]
-    assert set(bad["status"]) == {"diverged"} and bad["val_acc"].isna().all()
+    assert set(bad["status"]) == {"diverged"} and bad["held_acc"].isna().all()
     assert "not finite" in bad["message"].iloc[0]
     assert DIVERGING not in set(summary.table["candidate"])
     assert not summary.table.empty
@@ -140,8 +140,8 @@ def test_full_mode_shares_final_units(tmp_path, finished):
     assert summary.table["finalist"].all()
     out, _ = finished
     sh = RunStore(out).units()
-    top = sh[sh.rung == 1].set_index(["candidate", "fold"])["val_acc"]
-    full = units.set_index(["candidate", "fold"])["val_acc"]
+    top = sh[sh.rung == 1].set_index(["candidate", "fold"])["held_acc"]
+    full = units.set_index(["candidate", "fold"])["held_acc"]
     assert np.array_equal(full.loc[top.index].to_numpy(), top.to_numpy())
 
 
@@ -162,12 +162,12 @@ def test_rank_by_accuracy(finished):
         assert list(rows["rank_per_param"]) == sorted(rows["rank_per_param"])
 
 
-def test_min_epochs_shapes_the_plan(tmp_path):
+def test_base_epochs_shapes_the_plan(tmp_path):
     """With the shortest rung at R there is one level: every unit trains R epochs."""
-    run_search(request(tmp_path, max_epochs=3, min_epochs=3))
+    run_search(request(tmp_path, top_epochs=3, base_epochs=3))
     units = RunStore(tmp_path).units()
     assert set(units["epochs"]) == {3} and set(units["rung"]) == {0}
-    assert RunStore(tmp_path).config()["min_epochs"] == 3
+    assert RunStore(tmp_path).config()["base_epochs"] == 3
 
 
 def test_int8_scores_the_last_rung_only(tmp_path):
@@ -182,7 +182,7 @@ def test_int8_scores_the_last_rung_only(tmp_path):
     assert units.loc[~last, "int8_acc"].isna().all()
     assert units.loc[last, "int8_acc"].between(0, 1).all()
     # int8 tracks the float network (typically within a point; loose on these tiny nets)
-    gap = (units.loc[last, "int8_acc"] - units.loc[last, "val_acc"]).abs()
+    gap = (units.loc[last, "int8_acc"] - units.loc[last, "held_acc"]).abs()
     assert gap.mean() < 0.1, gap.describe()
     fin = table[table["finalist"]]
     for _, row in fin.iterrows():

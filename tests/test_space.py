@@ -29,7 +29,7 @@ modes = ["gray"]
 [stages]
 count = [0, 1]
 filters = [4, 8]
-conv = ["standard", "separable"]
+conv = ["standard", "depthwise"]
 [head]
 kind = ["gap", "flatten"]
 """
@@ -61,7 +61,7 @@ specs = ["16x16rgb"]
 [stages]
 count = [1]
 filters = [6]
-conv = ["standard", "separable"]
+conv = ["standard", "depthwise"]
 pool = ["stride", "avg"]
 [head]
 hidden = [10]
@@ -143,7 +143,7 @@ def test_shipped_spaces_are_unique_valid_and_deterministic(name):
 
 
 def test_demo_space_has_the_variety_and_size_the_demo_needs():
-    """The demo space: 30-80 survivors with dense, 1-3 stages, separable, gap and flatten."""
+    """The demo space: 30-80 survivors with dense, 1-3 stages, depthwise, gap and flatten."""
     space = load_space("builtin:demo")
     assert space.budget == Budget(70_000, 1_000_000, 32, 256, 50, "cortex-m4", 80)
     result = filter_budget(enumerate_space(space), space.budget, 8)
@@ -168,7 +168,7 @@ def test_documented_example_reads_and_its_worked_text_comes_out():
     assert space.counts == (0, 1, 2) and space.budget.max_peak_kb == 32
     assert len(enumerate_space(space)) <= space.size_bound()
     got = texts('[input]\nspecs = ["32x32rgb"]\n[stages]\ncount = [2]\nfilters = [[8], [16]]\n'
-                'conv = ["separable"]\n[head]\nkind = ["gap"]\nhidden = [32]\n[options]\n'
+                'conv = ["depthwise"]\n[head]\nkind = ["gap"]\nhidden = [32]\n[options]\n'
                 'batch_norm = [true]')
     assert got == ["32x32rgb/dw3-bn-c8k1-bn-p2-dw3-bn-c16k1-bn-p2-gap-d32-bn"]
     assert "dw3-bn-c8k1-bn-p2-dw3-bn-c16k1-bn-p2-gap-d32-bn" in doc
@@ -203,7 +203,7 @@ def test_documented_example_reads_and_its_worked_text_comes_out():
     ("[input]\nspecs = ['8x8gray']\n[stages]\ncount = [2]\nfilters = [[8], [8], [8]]",
      "gives choices for 3 stages but stages.count goes up to 2"),
     ("[input]\nspecs = ['8x8gray']\n[stages]\ncount = [2]\nfilters = [8]\n"
-     "conv = [['standard'], ['separable']]",
+     "conv = [['standard'], ['depthwise']]",
      "is given per stage, so it cannot be in stages.shared"),
     ("[input]\nspecs = ['8x8gray']\n[stages]\ncount = [1]\nfilters = [8]\npool = ['min']",
      r"stages.pool = \['min'\]: 'min' is not one of max, avg, none, stride"),
@@ -294,7 +294,7 @@ specs = ["16x16rgb", "8x8gray"]
 [stages]
 count = [0, 1, 2]
 filters = [4, 16]
-conv = ["standard", "separable"]
+conv = ["standard", "depthwise"]
 pool = ["max", "stride"]
 [head]
 kind = ["gap", "flatten"]
@@ -354,12 +354,12 @@ def test_subsample_is_seeded_ordered_and_without_repeats():
 
 _VALUES = st.recursive(
     st.one_of(st.booleans(), st.integers(-3, 70), st.floats(-1, 70, allow_nan=False),
-              st.sampled_from(["rgb", "gray", "8x8", "8x8gray", "standard", "separable",
+              st.sampled_from(["rgb", "gray", "8x8", "8x8gray", "standard", "depthwise",
                                "max", "avg", "none", "stride", "gap", "flatten", "kernel",
                                "conv", "pool", ""])),
     lambda inner: st.lists(inner, max_size=4), max_leaves=8)
 _TABLES = {"input": ["sizes", "modes", "specs"],
-           "stages": ["count", "filters", "widths", "kernel", "conv", "pool", "pool_size",
+           "stages": ["count", "filters", "widths", "kernel", "conv", "pool", "pool_window",
                       "shared", "widening", "colour"],
            "head": ["kind", "hidden"], "options": ["batch_norm", "dropout"],
            "budget": ["max_params", "max_macs", "max_peak_kb", "max_flash_kb"]}

@@ -17,7 +17,7 @@ from tinyconv.errors import InputError, RunError
 def _settings(**change) -> dict:
     base = dict(data="builtin:tiles?n=10", fingerprint="abc123", classes=("ring", "bar", "dot"),
                 n_images=30, space="[input]\nsizes = [8]\nmodes = [\"gray\"]\n", folds=3,
-                seed=1, eta=3, max_epochs=3, budget={"max_params": 5000},
+                seed=1, eta=3, top_epochs=3, budget={"max_params": 5000},
                 training={"lr": 0.001, "batch_size": 16})
     base.update(change)
     return SearchSettings(**base).as_dict()
@@ -37,11 +37,11 @@ def _result(cand="8x8gray/c4k3", fold=0, rung=0, status="done", m=4, k=3) -> Uni
     task = UnitTask(cand, fold, rung, 1, seed=99, n_classes=k)
     if status != "done":
         return UnitResult(task, status, "loss not finite", cpu_s=0.5, wall_s=0.6,
-                          history={"train_loss": [], "train_acc": [], "val_loss": [],
-                                   "val_acc": []})
+                          history={"train_loss": [], "train_acc": [], "held_loss": [],
+                                   "held_acc": []})
     return UnitResult(task, "done", "", 0.9, 0.3, 0.75, 0.6, 1.25, 1.5,
-                      {"train_loss": [0.3], "train_acc": [0.9], "val_loss": [0.6],
-                       "val_acc": [0.75]},
+                      {"train_loss": [0.3], "train_acc": [0.9], "held_loss": [0.6],
+                       "held_acc": [0.75]},
                       np.arange(fold, fold + 3 * m, 3), rng.integers(0, k, m),
                       probs.argmax(1), probs)
 
@@ -64,7 +64,7 @@ def test_round_trip(tmp_path):
     assert len(units) == 4
     assert set(again.units(status="diverged")["candidate"]) == {"8x8gray"}
     row = units[(units.candidate == "8x8gray/c4k3") & (units.fold == 1)].iloc[0]
-    assert row.val_acc == 0.75 and row.cpu_s == 1.25 and row.epochs == 1
+    assert row.held_acc == 0.75 and row.cpu_s == 1.25 and row.epochs == 1
     assert row.history == results[1].history_json()
     preds = again.predictions("8x8gray/c4k3")
     assert preds["fold"].tolist() == [0] * 4 + [1] * 4 + [2] * 4

@@ -32,8 +32,8 @@ def test_training_learns_an_easy_task():
     hist = fit(net, x, y, TrainConfig(epochs=6, batch_size=32, lr=0.01), xv, yv)
     assert hist.status == "done" and hist.epochs == 6
     assert hist.train_loss[-1] < 0.5 * hist.train_loss[0]
-    assert hist.val_acc[-1] > 0.9
-    assert evaluate(net, xv, yv) == pytest.approx((hist.val_loss[-1], hist.val_acc[-1]))
+    assert hist.held_acc[-1] > 0.9
+    assert evaluate(net, xv, yv) == pytest.approx((hist.held_loss[-1], hist.held_acc[-1]))
 
 
 def test_untrained_network_scores_near_chance():
@@ -103,9 +103,9 @@ def test_early_stopping_restores_the_best_epoch():
     net = Network.from_arch("8x8gray/d64", 4, seed=0)
     hist = fit(net, x, y, TrainConfig(epochs=40, batch_size=20, lr=0.01, patience=3), xv, yv)
     assert hist.status == "stopped" and hist.epochs < 40
-    best = int(np.argmin(hist.val_loss)) + 1
+    best = int(np.argmin(hist.held_loss)) + 1
     assert hist.best_epoch == best and hist.epochs == best + 3
-    assert evaluate(net, xv, yv)[0] == pytest.approx(hist.val_loss[best - 1], rel=1e-6)
+    assert evaluate(net, xv, yv)[0] == pytest.approx(hist.held_loss[best - 1], rel=1e-6)
 
 
 def test_on_epoch_can_stop_training():

@@ -67,7 +67,7 @@ def test_held_out_figures_are_those_of_plain_evaluation():
     net = Network.from_arch("8x8gray/c2k3-p2", 3, seed=1)
     hist = fit(net, x, y, TrainConfig(epochs=3, batch_size=8, lr=0.01,
                                       augment="bright30+contrast20"), xv, yv)
-    assert evaluate(net, xv, yv)[0] == pytest.approx(hist.val_loss[-1])
+    assert evaluate(net, xv, yv)[0] == pytest.approx(hist.held_loss[-1])
 
 
 def test_augmented_training_is_reproducible_and_differs_from_plain():

@@ -34,11 +34,11 @@ def test_done_unit_reports_held_out_fold(data):
     np.testing.assert_allclose(r.probs.sum(axis=1), 1.0, atol=1e-5)
     np.testing.assert_array_equal(r.pred, r.probs.argmax(axis=1))
     # Reference: scikit-learn's accuracy_score and log_loss on the kept predictions.
-    assert r.val_acc == pytest.approx(accuracy_score(r.label, r.pred))
+    assert r.held_acc == pytest.approx(accuracy_score(r.label, r.pred))
     p64 = r.probs.astype(np.float64)
-    assert r.val_loss == pytest.approx(log_loss(r.label, p64 / p64.sum(axis=1, keepdims=True),
+    assert r.held_loss == pytest.approx(log_loss(r.label, p64 / p64.sum(axis=1, keepdims=True),
                                                 labels=range(8)), rel=1e-4)
-    assert len(r.history["train_loss"]) == 2 and len(r.history["val_acc"]) == 2
+    assert len(r.history["train_loss"]) == 2 and len(r.history["held_acc"]) == 2
     assert r.cpu_s > 0 and r.wall_s > 0
     assert 0.0 <= r.train_acc <= 1.0
 
@@ -57,7 +57,7 @@ def test_diverged_unit_keeps_no_predictions(data):
                        training=(("lr", 1e30), ("optimizer", "sgd"))), data)
     assert r.status == "diverged"
     assert "not finite in epoch" in r.message and "smaller learning rate" in r.message
-    assert r.val_acc is None and r.probs.size == 0
+    assert r.held_acc is None and r.probs.size == 0
 
 
 def test_failed_unit_reports_message(data):

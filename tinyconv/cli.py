@@ -45,7 +45,7 @@ COMMANDS: dict[str, tuple[str, str]] = {
     "demo": ("demo", "the whole job on the built-in tile images: search, report, export"),
     "inspect": ("inspect", "what is in a data set: classes, counts, sizes, duplicates, folds"),
     "cost": ("cost", "per-layer parameters, MACs, activation memory and flash of a network"),
-    "check-grads": ("check_grads", "finite-difference check of every gradient of a network"),
+    "gradients": ("gradients", "finite-difference check of every gradient of a network"),
     "emulate": ("emulate", "run a network's int8 C on an emulated Cortex-M core: "
                            "instructions, time, flash, RAM, bit-exactness"),
     "space": ("space", "a commented starter search space sized for your data and budgets"),

@@ -32,7 +32,7 @@ Counting rules (the contract in DEVELOPERS.md, "Cost"):
   offset planned from these live ranges, in one buffer of exactly the int8
   peak (:mod:`tinyconv.export.placement`). int8 bytes = elements + scratch;
   float32 bytes = 4 x elements. The input quantisation reads the caller's raw
-  pixels (a buffer outside the arena, e.g. the camera's frame) and writes the
+  pixels (a buffer outside the activation buffer, e.g. the camera's frame) and writes the
   int8 input, so it counts ``h*w*c``.
 
 KB in this package means 1,024 bytes.
@@ -257,7 +257,7 @@ def op_cost(op: Op, index: int, folded: bool = False, lives: Lives | None = None
 
 def input_cost(arch: Arch) -> OpCost:
     """The input quantisation: a ``256*c`` int8 table; raw pixels in (the caller's
-    buffer), int8 out (the arena)."""
+    buffer), int8 out (the activation buffer)."""
     shape = arch.input.shape
     n = prod(shape)
     return OpCost(-1, "input", "input", shape, shape, 0, 0, 0, n,

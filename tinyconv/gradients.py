@@ -1,4 +1,4 @@
-"""The finite-difference gradient checker, shared by the tests and ``tinyconv check-grads``.
+"""The finite-difference gradient checker, shared by the tests and ``tinyconv gradients``.
 
 Method
 ------

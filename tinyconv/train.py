@@ -165,7 +165,7 @@ class History:
     ----------
     train_loss, train_acc : tuple of float
         Mean mini-batch data loss and accuracy (training mode).
-    val_loss, val_acc : tuple of float
+    held_loss, held_acc : tuple of float
         Held-out loss and accuracy (evaluation mode); empty without held-out data.
     status : {"done", "stopped", "diverged"}
     diverged_epoch : int or None
@@ -176,8 +176,8 @@ class History:
 
     train_loss: tuple[float, ...]
     train_acc: tuple[float, ...]
-    val_loss: tuple[float, ...]
-    val_acc: tuple[float, ...]
+    held_loss: tuple[float, ...]
+    held_acc: tuple[float, ...]
     status: str
     diverged_epoch: int | None = None
     best_epoch: int | None = None
@@ -275,8 +275,8 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
     n = x.shape[0]
     items = n * config.copies                 # what one epoch passes over
     n_batches = -(-items // config.batch_size)
-    logs: dict[str, list[float]] = {"train_loss": [], "train_acc": [], "val_loss": [],
-                                    "val_acc": []}
+    logs: dict[str, list[float]] = {"train_loss": [], "train_acc": [], "held_loss": [],
+                                    "held_acc": []}
     status, diverged_epoch = "done", None
     best_loss, best_epoch, best_weights, waited = math.inf, None, None, 0
 
@@ -296,8 +296,8 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
         stats = {"lr": lr, "train_loss": loss_sum / items, "train_acc": correct / items}
         stop = False
         if have_val:
-            val_loss, val_acc = evaluate(net, x_val, y_val)
-            if not math.isfinite(val_loss):
+            held_loss, held_acc = evaluate(net, x_val, y_val)
+            if not math.isfinite(held_loss):
                 # Finite on the training batches but not on held-out data: the
                 # weights have blown up all the same.
                 _restore(net, start)
@@ -305,11 +305,11 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
                 logs["train_acc"].pop()
                 status, diverged_epoch = "diverged", epoch + 1
                 break
-            logs["val_loss"].append(val_loss)
-            logs["val_acc"].append(val_acc)
-            stats.update(val_loss=val_loss, val_acc=val_acc)
-            if val_loss < best_loss:
-                best_loss, best_epoch, waited = val_loss, epoch + 1, 0
+            logs["held_loss"].append(held_loss)
+            logs["held_acc"].append(held_acc)
+            stats.update(held_loss=held_loss, held_acc=held_acc)
+            if held_loss < best_loss:
+                best_loss, best_epoch, waited = held_loss, epoch + 1, 0
                 if config.patience is not None:
                     best_weights = _snapshot(net)
             else:
@@ -324,7 +324,7 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
     if config.patience is not None and best_weights is not None and status != "diverged":
         _restore(net, best_weights)
     return History(tuple(logs["train_loss"]), tuple(logs["train_acc"]),
-                   tuple(logs["val_loss"]), tuple(logs["val_acc"]), status,
+                   tuple(logs["held_loss"]), tuple(logs["held_acc"]), status,
                    diverged_epoch, best_epoch)
 
 

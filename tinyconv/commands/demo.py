@@ -25,10 +25,10 @@ from tinyconv.commands.search import summary_lines, write_report_if_available
 #: correlation with the 27-epoch accuracy: 0.14 after 3 epochs, 0.51 after 9),
 #: so the full demo's shortest rung is 9 epochs. The quick demo, a smoke run of
 #: a few epochs, learns faster at a learning rate of 0.01.
-FULL = {"data": "builtin:tiles?n=80&size=32&seed=0", "max_candidates": 40, "max_epochs": 27,
-        "min_epochs": 9}
-QUICK = {"data": "builtin:tiles?n=40&size=32&seed=0", "max_candidates": 6, "max_epochs": 9,
-         "min_epochs": 3, "lr": 0.01}
+FULL = {"data": "builtin:tiles?n=80&size=32&seed=0", "max_candidates": 40, "top_epochs": 27,
+        "base_epochs": 9}
+QUICK = {"data": "builtin:tiles?n=40&size=32&seed=0", "max_candidates": 6, "top_epochs": 9,
+         "base_epochs": 3, "lr": 0.01}
 #: The demo trains with the search's default recipe (search.session.DEFAULT_TRAINING)
 #: and the augmentation its space file names for tiles; the quick demo's rate is
 #: its own (above).
@@ -53,8 +53,8 @@ def demo_request(out: Path, quick: bool, workers: int | None):
     from search.session import SearchRequest
     setting = QUICK if quick else FULL
     return SearchRequest(data=setting["data"], space="builtin:demo", out=out, folds=3, seed=0,
-                         eta=3, max_epochs=setting["max_epochs"],
-                         min_epochs=setting["min_epochs"],
+                         eta=3, top_epochs=setting["top_epochs"],
+                         base_epochs=setting["base_epochs"],
                          max_candidates=setting["max_candidates"],
                          training={**TRAINING, **({"lr": setting["lr"]} if "lr" in setting else {})},
                          workers=workers)

@@ -60,9 +60,9 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                    help="total CPU time for training, e.g. 90s, 20m, 1h (default: no limit)")
     g.add_argument("--budget-epochs", type=positive_int, default=None, metavar="N",
                    help="total training epochs summed over all units (default: no limit)")
-    g.add_argument("--max-epochs", type=positive_int, default=9, metavar="R",
+    g.add_argument("--top-epochs", type=positive_int, default=9, metavar="R",
                    help="epochs of the final rung (default 9)")
-    g.add_argument("--min-epochs", type=positive_int, default=1, metavar="N",
+    g.add_argument("--base-epochs", type=positive_int, default=1, metavar="N",
                    help="fewest epochs of any rung: leave out shorter rungs when a few "
                         "epochs say nothing yet (default 1)")
     g.add_argument("--eta", type=int, default=3, help="halving rate: each rung keeps 1/eta "
@@ -138,7 +138,7 @@ def request_from(args: argparse.Namespace, data: str, space: str | None, out: st
                                   ("copies", args.copies)) if v is not None}
     return SearchRequest(
         data=data, space=space, out=Path(out), folds=args.folds, seed=args.seed, eta=args.eta,
-        max_epochs=args.max_epochs, min_epochs=args.min_epochs, full=args.full, max_candidates=args.max_candidates,
+        top_epochs=args.top_epochs, base_epochs=args.base_epochs, full=args.full, max_candidates=args.max_candidates,
         budgets=budgets_from(args),
         budget_cpu_s=parse_duration(args.budget_cpu) if args.budget_cpu else None,
         budget_epochs=args.budget_epochs, training=training, workers=args.workers,

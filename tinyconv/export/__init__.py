@@ -97,8 +97,8 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
     qnet = quantize_network(net, norm_mean, norm_std, calib_images, rounding=rounding)
     code = generate_c(qnet, prefix, classes, macs=cost.macs)
     # The generated code and the cost model are one number each; a difference is a bug.
-    if code.arena_bytes != cost.peak_int8_bytes or code.flash_bytes != cost.flash_bytes:
-        raise RuntimeError(f"generated C for {net.arch} has arena {code.arena_bytes} B and "
+    if code.activation_bytes != cost.peak_int8_bytes or code.flash_bytes != cost.flash_bytes:
+        raise RuntimeError(f"generated C for {net.arch} has buffer {code.activation_bytes} B and "
                            f"flash {code.flash_bytes} B, but the cost model says "
                            f"{cost.peak_int8_bytes} B and {cost.flash_bytes} B")
     n_eval, agreement, f_acc, q_acc = 0, None, None, None
@@ -121,7 +121,7 @@ def export_network(net, norm_mean, norm_std, calib_images: np.ndarray, out_dir,
     summary = ExportSummary(
         arch=str(net.arch), classes=classes, prefix=prefix,
         input_shape=tuple(qnet.input_shape), flash_bytes=code.flash_bytes,
-        arena_bytes=code.arena_bytes, macs=cost.macs, params=cost.params,
+        activation_bytes=code.activation_bytes, macs=cost.macs, params=cost.params,
         n_calib=qnet.n_calib, calibration=qnet.calibration, rounding=qnet.rounding,
         logits_scale=float(qnet.logits_scale), logits_zero_point=int(qnet.logits_zp),
         n_eval=n_eval, agreement=agreement, float_accuracy=f_acc, int8_accuracy=q_acc,

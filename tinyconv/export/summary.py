@@ -24,8 +24,8 @@ class ExportSummary:
     input_shape : tuple (h, w, c)
     flash_bytes : int
         Bytes of the generated constant arrays (= the cost model's int8 flash).
-    arena_bytes : int
-        Bytes of the static activation arena (= the cost model's int8 peak).
+    activation_bytes : int
+        Bytes of the static activation buffer (= the cost model's int8 peak).
     macs, params : int
         Multiply-accumulates per image and trained parameters (cost model).
     n_calib : int
@@ -59,7 +59,7 @@ class ExportSummary:
     prefix: str
     input_shape: tuple[int, int, int]
     flash_bytes: int
-    arena_bytes: int
+    activation_bytes: int
     macs: int
     params: int
     n_calib: int
@@ -101,7 +101,7 @@ class ExportSummary:
                *([f"recipe        {self.recipe}"] if self.recipe else []),
                f"flash         {self.flash_bytes:,} bytes ({self.flash_bytes / 1024:.1f} KB) "
                "of constant arrays",
-               f"arena         {self.arena_bytes:,} bytes ({self.arena_bytes / 1024:.1f} KB) "
+               f"buffer         {self.activation_bytes:,} bytes ({self.activation_bytes / 1024:.1f} KB) "
                "of activations",
                f"MACs          {self.macs:,} per image; {self.params:,} parameters",
                f"calibration   {self.calibration} over {self.n_calib} images; weights "

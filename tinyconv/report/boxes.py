@@ -23,7 +23,7 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
     ----------
     folds : DataFrame
         One row per (candidate, fold) at the candidate's ranked rung, with
-        columns ``candidate``, ``params``, ``fold``, ``val_acc``, ``train_acc``
+        columns ``candidate``, ``params``, ``fold``, ``held_acc``, ``train_acc``
         (accuracies in [0, 1]) and optionally ``finalist`` (bool): candidates
         stopped at a lower rung are drawn faded and hatched.
     chance : float, optional
@@ -64,7 +64,7 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
         final = (folds.groupby("candidate", sort=False)["finalist"].first().reindex(names)
                  .fillna(True).to_numpy(dtype=bool) if "finalist" in folds.columns
                  else np.ones(n, dtype=bool))
-        for key, colour, shift in (("val_acc", PALETTE.held_out, -0.55),
+        for key, colour, shift in (("held_acc", PALETTE.held_out, -0.55),
                                    ("train_acc", PALETTE.training, 0.55)):
             data = [folds.loc[folds["candidate"] == c, key].dropna().to_numpy() for c in names]
             for group in (True, False):
@@ -74,7 +74,7 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
                 bp = ax.boxplot(
                     [data[i] for i in where], positions=pos[where] + shift * width,
                     widths=width, patch_artist=True, manage_ticks=False,
-                    medianprops={"color": PALETTE.paper if key == "val_acc" else PALETTE.ink,
+                    medianprops={"color": PALETTE.paper if key == "held_acc" else PALETTE.ink,
                                  "linewidth": 1.6},
                     boxprops={"facecolor": colour, "edgecolor": PALETTE.ink, "linewidth": 0.8},
                     whiskerprops={"color": PALETTE.ink, "linewidth": 0.8},
@@ -88,7 +88,7 @@ def fold_boxes(folds: pd.DataFrame, *, chance: float | None = None,
         # thin connector between the two medians: the over-fitting gap
         for i, c in enumerate(names):
             sub = folds.loc[folds["candidate"] == c]
-            v, t = sub["val_acc"].median(), sub["train_acc"].median()
+            v, t = sub["held_acc"].median(), sub["train_acc"].median()
             if math.isfinite(v) and math.isfinite(t):
                 ax.plot([pos[i] - 0.55 * width, pos[i] + 0.55 * width], [v, t],
                         color=PALETTE.ink, linewidth=0.6, alpha=0.6, zorder=4)

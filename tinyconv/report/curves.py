@@ -25,7 +25,7 @@ from tinyconv.report.palette import PALETTE, style
 
 _RUNG_STYLES = ("-", "--", "-.", ":")
 #: The history keys of held-out and training accuracy (as train.History stores them).
-HELD_OUT_KEY, TRAINING_KEY = "val_acc", "train_acc"
+HELD_OUT_KEY, TRAINING_KEY = "held_acc", "train_acc"
 
 
 def history_of(value: object) -> dict[str, list[float]]:
@@ -57,7 +57,7 @@ def mean_curves(units: pd.DataFrame, key: str) -> dict[int, tuple[np.ndarray, np
     units : DataFrame
         Units of one candidate with ``rung``, ``epochs`` and ``history``.
     key : str
-        ``"val_acc"`` or ``"train_acc"``.
+        ``"held_acc"`` or ``"train_acc"``.
 
     Notes
     -----
@@ -154,7 +154,7 @@ def learning_curves(units: pd.DataFrame, finalists: Sequence[object], *,
     units : DataFrame
         Finished units with ``candidate``, ``fold``, ``rung``, ``epochs`` and
         ``history`` (JSON text or dict of per-epoch lists with ``train_acc``
-        and ``val_acc``).
+        and ``held_acc``).
     finalists : sequence
         ``candidate`` values to draw, in panel order.
     labels : mapping, optional

@@ -108,21 +108,21 @@ def fold_scores(ranking: pd.DataFrame, units: pd.DataFrame) -> pd.DataFrame:
 
     Returns
     -------
-    DataFrame with candidate, params, rung, epochs, fold, val_acc, train_acc,
+    DataFrame with candidate, params, rung, epochs, fold, held_acc, train_acc,
     finalist; ordered by parameters, then candidate, then fold.
     """
     done = units[units["status"] == "done"]
     parts = []
     for _, row in ranking.iterrows():
         sel = done[(done["candidate"] == row["candidate"]) & (done["rung"] == row["rung"])]
-        part = sel[["candidate", "rung", "epochs", "fold", "val_acc", "train_acc"]].copy()
+        part = sel[["candidate", "rung", "epochs", "fold", "held_acc", "train_acc"]].copy()
         part["params"] = int(row["params"])
         part["finalist"] = bool(row.get("finalist", True))
         parts.append(part)
     if not parts:
         return pd.DataFrame(columns=["candidate", "params", "rung", "epochs", "fold",
-                                     "val_acc", "train_acc", "finalist"])
+                                     "held_acc", "train_acc", "finalist"])
     out = pd.concat(parts, ignore_index=True)
-    out = out[["candidate", "params", "rung", "epochs", "fold", "val_acc", "train_acc",
+    out = out[["candidate", "params", "rung", "epochs", "fold", "held_acc", "train_acc",
                "finalist"]]
     return out.sort_values(["params", "candidate", "fold"], kind="stable").reset_index(drop=True)

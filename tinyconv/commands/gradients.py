@@ -1,4 +1,4 @@
-"""``tinyconv check-grads ARCH``: finite-difference check of every gradient of a network.
+"""``tinyconv gradients ARCH``: finite-difference check of every gradient of a network.
 
 Builds the network in float64, feeds a seeded random batch through the loss
 and compares every analytic gradient (input and each parameter tensor) with

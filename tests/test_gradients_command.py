@@ -1,4 +1,4 @@
-"""The check-grads command: table, exit codes, input override, bad texts."""
+"""The gradients command: table, exit codes, input override, bad texts."""
 
 import re
 
@@ -20,7 +20,7 @@ def _rows(out):
 
 def test_reference_network_passes_and_prints_the_table(capsys):
     """The issue's example network exits 0 with one 'pass' row per tensor and the kink note."""
-    code = main(["check-grads", "16x16gray/c4k3-p2-c8k3s2-bn-gap-d8"])
+    code = main(["gradients", "16x16gray/c4k3-p2-c8k3s2-bn-gap-d8"])
     out = capsys.readouterr().out
     assert code == 0
     assert re.search(r"layer\s+tensor\s+shape\s+max rel error\s+verdict", out)
@@ -37,7 +37,7 @@ def test_reference_network_passes_and_prints_the_table(capsys):
 
 def test_input_option_replaces_the_texts_input(capsys):
     """--input swaps the input size and colour mode; --classes and --batch shape the rows."""
-    code = main(["check-grads", "16x16gray/c2k3-d4", "--input", "6x6rgb", "--classes", "3",
+    code = main(["gradients", "16x16gray/c2k3-d4", "--input", "6x6rgb", "--classes", "3",
                  "--batch", "2", "--seed", "5"])
     out = capsys.readouterr().out
     assert code == 0
@@ -59,7 +59,7 @@ def test_a_wrong_gradient_exits_1(capsys, monkeypatch):
         return grad_x
 
     monkeypatch.setattr(Dense, "backward", wrong)
-    code = main(["check-grads", "8x8gray/c2k3-p2"])
+    code = main(["gradients", "8x8gray/c2k3-p2"])
     out = capsys.readouterr().out
     assert code == 1
     verdicts = {(r[0], r[1]): r[4] for r in _rows(out)}
@@ -70,7 +70,7 @@ def test_a_wrong_gradient_exits_1(capsys, monkeypatch):
 
 def test_bad_text_exits_2_pointing_at_the_token(capsys):
     """A bad layer token exits 2 and the message names its position and the token."""
-    code = main(["check-grads", "16x16gray/c4k3-p2-c8k4-gap"])
+    code = main(["gradients", "16x16gray/c4k3-p2-c8k4-gap"])
     err = capsys.readouterr().err
     assert code == 2
     assert re.search(r"error: .*layer 3 'c8k4': kernel 4 is even", err)
@@ -78,18 +78,18 @@ def test_bad_text_exits_2_pointing_at_the_token(capsys):
 
 def test_bad_options_exit_2(capsys):
     """A bad --input, --classes 1 or a one-image batch with batch norm exit 2 with the rule."""
-    assert main(["check-grads", "8x8gray/c2k3", "--input", "8x8bw"]) == 2
+    assert main(["gradients", "8x8gray/c2k3", "--input", "8x8bw"]) == 2
     assert "unknown colour mode 'bw'" in capsys.readouterr().err
-    assert main(["check-grads", "8x8gray/c2k3", "--classes", "1"]) == 2
+    assert main(["gradients", "8x8gray/c2k3", "--classes", "1"]) == 2
     assert "--classes must be at least 2, got 1" in capsys.readouterr().err
-    assert main(["check-grads", "8x8gray/c2k3-bn", "--batch", "1"]) == 2
+    assert main(["gradients", "8x8gray/c2k3-bn", "--batch", "1"]) == 2
     assert "--batch must be at least 2 (batch normalisation needs two images)" in \
         capsys.readouterr().err
 
 
 def test_input_override_that_does_not_fit_exits_2(capsys):
     """An --input too small for the layers exits 2 naming the layer that no longer fits."""
-    assert main(["check-grads", "16x16gray/c2k3-p4-p4", "--input", "8x8gray"]) == 2
+    assert main(["gradients", "16x16gray/c2k3-p4-p4", "--input", "8x8gray"]) == 2
     assert re.search(r"layer 3 'p4': pool size 4 is larger than the map 2x2",
                      capsys.readouterr().err)
 
@@ -99,15 +99,15 @@ def test_conv_option_forces_and_reports_the_algorithm(capsys, monkeypatch):
     """--conv forces an algorithm on the layers that can run it, says so, and checks that path."""
     import tinyconv.layers.winograd as winograd
     text = "8x8gray/c16k3-c16k3-c16k3s2-c16k3-gap"
-    assert main(["check-grads", text]) == 0   # c_in 1, 16 on 8 x 8, stride 2, 16 on 4 x 4
+    assert main(["gradients", text]) == 0   # c_in 1, 16 on 8 x 8, stride 2, 16 on 4 x 4
     assert ("convolutions: 0:1:c16k3 im2col, 2:2:c16k3 winograd4, 4:3:c16k3s2 im2col, "
             "6:4:c16k3 winograd") in capsys.readouterr().out
-    assert main(["check-grads", text, "--conv", "winograd"]) == 0
+    assert main(["gradients", text, "--conv", "winograd"]) == 0
     assert ("convolutions: 0:1:c16k3 winograd, 2:2:c16k3 winograd, 4:3:c16k3s2 im2col, "
             "6:4:c16k3 winograd") in capsys.readouterr().out
     # The forced path is the one checked: a broken F(4x4) filter adjoint fails the check.
     broken = staticmethod(lambda du: 1.01 * winograd.kw4.filter_transform_adjoint(du))
     monkeypatch.setattr(winograd._F4, "filter_transform_adjoint", broken)
-    assert main(["check-grads", text, "--conv", "winograd4"]) == 1
+    assert main(["gradients", text, "--conv", "winograd4"]) == 1
     assert "FAIL" in capsys.readouterr().out
-    assert main(["check-grads", text, "--conv", "im2col"]) == 0
+    assert main(["gradients", text, "--conv", "im2col"]) == 0
