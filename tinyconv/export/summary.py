@@ -101,7 +101,7 @@ class ExportSummary:
                *([f"recipe        {self.recipe}"] if self.recipe else []),
                f"flash         {self.flash_bytes:,} bytes ({self.flash_bytes / 1024:.1f} KB) "
                "of constant arrays",
-               f"buffer         {self.activation_bytes:,} bytes ({self.activation_bytes / 1024:.1f} KB) "
+               f"buffer        {self.activation_bytes:,} bytes ({self.activation_bytes / 1024:.1f} KB) "
                "of activations",
                f"MACs          {self.macs:,} per image; {self.params:,} parameters",
                f"calibration   {self.calibration} over {self.n_calib} images; weights "
