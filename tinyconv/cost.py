@@ -42,9 +42,11 @@ from __future__ import annotations
 
 from dataclasses import asdict, dataclass
 from math import prod
-from typing import Union
+from typing import TYPE_CHECKING, Union
 
-import pandas as pd
+if TYPE_CHECKING:
+    import pandas as pd
+
 
 from tinyconv.arch import (Arch, BatchNorm, Conv, Dense, Depthwise, Op, check_classes, expand,
                            expand_head, expand_layer, parse, token_count)
@@ -170,9 +172,9 @@ class Cost:
         """The totals as a plain dict (no rows)."""
         return {k: v for k, v in asdict(self).items() if k != "rows"}
 
-    def table(self) -> pd.DataFrame:
-        """One row per :class:`OpCost` (the input first); shapes as ``8x8x16`` text,
-        the tensors alive as ``input + 1:c8k3``."""
+    def records(self) -> list[dict]:
+        """One plain dict per :class:`OpCost` (the input first); shapes as ``8x8x16``
+        text, the tensors alive as ``input + 1:c8k3``."""
         records = []
         for row in self.rows:
             rec = asdict(row)
@@ -180,7 +182,14 @@ class Cost:
             rec["out_shape"] = "x".join(map(str, row.out_shape))
             rec["alive"] = " + ".join(row.alive)
             records.append(rec)
-        return pd.DataFrame.from_records(records, columns=list(OpCost.__dataclass_fields__))
+        return records
+
+    def table(self) -> "pd.DataFrame":
+        """:meth:`records` as a DataFrame (pandas is imported only here: the cost
+        command and the budget filter need none of it)."""
+        import pandas as pd
+        return pd.DataFrame.from_records(self.records(),
+                                         columns=list(OpCost.__dataclass_fields__))
 
     def as_dict(self) -> dict:
         """Totals and rows as JSON-ready data."""

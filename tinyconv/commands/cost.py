@@ -13,7 +13,6 @@ import dataclasses
 import json
 import sys
 
-import pandas as pd
 
 from tinyconv.arch import Arch, parse, parse_input
 from tinyconv.cost import KB, cost_of, training_memory
@@ -68,6 +67,23 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="print JSON (totals, rows, training memory) instead of a table")
 
 
+def grid(columns: dict[str, list]) -> list[str]:
+    """Columns as right-aligned text, one space apart, the headings on top."""
+    texts = {h: [str(v) for v in vals] for h, vals in columns.items()}
+    widths = {h: max([len(h)] + [len(v) for v in vals]) for h, vals in texts.items()}
+    n = max((len(v) for v in texts.values()), default=0)
+    lines = [" ".join(h.rjust(widths[h]) for h in texts)]
+    lines += [" ".join(texts[h][i].rjust(widths[h]) for h in texts) for i in range(n)]
+    return lines
+
+
+def pairs(items: dict[str, str]) -> list[str]:
+    """Names left-aligned, values right-aligned, four spaces between the columns."""
+    kw = max(map(len, items), default=0)
+    vw = max(map(len, items.values()), default=0)
+    return [f"{k.ljust(kw)}    {v.rjust(vw)}" for k, v in items.items()]
+
+
 def resolve_arch(text: str, input_spec: str | None) -> Arch:
     """The architecture ``text`` names, on ``input_spec`` when given.
 
@@ -116,20 +132,21 @@ def run(args: argparse.Namespace) -> int:
         json.dump(data, sys.stdout, indent=2)
         print()
         return 0
-    table = cost.table()[list(_COLUMNS)].rename(columns=_COLUMNS)
+    records = cost.records()
+    columns = {heading: [rec[key] for rec in records] for key, heading in _COLUMNS.items()}
     if device is not None:
         core, clock, est = device
         instr = [0.0] * len(cost.rows)
         for step in est.steps:
             instr[step.row] = step.instructions
-        table["instructions"] = [f"{v:,.0f}" if v else "-" for v in instr]
-        table[f"ms @{clock:g}MHz"] = [f"{v * core.cpi / (clock * 1e3):.3f}" if v else "-"
-                                      for v in instr]
+        columns["instructions"] = [f"{v:,.0f}" if v else "-" for v in instr]
+        columns[f"ms @{clock:g}MHz"] = [f"{v * core.cpi / (clock * 1e3):.3f}" if v else "-"
+                                        for v in instr]
     # last, as it is the widest: what is alive at each step (residual blocks hold their input)
-    table["alive"] = cost.table()["alive"]
+    columns["alive"] = [rec["alive"] for rec in records]
     print(f"{cost.arch}  ({cost.n_classes} classes)")
-    print(table.to_string(index=False))
-    totals = pd.Series({
+    print("\n".join(grid(columns)))
+    totals = {
         "parameters": f"{cost.params:,}" + (f" (+{cost.state:,} batch-norm state)"
                                              if cost.state else ""),
         "MACs per image": f"{cost.macs:,}",
@@ -139,7 +156,7 @@ def run(args: argparse.Namespace) -> int:
         "peak activations, float32": f"{cost.peak_float32_bytes:,} B",
         f"training memory, batch {args.batch}": f"{memory.total_bytes:,} B "
                                                 f"({memory.total_bytes / KB / KB:.1f} MB)",
-    })
+    }
     if device is not None:
         core, clock, est = device
         totals[f"instructions on {core.name}"] = f"{est.instructions:,} per image (model)"
@@ -149,7 +166,7 @@ def run(args: argparse.Namespace) -> int:
         totals["device RAM"] = (f"{est.ram_bytes:,} B (activations {est.ram_static_bytes:,} + "
                                 f"stack <= {est.stack_bytes:,})")
     print()
-    print(totals.to_string())
+    print("\n".join(pairs(totals)))
     if device is not None:
         print(f"time assumes {device[0].cpi:g} cycles per instruction on {device[0].name}; "
               "measure the real count with `tinyconv emulate`")
