@@ -294,6 +294,11 @@ def _local_workers(request: SearchRequest, work):
     count = request.workers if request.workers is not None else (os.cpu_count() or 1)
     if request.cluster is not None or count == 0:
         return None
+    if count > 1 and work is None:
+        from tinyconv.layers.kernel_cache import cold
+        if cold():  # compile once here rather than in every worker at the same time
+            from search.unit import prime_kernels
+            prime_kernels()
     workers = LocalWorkers(request.out, count, work)
     workers.start()
     return workers

@@ -198,6 +198,37 @@ def warm_up() -> None:
     evaluate(net, x, y)
 
 
+#: Networks whose training and inference reach every kernel a unit can use: standard
+#: convolution by im2col (few input channels; inner layers too, for the image
+#: gradient's col2im, at strides 1 and 2), Winograd F(4x4) (training, maps of 8 x 8
+#: and more, whole and ragged tiles) and F(2x2) (smaller maps; inference), depthwise
+#: at strides 1 and 2, max,
+#: average and global pooling, batch norm, dropout, a residual addition, dense layers.
+PRIME_ARCHS = ("16x16gray/c16k3-c16k3-bn-p2-c16k3-a2-dw3-dw3s2-c16k3-x20-gap-d8",
+               "20x20rgb/c16k3-c8k3s2-[c32k1-dw3-c8k1]-c16k3-c16k3-p2-c16k3-gap")
+
+
+def prime_kernels() -> None:
+    """Compile (or load) every kernel a unit can use, in this process.
+
+    A search calls it before starting its worker processes when the kernel
+    cache is cold (:func:`tinyconv.layers.kernel_cache.cold`), so the kernels are
+    compiled once on the machine instead of once in every worker at the same
+    time; the workers then load them from the cache.
+    """
+    from tinyconv.network import Network
+    from tinyconv.train import TrainConfig, evaluate, fit
+    rng = np.random.default_rng(0)
+    for text in PRIME_ARCHS:
+        net = Network.from_arch(text, 2, seed=0)
+        h, w, c = net.arch.input.shape
+        x = rng.standard_normal((8, h, w, c)).astype(np.float32)
+        y = np.arange(8) % 2
+        for optimizer in ("adam", "sgd"):
+            fit(net, x, y, TrainConfig(epochs=1, batch_size=4, optimizer=optimizer), x, y)
+        evaluate(net, x, y)
+
+
 def run_unit(task: UnitTask, data: UnitData) -> UnitResult:
     """Train and evaluate one unit; raises only MemoryError (see the module notes)."""
     cpu0, wall0 = time.process_time(), time.perf_counter()
