@@ -303,6 +303,9 @@ class ClusterWorkers:
                              f"({exc}); start one with 'dask scheduler' and workers with "
                              "'dask worker ADDRESS --nthreads 1'") from None
         self.address = str(getattr(address, "scheduler_address", address))
+        # From the start, not only once a loss is seen: a connection that breaks logs
+        # a traceback from dask's own loggers before the search can notice the loss.
+        _quiet_dask()
         self.work = work or default_work()
         try:
             self._data = self.client.scatter(data, broadcast=True)
@@ -356,9 +359,9 @@ class ClusterWorkers:
 
 
 def _quiet_dask() -> None:
-    """Keep dask.distributed's log (on stderr) to critical messages: after a lost
-    scheduler its reconnect attempts log tracebacks, and the search says what
-    happened in one error line instead."""
+    """Keep dask.distributed's log (on stderr) to critical messages: a broken
+    connection and the reconnect attempts after a lost scheduler log tracebacks,
+    and the search says what happened in one error line instead."""
     import logging
     # dask.distributed's logging configuration sets levels on its sub-loggers
     # (distributed.client, ...), so each of them is turned down; so are those of
