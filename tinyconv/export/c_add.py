@@ -9,7 +9,8 @@ the symbol prefix, ``@U@`` its upper-case form.
 
 :data:`ADD` (the plain style) calls the general ``_scale`` three times a value;
 :data:`ADD_FAST` (the fast style) computes the same roundings on the magnitude
-with one 32 x 32 -> 64-bit product each (``_rs``, and ``_rq`` for the output),
+with one 32 x 32 -> 64-bit product each (``_rs`` and ``_rq`` of the fast
+style's requantisation template, :mod:`tinyconv.export.c_fast`),
 as the fast requantisation does, when every shift is within 0..31 (always, for
 the multipliers :func:`~tinyconv.quant.residual.add_multipliers` gives), and
 falls back on the general form otherwise.
@@ -38,19 +39,6 @@ ADD = r"""
 """.replace("@BITS@", str(ADD_BITS))
 
 ADD_FAST = r"""
-/* acc * mult / 2^31 / 2^shift with both roundings half away from zero, on the
-   magnitude with one 64-bit product (exact for 0 <= shift <= 31 and a multiplier
-   in [0, 2^31), which the caller checks). */
-@U@_INLINE int32_t @P@_rs(int32_t acc, int32_t mult, int32_t shift)
-{
-    uint32_t neg = acc < 0 ? 1u : 0u;
-    uint32_t mag = neg ? 0u - (uint32_t)acc : (uint32_t)acc;
-    uint64_t p = (uint64_t)mag * (uint32_t)mult + (((uint64_t)1 << 30) - neg);
-    mag = (uint32_t)(p >> 31);
-    mag = (mag + ((1u << shift) >> 1)) >> shift;
-    return neg ? -(int32_t)mag : (int32_t)mag;
-}
-
 /* Residual addition: y = a + b on three int8 grids. Both inputs go to one common
    scale (@BITS@ more fraction bits than the coarser one), are summed, and the sum
    is requantised to y's grid, rounding as the reference does. */

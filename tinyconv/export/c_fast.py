@@ -54,25 +54,26 @@ LD16 = r"""
 """
 
 REQUANT = r"""
-/* Requantise one accumulator and clamp: the reference's two roundings (of
-   acc * mult / 2^31, then of that / 2^shift, both half away from zero) computed
-   on the magnitude with one 64-bit product. Exact for 0 <= shift <= 31 and a
-   multiplier in [0, 2^31), which the exporter checks; other shifts take the
-   general form. */
+/* acc * mult / 2^31 / 2^shift: the reference's two roundings (of acc * mult /
+   2^31, then of that / 2^shift, both half away from zero) computed on the
+   magnitude with one 64-bit product. Exact for 0 <= shift <= 31 and a
+   multiplier in [0, 2^31), which the exporter checks. */
+@U@_INLINE int32_t @P@_rs(int32_t acc, int32_t mult, int32_t shift)
+{
+    uint32_t neg = acc < 0 ? 1u : 0u;
+    uint32_t mag = neg ? 0u - (uint32_t)acc : (uint32_t)acc;
+    uint64_t p = (uint64_t)mag * (uint32_t)mult + (((uint64_t)1 << 30) - neg);
+    mag = (uint32_t)(p >> 31);
+    mag = (mag + ((1u << shift) >> 1)) >> shift;
+    return neg ? -(int32_t)mag : (int32_t)mag;
+}
+
+/* Requantise one accumulator and clamp; shifts outside 0..31 take the general form. */
 @U@_INLINE int8_t @P@_rq(int32_t acc, int32_t mult, int32_t shift, int32_t zp,
                          int32_t lo, int32_t hi)
 {
-    int32_t y;
-    if ((uint32_t)shift > 31u) {
-        y = @P@_scale(acc, mult, shift);
-    } else {
-        uint32_t neg = acc < 0 ? 1u : 0u;
-        uint32_t mag = neg ? 0u - (uint32_t)acc : (uint32_t)acc;
-        uint64_t p = (uint64_t)mag * (uint32_t)mult + (((uint64_t)1 << 30) - neg);
-        mag = (uint32_t)(p >> 31);
-        mag = (mag + ((1u << shift) >> 1)) >> shift;
-        y = neg ? -(int32_t)mag : (int32_t)mag;
-    }
+    int32_t y = (uint32_t)shift > 31u ? @P@_scale(acc, mult, shift)
+                                      : @P@_rs(acc, mult, shift);
     y += zp;
     if (y < lo) y = lo;
     if (y > hi) y = hi;
