@@ -34,3 +34,19 @@ def positive_float(text: str) -> float:
     if not value > 0:
         raise argparse.ArgumentTypeError(f"{value} must be more than 0")
     return value
+
+
+def add_device_options(target, core_use: str, clock_use: str, many: bool = False) -> None:
+    """``--core`` and ``--clock-mhz`` on a parser or option group.
+
+    ``core_use`` and ``clock_use`` say what the command does with them; the
+    supported cores are listed from :data:`tinyconv.device.cores.CORES`.
+    ``many``: ``--core`` may be repeated (and ``all`` means every core).
+    """
+    from tinyconv.device.cores import CORES
+    names = ", ".join(CORES)
+    target.add_argument("--core", action="append" if many else "store", default=None,
+                        metavar="CORE",
+                        help=f"{core_use} ({names}{' or all; may be repeated' if many else ''})")
+    target.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
+                        help=f"{clock_use} (default: the core's assumed clock)")

@@ -14,6 +14,7 @@ import json
 import sys
 
 
+from tinyconv.commands._args import add_device_options
 from tinyconv.arch import Arch, parse, parse_input
 from tinyconv.cost import KB, cost_of, training_memory
 
@@ -57,12 +58,8 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="number of classes of the head (default 8)")
     parser.add_argument("--batch", type=_batch, default=64, metavar="N",
                         help="batch size for the training-memory figure (default 64)")
-    parser.add_argument("--core", default=None, metavar="CORE",
-                        help="also the modelled instructions and milliseconds per layer on a "
-                             "core: cortex-m3, cortex-m4, cortex-m7 or cortex-m33")
-    parser.add_argument("--clock-mhz", type=float, default=None, metavar="F",
-                        help="clock of the part for the milliseconds (default: the core's "
-                             "assumed clock)")
+    add_device_options(parser, "also the modelled instructions and milliseconds per layer "
+                       "on this core", "clock of the part for the milliseconds")
     parser.add_argument("--json", action="store_true",
                         help="print JSON (totals, rows, training memory) instead of a table")
 

@@ -26,7 +26,7 @@ import json
 import sys
 from pathlib import Path
 
-from tinyconv.commands._args import count, positive_float, positive_int
+from tinyconv.commands._args import add_device_options, count, positive_int
 
 DEFAULT_CORE = "cortex-m4"
 
@@ -43,12 +43,8 @@ def configure(parser: argparse.ArgumentParser) -> None:
                              "calibration.npz lies beside it (a data spec as for search)")
     parser.add_argument("--classes", type=positive_int, default=8, metavar="K",
                         help="classes of the head for ARCH (default 8)")
-    parser.add_argument("--core", action="append", default=None, metavar="CORE",
-                        help="cortex-m3, cortex-m4, cortex-m7, cortex-m33 or all; may be "
-                             f"repeated (default {DEFAULT_CORE})")
-    parser.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
-                        help="clock of the part for the time figure (default: the core's "
-                             "assumed clock)")
+    add_device_options(parser, f"the core to measure on, {DEFAULT_CORE} unless given",
+                       "clock of the part for the time figure", many=True)
     parser.add_argument("--images", type=positive_int, default=8, metavar="N",
                         help="images to classify (default 8)")
     parser.add_argument("--seed", type=count, default=0, metavar="S",

@@ -23,7 +23,7 @@ from typing import Callable
 import numpy as np
 
 from tinyconv import fmt
-from tinyconv.commands._args import positive_float, positive_int
+from tinyconv.commands._args import add_device_options, positive_int
 
 PICKS = ("one-se", "best")
 
@@ -43,13 +43,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="calibration images for the int8 ranges (default 256)")
     parser.add_argument("--prefix", default="tc", metavar="ID",
                         help="prefix of the C symbols and file names (default tc)")
-    parser.add_argument("--core", default=None, metavar="CORE",
-                        help="also build the C for this core (cortex-m3, cortex-m4, cortex-m7, "
-                             "cortex-m33), run it under QEMU on images held out of the "
-                             "calibration and write device.json")
-    parser.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
-                        help="the part's clock for the time figure (default: the core's "
-                             "assumed clock)")
+    add_device_options(parser, "also build the C for this core, run it under QEMU on images "
+                       "held out of the calibration and write device.json",
+                       "the part's clock for the time figure")
     parser.add_argument("--device-images", type=positive_int, default=16, metavar="N",
                         help="images for the device run (default 16)")
     parser.add_argument("--each-epoch", action="store_true",

@@ -15,7 +15,7 @@ import sys
 from pathlib import Path
 
 from search.config import parse_duration
-from tinyconv.commands._args import count, positive_float, positive_int
+from tinyconv.commands._args import add_device_options, count, positive_float, positive_int
 from tinyconv.commands._notes import kernels_note
 from tinyconv.commands.progress import SearchProgress, terminal_width
 from tinyconv.commands.summary import summary_lines
@@ -37,11 +37,7 @@ def add_budget_options(parser: argparse.ArgumentParser) -> None:
     b.add_argument("--max-ms", type=positive_float, default=None, metavar="MS",
                    help="milliseconds per image on the device (the cost model's time; "
                         "needs --core or a [device] table)")
-    b.add_argument("--core", default=None, metavar="CORE",
-                   help="the device's core for the time: cortex-m3, cortex-m4, cortex-m7, "
-                        "cortex-m33")
-    b.add_argument("--clock-mhz", type=positive_float, default=None, metavar="F",
-                   help="the device's clock (default: the core's assumed clock)")
+    add_device_options(b, "the device's core for the time", "the device's clock")
 
 
 def budgets_from(args: argparse.Namespace) -> dict:
