@@ -19,20 +19,22 @@ from __future__ import annotations
 
 import tempfile
 from dataclasses import asdict, dataclass, field
-from math import prod
 from pathlib import Path
 
 import numpy as np
 
 from tinyconv.device.build import build_elf, run_elf, symbol_sizes
 from tinyconv.device.cores import Core, milliseconds
+from tinyconv.device.model import device_steps
 from tinyconv.device.toolchain import Toolchain, find_toolchain
 from tinyconv.export.c_writer import generate_c
 from tinyconv.quant.integer import int8_outputs
 from tinyconv.quant.quantize import QuantizedNetwork
 
-CODE_TYPES = frozenset("tTrR")   # nm: text and read-only data
-DATA_TYPES = frozenset("bBdD")   # nm: zeroed and initialised data
+# arm-none-eabi-nm symbol types: code, read-only data (constants), zeroed and initialised data
+TEXT_TYPES = frozenset("tT")
+CONST_TYPES = frozenset("rR")
+DATA_TYPES = frozenset("bBdD")
 
 
 @dataclass(frozen=True)
@@ -128,15 +130,6 @@ def check_fits(qnet: QuantizedNetwork) -> None:
                           "data memory holds; measure a smaller network or input")
 
 
-def step_names(qnet: QuantizedNetwork) -> list[tuple[str, str]]:
-    """``(name, kind)`` of each step the C runs: the input step, then each layer."""
-    out = [("input", "input")]
-    last = len(qnet.layers) - 1
-    for j, layer in enumerate(qnet.layers):
-        out.append((layer.op.name, "head" if j == last else layer.kind))
-    return out
-
-
 def measure(qnet: QuantizedNetwork, images: np.ndarray, core: Core, *, prefix: str = "tc",
             opt: str = "-O2", steps: bool = True, workdir: Path | None = None,
             tools: Toolchain | None = None, macs: int | None = None,
@@ -173,7 +166,7 @@ def measure(qnet: QuantizedNetwork, images: np.ndarray, core: Core, *, prefix: s
                          f"{qnet.input_shape}")
     check_fits(qnet)
     code = generate_c(qnet, prefix, style=style)
-    names = step_names(qnet)
+    names = [(name, kind) for _, name, kind, _, _ in device_steps(qnet.arch, qnet.n_classes)]
     want_logits, want_classes = int8_outputs(qnet, images)
     with tempfile.TemporaryDirectory(prefix="tinyconv-device-") as tmp:
         folder = Path(workdir) if workdir is not None else Path(tmp)
@@ -192,8 +185,8 @@ def measure(qnet: QuantizedNetwork, images: np.ndarray, core: Core, *, prefix: s
             step_figures = tuple(StepFigure(n, k, int(round(v)))
                                  for (n, k), v in zip(names, per_step))
     wrong = (out.logits != want_logits).any(axis=1) | (out.classes != want_classes)
-    code_bytes = sum(size for kind, size in symbols.values() if kind in "tT")
-    data_bytes = sum(size for kind, size in symbols.values() if kind in "rR")
+    code_bytes = sum(size for kind, size in symbols.values() if kind in TEXT_TYPES)
+    data_bytes = sum(size for kind, size in symbols.values() if kind in CONST_TYPES)
     static_bytes = sum(size for kind, size in symbols.values() if kind in DATA_TYPES)
     instr = out.ticks * core.tick_instructions
     return Measurement(core=core.name, board=core.board, opt=opt, images=len(images),
@@ -242,6 +235,3 @@ def random_network(arch, n_classes: int, seed: int = 0, n_images: int = 64):
     qnet = quantize_network(net, np.full(c, 0.5), np.full(c, 0.25), images)
     return qnet, images
 
-
-def elements(shape) -> int:
-    return int(prod(shape))

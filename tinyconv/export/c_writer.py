@@ -25,7 +25,6 @@ C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
 
 from __future__ import annotations
 
-import keyword
 import re
 from dataclasses import dataclass
 from math import prod
