@@ -1,47 +1,54 @@
-"""What the fast C kernels read: reordered weights and folded biases, against loops."""
+"""What the fast C kernels read: reordered weights and patches, against loops."""
 
 import numpy as np
 import pytest
 
-from tinyconv.export.c_layout import GROUP_ORDER, pair_filters, swizzle_groups
-
-
-def _loops_swizzle(rows):
-    out = rows.copy()
-    for r in range(rows.shape[0]):
-        for g in range(rows.shape[1] // 4):
-            for j in range(4):
-                out[r, 4 * g + j] = rows[r, 4 * g + GROUP_ORDER[j]]
-    return out
+from tinyconv.export.c_fast_conv import PATCH_GROUP_ORDER, patch_offset
+from tinyconv.export.c_layout import pair_filters
 
 
 @pytest.mark.parametrize("f, k", [(1, 1), (2, 4), (3, 9), (4, 27), (5, 8), (2, 3)])
-def test_swizzle_and_pairs_match_plain_loops(f, k):
-    """Groups of four reordered (0, 2, 1, 3) and filters paired group by group, as loops do."""
+def test_pairs_match_plain_loops(f, k):
+    """Filters paired group by group of four values, then the pair's tails, as loops do."""
     rng = np.random.default_rng(f * 100 + k)
     rows = rng.integers(-127, 128, (f, k), dtype=np.int64)
-    sw = swizzle_groups(rows)
-    np.testing.assert_array_equal(sw, _loops_swizzle(rows))
-    flat = pair_filters(sw)
+    flat = pair_filters(rows)
     assert flat.size == f * k and sorted(flat.tolist()) == sorted(rows.reshape(-1).tolist())
-    full, t = (k // 4) * 4, k % 4
+    full = (k // 4) * 4
     want = []
     for o in range(0, f - 1, 2):
         for g in range(k // 4):
-            want += list(sw[o, 4 * g:4 * g + 4]) + list(sw[o + 1, 4 * g:4 * g + 4])
-        want += list(sw[o, full:]) + list(sw[o + 1, full:])
+            want += list(rows[o, 4 * g:4 * g + 4]) + list(rows[o + 1, 4 * g:4 * g + 4])
+        want += list(rows[o, full:]) + list(rows[o + 1, full:])
     if f % 2:
-        want += list(sw[-1])
+        want += list(rows[-1])
     np.testing.assert_array_equal(flat, want)
     # each pair starts at o * K, as the kernel computes it
     for o in range(0, f - 1, 2):
         assert flat[o * k:(o + 2) * k].size == 2 * k
 
 
-def test_swizzle_is_undone_by_the_pairing_the_kernel_reads():
-    """A word's bytes (0, 2, 1, 3) read as (byte 0, byte 2) and (byte 1, byte 3) give the
-    pairs (0, 1) and (2, 3): what SXTB16 of the word and of the word >> 8 take
-    (Arm C Language Extensions, __sxtb16)."""
-    values = np.array([[11, 22, 33, 44]])
-    b = swizzle_groups(values)[0]
-    assert (b[0], b[2]) == (11, 22) and (b[1], b[3]) == (33, 44)
+@pytest.mark.parametrize("k_total", [1, 3, 4, 9, 16, 27, 30])
+def test_patch_offsets_tile_the_pair(k_total):
+    """The two patches' int16 values fill the 4 K bytes of the pair once each, and each
+    group of four sits in 8 bytes of its own pixel."""
+    offsets = [patch_offset(j, q, k_total) for q in (0, 1) for j in range(k_total)]
+    assert sorted(offsets) == list(range(0, 4 * k_total, 2))
+    for j in range(k_total // 4 * 4):
+        for q in (0, 1):
+            base = 16 * (j // 4) + 8 * q
+            assert base <= patch_offset(j, q, k_total) < base + 8
+
+
+def test_group_order_pairs_with_sign_extension_of_a_word():
+    """SXTB16 of a word of weights (w0..w3) gives (w0, w2), of the word rotated by 8
+    gives (w1, w3) (Arm C Language Extensions, __sxtb16); the patch's group order
+    (0, 2, 1, 3) puts (x0, x2) in its first word and (x1, x3) in its second, so two
+    dual multiply-accumulates give w0 x0 + w1 x1 + w2 x2 + w3 x3."""
+    weights = np.array([3, -5, 7, 11])
+    x = np.array([13, 17, -19, 23])
+    word = weights[[0, 2]], weights[[1, 3]]              # the two SXTB16 results
+    patch = x[list(PATCH_GROUP_ORDER)]                    # as stored
+    first, second = patch[:2], patch[2:]                  # the patch's two words
+    total = int(word[0] @ first + word[1] @ second)
+    assert total == int(weights @ x)

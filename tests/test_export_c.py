@@ -133,8 +133,9 @@ def test_c_has_no_floats_no_malloc_and_only_two_headers():
         assert not re.search(r"\b(float|double|malloc|calloc|free|printf)\b", body)
         includes = re.findall(r"#include\s*([<\"][^>\"]+[>\"])", body)
         assert set(includes) <= {"<stdint.h>", "<string.h>", '"tc.h"', "<arm_acle.h>"}
-    # arm_acle.h only where the DSP path is switched on
-    guarded = re.search(r"#if TC_USE_DSP\n#include <arm_acle.h>\n#endif", code.source)
+    # arm_acle.h only where the DSP path is on or the core has the saturation instruction
+    guarded = re.search(r"#if TC_USE_DSP \|\| \(defined\(__ARM_FEATURE_SAT\) && "
+                        r"__ARM_FEATURE_SAT\)\n#include <arm_acle.h>\n#endif", code.source)
     assert guarded and code.source.count("arm_acle.h") == 1
     # header comment: architecture, classes and sizes
     assert ARCHS[0][0] in code.header and "4 c4" in code.header

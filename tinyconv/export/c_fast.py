@@ -37,9 +37,36 @@ DSP = r"""
 #define @U@_INLINE static
 #endif
 
-/* The DSP extension's dual 16-bit multiply-accumulate (Arm C Language Extensions). */
-#if @U@_USE_DSP
+/* The DSP extension's dual 16-bit multiply-accumulate and the saturation
+   instruction (Arm C Language Extensions). */
+#if @U@_USE_DSP || (defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT)
 #include <arm_acle.h>
+#endif
+#if @U@_USE_DSP
+/* SXTB16 of a word rotated right by 8 bits (its bytes 1 and 3): one instruction
+   where the compiler takes GCC's inline assembly, a rotation and SXTB16 elsewhere. */
+@U@_INLINE int32_t @P@_sxtb16_ror8(uint32_t u)
+{
+#if defined(__GNUC__)
+    int32_t r;
+    __asm__("sxtb16 %0, %1, ror #8" : "=r"(r) : "r"(u));
+    return r;
+#else
+    return __sxtb16((int32_t)((u >> 8) | (u << 24)));
+#endif
+}
+
+/* a + SXTB16 of u rotated right by 8 (per 16-bit half), the same way. */
+@U@_INLINE int32_t @P@_sxtab16_ror8(int32_t a, uint32_t u)
+{
+#if defined(__GNUC__)
+    int32_t r;
+    __asm__("sxtab16 %0, %1, %2, ror #8" : "=r"(r) : "r"(a), "r"(u));
+    return r;
+#else
+    return __sxtab16(a, (int32_t)((u >> 8) | (u << 24)));
+#endif
+}
 #endif
 """
 
@@ -79,172 +106,73 @@ REQUANT = r"""
     if (y > hi) y = hi;
     return (int8_t)y;
 }
-"""
 
-PATCH = r"""
-/* One output pixel's receptive field as int16 (x - zp) in the weights' order
-   (kernel rows, columns, channels); taps in the padding are 0. */
-static void @P@_patch(const int8_t *x, int8_t *col, int32_t h, int32_t w, int32_t c,
-                      int32_t k, int32_t iy0, int32_t ix0, int32_t xz)
+/* C99 leaves two things to the compiler that the one-product form below relies
+   on: >> of a negative int32_t copies the sign bit in, and a uint32_t above
+   INT32_MAX converts to int32_t modulo 2^32. Compilers for these cores do both;
+   this line stops the build on one that does not, rather than let it be wrong. */
+typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u == -8) ? 1 : -1];
+
+/* acc * mult / 2^31 / 2^shift + zp for 2 <= shift <= 23, in one signed 64-bit
+   multiply-add: the reference's two roundings (of acc * mult / 2^31, halves
+   up; then of that / 2^shift, halves away from zero) nest into one,
+   (acc * mult + N) >> (31 + shift) with N = 2^(30 + shift) + 2^30 for acc >= 0
+   and 2^(30 + shift) - 2^30 below, plus zp * 2^(31 + shift). nh is the high
+   word of N for acc >= 0, s1 = shift - 1 (see @P@_rq_nh). */
+@U@_INLINE int32_t @P@_rq1(int32_t acc, int32_t mult, uint32_t nh, int32_t s1)
 {
-    int32_t ky, kx, j;
-    int16_t v;
-    int32_t row = k * c;
-    for (ky = 0; ky < k; ++ky) {
-        int32_t iy = iy0 + ky;
-        if (iy < 0 || iy >= h) {
-            memset(col, 0, (size_t)row * 2u);
-        } else if (ix0 >= 0 && ix0 + k <= w) {  /* the whole kernel row inside */
-            const int8_t *px = x + (iy * w + ix0) * c;
-            for (j = 0; j < row; ++j) {
-                v = (int16_t)(px[j] - xz);
-                memcpy(col + 2 * j, &v, 2);
-            }
-        } else {
-            for (kx = 0; kx < k; ++kx) {
-                int32_t ix = ix0 + kx;
-                int8_t *dst = col + 2 * kx * c;
-                if (ix < 0 || ix >= w) {
-                    memset(dst, 0, (size_t)c * 2u);
-                } else {
-                    const int8_t *px = x + (iy * w + ix) * c;
-                    for (j = 0; j < c; ++j) {
-                        v = (int16_t)(px[j] - xz);
-                        memcpy(dst + 2 * j, &v, 2);
-                    }
-                }
-            }
-        }
-        col += row * 2;
-    }
+    uint32_t m = 0u - (uint32_t)(acc < 0);  /* all ones below zero */
+    uint64_t n = ((uint64_t)(nh + m) << 32) | (0x40000000u | (m << 31));
+    uint64_t p = n + (uint64_t)((int64_t)acc * mult);
+    return (int32_t)(uint32_t)(p >> 32) >> s1;
 }
-"""
 
-CONV = r"""
-/* Every filter x the pixels of one or two patches (col0, col1; col1 may be 0).
-   Weights: per pair of filters, group by group, four values of the first then
-   four of the second (each group stored as (0, 2, 1, 3)), then the pair's tails
-   (K % 4 values each, in order); a last odd filter alone the same way. The loops
-   are written so that at most 13 values are live (the core has 14 registers). */
-static void @P@_mm(const int8_t *col0, const int8_t *col1, int32_t K, int32_t f,
-                   const int8_t *wt, const int32_t *bias, const int32_t *mult,
-                   const int32_t *shift, int32_t yz, int32_t lo, int32_t hi,
-                   int8_t *y0, int8_t *y1)
+/* The high word of @P@_rq1's constant, 2^(shift - 2) + zp * 2^(shift - 1),
+   as zq * 2^(shift - 2) with zq = 2 zp + 1 (one shift a channel). */
+@U@_INLINE uint32_t @P@_rq_nh(int32_t shift, int32_t zp)
 {
-    int32_t o, i, n, t = K & 3;
-    const int8_t *c1 = col1 ? col1 : col0;
-    for (o = 0; o + 1 < f; o += 2) {
-        const int8_t *wp = wt + o * K, *p0 = col0, *p1 = c1;
-        int32_t a00 = bias[o], a01 = bias[o], a10 = bias[o + 1], a11 = bias[o + 1];
-        for (n = K >> 2; n > 0; --n) {
-#if @U@_USE_DSP
-            uint32_t u;
-            int32_t wa0, wb0, wa1, wb1, x;
-            memcpy(&u, wp, 4);
-            wa0 = __sxtb16((int32_t)u);
-            wb0 = __sxtb16((int32_t)(u >> 8));
-            memcpy(&u, wp + 4, 4);
-            wa1 = __sxtb16((int32_t)u);
-            wb1 = __sxtb16((int32_t)(u >> 8));
-            memcpy(&x, p0, 4);
-            a00 = __smlad(wa0, x, a00);
-            a10 = __smlad(wa1, x, a10);
-            memcpy(&x, p0 + 4, 4);
-            a00 = __smlad(wb0, x, a00);
-            a10 = __smlad(wb1, x, a10);
-            memcpy(&x, p1, 4);
-            a01 = __smlad(wa0, x, a01);
-            a11 = __smlad(wa1, x, a11);
-            memcpy(&x, p1 + 4, 4);
-            a01 = __smlad(wb0, x, a01);
-            a11 = __smlad(wb1, x, a11);
+    return (uint32_t)(2 * zp + 1) << (shift - 2);
+}
+
+/* Clamp to [lo, 127] (lo >= -128; every layer's upper clamp is 127, which
+   the exporter checks): the saturation instruction where the core has one
+   (Arm C Language Extensions, __ssat; Cortex-M3 and up), then lo. */
+@U@_INLINE int32_t @P@_clamp(int32_t v, int32_t lo)
+{
+#if defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT
+    v = __ssat(v, 8);
 #else
-            int32_t x0, x1;
-            x0 = @P@_ld16(p0);
-            x1 = @P@_ld16(p1);
-            a00 += wp[0] * x0;
-            a01 += wp[0] * x1;
-            a10 += wp[4] * x0;
-            a11 += wp[4] * x1;
-            x0 = @P@_ld16(p0 + 4);
-            x1 = @P@_ld16(p1 + 4);
-            a00 += wp[1] * x0;
-            a01 += wp[1] * x1;
-            a10 += wp[5] * x0;
-            a11 += wp[5] * x1;
-            x0 = @P@_ld16(p0 + 2);
-            x1 = @P@_ld16(p1 + 2);
-            a00 += wp[2] * x0;
-            a01 += wp[2] * x1;
-            a10 += wp[6] * x0;
-            a11 += wp[6] * x1;
-            x0 = @P@_ld16(p0 + 6);
-            x1 = @P@_ld16(p1 + 6);
-            a00 += wp[3] * x0;
-            a01 += wp[3] * x1;
-            a10 += wp[7] * x0;
-            a11 += wp[7] * x1;
+    v = v > 127 ? 127 : (v < -128 ? -128 : v);
 #endif
-            wp += 8;
-            p0 += 8;
-            p1 += 8;
-        }
-        for (i = 0; i < t; ++i) {
-            int32_t x0 = @P@_ld16(p0 + 2 * i), x1 = @P@_ld16(p1 + 2 * i);
-            a00 += wp[i] * x0;
-            a01 += wp[i] * x1;
-            a10 += wp[t + i] * x0;
-            a11 += wp[t + i] * x1;
-        }
-        y0[o] = @P@_rq(a00, mult[o], shift[o], yz, lo, hi);
-        y0[o + 1] = @P@_rq(a10, mult[o + 1], shift[o + 1], yz, lo, hi);
-        if (col1) {
-            y1[o] = @P@_rq(a01, mult[o], shift[o], yz, lo, hi);
-            y1[o + 1] = @P@_rq(a11, mult[o + 1], shift[o + 1], yz, lo, hi);
-        }
-    }
-    if (o < f) {  /* a last odd filter */
-        const int8_t *wp = wt + o * K, *p0 = col0, *p1 = c1;
-        int32_t a00 = bias[o], a01 = bias[o];
-        for (n = K >> 2; n > 0; --n) {
-            a00 += wp[0] * @P@_ld16(p0) + wp[1] * @P@_ld16(p0 + 4)
-                   + wp[2] * @P@_ld16(p0 + 2) + wp[3] * @P@_ld16(p0 + 6);
-            a01 += wp[0] * @P@_ld16(p1) + wp[1] * @P@_ld16(p1 + 4)
-                   + wp[2] * @P@_ld16(p1 + 2) + wp[3] * @P@_ld16(p1 + 6);
-            wp += 4;
-            p0 += 8;
-            p1 += 8;
-        }
-        for (i = 0; i < t; ++i) {
-            a00 += wp[i] * @P@_ld16(p0 + 2 * i);
-            a01 += wp[i] * @P@_ld16(p1 + 2 * i);
-        }
-        y0[o] = @P@_rq(a00, mult[o], shift[o], yz, lo, hi);
-        if (col1) y1[o] = @P@_rq(a01, mult[o], shift[o], yz, lo, hi);
+    return v < lo ? lo : v;
+}
+
+/* Requantise two accumulators of one channel (two pixels) and clamp to
+   [lo, 127]; the channel's constants are worked out once; shifts outside
+   2..23 (rare) take the general form. */
+@U@_INLINE void @P@_out2(int32_t a0, int32_t a1, int32_t mult, int32_t shift, int32_t zp,
+                         int32_t lo, int8_t *y0, int8_t *y1)
+{
+    if ((uint32_t)(shift - 2) <= 21u) {
+        uint32_t nh = @P@_rq_nh(shift, zp);
+        *y0 = (int8_t)@P@_clamp(@P@_rq1(a0, mult, nh, shift - 1), lo);
+        *y1 = (int8_t)@P@_clamp(@P@_rq1(a1, mult, nh, shift - 1), lo);
+    } else {
+        *y0 = @P@_rq(a0, mult, shift, zp, lo, 127);
+        *y1 = @P@_rq(a1, mult, shift, zp, lo, 127);
     }
 }
 
-/* Convolution, NHWC, two output pixels at a time through the int16 patch
-   buffer `col` (2 k k c values). */
-@U@_KERNEL void @P@_conv(const int8_t *x, int8_t *y, int8_t *col, int32_t h, int32_t w,
-                         int32_t c, int32_t oh, int32_t ow, int32_t f, int32_t k,
-                         int32_t s, int32_t pt, int32_t pl, int32_t xz, const int8_t *wt,
-                         const int32_t *bias, const int32_t *mult, const int32_t *shift,
-                         int32_t yz, int32_t lo, int32_t hi)
+/* Requantise one accumulator and clamp (the one-product form where it applies). */
+@U@_INLINE int8_t @P@_out1(int32_t acc, int32_t mult, int32_t shift, int32_t zp,
+                           int32_t lo, int32_t hi)
 {
-    int32_t K = k * k * c, n = oh * ow, p;
-    for (p = 0; p < n; p += 2) {
-        int32_t oy = p / ow, ox = p - oy * ow;
-        int8_t *col1 = 0;
-        @P@_patch(x, col, h, w, c, k, oy * s - pt, ox * s - pl, xz);
-        if (p + 1 < n) {
-            int32_t qy = (p + 1) / ow, qx = p + 1 - qy * ow;
-            col1 = col + 2 * K;
-            @P@_patch(x, col1, h, w, c, k, qy * s - pt, qx * s - pl, xz);
-        }
-        @P@_mm(col, col1, K, f, wt, bias, mult, shift, yz, lo, hi, y + p * f,
-               y + (p + 1) * f);
-    }
+    int32_t v;
+    if ((uint32_t)(shift - 2) > 21u) return @P@_rq(acc, mult, shift, zp, lo, hi);
+    v = @P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1);
+    if (v > hi) v = hi;
+    if (v < lo) v = lo;
+    return (int8_t)v;
 }
 """
 
@@ -417,7 +345,9 @@ DWCONV = r"""
 """
 
 MAXPOOL = r"""
-/* Max pooling, size = stride = s, ragged edge dropped; channel loop innermost. */
+/* Max pooling, size = stride = s, ragged edge dropped; channel loop innermost.
+   For s = 2 on the DSP path, four channels a word: SSUB8 sets each byte's
+   greater-or-equal flag and SEL picks the larger (Arm C Language Extensions). */
 @U@_KERNEL void @P@_maxpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
                             int32_t oh, int32_t ow, int32_t s)
 {
@@ -428,14 +358,31 @@ MAXPOOL = r"""
             int8_t *out = y + (oy * ow + ox) * c;
             if (s == 2) {
                 const int8_t *q = p + w * c;
-                for (ch = 0; ch < c; ++ch) {
-                    int8_t m = p[ch], v = p[ch + c];
-                    if (v > m) m = v;
+                ch = 0;
+#if @U@_USE_DSP
+                for (; ch + 4 <= c; ch += 4) {
+                    int32_t a, b, m;
+                    memcpy(&a, p + ch, 4);
+                    memcpy(&b, p + ch + c, 4);
+                    (void)__ssub8(a, b);
+                    m = __sel(a, b);
+                    memcpy(&a, q + ch, 4);
+                    (void)__ssub8(m, a);
+                    m = __sel(m, a);
+                    memcpy(&b, q + ch + c, 4);
+                    (void)__ssub8(m, b);
+                    m = __sel(m, b);
+                    memcpy(out + ch, &m, 4);
+                }
+#endif
+                for (; ch < c; ++ch) {
+                    int32_t m = p[ch], v = p[ch + c];
+                    m = v > m ? v : m;
                     v = q[ch];
-                    if (v > m) m = v;
+                    m = v > m ? v : m;
                     v = q[ch + c];
-                    if (v > m) m = v;
-                    out[ch] = m;
+                    m = v > m ? v : m;
+                    out[ch] = (int8_t)m;
                 }
                 continue;
             }
@@ -501,7 +448,7 @@ NEEDS = {
     "dwconv": ("SCALE", "DSP", "REQUANT", "DWCONV"),
     "dense": ("SCALE", "DSP", "REQUANT", "DOT_DIRECT", "DENSE"),
     "head": ("SCALE", "DSP", "REQUANT", "DOT_DIRECT", "HEAD"),
-    "maxpool": ("MAXPOOL",),
+    "maxpool": ("DSP", "MAXPOOL"),
     "avgpool": ("RDIV", "AVGPOOL"),
     "gap": ("RDIV", "GAP"),
     "add": ("SCALE", "DSP", "REQUANT", "ADD"),
@@ -512,10 +459,11 @@ ORDER = ("KERNEL", "SCALE", "RDIV", "DSP", "LD16", "REQUANT", "PATCH", "CONV", "
 
 def templates() -> dict[str, str]:
     """Name -> text of every template of this style (shared ones from the plain style)."""
-    from tinyconv.export import c_add, c_kernels
+    from tinyconv.export import c_add, c_fast_conv, c_kernels
     return {"KERNEL": c_kernels.KERNEL, "SCALE": c_kernels.SCALE, "RDIV": c_kernels.RDIV,
             "ADD": c_add.ADD_FAST,
-            "DSP": DSP, "LD16": LD16, "REQUANT": REQUANT, "PATCH": PATCH, "CONV": CONV,
+            "DSP": DSP, "LD16": LD16, "REQUANT": REQUANT,
+            "PATCH": c_fast_conv.PATCH, "CONV": c_fast_conv.CONV,
             "DOT_DIRECT": DOT_DIRECT, "DENSE": DENSE, "HEAD": HEAD, "DWCONV": DWCONV,
             "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
 

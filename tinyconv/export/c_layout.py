@@ -1,12 +1,12 @@
 """What the fast C kernels read: weights in their order, biases with the zero point
 folded in, and the scratch each step needs. Pure functions of a quantised layer.
 
-* conv weights ``[f][k][k][c]`` flattened to ``[f][K]``; within each filter,
-  every group of four values stored as (0, 2, 1, 3): a 32-bit load then gives
-  the pairs (0, 1) and (2, 3) through the DSP extension's ``SXTB16`` of the
-  word and of the word shifted right by 8 (the last ``K % 4`` values stay in
-  order); and filters interleaved in pairs group by group (:func:`pair_filters`)
-  so the kernel walks one pointer; the patch buffer holds ``x - zp``, so the
+* conv weights ``[f][k][k][c]`` flattened to ``[f][K]``, filters interleaved
+  in pairs group by group of four values (:func:`pair_filters`) so the kernel
+  walks one pointer; a 32-bit load of a group gives the pairs (0, 2) and
+  (1, 3) through the DSP extension's ``SXTB16`` of the word and of the word
+  rotated by 8, which is why the patch stores each group as (0, 2, 1, 3)
+  (:mod:`tinyconv.export.c_fast_conv`); the patch holds ``x - zp``, so the
   conv bias is unchanged;
 * dense and head weights ``[n_out][n_in]`` in order, bias ``b - zp * sum_i w``;
 * depthwise weights ``[k][k][c]``, bias ``b - zp * sum over the window of w``;
@@ -24,32 +24,8 @@ from tinyconv.quant.quantize import QuantLayer
 INT32_MAX = 2 ** 31 - 1
 #: largest |x * w| of one int8 product
 MAX_PRODUCT = 128 * 128
-#: order of the four values of a group in the stored conv weights
-GROUP_ORDER = (0, 2, 1, 3)
-
-
-def swizzle_groups(rows: np.ndarray) -> np.ndarray:
-    """Each row's groups of four values reordered (0, 2, 1, 3); the tail kept.
-
-    Parameters
-    ----------
-    rows : ndarray, shape (f, K)
-
-    Returns
-    -------
-    ndarray, shape (f, K)
-    """
-    rows = np.asarray(rows)
-    out = rows.copy()
-    full = (rows.shape[1] // 4) * 4
-    if full:
-        groups = rows[:, :full].reshape(rows.shape[0], -1, 4)
-        out[:, :full] = groups[:, :, list(GROUP_ORDER)].reshape(rows.shape[0], full)
-    return out
-
-
 def pair_filters(rows: np.ndarray) -> np.ndarray:
-    """Rows ``[f][K]`` (groups already reordered) laid out for the fast conv kernel.
+    """Rows ``[f][K]`` laid out for the fast conv kernel.
 
     Per pair of filters: group by group, the four values of the first then the
     four of the second; then the first's tail (``K % 4`` values), then the
@@ -68,11 +44,18 @@ def pair_filters(rows: np.ndarray) -> np.ndarray:
 
 
 def weights(layer: QuantLayer, style: str) -> np.ndarray:
-    """The weights in the order the kernels of ``style`` read them."""
+    """The weights in the order the kernels of ``style`` read them.
+
+    The fast kernels clamp every output at 127 (the quantiser's upper clamp
+    for every layer); a layer with another upper clamp is refused.
+    """
+    if style == "fast" and layer.hi != 127:
+        raise ValueError(f"layer {layer.kind} clamps its outputs at {layer.hi}; the fast C "
+                         "kernels clamp at 127; export it with style='plain'")
     w = layer.weights
     if layer.kind == "conv":
         rows = w.transpose(3, 0, 1, 2).reshape(w.shape[3], -1)  # (k, k, c, f) -> [f][K]
-        return pair_filters(swizzle_groups(rows)) if style == "fast" else rows
+        return pair_filters(rows) if style == "fast" else rows
     if layer.kind == "dense":
         return w.T  # (n_in, n_out) -> [n_out][n_in]
     return w  # dwconv (k, k, c), read as [k][k][c]

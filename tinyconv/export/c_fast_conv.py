@@ -1,0 +1,302 @@
+"""The C99 text of the fast convolution: int16 patches and a register-blocked product.
+
+Two output pixels at a time: their receptive fields are copied into the
+scratch as int16 ``x - zp`` (:data:`PATCH`; taps in the padding are 0, so the
+product has no branches), then every pair of filters is multiplied with both
+patches at once (:data:`CONV`: four accumulators, two filters x two pixels),
+four values of ``K = k k c`` a step. The two patches are interleaved so that
+one pointer walks both: group by group (four values), the first pixel's four
+then the second's, each group's values stored in the order (0, 2, 1, 3); then
+the last ``K % 4`` values one by one, the first pixel's then the second's
+(:func:`patch_offset` says the same in Python). The weights come from
+:func:`tinyconv.export.c_layout.weights`: per pair of filters, group by group,
+four values of the first then four of the second, in order. So on the DSP
+path one 32-bit load of four weights gives the pairs (0, 2) and (1, 3) through
+``SXTB16`` of the word and of the word rotated by 8, which line up with the
+patch's two words, and ``SMLAD`` does two products each. The
+requantisation's per-channel constants are worked out once for both pixels
+(``_out2`` in :data:`tinyconv.export.c_fast.REQUANT`).
+"""
+
+#: order of a group's four values in the patch
+PATCH_GROUP_ORDER = (0, 2, 1, 3)
+
+
+def patch_offset(j: int, pixel: int, k_total: int) -> int:
+    """Byte offset of value ``j`` of ``pixel`` (0 or 1) in the interleaved patch pair."""
+    full = k_total // 4 * 4
+    if j < full:
+        return 16 * (j // 4) + 8 * pixel + 2 * PATCH_GROUP_ORDER.index(j % 4)
+    return 4 * j + 2 * pixel
+
+
+PATCH = r"""
+/* Byte offset of value j of pixel q in the interleaved pair: in a group
+   (j < full) at 16 (j / 4) + 8 q + 2 r with r = 0, 2, 1, 3 for j % 4 = 0..3;
+   in the tail at 4 j + 2 q. */
+@U@_INLINE int32_t @P@_at(int32_t j, int32_t full, int32_t q)
+{
+    if (j >= full) return 4 * j + 2 * q;
+    return 16 * (j >> 2) + 8 * q + 4 * (j & 1) + 2 * ((j >> 1) & 1);
+}
+
+/* Values j .. j + n - 1 of pixel q's patch as int16 x - zp into the interleaved
+   pair at col (zeros when src is 0: taps in the padding). */
+static void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n, int32_t xz,
+                    int32_t full, int32_t q)
+{
+    int32_t e = j + n;
+    int16_t v = 0;
+#if @U@_USE_DSP
+    uint32_t nz2 = ((0u - (uint32_t)xz) & 0xFFFFu) * 0x10001u;  /* -zp in both halves */
+#endif
+    if (src) {
+        for (; j < e && ((j & 3) || j >= full); ++j) {  /* up to a group's start, or the tail */
+            v = (int16_t)(*src++ - xz);
+            memcpy(col + @P@_at(j, full, q), &v, 2);
+        }
+        for (; j + 4 <= e && j < full; j += 4, src += 4) {  /* whole groups */
+            int8_t *dst = col + 4 * j + 8 * q;
+#if @U@_USE_DSP
+            uint32_t u;
+            int32_t a, b;
+            memcpy(&u, src, 4);
+            a = __sxtab16((int32_t)nz2, (int32_t)u);  /* values 0, 2 */
+            b = @P@_sxtab16_ror8((int32_t)nz2, u);    /* values 1, 3 */
+            memcpy(dst, &a, 4);
+            memcpy(dst + 4, &b, 4);
+#else
+            int16_t g[4];
+            g[0] = (int16_t)(src[0] - xz);
+            g[1] = (int16_t)(src[2] - xz);
+            g[2] = (int16_t)(src[1] - xz);
+            g[3] = (int16_t)(src[3] - xz);
+            memcpy(dst, g, 8);
+#endif
+        }
+    }
+    for (; j < e; ++j) {  /* the rest one by one (all of a padding run) */
+        if (src) v = (int16_t)(*src++ - xz);
+        memcpy(col + @P@_at(j, full, q), &v, 2);
+    }
+}
+
+/* An inside pixel's patch by table (a short K whose kernel rows do not fill
+   whole groups: first layers of 1 or 3 channels): value j from px + so[j]
+   into col + at[j] (slot 0; slot q adds 8 q in the groups, 2 q in the tail). */
+static void @P@_patch_table(const int8_t *px, int8_t *col, int32_t q, const int16_t *so,
+                            const int16_t *at, int32_t K, int32_t full, int32_t xz)
+{
+    int32_t j;
+    int8_t *dst = col + 8 * q;
+    for (j = 0; j < full; ++j) {
+        int16_t v = (int16_t)(px[so[j]] - xz);
+        memcpy(dst + at[j], &v, 2);
+    }
+    dst = col + 2 * q;
+    for (; j < K; ++j) {
+        int16_t v = (int16_t)(px[so[j]] - xz);
+        memcpy(dst + at[j], &v, 2);
+    }
+}
+
+/* One output pixel's receptive field (kernel rows, columns, channels: the
+   weights' order) into slot q of the interleaved pair at col. */
+static void @P@_patch(const int8_t *x, int8_t *col, int32_t q, int32_t h, int32_t w,
+                      int32_t c, int32_t k, int32_t iy0, int32_t ix0, int32_t xz)
+{
+    int32_t ky, kx, row = k * c, full = (k * row) & ~3;
+    for (ky = 0; ky < k; ++ky) {
+        int32_t iy = iy0 + ky, j = ky * row;
+        if (iy < 0 || iy >= h) {
+            @P@_put(0, col, j, row, 0, full, q);
+        } else if (ix0 >= 0 && ix0 + k <= w) {  /* the whole kernel row inside */
+            @P@_put(x + (iy * w + ix0) * c, col, j, row, xz, full, q);
+        } else {
+            for (kx = 0; kx < k; ++kx, j += c) {
+                int32_t ix = ix0 + kx;
+                @P@_put(ix < 0 || ix >= w ? 0 : x + (iy * w + ix) * c, col, j, c, xz, full, q);
+            }
+        }
+    }
+}
+"""
+
+CONV = r"""
+/* The longest K patched by table (its two int16 tables live on the stack). */
+#define @U@_TABLE 64
+
+/* One group of four values of K for filters a, b (weights at wp + 8 j) and
+   pixels 0, 1 (the pair at pp + 16 j). */
+#if @U@_USE_DSP && defined(__GNUC__)
+/* GCC's scheduler hoists the loads of an unrolled C version and spills an
+   accumulator; written out, a group is six loads that step the pointers, four
+   SXTB16 and eight SMLAD. wp and pp move on by 8 and 16 bytes. */
+#define @U@_GROUP(j)                                                          \
+    do {                                                                      \
+        uint32_t ua, ub, wa, wb, x0, x1;                                      \
+        __asm__ volatile(                                                     \
+            "ldr %[ua], [%[wp]], #4\n\t"                                      \
+            "ldr %[ub], [%[wp]], #4\n\t"                                      \
+            "ldr %[x0], [%[pp]], #4\n\t"                                      \
+            "ldr %[x1], [%[pp]], #4\n\t"                                      \
+            "sxtb16 %[wa], %[ua]\n\t"                                         \
+            "sxtb16 %[wb], %[ub]\n\t"                                         \
+            "smlad %[a00], %[wa], %[x0], %[a00]\n\t"                          \
+            "smlad %[a10], %[wb], %[x0], %[a10]\n\t"                          \
+            "sxtb16 %[ua], %[ua], ror #8\n\t"                                 \
+            "sxtb16 %[ub], %[ub], ror #8\n\t"                                 \
+            "smlad %[a00], %[ua], %[x1], %[a00]\n\t"                          \
+            "smlad %[a10], %[ub], %[x1], %[a10]\n\t"                          \
+            "ldr %[x0], [%[pp]], #4\n\t"                                      \
+            "ldr %[x1], [%[pp]], #4\n\t"                                      \
+            "smlad %[a01], %[wa], %[x0], %[a01]\n\t"                          \
+            "smlad %[a11], %[wb], %[x0], %[a11]\n\t"                          \
+            "smlad %[a01], %[ua], %[x1], %[a01]\n\t"                          \
+            "smlad %[a11], %[ub], %[x1], %[a11]\n\t"                          \
+            : [a00] "+r"(a00), [a01] "+r"(a01), [a10] "+r"(a10), [a11] "+r"(a11), \
+              [wp] "+r"(wp), [pp] "+r"(pp), [ua] "=&r"(ua), [ub] "=&r"(ub),   \
+              [wa] "=&r"(wa), [wb] "=&r"(wb), [x0] "=&r"(x0), [x1] "=&r"(x1)  \
+            :                                                                 \
+            : "memory");                                                      \
+    } while (0)
+#define @U@_STEP_W 0
+#define @U@_STEP_P 0
+#elif @U@_USE_DSP
+#define @U@_GROUP(j)                                                          \
+    do {                                                                      \
+        uint32_t ua, ub;                                                      \
+        int32_t x0, x1, wa, wb;                                               \
+        memcpy(&ua, wp + 8 * (j), 4);                                         \
+        memcpy(&ub, wp + 8 * (j) + 4, 4);                                     \
+        memcpy(&x0, pp + 16 * (j), 4);                                        \
+        memcpy(&x1, pp + 16 * (j) + 4, 4);                                    \
+        wa = __sxtb16((int32_t)ua);                                           \
+        wb = __sxtb16((int32_t)ub);                                           \
+        a00 = __smlad(wa, x0, a00);                                           \
+        a10 = __smlad(wb, x0, a10);                                           \
+        ua = (uint32_t)@P@_sxtb16_ror8(ua);                                   \
+        ub = (uint32_t)@P@_sxtb16_ror8(ub);                                   \
+        a00 = __smlad((int32_t)ua, x1, a00);                                  \
+        a10 = __smlad((int32_t)ub, x1, a10);                                  \
+        memcpy(&x0, pp + 16 * (j) + 8, 4);                                    \
+        memcpy(&x1, pp + 16 * (j) + 12, 4);                                   \
+        a01 = __smlad(wa, x0, a01);                                           \
+        a11 = __smlad(wb, x0, a11);                                           \
+        a01 = __smlad((int32_t)ua, x1, a01);                                  \
+        a11 = __smlad((int32_t)ub, x1, a11);                                  \
+    } while (0)
+#define @U@_STEP_W 8
+#define @U@_STEP_P 16
+#else
+#define @U@_TAP(wi, at)                                                       \
+    do {                                                                      \
+        int32_t x_ = @P@_ld16(pp + 16 * (j_) + (at));                         \
+        int32_t z_ = @P@_ld16(pp + 16 * (j_) + (at) + 8);                     \
+        a00 += wp[8 * (j_) + (wi)] * x_;                                      \
+        a01 += wp[8 * (j_) + (wi)] * z_;                                      \
+        a10 += wp[8 * (j_) + (wi) + 4] * x_;                                  \
+        a11 += wp[8 * (j_) + (wi) + 4] * z_;                                  \
+    } while (0)
+#define @U@_GROUP(j)                                                          \
+    do {                                                                      \
+        const int32_t j_ = (j);                                               \
+        @U@_TAP(0, 0);                                                        \
+        @U@_TAP(1, 4);                                                        \
+        @U@_TAP(2, 2);                                                        \
+        @U@_TAP(3, 6);                                                        \
+    } while (0)
+#define @U@_STEP_W 8
+#define @U@_STEP_P 16
+#endif
+
+/* Every filter x the two pixels of the interleaved patch pair at col (the
+   same pixel twice for a last odd pixel, whose outputs y1 = y0 are written
+   twice). Pair layout: group by group (four values of K), the first pixel's
+   four int16 then the second's, each as values (0, 2, 1, 3); then the last
+   K % 4 values, value by value, the first pixel's then the second's. Weights:
+   per pair of filters, group by group, four values of the first then four of
+   the second, then the pair's tails (K % 4 values each); a last odd filter
+   alone the same way. */
+static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
+                   const int32_t *bias, const int32_t *mult, const int32_t *shift,
+                   int32_t yz, int32_t lo, int8_t *y0, int8_t *y1)
+{
+    int32_t i, o, t = K & 3, g = K >> 2, d = (int32_t)(y1 - y0);
+    const int8_t *stop = col + 16 * g, *stop2 = col + 32 * (g >> 1), *wp = wt;
+    for (o = 0; o < (f & ~1); o += 2) {
+        const int8_t *pp = col;  /* wp runs on from one pair of filters to the next */
+        int32_t a00 = bias[o], a01 = bias[o], a10 = bias[o + 1], a11 = bias[o + 1];
+        while (pp != stop2) {  /* two groups a turn (the written-out groups step
+                                  the pointers themselves: STEP_W = STEP_P = 0) */
+            @U@_GROUP(0);
+            @U@_GROUP(@U@_STEP_W ? 1 : 0);
+            wp += 2 * @U@_STEP_W;
+            pp += 2 * @U@_STEP_P;
+        }
+        if (pp != stop) {
+            @U@_GROUP(0);
+            wp += @U@_STEP_W;
+            pp += @U@_STEP_P;
+        }
+        for (i = 0; i < t; ++i) {
+            int32_t x0 = @P@_ld16(pp + 4 * i), x1 = @P@_ld16(pp + 4 * i + 2);
+            a00 += wp[i] * x0;
+            a01 += wp[i] * x1;
+            a10 += wp[t + i] * x0;
+            a11 += wp[t + i] * x1;
+        }
+        wp += 2 * t;
+        @P@_out2(a00, a01, mult[o], shift[o], yz, lo, y0 + o, y0 + o + d);
+        @P@_out2(a10, a11, mult[o + 1], shift[o + 1], yz, lo, y0 + o + 1, y0 + o + 1 + d);
+    }
+    if (f & 1) {  /* a last odd filter */
+        const int8_t *pp = col;
+        int32_t a00 = bias[o], a01 = bias[o];
+        for (i = 0; i < g; ++i) {
+            a00 += wp[0] * @P@_ld16(pp) + wp[1] * @P@_ld16(pp + 4)
+                   + wp[2] * @P@_ld16(pp + 2) + wp[3] * @P@_ld16(pp + 6);
+            a01 += wp[0] * @P@_ld16(pp + 8) + wp[1] * @P@_ld16(pp + 12)
+                   + wp[2] * @P@_ld16(pp + 10) + wp[3] * @P@_ld16(pp + 14);
+            wp += 4;
+            pp += 16;
+        }
+        for (i = 0; i < t; ++i) {
+            a00 += wp[i] * @P@_ld16(pp + 4 * i);
+            a01 += wp[i] * @P@_ld16(pp + 4 * i + 2);
+        }
+        @P@_out2(a00, a01, mult[o], shift[o], yz, lo, y0 + o, y0 + o + d);
+    }
+}
+
+/* Convolution, NHWC, two output pixels at a time through the interleaved
+   int16 patch pair in `col` (2 k k c values). */
+@U@_KERNEL void @P@_conv(const int8_t *x, int8_t *y, int8_t *col, int32_t h, int32_t w,
+                         int32_t c, int32_t oh, int32_t ow, int32_t f, int32_t k,
+                         int32_t s, int32_t pt, int32_t pl, int32_t xz, const int8_t *wt,
+                         const int32_t *bias, const int32_t *mult, const int32_t *shift,
+                         int32_t yz, int32_t lo, int32_t hi)
+{
+    int32_t K = k * k * c, n = oh * ow, p, j;
+    int32_t full = K & ~3, table = K <= @U@_TABLE && ((k * c) & 3) != 0;
+    int16_t so[@U@_TABLE], at[@U@_TABLE];  /* the patch by table (see @P@_patch_table) */
+    (void)hi;  /* 127: see @P@_clamp */
+    for (j = 0; table && j < K; ++j) {
+        int32_t ky = j / (k * c), r = j - ky * k * c;
+        so[j] = (int16_t)(ky * w * c + r);
+        at[j] = (int16_t)(j < full ? 16 * (j >> 2) + 4 * (j & 1) + 2 * ((j >> 1) & 1) : 4 * j);
+    }
+    for (p = 0; p < n; p += 2) {
+        int32_t oy = p / ow, ox = p - oy * ow, q = p + 1 < n ? p + 1 : p, i;
+        int32_t qy = q / ow, qx = q - qy * ow;
+        for (i = 0; i < 2; ++i) {
+            int32_t iy0 = (i ? qy : oy) * s - pt, ix0 = (i ? qx : ox) * s - pl;
+            if (table && iy0 >= 0 && ix0 >= 0 && iy0 + k <= h && ix0 + k <= w)
+                @P@_patch_table(x + (iy0 * w + ix0) * c, col, i, so, at, K, full, xz);
+            else
+                @P@_patch(x, col, i, h, w, c, k, iy0, ix0, xz);
+        }
+        @P@_mm(col, K, f, wt, bias, mult, shift, yz, lo, y + p * f, y + q * f);
+    }
+}
+"""
