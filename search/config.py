@@ -21,6 +21,24 @@ from tinyconv.errors import InputError
 
 FORMAT = 1
 RANK_ORDERS = ("per_param", "accuracy")
+
+# The defaults of a search, in one place: SearchSettings, SearchRequest
+# (search.session), the command line and the demo read them from here.
+FOLDS = 3
+SEED = 0
+ETA = 3
+TOP_EPOCHS = 9
+BASE_EPOCHS = 1
+RANK_BY = "per_param"
+SIMPLEST_BY = "params"
+#: Training settings of every unit unless told otherwise (TrainConfig fields); the
+#: recipe keys among them (search.recipes.RECIPE_KEYS) are the default recipe.
+#: Chosen by measurement (benchmarks/recipe_study.py, tables in the README): at the
+#: demo's 27 epochs a constant rate beat the step and cosine schedules on the tiles,
+#: and batches of 16 at 0.005 beat batches of 32 at every rate tried.
+DEFAULT_TRAINING = {"batch_size": 16, "optimizer": "adam", "lr": 0.005, "momentum": 0.9,
+                    "weight_decay": 0.0, "decay": "decoupled", "schedule": "constant",
+                    "label_smoothing": 0.0, "augment": "none", "copies": 1}
 # Keys whose change does not alter any unit, only how far the plan is followed or
 # how the pick is chosen from the same units: a resumed run may change them.
 EXTENDABLE = ("budget_cpu_s", "budget_epochs", "simplest_by")
@@ -120,12 +138,12 @@ class SearchSettings:
     n_images: int
     space: str
     space_source: str = ""
-    folds: int = 3
-    seed: int = 0
-    eta: int = 3
-    top_epochs: int = 9
+    folds: int = FOLDS
+    seed: int = SEED
+    eta: int = ETA
+    top_epochs: int = TOP_EPOCHS
     full: bool = False
-    base_epochs: int = 1
+    base_epochs: int = BASE_EPOCHS
     max_candidates: int | None = None
     budget: dict = field(default_factory=dict)
     budget_cpu_s: float | None = None
@@ -134,7 +152,7 @@ class SearchSettings:
     int8: bool = False
     skip_bad: bool = False
     recipes: tuple[str, ...] = ()
-    simplest_by: str = "params"
+    simplest_by: str = SIMPLEST_BY
 
     def __post_init__(self) -> None:
         _positive_int("folds", self.folds, 2, "--folds")
@@ -163,8 +181,15 @@ class SearchSettings:
         out["format"] = FORMAT
         return out
 
+    @property
+    def n_classes(self) -> int:
+        """``K``, the number of classes of the run's data."""
+        return len(self.classes)
+
     @staticmethod
     def from_dict(data: dict[str, Any]) -> "SearchSettings":
+        """The settings from their stored form (:meth:`as_dict`; a key left out takes
+        its default, as it did when the run was stored)."""
         values = {k: v for k, v in data.items() if k != "format"}
         values["classes"] = tuple(values["classes"])
         values["recipes"] = tuple(values.get("recipes") or ())
