@@ -37,6 +37,7 @@ import numpy as np
 
 from search import schedule
 from search.config import SearchSettings
+from search.executor import Executor
 from search.failures import ATTEMPTS, describe
 from search.recipes import arch_of, training_for
 from search.store import RunStore
@@ -126,7 +127,9 @@ class SearchLoop:
     Parameters
     ----------
     store : RunStore
-    executor : LocalWorkers or ClusterWorkers (anything with submit/restart/workers)
+    executor : Executor
+        Where units run (:class:`search.executor.Executor`: local processes, this
+        process or a Dask cluster).
     candidates : sequence of str
     params : mapping of candidate text to parameter count (promotion ties)
     settings : SearchSettings
@@ -143,7 +146,7 @@ class SearchLoop:
         version), counted as retried.
     """
 
-    def __init__(self, store: RunStore, executor, candidates: Sequence[str],
+    def __init__(self, store: RunStore, executor: Executor, candidates: Sequence[str],
                  params: Mapping[str, int], settings: SearchSettings,
                  progress: Progress | None = None,
                  costs: Mapping[str, float] | None = None, reopened: int = 0):
