@@ -69,7 +69,7 @@ def test_failed_unit_reports_message(data):
 
 def test_normalisation_uses_training_part_only(data, monkeypatch):
     """The normalisation statistics are fitted on the training folds only."""
-    import tinyconv.data as tdata
+    import tinyconv.data.normalise as tdata  # where normalise_fold finds it
     seen = []
     real = tdata.fit_normalisation
 
