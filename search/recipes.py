@@ -141,7 +141,7 @@ class TrainingChoices:
 def read_training(table: dict, reader) -> TrainingChoices:
     """Check a space file's ``[training]`` table with the space reader's ``choices``.
 
-    ``reader`` is the space file's reader (``search.space._Reader``), so the
+    ``reader`` is the space file's reader (``search.space_read._Reader``), so the
     errors name the file, the key, the value and the rule like the other tables'.
     """
     from tinyconv.augment import parse_augment
