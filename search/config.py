@@ -17,6 +17,7 @@ import re
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
+from tinyconv.checks import whole_number
 from tinyconv.errors import InputError
 
 FORMAT = 1
@@ -155,23 +156,22 @@ class SearchSettings:
     simplest_by: str = SIMPLEST_BY
 
     def __post_init__(self) -> None:
-        _positive_int("folds", self.folds, 2, "--folds")
-        _positive_int("eta", self.eta, 2, "--eta")
-        _positive_int("top epochs", self.top_epochs, 1, "--top-epochs")
-        _positive_int("base epochs", self.base_epochs, 1, "--base-epochs")
+        whole_number(self.folds, "folds", low=2, fix="set --folds")
+        whole_number(self.eta, "eta", low=2, fix="set --eta")
+        whole_number(self.top_epochs, "top epochs", low=1, fix="set --top-epochs")
+        whole_number(self.base_epochs, "base epochs", low=1, fix="set --base-epochs")
         if self.base_epochs > self.top_epochs:
             raise InputError(f"base epochs {self.base_epochs} is more than top epochs "
                              f"{self.top_epochs}; lower --base-epochs or raise --top-epochs")
-        if not isinstance(self.seed, int) or isinstance(self.seed, bool):
-            raise InputError(f"seed must be an integer, got {self.seed!r}")
+        whole_number(self.seed, "seed", fix="set --seed")
         if self.max_candidates is not None:
-            _positive_int("max candidates", self.max_candidates, 1, "--max-candidates")
+            whole_number(self.max_candidates, "max candidates", low=1, fix="set --max-candidates")
         if self.budget_cpu_s is not None and not (math.isfinite(self.budget_cpu_s)
                                                   and self.budget_cpu_s > 0):
             raise InputError(f"CPU budget must be a positive number of seconds, got "
                              f"{self.budget_cpu_s!r}")
         if self.budget_epochs is not None:
-            _positive_int("epoch budget", self.budget_epochs, 1, "--budget-epochs")
+            whole_number(self.budget_epochs, "epoch budget", low=1, fix="set --budget-epochs")
 
     def as_dict(self) -> dict[str, Any]:
         """Plain data (lists for tuples), as stored; includes the format version."""
@@ -194,11 +194,6 @@ class SearchSettings:
         values["classes"] = tuple(values["classes"])
         values["recipes"] = tuple(values.get("recipes") or ())
         return SearchSettings(**values)
-
-
-def _positive_int(name: str, value: Any, low: int, option: str) -> None:
-    if isinstance(value, bool) or not isinstance(value, int) or value < low:
-        raise InputError(f"{name} must be an integer >= {low}, got {value!r}; set {option}")
 
 
 def _show(value: Any) -> str:

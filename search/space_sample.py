@@ -7,7 +7,7 @@ from typing import Sequence
 import numpy as np
 
 from tinyconv.arch import Arch
-from tinyconv.errors import InputError
+from tinyconv.checks import whole_number
 
 
 def subsample(candidates: Sequence[Arch], k: int, seed: int | np.random.Generator = 0
@@ -21,8 +21,7 @@ def subsample(candidates: Sequence[Arch], k: int, seed: int | np.random.Generato
         How many to keep (>= 1); all are kept when there are no more than ``k``.
     seed : int or numpy.random.Generator
     """
-    if isinstance(k, bool) or not isinstance(k, int) or k < 1:
-        raise InputError(f"max candidates must be a positive integer, got {k!r}")
+    whole_number(k, "max candidates", low=1, rule="a positive integer")
     if len(candidates) <= k:
         return list(candidates)
     rng = seed if isinstance(seed, np.random.Generator) else np.random.default_rng(seed)

@@ -11,6 +11,7 @@ import numbers
 from dataclasses import dataclass
 
 from tinyconv.augment import parse_augment
+from tinyconv.checks import whole_number
 from tinyconv.errors import InputError
 from tinyconv.losses import check_smoothing
 from tinyconv.optim import DECAY_KINDS, SCHEDULES
@@ -86,19 +87,17 @@ class TrainConfig:
             value = getattr(self, name)
             if value is None and name == "patience":
                 continue
-            need(isinstance(value, numbers.Integral) and not isinstance(value, bool),
-                 f"{name.replace('_', ' ')} must be an integer, got {value!r}")
-            store(name, int(value))
+            store(name, whole_number(value, name.replace("_", " ")))
         for name in ("lr", "momentum", "weight_decay", "label_smoothing"):
             value = getattr(self, name)
             need(isinstance(value, numbers.Real) and not isinstance(value, bool)
                  and math.isfinite(value),
                  f"{name.replace('_', ' ')} must be a finite number, got {value!r}")
             store(name, float(value))
-        need(self.epochs >= 1, f"epochs must be an integer >= 1, got {self.epochs!r}")
-        need(self.batch_size >= 1, f"batch size must be an integer >= 1, got {self.batch_size!r}")
-        need(1 <= self.copies <= MAX_COPIES, f"copies must be an integer from 1 to "
-             f"{MAX_COPIES}, got {self.copies!r}; 1 passes over each image once an epoch")
+        whole_number(self.epochs, "epochs", low=1)
+        whole_number(self.batch_size, "batch size", low=1)
+        whole_number(self.copies, "copies", low=1, high=MAX_COPIES,
+                     fix="1 passes over each image once an epoch")
         need(self.optimizer in OPTIMISERS,
              f"optimizer {self.optimizer!r} is unknown; expected one of {', '.join(OPTIMISERS)}")
         need(self.lr > 0, f"learning rate must be a finite number > 0, got {self.lr!r}; try "

@@ -16,6 +16,7 @@ import time
 from pathlib import Path
 
 from tinyconv import fmt
+from tinyconv.checks import whole_number
 from tinyconv.commands._notes import kernels_note
 from tinyconv.workflows.demo import DEVICE, demo_request
 from tinyconv.workflows.progress import SearchProgress, terminal_width
@@ -57,9 +58,8 @@ def run(args: argparse.Namespace) -> int:
     """Search, report, export; print the pick."""
     from search.session import run_search
 
-    if args.workers is not None and args.workers < 0:
-        from tinyconv.errors import InputError
-        raise InputError(f"--workers must be 0 or more, got {args.workers}")
+    if args.workers is not None:
+        whole_number(args.workers, "--workers", low=0)
     out = Path(args.out or ("tinyconv-demo-quick" if args.quick else "tinyconv-demo"))
     start = time.perf_counter()
     request = demo_request(out, args.quick, args.workers)

@@ -111,6 +111,7 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
     from search.schedule import derive_seed
     from search.store import RunStore
     from tinyconv.arch import parse
+    from tinyconv.checks import whole_number
     from tinyconv.data import fingerprint, fit_normalisation, load_data, normalise, prepare
     from tinyconv.errors import DivergedError, RunError
     from tinyconv.export import export_network
@@ -128,8 +129,7 @@ def export_run(run_dir, pick: str = "one-se", out_dir=None, epochs: int | None =
         device = core_named(core)
         clock_mhz = check_clock(clock_mhz) if clock_mhz is not None else None
         find_toolchain()
-    if isinstance(calib, bool) or not isinstance(calib, (int, np.integer)) or calib < 1:
-        raise RunError(f"calibration images must be a whole number >= 1, got {calib!r}")
+    whole_number(calib, "calibration images", low=1, fix="give --calib N")
     with RunStore(run_dir) as store:
         settings = store.settings()
         row = choose(rank_run(store), pick, run_dir)
