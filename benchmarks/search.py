@@ -51,8 +51,8 @@ LR: list[float] = []   # --lr, when given
 
 def _run(out: Path, workers: int, **change):
     from search.session import SearchRequest, run_search
-    from tinyconv.commands.demo import TRAINING
-    settings = dict(space="builtin:demo", folds=3, seed=0, eta=3, workers=workers,
+    from tinyconv.workflows.demo import SPACE, TRAINING
+    settings = dict(space=SPACE, workers=workers,
                     training={**TRAINING, **({"lr": LR[0]} if LR else {})})
     settings.update(change)
     start = time.perf_counter()
@@ -139,7 +139,7 @@ def main(argv=None) -> int:
     args = parser.parse_args(argv)
     if args.lr is not None:
         LR.append(args.lr)
-    from tinyconv.commands.demo import FULL, QUICK
+    from tinyconv.workflows.demo import FULL, QUICK
     demo = QUICK if args.quick else FULL
     data, sample, epochs, base_epochs = (demo["data"], demo["max_candidates"],
                                         demo["top_epochs"], demo["base_epochs"])

@@ -17,10 +17,29 @@ import re
 from dataclasses import asdict, dataclass, field
 from typing import Any
 
+from tinyconv.checks import whole_number
 from tinyconv.errors import InputError
 
 FORMAT = 1
 RANK_ORDERS = ("per_param", "accuracy")
+
+# The defaults of a search, in one place: SearchSettings, SearchRequest
+# (search.session), the command line and the demo read them from here.
+FOLDS = 3
+SEED = 0
+ETA = 3
+TOP_EPOCHS = 9
+BASE_EPOCHS = 1
+RANK_BY = "per_param"
+SIMPLEST_BY = "params"
+#: Training settings of every unit unless told otherwise (TrainConfig fields); the
+#: recipe keys among them (search.recipes.RECIPE_KEYS) are the default recipe.
+#: Chosen by measurement (benchmarks/recipe_study.py, tables in the README): at the
+#: demo's 27 epochs a constant rate beat the step and cosine schedules on the tiles,
+#: and batches of 16 at 0.005 beat batches of 32 at every rate tried.
+DEFAULT_TRAINING = {"batch_size": 16, "optimizer": "adam", "lr": 0.005, "momentum": 0.9,
+                    "weight_decay": 0.0, "decay": "decoupled", "schedule": "constant",
+                    "label_smoothing": 0.0, "augment": "none", "copies": 1}
 # Keys whose change does not alter any unit, only how far the plan is followed or
 # how the pick is chosen from the same units: a resumed run may change them.
 EXTENDABLE = ("budget_cpu_s", "budget_epochs", "simplest_by")
@@ -120,12 +139,12 @@ class SearchSettings:
     n_images: int
     space: str
     space_source: str = ""
-    folds: int = 3
-    seed: int = 0
-    eta: int = 3
-    top_epochs: int = 9
+    folds: int = FOLDS
+    seed: int = SEED
+    eta: int = ETA
+    top_epochs: int = TOP_EPOCHS
     full: bool = False
-    base_epochs: int = 1
+    base_epochs: int = BASE_EPOCHS
     max_candidates: int | None = None
     budget: dict = field(default_factory=dict)
     budget_cpu_s: float | None = None
@@ -134,26 +153,25 @@ class SearchSettings:
     int8: bool = False
     skip_bad: bool = False
     recipes: tuple[str, ...] = ()
-    simplest_by: str = "params"
+    simplest_by: str = SIMPLEST_BY
 
     def __post_init__(self) -> None:
-        _positive_int("folds", self.folds, 2, "--folds")
-        _positive_int("eta", self.eta, 2, "--eta")
-        _positive_int("top epochs", self.top_epochs, 1, "--top-epochs")
-        _positive_int("base epochs", self.base_epochs, 1, "--base-epochs")
+        whole_number(self.folds, "folds", low=2, fix="set --folds")
+        whole_number(self.eta, "eta", low=2, fix="set --eta")
+        whole_number(self.top_epochs, "top epochs", low=1, fix="set --top-epochs")
+        whole_number(self.base_epochs, "base epochs", low=1, fix="set --base-epochs")
         if self.base_epochs > self.top_epochs:
             raise InputError(f"base epochs {self.base_epochs} is more than top epochs "
                              f"{self.top_epochs}; lower --base-epochs or raise --top-epochs")
-        if not isinstance(self.seed, int) or isinstance(self.seed, bool):
-            raise InputError(f"seed must be an integer, got {self.seed!r}")
+        whole_number(self.seed, "seed", fix="set --seed")
         if self.max_candidates is not None:
-            _positive_int("max candidates", self.max_candidates, 1, "--max-candidates")
+            whole_number(self.max_candidates, "max candidates", low=1, fix="set --max-candidates")
         if self.budget_cpu_s is not None and not (math.isfinite(self.budget_cpu_s)
                                                   and self.budget_cpu_s > 0):
             raise InputError(f"CPU budget must be a positive number of seconds, got "
                              f"{self.budget_cpu_s!r}")
         if self.budget_epochs is not None:
-            _positive_int("epoch budget", self.budget_epochs, 1, "--budget-epochs")
+            whole_number(self.budget_epochs, "epoch budget", low=1, fix="set --budget-epochs")
 
     def as_dict(self) -> dict[str, Any]:
         """Plain data (lists for tuples), as stored; includes the format version."""
@@ -163,17 +181,19 @@ class SearchSettings:
         out["format"] = FORMAT
         return out
 
+    @property
+    def n_classes(self) -> int:
+        """``K``, the number of classes of the run's data."""
+        return len(self.classes)
+
     @staticmethod
     def from_dict(data: dict[str, Any]) -> "SearchSettings":
+        """The settings from their stored form (:meth:`as_dict`; a key left out takes
+        its default, as it did when the run was stored)."""
         values = {k: v for k, v in data.items() if k != "format"}
         values["classes"] = tuple(values["classes"])
         values["recipes"] = tuple(values.get("recipes") or ())
         return SearchSettings(**values)
-
-
-def _positive_int(name: str, value: Any, low: int, option: str) -> None:
-    if isinstance(value, bool) or not isinstance(value, int) or value < low:
-        raise InputError(f"{name} must be an integer >= {low}, got {value!r}; set {option}")
 
 
 def _show(value: Any) -> str:

@@ -156,9 +156,8 @@ class LocalWorkers:
     """
 
     def __init__(self, data_dir: str | Path, workers: int, work: Callable | None = None):
-        if isinstance(workers, bool) or not isinstance(workers, int) or workers < 1:
-            from tinyconv.errors import InputError
-            raise InputError(f"--workers must be an integer >= 1, got {workers!r}")
+        from tinyconv.checks import whole_number
+        whole_number(workers, "--workers", low=1)
         self.data_dir = str(data_dir)
         self.workers = workers
         self.warm = work is None  # warm the engine only for the real unit work

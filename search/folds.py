@@ -18,6 +18,7 @@ from typing import Sequence
 
 import numpy as np
 
+from tinyconv.checks import whole_number
 from tinyconv.data.validate import check_folds
 
 
@@ -105,8 +106,7 @@ def assign_repeated_folds(labels: np.ndarray, k: int, repeats: int, seed: int = 
     -------
     ndarray, shape (repeats, n), int64
     """
-    if isinstance(repeats, bool) or not isinstance(repeats, (int, np.integer)) or repeats < 1:
-        raise ValueError(f"repeats must be a positive int, got {repeats!r}")
+    whole_number(repeats, "repeats", low=1)
     return np.stack([assign_folds(labels, k, np.random.default_rng([seed, r]), classes)
                      for r in range(repeats)])
 

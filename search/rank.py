@@ -357,17 +357,18 @@ def rank_run(store, by: str | None = None) -> pd.DataFrame:
     ``per_param`` when none was recorded; the pick minimises the run's
     ``simplest_by`` (parameters when none was recorded).
     """
+    from search.config import RANK_BY, SIMPLEST_BY
     from search.recipes import recipe_of, split_key
 
-    cfg = store.config()
-    by = by or store.rank_order() or "per_param"
-    budget = cfg.get("budget") or {}
+    settings = store.settings()
+    by = by or store.rank_order() or RANK_BY
+    budget = settings.budget or {}
     device = {"core": budget.get("core"), "clock_mhz": budget.get("clock_mhz")}
     candidates = store.candidates()
     candidates["arch"] = [split_key(c)[0] for c in candidates["candidate"]]
-    candidates["recipe"] = [recipe_of(cfg, c) for c in candidates["candidate"]]
-    return rank_units(store.units(), candidates, len(cfg["classes"]), int(cfg["folds"]),
-                      by=by, device=device, simplest_by=cfg.get("simplest_by") or "params")
+    candidates["recipe"] = [recipe_of(settings, c) for c in candidates["candidate"]]
+    return rank_units(store.units(), candidates, settings.n_classes, settings.folds,
+                      by=by, device=device, simplest_by=settings.simplest_by or SIMPLEST_BY)
 
 
 def save_ranking(table: pd.DataFrame, run_dir: str | Path) -> Path:

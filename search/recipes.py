@@ -141,7 +141,7 @@ class TrainingChoices:
 def read_training(table: dict, reader) -> TrainingChoices:
     """Check a space file's ``[training]`` table with the space reader's ``choices``.
 
-    ``reader`` is the space file's reader (``search.space._Reader``), so the
+    ``reader`` is the space file's reader (``search.space_read._Reader``), so the
     errors name the file, the key, the value and the rule like the other tables'.
     """
     from tinyconv.augment import parse_augment
@@ -226,28 +226,35 @@ def arch_of(key: str) -> str:
     return split_key(key)[0]
 
 
-def run_recipes(settings: Mapping[str, Any]) -> tuple[str, ...]:
-    """The recipe texts of a run, from its stored settings.
+def _stored(settings) -> tuple[Any, dict[str, Any]]:
+    """(recipes, training) of a run's ``SearchSettings`` or of their stored dict form."""
+    if isinstance(settings, Mapping):
+        return settings.get("recipes"), dict(settings.get("training") or {})
+    return settings.recipes, dict(settings.training or {})
+
+
+def run_recipes(settings) -> tuple[str, ...]:
+    """The recipe texts of a run, from its settings (``SearchSettings`` or stored dict).
 
     Settings without a list (a run stored before recipes existed) have one
     recipe: their training settings, with ``TrainConfig``'s defaults for
     what they leave out, as their units were trained.
     """
-    listed = settings.get("recipes")
+    listed, training = _stored(settings)
     if listed:
         return tuple(listed)
     from tinyconv.train import TrainConfig
-    t = {**TrainConfig(epochs=1).__dict__, **dict(settings.get("training") or {})}
+    t = {**TrainConfig(epochs=1).__dict__, **training}
     return (str(Recipe(**{k: t[k] for k in RECIPE_KEYS})),)
 
 
-def recipe_of(settings: Mapping[str, Any], key: str) -> str:
+def recipe_of(settings, key: str) -> str:
     """The recipe text a run trains candidate ``key`` with."""
     return split_key(key)[1] or run_recipes(settings)[0]
 
 
-def training_for(settings: Mapping[str, Any], key: str) -> dict[str, Any]:
+def training_for(settings, key: str) -> dict[str, Any]:
     """The ``TrainConfig`` fields (other than epochs and seed) of candidate ``key``:
     the run's training settings with its recipe over them."""
-    return {**dict(settings.get("training") or {}),
+    return {**_stored(settings)[1],
             **parse_recipe(recipe_of(settings, key)).settings()}

@@ -36,6 +36,8 @@ from typing import Mapping, Sequence
 import numpy as np
 
 from search import schedule
+from search.config import SearchSettings
+from search.executor import Executor
 from search.failures import ATTEMPTS, describe
 from search.recipes import arch_of, training_for
 from search.store import RunStore
@@ -44,7 +46,7 @@ from tinyconv.errors import StoreError, WorkersLostError
 
 
 class Progress:
-    """Hooks the loop calls; the default does nothing (see commands/search.py)."""
+    """Hooks the loop calls; the default does nothing (see tinyconv/workflows/progress.py)."""
 
     def start(self, plan_units: int, plan_epochs: int, done_units: int, cpu_s: float,
               epochs: int) -> None:
@@ -125,12 +127,14 @@ class SearchLoop:
     Parameters
     ----------
     store : RunStore
-    executor : LocalWorkers or ClusterWorkers (anything with submit/restart/workers)
+    executor : Executor
+        Where units run (:class:`search.executor.Executor`: local processes, this
+        process or a Dask cluster).
     candidates : sequence of str
     params : mapping of candidate text to parameter count (promotion ties)
-    settings : dict
-        ``SearchSettings.as_dict()`` (folds, seed, eta, top_epochs, full,
-        budget_cpu_s, budget_epochs, training, classes).
+    settings : SearchSettings
+        The run's settings as stored (``RunStore.settings()``): folds, seed,
+        eta, top_epochs, base_epochs, full, the budgets, training, classes.
     progress : Progress, optional
     costs : mapping of candidate text to a cost estimate (MACs per image), optional
         Within a rung, units start in decreasing cost, so that the last ones
@@ -142,18 +146,19 @@ class SearchLoop:
         version), counted as retried.
     """
 
-    def __init__(self, store: RunStore, executor, candidates: Sequence[str],
-                 params: Mapping[str, int], settings: dict, progress: Progress | None = None,
+    def __init__(self, store: RunStore, executor: Executor, candidates: Sequence[str],
+                 params: Mapping[str, int], settings: SearchSettings,
+                 progress: Progress | None = None,
                  costs: Mapping[str, float] | None = None, reopened: int = 0):
         self.store, self.executor = store, executor
         self.candidates = list(candidates)
         self.params = dict(params)
         self.costs = dict(costs or {})
         self.s = settings
-        self.k = int(settings["folds"])
+        self.k = settings.folds
         self.progress = progress or Progress()
         self._training: dict[str, tuple] = {}
-        self.n_classes = len(settings["classes"])
+        self.n_classes = settings.n_classes
         self.finished = store.finished()
         self.cpu_s, self.epochs = store.spent()
         self.outcome = Outcome(retried=reopened)
@@ -165,9 +170,8 @@ class SearchLoop:
     # ------------------------------------------------------------ the plan
 
     def run(self) -> Outcome:
-        plan = plan_brackets(self.candidates, int(self.s["top_epochs"]), int(self.s["eta"]),
-                             bool(self.s["full"]), int(self.s["seed"]),
-                             int(self.s.get("base_epochs", 1)))
+        plan = plan_brackets(self.candidates, self.s.top_epochs, self.s.eta, self.s.full,
+                             self.s.seed, self.s.base_epochs)
         self.n_levels = 1 + max((r.level for bracket, _ in plan for r in bracket.rungs), default=0)
         self.progress.start(plan_size(plan, self.k), plan_epochs(plan, self.k),
                             len(self.finished), self.cpu_s, self.epochs)
@@ -228,10 +232,10 @@ class SearchLoop:
             self._training[cand] = tuple(sorted(training_for(self.s, cand).items()))
         # seeded by the architecture: recipes of one architecture start alike (paired)
         return UnitTask(cand, fold, rung.level, rung.epochs,
-                        schedule.unit_seed(int(self.s["seed"]), arch_of(cand), fold, rung.level),
+                        schedule.unit_seed(self.s.seed, arch_of(cand), fold, rung.level),
                         self.n_classes, self._training[cand],
                         # int8 figures for the finalists: units of the last rung only
-                        bool(self.s.get("int8")) and rung.epochs == int(self.s["top_epochs"]))
+                        self.s.int8 and rung.epochs == self.s.top_epochs)
 
     # ------------------------------------------------------------ one rung
 
@@ -252,10 +256,10 @@ class SearchLoop:
             raise self._units_lost()
 
     def _check_budget(self, task: UnitTask) -> None:
-        limit_e = self.s.get("budget_epochs")
+        limit_e = self.s.budget_epochs
         if limit_e is not None and self.epochs + self._inflight_epochs + task.epochs > limit_e:
             raise _BudgetStop("budget_epochs")
-        limit_c = self.s.get("budget_cpu_s")
+        limit_c = self.s.budget_cpu_s
         if limit_c is not None and self.cpu_s >= limit_c:
             raise _BudgetStop("budget_cpu")
 

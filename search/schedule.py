@@ -44,6 +44,8 @@ from typing import Mapping, Sequence
 
 import numpy as np
 
+from tinyconv.checks import whole_number
+
 
 @dataclass(frozen=True)
 class Rung:
@@ -93,10 +95,8 @@ def max_bracket(top_epochs: int, eta: int, base_epochs: int = 1) -> int:
     (4, 3, 5, 1)
     """
     _check(top_epochs, eta)
-    if isinstance(base_epochs, bool) or not isinstance(base_epochs, (int, np.integer)) \
-            or not 1 <= base_epochs <= top_epochs:
-        raise ValueError(f"base_epochs must be an integer from 1 to top_epochs "
-                         f"({top_epochs}), got {base_epochs!r}")
+    whole_number(base_epochs, "base_epochs", low=1, high=top_epochs,
+                 rule=f"an integer from 1 to top_epochs ({top_epochs})")
     s, power = 0, eta
     while power * base_epochs <= top_epochs:
         s += 1

@@ -30,9 +30,11 @@ from pathlib import Path
 
 import pandas as pd
 
-from search.config import RANK_ORDERS, SearchSettings
+from search.config import (BASE_EPOCHS, DEFAULT_TRAINING, ETA, FOLDS, RANK_BY, RANK_ORDERS,
+                           SEED, SIMPLEST_BY, TOP_EPOCHS, SearchSettings)
 from search.folder_lock import FolderLock
 from search.rank import SIMPLEST, rank_run, save_ranking
+from search.ranking import Ranking
 from search.recipes import RECIPE_KEYS, candidate_key, make_recipes
 from search.runner import Outcome, Progress, SearchLoop
 from search.schedule import derive_seed
@@ -40,21 +42,9 @@ from search.store import RunStore
 from search.store_writer import check_folder
 from search.unit import UnitData
 
-#: Training settings of every unit unless told otherwise (TrainConfig fields); the
-#: recipe keys among them (search.recipes.RECIPE_KEYS) are the default recipe.
-#: Chosen by measurement (benchmarks/recipe_study.py, tables in the README): at the
-#: demo's 27 epochs a constant rate beat the step and cosine schedules on the tiles,
-#: and batches of 16 at 0.005 beat batches of 32 at every rate tried.
-DEFAULT_TRAINING = {"batch_size": 16, "optimizer": "adam", "lr": 0.005, "momentum": 0.9,
-                    "weight_decay": 0.0, "decay": "decoupled", "schedule": "constant",
-                    "label_smoothing": 0.0, "augment": "none", "copies": 1}
-#: Command-line budget names -> the space file's [budget] keys.
-BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
-               "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb",
-               "max_ms": "max_ms", "core": "core", "clock_mhz": "clock_mhz"}
-#: Command-line budget names -> the space file's [budget] keys.
 #: The source recorded for the general space (``search/starter.py``), used without --space.
 GENERAL_SPACE = "builtin:general"
+#: Command-line budget names -> the space file's [budget] keys.
 BUDGET_KEYS = {"max_params": "max_params", "max_macs": "max_macs",
                "max_ram_kb": "max_peak_kb", "max_flash_kb": "max_flash_kb",
                "max_ms": "max_ms", "core": "core", "clock_mhz": "clock_mhz"}
@@ -80,11 +70,11 @@ class SearchRequest:
     data: str
     space: str | None
     out: Path
-    folds: int = 3
-    seed: int = 0
-    eta: int = 3
-    top_epochs: int = 9
-    base_epochs: int = 1
+    folds: int = FOLDS
+    seed: int = SEED
+    eta: int = ETA
+    top_epochs: int = TOP_EPOCHS
+    base_epochs: int = BASE_EPOCHS
     full: bool = False
     max_candidates: int | None = None
     budgets: dict = field(default_factory=dict)
@@ -93,10 +83,10 @@ class SearchRequest:
     training: dict = field(default_factory=dict)
     workers: int | None = None
     cluster: object | None = None
-    rank_by: str = "per_param"
+    rank_by: str = RANK_BY
     skip_bad: bool = False
     int8: bool = False
-    simplest_by: str = "params"
+    simplest_by: str = SIMPLEST_BY
 
 
 @dataclass
@@ -112,10 +102,15 @@ class SearchSummary:
     n_searched: int
     removed: dict
     workers: str
-    rank_by: str = "per_param"
+    rank_by: str = RANK_BY
     space_source: str = ""
     space_description: str = ""
-    simplest_by: str = "params"
+    simplest_by: str = SIMPLEST_BY
+
+    @property
+    def ranking(self) -> Ranking:
+        """The ranking table as a value that knows its pick, best and finalists."""
+        return Ranking(self.table)
 
 
 def merged_budget(base, budgets: dict):
@@ -190,7 +185,7 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
         space = space_from_text(text, GENERAL_SPACE)
     budget = merged_budget(space.budget, request.budgets)
     _check_simplest(request.simplest_by, budget)
-    n_classes = len(dataset.classes)
+    n_classes = dataset.n_classes
     archs = enumerate_space(space)
     filtered = filter_budget(archs, budget, n_classes)
     recipes = make_recipes(space.training, request.training, base)
@@ -220,7 +215,7 @@ def _search(request: SearchRequest, progress: Progress | None, work, local) -> S
         data.save(request.out)
         executor = local if local is not None else _executor(request, data, work)
         try:
-            loop = SearchLoop(store, executor, texts, params, store.config(), progress, costs,
+            loop = SearchLoop(store, executor, texts, params, store.settings(), progress, costs,
                               reopened=store.reopened)
             outcome = loop.run()
         except BaseException:

@@ -45,6 +45,7 @@ import numpy as np
 import pandas as pd
 
 from search import store_faults as faults
+from search.config import SearchSettings
 from tinyconv.errors import RunError, StoreError
 
 FILE = "run.sqlite"
@@ -199,9 +200,14 @@ class RunStore:
         return None if not rows else json.loads(rows[0][0])
 
     def config(self) -> dict[str, Any]:
-        """The run's settings (``SearchSettings.as_dict()``): data, fingerprint, classes,
-        space text, folds, seed, budgets, eta, top_epochs, training settings."""
+        """The run's settings in their stored form (``SearchSettings.as_dict()``): data,
+        fingerprint, classes, space text, folds, seed, budgets, eta, top_epochs,
+        training settings. Code that reads a setting asks :meth:`settings`."""
         return self._meta("settings")
+
+    def settings(self) -> SearchSettings:
+        """The run's settings (:meth:`SearchSettings.from_dict` of :meth:`config`)."""
+        return SearchSettings.from_dict(self.config())
 
     def removed(self) -> dict[str, Any]:
         """Budget name -> how many candidates it removed."""
@@ -263,7 +269,7 @@ class RunStore:
 
     def _default_rung(self, candidate: str) -> int | None:
         """Highest rung done on every fold; else the highest with any predictions."""
-        k = int(self.config()["folds"])
+        k = self.settings().folds
         rows = self._rows(
             "SELECT rung FROM units WHERE candidate = ? AND status = 'done' GROUP BY rung "
             "HAVING COUNT(DISTINCT fold) >= ? ORDER BY rung DESC LIMIT 1", (candidate, k))
@@ -295,7 +301,7 @@ class RunStore:
         """Class probabilities, shape (n, K) float32, rows as in :meth:`predictions`."""
         rows = self._prediction_rows(candidate, rung)
         if not rows:
-            return np.zeros((0, len(self.config()["classes"])), np.float32)
+            return np.zeros((0, self.settings().n_classes), np.float32)
         return np.concatenate([_array(p, "<f4").reshape(n, k)
                                for _f, n, k, _i, _l, _pr, p in rows])
 

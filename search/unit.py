@@ -246,21 +246,20 @@ def run_unit(task: UnitTask, data: UnitData) -> UnitResult:
 
 def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResult:
     from tinyconv import arch as arch_mod
-    from tinyconv.data import fit_normalisation, normalise
+    from tinyconv.data import normalise_fold
     from tinyconv.network import Network
     from tinyconv.losses import log_softmax
     from tinyconv.train import TrainConfig, evaluate, fit
 
+    from search.folds import fold_split
     from search.recipes import arch_of
     from search.schedule import derive_seed
 
     arch = arch_mod.parse(arch_of(task.candidate))
     x_all = data.prepared(arch.input)                       # (n, h, w, c) float32
-    train = np.flatnonzero(data.folds != task.fold)
-    held = np.flatnonzero(data.folds == task.fold)
-    mean, std = fit_normalisation(x_all[train])             # training part only
-    x_train, y_train = normalise(x_all[train], mean, std), data.labels[train]
-    x_held, y_held = normalise(x_all[held], mean, std), data.labels[held]
+    train, held = fold_split(data.folds, task.fold)
+    x_train, x_held, mean, std = normalise_fold(x_all, train, held)  # training part's statistics
+    y_train, y_held = data.labels[train], data.labels[held]
 
     net = Network.from_arch(arch, task.n_classes, seed=derive_seed(task.seed, "weights"))
     config = TrainConfig(epochs=task.epochs, seed=derive_seed(task.seed, "batches"),
@@ -276,7 +275,8 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
                           cpu_s=time.process_time() - cpu0,
                           wall_s=time.perf_counter() - wall0, history=history)
     train_loss, train_acc = evaluate(net, x_train, y_train)
-    # One pass over the held-out fold gives the kept probabilities and its figures.
+    # One pass over the held-out fold gives the kept probabilities and its figures
+    # (evaluate() keeps no probabilities, and sums its loss in float32 batch by batch).
     x_eval = x_held.astype(net.dtype, copy=False)
     logp = np.concatenate([log_softmax(net.forward(x_eval[i:i + 256], training=False))
                            for i in range(0, x_eval.shape[0], 256)])      # (m, K)

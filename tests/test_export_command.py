@@ -14,7 +14,7 @@ from search.rank import rank_run
 from search.store import RunStore
 from search.unit import UnitResult, UnitTask
 from tinyconv.cli import main
-from tinyconv.commands.export import export_run
+from tinyconv.workflows.export_pick import export_run
 from tinyconv.cost import cost_of
 from tinyconv.data import fingerprint, load_data
 from tinyconv.errors import RunError

@@ -6,7 +6,7 @@ import io
 import threading
 import time
 
-from tinyconv.commands.progress import SearchProgress, terminal_width
+from tinyconv.workflows.progress import SearchProgress, terminal_width
 
 
 class _Clock:

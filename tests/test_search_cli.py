@@ -141,7 +141,7 @@ def test_unreadable_images_stop_the_search_unless_skipped(tmp_path, capsys, monk
 
 def test_a_narrow_terminal_drops_columns_and_says_so():
     """At 80 columns the table keeps accuracy, parameters, epochs and p, and names the rest."""
-    from tinyconv.commands.summary import ranking_table
+    from tinyconv.workflows.summary import ranking_table
     rows = [{"candidate": f"16x16gray/c{8 * i}k3-p2", "group": g, "pick": g == "pick",
              "acc_mean": 0.8 - i / 10, "acc_se": 0.01, "train_acc_mean": 0.9,
              "acc_per_kparam": 0.1, "params": 1000 * i, "macs": 10_000 * i, "peak_kb": 1.0,

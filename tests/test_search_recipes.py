@@ -105,7 +105,7 @@ def test_each_unit_was_trained_with_its_own_recipe(reference):
 def test_export_trains_the_pick_with_its_own_recipe(reference, tmp_path):
     """The export retrains a candidate with its recipe and records it in network.npz and
     summary.json."""
-    from tinyconv.commands.export import export_run
+    from tinyconv.workflows.export_pick import export_run
     from tinyconv.network import Network
 
     out, summary = reference

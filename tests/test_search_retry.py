@@ -16,7 +16,7 @@ from search.failures import ATTEMPTS
 from search.session import run_search
 from search.store import FILE, RunStore
 from search.unit import run_unit
-from tinyconv.commands.search import summary_lines
+from tinyconv.workflows.summary import summary_lines
 from tinyconv.errors import WorkersLostError
 
 UNLUCKY = ("8x8gray/c2k3-p2", 0, 0)   # (candidate, fold, rung) of the unit that suffers

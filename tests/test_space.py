@@ -380,7 +380,7 @@ def space_data(draw) -> dict:
 @given(space_data())
 def test_fuzz_space_files_raise_only_our_errors(data):
     """Any mix of keys and values gives a Space or a SpaceError/BudgetError, nothing else."""
-    from search.space import _space_from_data
+    from search.space_read import _space_from_data
     try:
         space = _space_from_data(data, "", "<fuzz>")
     except (SpaceError, BudgetError) as exc:

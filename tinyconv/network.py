@@ -6,39 +6,21 @@ Parameters and state are listed under stable names
 ``"{index}:{op.name}/{key}"`` (e.g. ``"0:1:c8k3/w"``, ``"5:head:dense/b"``),
 the order the optimiser and the files use.
 
-File format (``.npz`` written by :func:`numpy.savez`, read with
-``allow_pickle=False``; every entry is a plain array, strings as 0-d unicode
-arrays):
-
-=====================  =======================================================
-``format``             int, 1
-``arch``               the architecture text
-``n_classes``          int
-``meta``               JSON text of the ``meta`` dict (``{}`` when none)
-``param_names``        unicode array of parameter names, in order
-``state_names``        unicode array of state names, in order
-``param/{name}``       each parameter array
-``state/{name}``       each state array (batch-norm running mean and variance)
-``extra/{key}``        each extra array (e.g. normalisation mean and std)
-=====================  =======================================================
+The file format is described in :mod:`tinyconv.network_file`.
 """
 
 from __future__ import annotations
 
 import json
 import os
-import zipfile
-from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
 
 import numpy as np
 
 from tinyconv import arch as arch_mod
 from tinyconv import layers as layers_mod
 from tinyconv.errors import DataError
-
-FORMAT = 1
+from tinyconv.network_file import FORMAT, Saved, mismatch_message, read_entries
 
 # Layers whose forward can apply the ReLU that follows them in the same pass
 # (these classes exactly: a subclass may override forward or backward).
@@ -53,15 +35,6 @@ def _first_weighted(layers: list) -> int | None:
         if not isinstance(layer, layers_mod.Flatten):
             return None
     return None
-
-
-@dataclass(frozen=True)
-class Saved:
-    """What :meth:`Network.load` returns: the network, its meta dict and extra arrays."""
-
-    network: "Network"
-    meta: dict[str, Any] = field(default_factory=dict)
-    arrays: dict[str, np.ndarray] = field(default_factory=dict)
 
 
 class Network:
@@ -337,7 +310,7 @@ class Network:
         DataError
             When the file is not a tinyconv network file or is damaged.
         """
-        entries = _read(path)
+        entries = read_entries(path)
         text, n_classes = str(entries["arch"]), int(entries["n_classes"])
         try:
             arch = arch_mod.parse(text)
@@ -360,7 +333,7 @@ class Network:
             Naming the first layer whose tensors do not match (kind or shape),
             with both shapes, when the file holds another architecture.
         """
-        self._assign(_read(path), path)
+        self._assign(read_entries(path), path)
 
     def _assign(self, entries: dict[str, np.ndarray], path) -> None:
         """Check every saved tensor against ours, in order, then copy them in."""
@@ -379,45 +352,8 @@ class Network:
                         and name.rsplit("/", 1)[1] == other.rsplit("/", 1)[1]
                         and here.shape == there.shape)
                 if not same:
-                    raise DataError(_mismatch(path, saved_arch, self, group, name, here,
-                                              other, there))
+                    raise DataError(mismatch_message(path, saved_arch, self, group, name,
+                                                     here, other, there))
                 pairs.append((here, there))
         for here, there in pairs:
             here[...] = there
-
-
-def _mismatch(path, saved_arch: str, net: Network, group: str, name, here, other,
-              there) -> str:
-    """The message for the first tensor that does not fit."""
-    def describe(n, a):
-        if n is None:
-            return "nothing"
-        layer, key = n.split(":", 1)[1].rsplit("/", 1)
-        kind = "parameter" if group == "param" else "state"
-        return f"layer {layer} {kind} {key!r} of shape {tuple(a.shape)}"
-
-    return (f"cannot load weights from {path} (architecture {saved_arch!r}) into "
-            f"{str(net.arch)!r}: the first mismatch is {describe(name, here)} in this "
-            f"network against {describe(other, there)} in the file; build the network "
-            "from the saved architecture (Network.load) or load a file of this architecture")
-
-
-def _read(path) -> dict[str, np.ndarray]:
-    """Every entry of a network file, checked for the required keys."""
-    try:
-        with np.load(path, allow_pickle=False) as data:
-            entries = {k: data[k] for k in data.files}
-    except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
-        if isinstance(exc, FileNotFoundError):
-            raise
-        raise DataError(f"{path} is not a readable .npz network file ({exc}); "
-                        "give a file written by Network.save") from None
-    need = ("format", "arch", "n_classes", "meta", "param_names", "state_names")
-    missing = [k for k in need if k not in entries]
-    if missing:
-        raise DataError(f"{path} is not a tinyconv network file: it lacks "
-                        f"{', '.join(missing)}; give a file written by Network.save")
-    if int(entries["format"]) != FORMAT:
-        raise DataError(f"{path} has network file format {int(entries['format'])}, "
-                        f"but this version reads format {FORMAT}; save it again")
-    return entries

@@ -16,26 +16,12 @@ import time
 from pathlib import Path
 
 from tinyconv import fmt
+from tinyconv.checks import whole_number
 from tinyconv.commands._notes import kernels_note
-from tinyconv.commands.progress import SearchProgress, terminal_width
-from tinyconv.commands.search import summary_lines, write_report_if_available
-
-#: Data, candidates and epochs of the full and the quick demo. On these tiles a
-#: network says little about its final accuracy before about 9 epochs (rank
-#: correlation with the 27-epoch accuracy: 0.14 after 3 epochs, 0.51 after 9),
-#: so the full demo's shortest rung is 9 epochs. The quick demo, a smoke run of
-#: a few epochs, learns faster at a learning rate of 0.01.
-FULL = {"data": "builtin:tiles?n=80&size=32&seed=0", "max_candidates": 40, "top_epochs": 27,
-        "base_epochs": 9}
-QUICK = {"data": "builtin:tiles?n=40&size=32&seed=0", "max_candidates": 6, "top_epochs": 9,
-         "base_epochs": 3, "lr": 0.01}
-#: The demo trains with the search's default recipe (search.session.DEFAULT_TRAINING)
-#: and the augmentation its space file names for tiles; the quick demo's rate is
-#: its own (above).
-TRAINING: dict = {}
-#: The part the demo's space times candidates on; the export measures the pick there
-#: under QEMU when the Arm cross-compiler and QEMU are installed.
-DEVICE = {"core": "cortex-m4", "clock_mhz": 80.0}
+from tinyconv.workflows.demo import DEVICE, demo_request
+from tinyconv.workflows.progress import SearchProgress, terminal_width
+from tinyconv.workflows.report_step import write_report_if_available
+from tinyconv.workflows.summary import summary_lines
 
 
 def configure(parser: argparse.ArgumentParser) -> None:
@@ -48,22 +34,10 @@ def configure(parser: argparse.ArgumentParser) -> None:
                         help="local worker processes (default: the number of cores)")
 
 
-def demo_request(out: Path, quick: bool, workers: int | None):
-    """The SearchRequest of the demo."""
-    from search.session import SearchRequest
-    setting = QUICK if quick else FULL
-    return SearchRequest(data=setting["data"], space="builtin:demo", out=out, folds=3, seed=0,
-                         eta=3, top_epochs=setting["top_epochs"],
-                         base_epochs=setting["base_epochs"],
-                         max_candidates=setting["max_candidates"],
-                         training={**TRAINING, **({"lr": setting["lr"]} if "lr" in setting else {})},
-                         workers=workers)
-
-
 def export_pick(run_dir: Path) -> tuple[str, list[str]]:
     """(state, lines): the export of the pick, or why it is not available."""
     try:
-        from tinyconv.commands.export import export_run
+        from tinyconv.workflows.export_pick import export_run
     except ImportError as exc:
         return "missing", [f"export: not available in this installation ({exc})"]
     from tinyconv.device.toolchain import ToolMissing, find_toolchain
@@ -84,9 +58,8 @@ def run(args: argparse.Namespace) -> int:
     """Search, report, export; print the pick."""
     from search.session import run_search
 
-    if args.workers is not None and args.workers < 0:
-        from tinyconv.errors import InputError
-        raise InputError(f"--workers must be 0 or more, got {args.workers}")
+    if args.workers is not None:
+        whole_number(args.workers, "--workers", low=0)
     out = Path(args.out or ("tinyconv-demo-quick" if args.quick else "tinyconv-demo"))
     start = time.perf_counter()
     request = demo_request(out, args.quick, args.workers)
@@ -105,9 +78,8 @@ def run(args: argparse.Namespace) -> int:
     state, text = write_report_if_available(out)
     print(f"report: {text}", file=sys.stdout if state == "written" else sys.stderr)
     code = 1 if state == "failed" else code
-    pick = summary.table[summary.table["pick"]] if not summary.table.empty else None
-    if pick is not None and len(pick):
-        row = pick.iloc[0]
+    if not summary.table.empty:
+        row = summary.ranking.pick
         print(f"demo pick: {row.candidate} ({fmt.accuracy(row.acc_mean, row.acc_se)} held-out "
               f"accuracy, {fmt.count(row.params)} parameters) in "
               f"{time.perf_counter() - start:.0f} s")

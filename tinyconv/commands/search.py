@@ -2,7 +2,7 @@
 
 Re-running the same command in the same ``--out`` folder resumes it: finished
 units are never recomputed. Progress goes to stderr (bars in a terminal,
-lines otherwise: :mod:`tinyconv.commands.progress`); the summary, ranking and
+lines otherwise: :mod:`tinyconv.workflows.progress`); the summary, ranking and
 report paths to stdout. Exit codes: 0 done (also when a budget ended the search: what
 finished is ranked), 2 bad input or a folder holding another run, 130
 interrupted (finished units are kept).
@@ -14,11 +14,13 @@ import argparse
 import sys
 from pathlib import Path
 
+from search import config as cfg
 from search.config import parse_duration
 from tinyconv.commands._args import add_device_options, count, positive_float, positive_int
 from tinyconv.commands._notes import kernels_note
-from tinyconv.commands.progress import SearchProgress, terminal_width
-from tinyconv.commands.summary import summary_lines
+from tinyconv.workflows.progress import SearchProgress, terminal_width
+from tinyconv.workflows.report_step import write_report_if_available
+from tinyconv.workflows.summary import summary_lines
 
 DATA_HELP = ("a folder with one sub-folder per class, a .npz file (x, y), "
              "builtin:tiles[?n=100&size=32&seed=0] or builtin:digits")
@@ -48,21 +50,23 @@ def budgets_from(args: argparse.Namespace) -> dict:
 
 
 def add_search_options(parser: argparse.ArgumentParser) -> None:
-    """Options shared by ``search`` (and read by ``demo``)."""
+    """Options shared by ``search`` (and read by ``demo``); defaults from
+    :mod:`search.config`."""
+    train = cfg.DEFAULT_TRAINING
     g = parser.add_argument_group("cross-validation and schedule")
-    g.add_argument("--folds", type=int, default=3, metavar="K",
-                   help="stratified folds (default 3)")
+    g.add_argument("--folds", type=int, default=cfg.FOLDS, metavar="K",
+                   help=f"stratified folds (default {cfg.FOLDS})")
     g.add_argument("--budget-cpu", default=None, metavar="T",
                    help="total CPU time for training, e.g. 90s, 20m, 1h (default: no limit)")
     g.add_argument("--budget-epochs", type=positive_int, default=None, metavar="N",
                    help="total training epochs summed over all units (default: no limit)")
-    g.add_argument("--top-epochs", type=positive_int, default=9, metavar="R",
-                   help="epochs of the final rung (default 9)")
-    g.add_argument("--base-epochs", type=positive_int, default=1, metavar="N",
+    g.add_argument("--top-epochs", type=positive_int, default=cfg.TOP_EPOCHS, metavar="R",
+                   help=f"epochs of the final rung (default {cfg.TOP_EPOCHS})")
+    g.add_argument("--base-epochs", type=positive_int, default=cfg.BASE_EPOCHS, metavar="N",
                    help="fewest epochs of any rung: leave out shorter rungs when a few "
-                        "epochs say nothing yet (default 1)")
-    g.add_argument("--eta", type=int, default=3, help="halving rate: each rung keeps 1/eta "
-                   "(default 3)")
+                        f"epochs say nothing yet (default {cfg.BASE_EPOCHS})")
+    g.add_argument("--eta", type=int, default=cfg.ETA, help="halving rate: each rung keeps "
+                   f"1/eta (default {cfg.ETA})")
     g.add_argument("--int8", action="store_true",
                    help="also score the int8 quantised form of every unit of the last rung, "
                         "so the ranking shows the accuracy lost to quantisation")
@@ -70,12 +74,13 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
                    help="no halving: every candidate trains R epochs on every fold")
     g.add_argument("--max-candidates", type=positive_int, default=None, metavar="N",
                    help="a seeded sample of N of the candidates within budget")
-    g.add_argument("--seed", type=int, default=0, help="run seed (default 0)")
-    g.add_argument("--rank-by", choices=("per-param", "accuracy"), default="per-param",
+    g.add_argument("--seed", type=int, default=cfg.SEED, help=f"run seed (default {cfg.SEED})")
+    g.add_argument("--rank-by", choices=("per-param", "accuracy"),
+                   default=cfg.RANK_BY.replace("_", "-"),
                    help="order of the ranking: accuracy over chance per 1,000 parameters "
                         "(default) or mean held-out accuracy")
     g.add_argument("--simplest-by", choices=("params", "macs", "ram", "flash", "ms"),
-                   default="params",
+                   default=cfg.SIMPLEST_BY,
                    help="what the one-standard-error pick minimises among the candidates "
                         "within one SE of the best: parameters (default), MACs, int8 peak "
                         "RAM, int8 flash, or ms per image on the device (needs --core or a "
@@ -84,21 +89,21 @@ def add_search_options(parser: argparse.ArgumentParser) -> None:
     t = parser.add_argument_group("training of every unit (the recipe options replace the "
                                   "space's [training] choices)")
     t.add_argument("--lr", type=positive_float, default=None,
-                   help="learning rate (default 0.005)")
+                   help=f"learning rate (default {train['lr']})")
     t.add_argument("--schedule", choices=("constant", "step", "cosine"), default=None,
-                   help="learning-rate schedule over the epochs (default constant)")
+                   help=f"learning-rate schedule over the epochs (default {train['schedule']})")
     t.add_argument("--augment", default=None, metavar="TEXT",
                    help="augmentation of the training batches, e.g. shift2+mirror+upend+turn "
-                        "(default none; forms in the README)")
+                        f"(default {train['augment']}; forms in the README)")
     t.add_argument("--copies", type=positive_int, default=None, metavar="N",
                    help="copies of each training image an epoch passes over, each augmented "
-                        "on its own (default 1)")
+                        f"on its own (default {train['copies']})")
     t.add_argument("--batch-size", type=positive_int, default=None, metavar="N",
-                   help="images per mini-batch (default 16)")
+                   help=f"images per mini-batch (default {train['batch_size']})")
     t.add_argument("--optimizer", choices=("adam", "sgd"), default=None,
-                   help="optimiser (default adam)")
+                   help=f"optimiser (default {train['optimizer']})")
     t.add_argument("--weight-decay", type=float, default=None, metavar="W",
-                   help="decoupled weight decay (default 0)")
+                   help=f"decoupled weight decay (default {train['weight_decay']:g})")
     x = parser.add_argument_group("where units run")
     x.add_argument("--workers", type=count, default=None, metavar="N",
                    help="local worker processes (default: the number of cores; 0 runs "
@@ -141,20 +146,6 @@ def request_from(args: argparse.Namespace, data: str, space: str | None, out: st
         cluster=args.cluster, rank_by=args.rank_by.replace("-", "_"),
         skip_bad=bool(getattr(args, "skip_bad", False)), int8=bool(args.int8),
         simplest_by=args.simplest_by)
-
-
-def write_report_if_available(run_dir) -> tuple[str, str]:
-    """(state, text): ``("written", path)``, ``("missing", why)`` or ``("failed", why)``."""
-    try:
-        from tinyconv.report import write_report
-    except ImportError as exc:
-        return "missing", f"the report is not available in this installation ({exc})"
-    try:
-        return "written", str(write_report(run_dir))
-    except Exception as exc:  # the results are safe in the store either way
-        return "failed", (f"{type(exc).__name__}: {exc}; the results are in "
-                          f"{Path(run_dir) / 'run.sqlite'}; 'tinyconv report {run_dir}' "
-                          "tries again")
 
 
 def run(args: argparse.Namespace) -> int:

@@ -2,7 +2,7 @@
 
 :func:`export_network` is a pure function of a trained network and its
 normalisation; reading a run folder and retraining the pick is
-:mod:`tinyconv.commands.export`.
+:mod:`tinyconv.workflows.export_pick`.
 """
 
 from __future__ import annotations

@@ -13,6 +13,7 @@ from pathlib import Path
 import numpy as np
 
 from search.rank import rank_run
+from search.ranking import Ranking
 from search.store import FILE, RunStore
 from tinyconv.errors import RunError
 from tinyconv.report.rundata import PickPredictions, RunData
@@ -57,7 +58,7 @@ def collect(run_dir: str | Path, rank_by: str | None = None) -> RunData:
         candidates = store.candidates()
         removed = {str(k): int(v) for k, v in (store.removed() or {}).items()}
         outcome = store.outcome()
-        pick = ranking[ranking["pick"].astype(bool)].iloc[0]
+        pick = Ranking(ranking).pick
         frame = store.predictions(pick["candidate"], int(pick["rung"]))
         probs = store.prediction_probs(pick["candidate"], int(pick["rung"]))
     predictions = None

@@ -11,6 +11,7 @@ from matplotlib.figure import Figure
 from matplotlib.lines import Line2D
 from matplotlib.patches import Patch
 
+from search.ranking import Ranking
 from tinyconv.report.axes import (PERCENT_FORMAT, SI_FORMAT, chance_line, new_figure, si,
                                   spans_decades)
 from tinyconv.report.palette import PALETTE, style
@@ -59,7 +60,8 @@ def pareto_plot(ranking: pd.DataFrame, x: str = "params", *, budget: float | Non
     se = np.nan_to_num(df["acc_se"].to_numpy(dtype=float))
     front = df[FRONT_COLUMNS[x]].to_numpy(dtype=bool)
     pick = df["pick"].to_numpy(dtype=bool)
-    best = int(np.nanargmax(ys))
+    # the best of highest mean, ties to the smaller size (search.ranking.Ranking.best_least)
+    best = df.index.get_loc(Ranking(df).best_least(x).name)
     lo_band = ys[best] - se[best]
 
     named = _named(df, front | pick | (np.arange(len(df)) == best), names)

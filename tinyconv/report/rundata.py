@@ -9,6 +9,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from search.ranking import Ranking
+
 
 @dataclass(frozen=True)
 class PickPredictions:
@@ -82,25 +84,24 @@ class RunData:
         return 1.0 / len(self.classes)
 
     @property
+    def ranked(self) -> Ranking:
+        """The ranking as a value (:class:`search.ranking.Ranking`)."""
+        return Ranking(self.ranking)
+
+    @property
     def pick(self) -> pd.Series:
         """The ranking row of the pick."""
-        rows = self.ranking[self.ranking["pick"].astype(bool)]
-        return rows.iloc[0]
+        return self.ranked.pick
 
     @property
     def best(self) -> pd.Series:
         """The finalist with the highest mean held-out accuracy (fewer parameters on ties)."""
-        fin = self.finalists
-        order = fin.sort_values(["acc_mean", "params", "candidate"],
-                                ascending=[False, True, True], kind="stable")
-        return order.iloc[0]
+        return self.ranked.best
 
     @property
     def finalists(self) -> pd.DataFrame:
         """Ranking rows at the highest rung (those that take part in the pick)."""
-        if "finalist" in self.ranking.columns:
-            return self.ranking[self.ranking["finalist"].astype(bool)]
-        return self.ranking
+        return self.ranked.finalists
 
 
 def fold_scores(ranking: pd.DataFrame, units: pd.DataFrame) -> pd.DataFrame:

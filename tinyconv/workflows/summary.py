@@ -14,6 +14,7 @@ from typing import Sequence
 
 import pandas as pd
 
+from search.ranking import Ranking
 from tinyconv import fmt
 
 STATE_TEXT = {"complete": "the whole plan ran",
@@ -149,8 +150,9 @@ def summary_lines(summary, top: int = 12, width: int | None = None) -> list[str]
         lines.append(f"recipe of every candidate: {t['recipe'].iloc[0]}")
     if len(t) > top:
         lines.append(f"  ... {len(t) - top} more rows in {summary.ranking_path}")
-    pick = t[t["pick"]].iloc[0]
-    best = t[t["finalist"]].sort_values(["acc_mean", "params"], ascending=[False, True]).iloc[0]
+    ranking = Ranking(t)
+    # the best of highest mean, ties to fewer parameters, then the table's order
+    pick, best = ranking.pick, ranking.best_least("params")
     lines += ["", f"pick: {pick.candidate}  held-out accuracy "
                   f"{fmt.accuracy(pick.acc_mean, pick.acc_se)} over {int(pick.folds)} folds, "
                   f"{fmt.count(pick.params)} parameters, {pick.peak_kb:.1f} KB RAM, "
