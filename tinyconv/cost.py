@@ -46,7 +46,7 @@ from tinyconv.cost_rules import (CHANNEL_BYTES, INPUT_TABLE_ROWS, KB, OP_RULES, 
 from tinyconv.cost_totals import Totals, totals_of
 from tinyconv.cost_training import OPTIMIZER_SLOTS, TrainingMemory, training_memory
 
-__all__ = ["OP_RULES", "OpRule", "rule_of", "writes_buffer", "is_weighted", "OpCost", "Cost",
-           "Totals", "cost_of", "totals_of", "scratch_bytes", "op_cost", "input_cost",
+__all__ = ["OP_RULES", "OpRule", "rule_of", "writes_buffer", "is_weighted", "op_numbers",
+           "OpCost", "Cost", "Totals", "cost_of", "totals_of", "scratch_bytes", "op_cost", "input_cost",
            "folded_flags", "training_memory", "TrainingMemory", "CHANNEL_BYTES",
            "INPUT_TABLE_ROWS", "KB", "OPTIMIZER_SLOTS"]
