@@ -25,8 +25,11 @@ import _nets
 import _timing
 
 
-#: layer modules whose kernel helpers (functions from ``tinyconv.layers.kernels_*``) are timed
-LAYER_MODULES = ("activation", "conv", "winograd", "dense", "depthwise", "pool", "norm")
+#: layer modules whose kernel helpers (functions from :data:`KERNEL_MODULES`) are timed
+LAYER_MODULES = ("activation", "conv", "convalg.winograd", "dense", "depthwise", "pool", "norm")
+#: the kernel modules: ``tinyconv.layers.kernels_*`` and the convolution algorithms' kernels
+KERNEL_MODULES = ("tinyconv.layers.kernels", "tinyconv.layers.convalg.im2col",
+                  "tinyconv.layers.convalg.winograd_f")
 
 
 def _wrap(layer, key: str, acc: dict, where: dict | None = None) -> None:
@@ -53,8 +56,8 @@ def _wrap(layer, key: str, acc: dict, where: dict | None = None) -> None:
 
 
 def _is_kernels(module_name: str) -> bool:
-    """Whether a module holds kernels (``tinyconv.layers.kernels_*``)."""
-    return module_name.startswith("tinyconv.layers.kernels")
+    """Whether a module holds kernels (a name starting with one of :data:`KERNEL_MODULES`)."""
+    return module_name.startswith(KERNEL_MODULES)
 
 
 @contextlib.contextmanager

@@ -155,7 +155,7 @@ def test_unrolled_2x2_pool_matches_the_references(mask):
 @pytest.mark.parametrize("c, k, s", [(2, 3, 1), (3, 3, 2), (12, 3, 1), (5, 7, 2)])
 def test_im2col_both_loop_orders_match_the_reference(c, k, s):
     """im2col equals the loop reference for short (<= 32) and long kernel-row runs."""
-    from tinyconv.layers import kernels_conv as kc
+    from tinyconv.layers.convalg import im2col as kc
 
     xp = randn((2, 9, 10, c), c + k)
     np.testing.assert_array_equal(kc.im2col(xp, k, k, s), reference.im2col(xp, k, k, s))
@@ -167,7 +167,7 @@ def test_im2col_both_loop_orders_match_the_reference(c, k, s):
 def test_im2col_col2im_short_and_long_runs_match_the_references(dtype, c, k, s, hp, wp):
     """im2col (the 9-value copy of 3 x 3 on 3 channels and the slice loop) and col2im equal the
     loop references exactly: col2im adds in the reference's order."""
-    from tinyconv.layers import kernels_conv as kc
+    from tinyconv.layers.convalg import im2col as kc
 
     xp = randn((2, hp, wp, c), c + 7 * k + s).astype(dtype)
     cols = kc.im2col(xp, k, k, s, np.full((2, (hp - k) // s + 1, (wp - k) // s + 1, k, k, c),

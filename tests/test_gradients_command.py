@@ -97,7 +97,7 @@ def test_input_override_that_does_not_fit_exits_2(capsys):
 
 def test_conv_option_forces_and_reports_the_algorithm(capsys, monkeypatch):
     """--conv forces an algorithm on the layers that can run it, says so, and checks that path."""
-    import tinyconv.layers.winograd as winograd
+    import tinyconv.layers.convalg.winograd as winograd
     text = "8x8gray/c16k3-c16k3-c16k3s2-c16k3-gap"
     assert main(["gradients", text]) == 0   # c_in 1, 16 on 8 x 8, stride 2, 16 on 4 x 4
     assert ("convolutions: 0:1:c16k3 im2col, 2:2:c16k3 winograd4, 4:3:c16k3s2 im2col, "

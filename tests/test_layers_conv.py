@@ -9,7 +9,7 @@ from scipy import signal
 from helpers import conv_op, randn
 from tinyconv.gradients import check_layer
 from tinyconv.layers import build, reference
-from tinyconv.layers import kernels_conv as kc
+from tinyconv.layers.convalg import im2col as kc
 
 # (h, w, c_in, filters, kernel, stride, valid): odd and even sizes, stride 1 and 2,
 # same and valid padding, kernels 1, 3 and 5.

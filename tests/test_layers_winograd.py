@@ -9,6 +9,9 @@ layers of every algorithm with scipy.signal.correlate.
 
 from __future__ import annotations
 
+import importlib.util
+from pathlib import Path
+
 import numpy as np
 import pytest
 from scipy import signal
@@ -16,11 +19,10 @@ from scipy import signal
 from helpers import conv_op, randn
 from tinyconv.gradients import check_layer
 from tinyconv.layers import build, reference
-from tinyconv.layers import kernels_wino4_unrolled as kw4u
-from tinyconv.layers import gen_wino4
-from tinyconv.layers import kernels_wino as kw
-from tinyconv.layers import kernels_wino4 as kw4
-from tinyconv.layers import winograd
+from tinyconv.layers.convalg import winograd_f4_unrolled as kw4u
+from tinyconv.layers.convalg import winograd_f2 as kw
+from tinyconv.layers.convalg import winograd_f4 as kw4
+from tinyconv.layers.convalg import winograd
 from tinyconv.layers.conv import Conv, pick_algorithm
 from tinyconv.losses import softmax_cross_entropy
 from tinyconv.network import Network
@@ -39,6 +41,17 @@ SHAPES = [
 
 
 ALGORITHMS = ["winograd", "winograd4"]
+# The generator of winograd_f4_unrolled.py, a development tool outside the package.
+GENERATOR = Path(__file__).resolve().parents[1] / "devtools" / "gen_winograd_f4.py"
+
+
+@pytest.fixture(scope="module")
+def gen_f4():
+    """The generator module, loaded from its file."""
+    spec = importlib.util.spec_from_file_location("gen_winograd_f4", GENERATOR)
+    module = importlib.util.module_from_spec(spec)
+    spec.loader.exec_module(module)
+    return module
 # The transform matrices of each algorithm (module, tile size).
 MATRICES = [(kw, 4), (kw4, 6)]
 
@@ -256,19 +269,19 @@ def test_chunks_of_images_give_the_same_results(monkeypatch, chunk_bytes, algori
     np.testing.assert_allclose(layer.grads["b"], rgb, rtol=1e-11, atol=1e-12)
 
 
-def test_generated_kernels_are_what_the_generator_writes():
-    """kernels_wino4_unrolled.py is exactly the generator's output (regenerate after changing the matrices)."""
+def test_generated_kernels_are_what_the_generator_writes(gen_f4):
+    """winograd_f4_unrolled.py is exactly devtools/gen_winograd_f4.py's output (regenerate after changing the matrices)."""
     path = kw4u.__file__
     with open(path, encoding="utf-8") as fh:
-        assert fh.read() == gen_wino4.source(), \
-            "run: python -m tinyconv.layers.gen_wino4 > tinyconv/layers/kernels_wino4_unrolled.py"
+        assert fh.read() == gen_f4.source(), \
+            "run: python devtools/gen_winograd_f4.py > tinyconv/layers/convalg/winograd_f4_unrolled.py"
 
 
-def test_generated_combination_reads_the_matrix_row():
+def test_generated_combination_reads_the_matrix_row(gen_f4):
     """One generated expression: row 1 of B^T is (0, -4, -4, 1, 1, 0)."""
-    assert gen_wino4.combo(kw4.BT[1], ["a", "b", "c", "d", "e", "f"]) == "-k4 * b - k4 * c + d + e"
+    assert gen_f4.combo(kw4.BT[1], ["a", "b", "c", "d", "e", "f"]) == "-k4 * b - k4 * c + d + e"
     with pytest.raises(ValueError, match="not in CONSTANTS"):
-        gen_wino4.combo([3.0], ["a"])
+        gen_f4.combo([3.0], ["a"])
 
 
 @pytest.mark.parametrize("dtype", [np.float32, np.float64])

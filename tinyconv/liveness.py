@@ -1,7 +1,8 @@
 """Which activation tensors are alive at each step: the live ranges behind peak memory.
 
 A deployed network runs *steps*: the input quantisation, then every op that
-writes a new buffer (:data:`BUFFER_KINDS`). Each step writes one tensor;
+writes a new buffer (:func:`tinyconv.cost_rules.writes_buffer`: its kind's
+``OpRule.buffer``). Each step writes one tensor;
 ReLU, batch norm, dropout and flatten work in place, so their output is the
 tensor they read. A tensor lives from the step that writes it to the last
 step that reads it (a residual block's input: until the addition that closes
@@ -18,11 +19,9 @@ from dataclasses import dataclass
 from math import prod
 from typing import Sequence
 
+from tinyconv.cost_rules import writes_buffer
 from tinyconv.ops import Op, sources
 
-#: op kinds that write a new activation buffer (the others work in place)
-BUFFER_KINDS = frozenset({"input", "conv", "dwconv", "maxpool", "avgpool", "gap", "dense",
-                          "add"})
 
 
 @dataclass(frozen=True)
@@ -92,7 +91,7 @@ def live_ranges(ops: Sequence[Op], in_shape: tuple[int, ...], in_name: str = "in
     reads: list[tuple[int, ...]] = []
     for i, (op, src) in enumerate(zip(ops, sources(tuple(ops)))):
         ins = tuple(owner[j] if j >= 0 else 0 for j in src)
-        if op.kind in BUFFER_KINDS:
+        if writes_buffer(op.kind):
             for t in ins:
                 tensors[t][2] = max(tensors[t][2], i)
             tensors.append([op.name, i, i, prod(op.out_shape)])
@@ -106,5 +105,5 @@ def live_ranges(ops: Sequence[Op], in_shape: tuple[int, ...], in_name: str = "in
     def at(step: int) -> tuple[int, ...]:
         return tuple(k for k, t in enumerate(done) if t.producer <= step <= t.last_read)
 
-    alive = tuple(at(i) if ops[i].kind in BUFFER_KINDS else () for i in range(len(ops)))
+    alive = tuple(at(i) if writes_buffer(ops[i].kind) else () for i in range(len(ops)))
     return Lives(done, tuple(owner), tuple(reads), alive, at(-1))

@@ -22,36 +22,15 @@ import json
 from dataclasses import dataclass
 from functools import lru_cache
 from importlib import resources
-from math import prod
 from typing import Union
 
 from tinyconv.arch import Arch, Op, expand, parse
-from tinyconv.cost import cost_of
+from tinyconv.cost import cost_of, writes_buffer
 from tinyconv.device.cores import Core, core_named, milliseconds
+from tinyconv.device.features import step_model
 from tinyconv.errors import InputError
 
-#: op kinds that are steps of the C (the others are fused, folded or free)
-STEP_KINDS = ("conv", "dwconv", "dense", "maxpool", "avgpool", "gap", "add")
-#: the C kernels (templates) each step kind needs; code size is fitted per kernel
-KERNELS = {"input": (), "conv": ("scale", "conv"), "dwconv": ("scale", "dwconv"),
-           "dense": ("scale", "dot", "dense"), "head": ("scale", "dot", "head"),
-           "maxpool": ("maxpool",), "avgpool": ("rdiv", "avgpool"), "gap": ("rdiv", "gap"),
-           "add": ("scale", "add")}
 CONSTANTS_FILE = "constants.json"
-
-
-def _visited(size: int, out: int, kernel: int, stride: int, pad: int) -> int:
-    """Sum over output positions of the kernel offsets that land inside ``size``."""
-    total = 0
-    for o in range(out):
-        start = o * stride - pad
-        total += min(start + kernel, size) - max(start, 0)
-    return total
-
-
-def _edge_positions(size: int, out: int, kernel: int, stride: int, pad: int) -> int:
-    """Output positions whose kernel window reaches outside ``size`` (into the padding)."""
-    return sum(1 for o in range(out) if o * stride - pad < 0 or o * stride - pad + kernel > size)
 
 
 def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[str, float]:
@@ -60,7 +39,7 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
     Parameters
     ----------
     kind : str
-        ``input``, ``head`` or one of :data:`STEP_KINDS`.
+        ``input``, ``head`` or a step kind of :data:`~tinyconv.device.features.STEP_MODELS`.
     op : Op or None
         The op (None for the input step).
     in_shape : tuple
@@ -78,60 +57,7 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
     rows inside, products inside, and the padding's taps of edge pixels.
     Residual addition: the values of its output.
     """
-    if kind == "input":
-        # the loop indexes the table by ``i % c``: free for one channel, a mask for a
-        # power of two, a multiply for the others
-        n, c = float(prod(in_shape)), in_shape[-1]
-        return {"one": 1.0, "values": n, "channel_index": n if c & (c - 1) else 0.0}
-    if kind in ("dense", "head"):
-        n_in, n_out = prod(op.in_shape), prod(op.out_shape)
-        pairs = -(-n_out // 2)
-        return {"one": 1.0, "outputs": float(n_out), "pairs": float(pairs),
-                "steps4": float(pairs * (n_in // 4)), "singles": float(pairs * (n_in % 4))}
-    if kind == "gap":
-        h, w, c = op.in_shape
-        return {"one": 1.0, "outputs": float(c), "reads": float(h * w * c)}
-    if kind == "add":
-        # one pass over the values, three fixed-point rescalings each
-        return {"one": 1.0, "values": float(prod(op.out_shape))}
-    if kind in ("maxpool", "avgpool"):
-        oh, ow, c = op.out_shape
-        size = op.size
-        feats = {"one": 1.0, "pixels": float(oh * ow), "outputs": float(oh * ow * c)}
-        if kind == "maxpool" and size == 2:
-            feats["outputs_by_2"] = float(oh * ow * c)
-        else:
-            feats["reads"] = float(oh * ow * c * size * size)
-            feats["rows"] = float(oh * ow * c * size)
-        return feats
-    h, w, c = op.in_shape
-    oh, ow, f = op.out_shape
-    k, s = op.kernel, op.stride
-    top, _, left, _ = op.pads
-    vy = _visited(h, oh, k, s, top)
-    vx = _visited(w, ow, k, s, left)
-    n = oh * ow
-    if kind == "conv":
-        kk = k * k * c
-        pixel_pairs, filter_pairs = -(-n // 2), f // 2
-        odd = f % 2
-        return {"one": 1.0, "pixel_pairs": float(pixel_pairs), "patch_rows": float(n * k),
-                "patch_values": float(vy * vx * c),
-                "blocks": float(pixel_pairs * filter_pairs),
-                "steps4": float(pixel_pairs * filter_pairs * (kk // 4)),
-                "singles": float(pixel_pairs * filter_pairs * (kk % 4)),
-                "odd_steps4": float(pixel_pairs * odd * (kk // 4)),
-                "odd_singles": float(pixel_pairs * odd * (kk % 4)),
-                "outputs": float(n * f)}
-    # dwconv: blocks of four channels, the channel loop innermost
-    blocks = -(-c // 4)
-    full = c // 4
-    edge = (_edge_positions(h, oh, k, s, top) * ow + _edge_positions(w, ow, k, s, left) * oh
-            - _edge_positions(h, oh, k, s, top) * _edge_positions(w, ow, k, s, left))
-    return {"one": 1.0, "pixels": float(n), "blocks": float(n * blocks),
-            "rows": float(vy * ow * blocks), "taps4": float(vy * vx * full),
-            "taps_rest": float(vy * vx * (c - 4 * full)),
-            "edge_taps": float(edge * k * k * blocks), "outputs": float(n * c)}
+    return step_model(kind).features(op, in_shape)
 
 
 @dataclass(frozen=True)
@@ -157,7 +83,7 @@ def device_steps(arch: Union[Arch, str], n_classes: int) -> list[tuple[int, str,
     out = [(0, "input", "input", None, arch.input.shape)]
     last = max(i for i, op in enumerate(ops) if op.kind == "dense")
     for i, op in enumerate(ops):
-        if op.kind in STEP_KINDS:
+        if writes_buffer(op.kind):
             out.append((i + 1, op.name, "head" if i == last else op.kind, op, op.in_shape))
     return out
 
@@ -223,7 +149,7 @@ class DeviceEstimate:
 def code_bytes(kinds: list[str], coef: dict) -> float:
     """Fitted code size of a classifier whose steps have these kinds."""
     code = coef["code"]
-    used = {kernel for kind in kinds for kernel in KERNELS[kind]}
+    used = {kernel for kind in kinds for kernel in step_model(kind).kernels}
     return (code["base"] + sum(code["kernel"][k] for k in used)
             + sum(code["call"][kind] for kind in kinds))
 

@@ -25,7 +25,8 @@ import numpy as np
 from tinyconv.cost import cost_of
 from tinyconv.device.cores import CORES, core_named
 from tinyconv.device.measure import measure, random_network
-from tinyconv.device.model import KERNELS, device_steps, step_features
+from tinyconv.device.features import STEP_MODELS
+from tinyconv.device.model import device_steps, step_features
 from tinyconv.device.toolchain import find_toolchain
 
 #: networks the constants are fitted on: every step kind, strides, valid padding,
@@ -106,7 +107,7 @@ def fit_core(core_name: str, networks=FIT_NETWORKS, say=print) -> dict:
         overheads.append(m.instructions - sum(s.instructions for s in m.steps))
         kinds = [kind for _, _, kind, _, _ in steps]
         feat = {"base": 1.0}
-        for kernel in {kn for kind in kinds for kn in KERNELS[kind]}:
+        for kernel in {kn for kind in kinds for kn in STEP_MODELS[kind].kernels}:
             feat[f"kernel:{kernel}"] = 1.0
         for kind in kinds:
             feat[f"call:{kind}"] = feat.get(f"call:{kind}", 0.0) + 1.0
@@ -122,8 +123,8 @@ def fit_core(core_name: str, networks=FIT_NETWORKS, say=print) -> dict:
         "call": float(np.mean(overheads)),
         "code": {"base": code.get("base", 0.0),
                  "kernel": {kn: code.get(f"kernel:{kn}", 0.0)
-                            for kn in sorted({k for ks in KERNELS.values() for k in ks})},
-                 "call": {kind: code.get(f"call:{kind}", 0.0) for kind in KERNELS}},
+                            for kn in sorted({k for m in STEP_MODELS.values() for k in m.kernels})},
+                 "call": {kind: code.get(f"call:{kind}", 0.0) for kind in STEP_MODELS}},
         "stack_bytes": int(-(-max(stacks) * STACK_MARGIN // 16) * 16),
     }
 

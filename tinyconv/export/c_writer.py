@@ -27,13 +27,13 @@ from __future__ import annotations
 
 import re
 from dataclasses import dataclass
-from math import prod
 
 import numpy as np
 
 from tinyconv import __version__
 from tinyconv.errors import InputError
 from tinyconv.export import c_fast, c_kernels, c_layout
+from tinyconv.export.c_steps import emitter_of
 from tinyconv.export.placement import plan_buffer
 from tinyconv.quant.quantize import QuantizedNetwork, QuantLayer
 
@@ -117,43 +117,13 @@ def _comment_safe(text: str) -> str:
     return text.replace("*/", "* /").replace("/*", "/ *")
 
 
-def _call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, head: bool = False,
-          style: str = "fast", skip: str = "") -> str:
-    """The kernel call of one step (``head``: the last layer, which gives the class;
-    ``skip``: a residual addition's second input)."""
-    op = layer.op
-    if layer.kind == "add":
-        (ma, mb, my), (na, nb, ny) = layer.multiplier, layer.shift
-        return (f"    {p}_add({src}, {skip}, {dst}, {prod(op.out_shape)}, {layer.in_zp}, "
-                f"{layer.skip_zp},\n        {ma}, {na}, {mb}, {nb}, {my}, {ny}, "
-                f"{layer.out_zp});\n")
-    arrays = (f"{p}_l{layer.index}_w, {p}_l{layer.index}_bias, {p}_l{layer.index}_mult, "
-              f"{p}_l{layer.index}_shift")
-    # the fast dense and head kernels have the input zero point folded into the bias
-    xz = "" if style == "fast" else f"{layer.in_zp}, "
-    if head:
-        return (f"    best = {p}_head({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
-                f"{xz}\n        {arrays}, {layer.out_zp});\n")
-    if layer.kind in ("conv", "dwconv", "dense"):
-        tail = f"{arrays}, {layer.out_zp}, {layer.lo}, {layer.hi}"
-        if layer.kind == "dense":
-            return (f"    {p}_dense({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
-                    f"{xz}\n        {tail});\n")
-        h, w, c = op.in_shape
-        oh, ow, f = op.out_shape
-        top, _, left, _ = op.pads
-        if layer.kind == "conv":
-            col = f"{scratch}, " if style == "fast" else ""
-            return (f"    {p}_conv({src}, {dst}, {col}{h}, {w}, {c}, {oh}, {ow}, {f}, "
-                    f"{op.kernel}, {op.stride}, {top}, {left}, {layer.in_zp},\n        "
-                    f"{tail});\n")
-        return (f"    {p}_dwconv({src}, {dst}, {h}, {w}, {c}, {oh}, {ow}, {op.kernel}, "
-                f"{op.stride}, {top}, {left}, {layer.in_zp},\n        {tail});\n")
-    h, w, c = op.in_shape
-    if layer.kind == "gap":
-        return f"    {p}_gap({src}, {dst}, {h * w}, {c});\n"
-    oh, ow, _ = op.out_shape
-    return f"    {p}_{layer.kind}({src}, {dst}, {w}, {c}, {oh}, {ow}, {op.size});\n"
+def _kernels(kinds: list[str], p: str, style: str) -> str:
+    """The C text of the kernels the step ``kinds`` need: those of the style's kernel
+    module (:data:`KERNELS`), then those of kinds whose emitter brings its own."""
+    own = {kind: emitter_of(kind).kernels for kind in kinds}
+    text = KERNELS[style]([kind for kind in kinds if own[kind] is None], p)
+    return text + "".join(write(style, p) for write in dict.fromkeys(
+        write for write in own.values() if write is not None))
 
 
 def _dsp_switch(P: str) -> str:
@@ -246,8 +216,9 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
     for j, (layer, at) in enumerate(zip(qnet.layers, plan.steps)):
         body.append(f"    /* {_comment_safe(_describe(layer))} */\n")
         body.append(f"    {P}_MARK({j + 1});\n")
-        body.append(_call(layer, p, ptr(at.src), ptr(at.dst), ptr(at.scratch), j == last,
-                          style, "" if at.skip is None else ptr(at.skip)))
+        emitter = emitter_of("head" if j == last else layer.kind)
+        body.append(emitter.call(layer, p, ptr(at.src), ptr(at.dst), ptr(at.scratch), style,
+                                 "" if at.skip is None else ptr(at.skip)))
     body += [f"    {P}_MARK({last + 2});\n",
              f"    memcpy(logits, {p}_activations + {last_dst}, {k});\n",
              "    return best;\n}\n"]
@@ -260,7 +231,7 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
               + "\n".join(blocks) + "\n"
               f"/* activations: each tensor at the offset planned from the live ranges */\n"
               f"static int8_t {p}_activations[{P}_ACTIVATION_BYTES];\n"
-              + KERNELS[style]([layer.kind for layer in qnet.layers[:-1]] + ["head"], p)
+              + _kernels([layer.kind for layer in qnet.layers[:-1]] + ["head"], p, style)
               + "\n" + "".join(body))
     header = (info + f"\n#ifndef {P}_H\n#define {P}_H\n\n#include <stdint.h>\n\n"
               f"#define {P}_INPUT_H {h}\n#define {P}_INPUT_W {w}\n#define {P}_INPUT_C {c}\n"

@@ -33,6 +33,8 @@ caller (ReLU keeps its output as the mask).
 
 from __future__ import annotations
 
+from typing import Callable
+
 import numpy as np
 
 from tinyconv.arch import Op
@@ -48,10 +50,38 @@ from tinyconv.layers.pool import AvgPool, GlobalAvgPool, MaxPool
 from tinyconv.layers.reshape import Flatten
 
 __all__ = ["Layer", "Conv", "Depthwise", "MaxPool", "AvgPool", "GlobalAvgPool", "Dense",
-           "ReLU", "Flatten", "Dropout", "BatchNorm", "Add", "Stack", "build", "KINDS"]
+           "ReLU", "Flatten", "Dropout", "BatchNorm", "Add", "Stack", "build", "BUILDERS",
+           "KINDS"]
 
-KINDS = ("conv", "dwconv", "maxpool", "avgpool", "gap", "flatten", "dense", "relu", "bn",
-         "dropout", "add")
+
+def _conv(op: Op, rng: np.random.Generator, dtype) -> Layer:
+    return Conv(op.in_shape[2], op.filters, op.kernel, op.stride, op.pads, rng=rng, dtype=dtype)
+
+
+def _dwconv(op: Op, rng: np.random.Generator, dtype) -> Layer:
+    return Depthwise(op.in_shape[2], op.kernel, op.stride, op.pads, rng=rng, dtype=dtype)
+
+
+def _dense(op: Op, rng: np.random.Generator, dtype) -> Layer:
+    return Dense(op.in_shape[0], op.units, rng=rng, dtype=dtype)
+
+
+#: the engine stage's table: per op kind, ``builder(op, rng, dtype) -> Layer``
+BUILDERS: dict[str, Callable[[Op, np.random.Generator, np.dtype], Layer]] = {
+    "conv": _conv,
+    "dwconv": _dwconv,
+    "maxpool": lambda op, rng, dtype: MaxPool(op.size),
+    "avgpool": lambda op, rng, dtype: AvgPool(op.size),
+    "gap": lambda op, rng, dtype: GlobalAvgPool(),
+    "flatten": lambda op, rng, dtype: Flatten(),
+    "dense": _dense,
+    "relu": lambda op, rng, dtype: ReLU(),
+    "bn": lambda op, rng, dtype: BatchNorm(op.in_shape[-1], dtype=dtype),
+    "dropout": lambda op, rng, dtype: Dropout(op.rate, rng=rng),
+    "add": lambda op, rng, dtype: Add(),
+}
+#: the built-in op kinds (a kind registered later is in :data:`BUILDERS` only)
+KINDS = tuple(BUILDERS)
 
 
 def build(op: Op, rng: np.random.Generator, dtype=np.float32) -> Layer:
@@ -68,37 +98,15 @@ def build(op: Op, rng: np.random.Generator, dtype=np.float32) -> Layer:
     Returns
     -------
     Layer
-        With ``name == op.name``.
+        With ``name == op.name``; made by the kind's entry of :data:`BUILDERS`.
     """
     dtype = np.dtype(dtype)
     if dtype not in (np.float32, np.float64):
         raise ValueError(f"layer dtype must be float32 or float64, got {dtype}")
-    kind = op.kind
-    if kind == "conv":
-        layer: Layer = Conv(op.in_shape[2], op.filters, op.kernel, op.stride, op.pads,
-                            rng=rng, dtype=dtype)
-    elif kind == "dwconv":
-        layer = Depthwise(op.in_shape[2], op.kernel, op.stride, op.pads, rng=rng, dtype=dtype)
-    elif kind == "maxpool":
-        layer = MaxPool(op.size)
-    elif kind == "avgpool":
-        layer = AvgPool(op.size)
-    elif kind == "gap":
-        layer = GlobalAvgPool()
-    elif kind == "flatten":
-        layer = Flatten()
-    elif kind == "dense":
-        layer = Dense(op.in_shape[0], op.units, rng=rng, dtype=dtype)
-    elif kind == "relu":
-        layer = ReLU()
-    elif kind == "bn":
-        layer = BatchNorm(op.in_shape[-1], dtype=dtype)
-    elif kind == "dropout":
-        layer = Dropout(op.rate, rng=rng)
-    elif kind == "add":
-        layer = Add()
-    else:
-        raise ValueError(f"op {op.name!r}: unknown kind {kind!r}; expected one of "
-                         f"{', '.join(KINDS)}")
+    builder = BUILDERS.get(op.kind)
+    if builder is None:
+        raise ValueError(f"op {op.name!r}: unknown kind {op.kind!r}; expected one of "
+                         f"{', '.join(BUILDERS)}")
+    layer = builder(op, rng, dtype)
     layer.name = op.name
     return layer

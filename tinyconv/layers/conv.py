@@ -7,9 +7,11 @@ import numpy as np
 from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
 from tinyconv.layers.kernels_act import add_bias_, bias_relu_, column_sum, relu_backward
-from tinyconv.layers.kernels_conv import col2im, conv_out_size, crop_nhwc, im2col, pad_nhwc
-from tinyconv.layers import winograd
+from tinyconv.layers.convalg.im2col import col2im, conv_out_size, crop_nhwc, im2col, pad_nhwc
+from tinyconv.layers.convalg import winograd
 
+#: the values of ``Conv.algorithm``: "winograd" is Winograd F(2x2, 3x3) and "winograd4"
+#: F(4x4, 3x3) (:mod:`tinyconv.layers.convalg`); "auto" asks :func:`pick_algorithm`
 ALGORITHMS = ("auto", "im2col", "winograd", "winograd4")
 
 
@@ -70,7 +72,7 @@ class Conv(Layer):
     Output size per axis ``(size + before + after - k) // s + 1``. A training
     forward keeps, for the weight gradient, the column matrix
     ``(n * oh * ow, k * k * c_in)`` (im2col) or the transformed input tiles
-    (Winograd, in a :class:`tinyconv.layers.winograd.Saved`).
+    (Winograd, in a :class:`tinyconv.layers.convalg.winograd.Saved`).
     """
 
     kind = "conv"

@@ -7,7 +7,7 @@ import numpy as np
 from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
 from tinyconv.layers.kernels_act import relu_backward
-from tinyconv.layers.kernels_conv import crop_nhwc, pad_nhwc
+from tinyconv.layers.convalg.im2col import crop_nhwc, pad_nhwc
 from tinyconv.layers.kernels_dw import dw1_backward, dw1_forward, dw_backward, dw_forward
 
 

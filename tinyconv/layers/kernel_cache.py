@@ -20,8 +20,8 @@ from __future__ import annotations
 import importlib
 
 #: The modules holding the engine's Numba kernels.
-KERNEL_MODULES = ("kernels_act", "kernels_conv", "kernels_pool", "kernels_dw", "kernels_wino",
-                  "kernels_wino4", "kernels_wino4_unrolled")
+KERNEL_MODULES = ("kernels_act", "convalg.im2col", "kernels_pool", "kernels_dw",
+                  "convalg.winograd_f2", "convalg.winograd_f4", "convalg.winograd_f4_unrolled")
 #: Below this share of cached kernels, a run compiles a good part of the engine.
 WARM_SHARE = 0.5
 

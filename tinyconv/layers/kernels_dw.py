@@ -10,7 +10,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from tinyconv.layers.kernels_conv import conv_out_size, padded_shape
+from tinyconv.layers.convalg.im2col import conv_out_size, padded_shape
 
 
 def dw_forward(xp: np.ndarray, w: np.ndarray, b: np.ndarray, stride: int,

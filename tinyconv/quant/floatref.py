@@ -29,28 +29,8 @@ def run_step(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.nd
     ndarray of float64, shape (n, *step.op.out_shape)
     """
     x = np.asarray(x, np.float64)
-    n = x.shape[0]
-    kind = step.kind
-    if kind == "conv":
-        cols = conv_patches(x, step.op)  # (n, oh, ow, k, k, c)
-        k, c = step.op.kernel, x.shape[3]
-        # (n, oh, ow, k*k*c) @ (k*k*c, f)
-        y = cols.reshape(*cols.shape[:3], k * k * c) @ step.w.reshape(k * k * c, -1) + step.b
-    elif kind == "dwconv":
-        cols = conv_patches(x, step.op)
-        y = np.einsum("nyxijc,ijc->nyxc", cols, step.w, optimize=True) + step.b
-    elif kind == "dense":
-        y = x.reshape(n, -1) @ step.w + step.b
-    elif kind == "maxpool":
-        y = pool_windows(x, step.op.size).max(axis=3)
-    elif kind == "avgpool":
-        y = pool_windows(x, step.op.size).mean(axis=3)
-    elif kind == "gap":
-        y = x.mean(axis=(1, 2))
-    elif kind == "add":
-        y = x + np.asarray(skip, np.float64).reshape(x.shape)
-    else:
-        raise ValueError(f"unknown step kind {kind!r}")
+    from tinyconv.quant.kinds import step_kind  # the table imports this module: read at call time
+    y = step_kind(step.kind).run_float(step, x, skip)
     if step.relu:
         y = np.maximum(y, 0.0)
     return y
@@ -69,3 +49,39 @@ def run_steps(steps: tuple[Step, ...], x: np.ndarray, keep: bool = False):
     ndarray, shape (n, K), or list of ndarray (one per step) when ``keep``.
     """
     return run_graph(steps, x, run_step, keep)
+
+
+# ------------------------------------------------- the float64 step of each built-in kind
+
+
+def conv(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    cols = conv_patches(x, step.op)  # (n, oh, ow, k, k, c)
+    k, c = step.op.kernel, x.shape[3]
+    # (n, oh, ow, k*k*c) @ (k*k*c, f)
+    return cols.reshape(*cols.shape[:3], k * k * c) @ step.w.reshape(k * k * c, -1) + step.b
+
+
+def dwconv(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    cols = conv_patches(x, step.op)
+    return np.einsum("nyxijc,ijc->nyxc", cols, step.w, optimize=True) + step.b
+
+
+def dense(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    n = x.shape[0]
+    return x.reshape(n, -1) @ step.w + step.b
+
+
+def maxpool(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    return pool_windows(x, step.op.size).max(axis=3)
+
+
+def avgpool(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    return pool_windows(x, step.op.size).mean(axis=3)
+
+
+def gap(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    return x.mean(axis=(1, 2))
+
+
+def add(step: Step, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    return x + np.asarray(skip, np.float64).reshape(x.shape)

@@ -26,11 +26,12 @@ from dataclasses import dataclass
 import numpy as np
 
 from tinyconv.arch import ArchError, Op
+from tinyconv.ops import sources
 
-WEIGHTED = ("conv", "dwconv", "dense")
-POOLS = ("maxpool", "avgpool", "gap")
-#: step kinds, in the order of the module docstring
-STEP_KINDS = WEIGHTED + POOLS + ("add",)
+#: how an op folds into the steps (its kind's ``StepKind.fold``, :mod:`tinyconv.quant.kinds`):
+#: a step with weights; a step without; a batch norm folded into the weighted step before
+#: it; the ReLU clamp of the step before; an identity at inference (dropout, flatten)
+WEIGHTED, STEP, BATCH_NORM, RELU, IDENTITY = "weighted", "step", "batch_norm", "relu", "identity"
 
 
 @dataclass(frozen=True, eq=False)
@@ -121,26 +122,30 @@ def build_steps(ops: tuple[Op, ...], params: list[dict[str, np.ndarray]],
     # after its conv/dwconv/dense op, and after a folded batch norm.
     steps: list[dict] = []
     pending: list[int] = []  # ops seen before the first step (dropout on the input)
+    from tinyconv.quant.kinds import step_kind  # the table imports this module: read at call time
+    reads = sources(ops)
     for i, op in enumerate(ops):
         last = steps[-1] if steps else None
-        if op.kind in WEIGHTED:
+        role = step_kind(op.kind).fold
+        if role == WEIGHTED:
             p = params[i]
             steps.append(dict(kind=op.kind, op=op, index=i, covers=pending + [i],
                               w=np.asarray(p["w"], np.float64).copy(),
                               b=np.asarray(p["b"], np.float64).copy(), relu=False,
                               open=True, skip=None))
             pending = []
-        elif op.kind in POOLS or op.kind == "add":
+        elif role == STEP:
             skip = None
-            if op.kind == "add":  # the step whose covers hold the block's input (-1: none)
-                src = i - 1 - op.reach
+            if len(reads[i]) == 2:  # an add: the step whose covers hold the block's input (-1: none)
+                src = reads[i][1]
                 skip = next((j for j, st in enumerate(steps) if src in st["covers"]), -1)
             steps.append(dict(kind=op.kind, op=op, index=i, covers=pending + [i], w=None,
                               b=None, relu=False, open=False, skip=skip))
             pending = []
-        elif op.kind == "bn":
+        elif role == BATCH_NORM:
             prev = ops[i - 1] if i else None
-            if last is None or not last["open"] or prev is None or prev.kind not in WEIGHTED:
+            if last is None or not last["open"] or prev is None \
+                    or step_kind(prev.kind).fold != WEIGHTED:
                 after = f"{prev.token or prev.kind!r}" if prev is not None else "the input"
                 raise ArchError(
                     f"{arch_text!r}: layer {op.position} 'bn' follows {after}, not a "
@@ -151,20 +156,21 @@ def build_steps(ops: tuple[Op, ...], params: list[dict[str, np.ndarray]],
             last["w"], last["b"] = fold_batch_norm(last["w"], last["b"], p["gamma"], p["beta"],
                                                    p["mean"], p["var"], float(eps[i]))
             last["covers"].append(i)
-        elif op.kind == "relu":
+        elif role == RELU:
             if last is None or not last["open"] or last["relu"]:
                 raise ValueError(f"op {i} relu does not follow a conv, dwconv or dense layer; "
                                  "expand() never makes such a network")
             last["relu"] = True
             last["covers"].append(i)
-        elif op.kind in ("dropout", "flatten"):
+        elif role == IDENTITY:
             if last is None:
                 pending.append(i)
             else:
                 last["open"] = False
                 last["covers"].append(i)
         else:
-            raise ValueError(f"op {i}: unknown kind {op.kind!r}")
+            raise ValueError(f"op {i} kind {op.kind!r}: fold role {role!r} is not one of "
+                             f"{', '.join((WEIGHTED, STEP, BATCH_NORM, RELU, IDENTITY))}")
     return tuple(Step(kind=s["kind"], op=s["op"], index=s["index"], covers=tuple(s["covers"]),
                       w=s["w"], b=s["b"], relu=s["relu"], skip=s["skip"]) for s in steps)
 

@@ -114,22 +114,36 @@ def run_layer(layer: QuantLayer, x: np.ndarray, skip: np.ndarray | None = None) 
     -------
     ndarray of int8, shape (n, *layer.op.out_shape)
     """
-    kind = layer.kind
-    if kind in ("conv", "dwconv", "dense"):
-        return requantize(accumulate(layer, x), layer)
-    if kind == "maxpool":
-        return pool_windows(x, layer.op.size).max(axis=3)
-    if kind == "avgpool":
-        s = layer.op.size
-        total = pool_windows(x, s).astype(np.int64).sum(axis=3)
-        return rounding_divide(total, s * s).astype(np.int8)
-    if kind == "gap":
-        h, w = x.shape[1], x.shape[2]
-        return rounding_divide(x.astype(np.int64).sum(axis=(1, 2)), h * w).astype(np.int8)
-    if kind == "add":
-        return add_integer(x, layer.in_zp, skip.reshape(x.shape), layer.skip_zp,
-                           layer.multiplier, layer.shift, layer.out_zp)
-    raise ValueError(f"unknown layer kind {kind!r}")
+    from tinyconv.quant.kinds import step_kind  # the table imports this module: read at call time
+    return step_kind(layer.kind).run_int(layer, x, skip)
+
+
+# ----------------------------------------------- the integer step of each built-in kind
+
+
+def weighted(layer: QuantLayer, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    """conv, dwconv or dense: accumulate, then requantise."""
+    return requantize(accumulate(layer, x), layer)
+
+
+def maxpool(layer: QuantLayer, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    return pool_windows(x, layer.op.size).max(axis=3)
+
+
+def avgpool(layer: QuantLayer, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    s = layer.op.size
+    total = pool_windows(x, s).astype(np.int64).sum(axis=3)
+    return rounding_divide(total, s * s).astype(np.int8)
+
+
+def gap(layer: QuantLayer, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    h, w = x.shape[1], x.shape[2]
+    return rounding_divide(x.astype(np.int64).sum(axis=(1, 2)), h * w).astype(np.int8)
+
+
+def add(layer: QuantLayer, x: np.ndarray, skip: np.ndarray | None = None) -> np.ndarray:
+    return add_integer(x, layer.in_zp, skip.reshape(x.shape), layer.skip_zp,
+                       layer.multiplier, layer.shift, layer.out_zp)
 
 
 #: extra fractional bits of the outputs the arg-max is taken on

@@ -29,7 +29,7 @@ from tinyconv.arch import Op
 from tinyconv.errors import DataError, InputError
 from tinyconv.quant.calibrate import QMAX, QMIN, calibrate, scale_zero_point
 from tinyconv.quant.fixed_point import INT32_MAX, quantize_multiplier
-from tinyconv.quant.fold import WEIGHTED, Step
+from tinyconv.quant.fold import Step
 from tinyconv.quant.residual import add_multipliers
 from tinyconv.quant.rounding import METHODS, round_weights
 
@@ -240,6 +240,50 @@ def quantize_weighted(step: Step, in_scale: float, in_zp: int, out_scale: float,
                       shift=shift, w_scale=w_scale, lo=lo, hi=QMAX, relu=step.relu)
 
 
+@dataclass(frozen=True)
+class StepGrid:
+    """What quantising one step may read: its input's grid, its calibrated output
+    range and weight-rounding inputs, the layers quantised before it and the
+    network input's grid."""
+
+    scale: float
+    zp: int
+    lo: float
+    hi: float
+    moment: np.ndarray | None
+    samples: int
+    rounding: str
+    before: tuple[QuantLayer, ...]
+    input_scale: float
+    input_zp: int
+
+
+def weighted_step(step: Step, grid: StepGrid) -> QuantLayer:
+    """conv, dwconv or dense: :func:`quantize_weighted` onto the calibrated output grid."""
+    out_scale, out_zp = scale_zero_point(grid.lo, grid.hi)
+    return quantize_weighted(step, grid.scale, grid.zp, out_scale, out_zp, grid.moment,
+                             grid.samples, grid.rounding)
+
+
+def add_step(step: Step, grid: StepGrid) -> QuantLayer:
+    """The residual addition: both inputs' grids and the calibrated output grid."""
+    scale, zp = grid.scale, grid.zp
+    out_scale, out_zp = scale_zero_point(grid.lo, grid.hi)
+    b = grid.before[step.skip] if step.skip >= 0 else None
+    b_scale, b_zp = (b.out_scale, b.out_zp) if b is not None else (grid.input_scale,
+                                                                    grid.input_zp)
+    mult, shift = add_multipliers(scale, b_scale, out_scale)
+    return QuantLayer("add", step.op, step.index, step.covers, scale, zp, out_scale,
+                      out_zp, multiplier=mult, shift=shift, skip=step.skip,
+                      skip_scale=b_scale, skip_zp=b_zp)
+
+
+def same_grid_step(step: Step, grid: StepGrid) -> QuantLayer:
+    """A step whose output keeps its input's scale and zero point (pooling)."""
+    scale, zp = grid.scale, grid.zp
+    return QuantLayer(step.kind, step.op, step.index, step.covers, scale, zp, scale, zp)
+
+
 def quantize_steps(steps: tuple[Step, ...], arch: str, n_classes: int,
                    input_shape: tuple[int, int, int], mean, std,
                    calib_images: np.ndarray, batch: int = 64,
@@ -268,25 +312,14 @@ def quantize_steps(steps: tuple[Step, ...], arch: str, n_classes: int,
     table, in_scale, in_zp = input_table(mean, std)
     cal = calibrate(steps, normalised(calib_images, mean, std), batch=batch,
                     moments=rounding == "feedback")
-    layers = []
+    from tinyconv.quant.kinds import step_kind  # the table imports this module: read at call time
+    layers: list[QuantLayer] = []
     scale, zp = in_scale, in_zp
     for step, (lo, hi), moment, samples in zip(steps, cal.ranges, cal.moments, cal.samples):
-        if step.kind in WEIGHTED:
-            out_scale, out_zp = scale_zero_point(lo, hi)
-            layer = quantize_weighted(step, scale, zp, out_scale, out_zp, moment, samples,
-                                      rounding)
-            scale, zp = out_scale, out_zp
-        elif step.kind == "add":
-            out_scale, out_zp = scale_zero_point(lo, hi)
-            b = layers[step.skip] if step.skip >= 0 else None
-            b_scale, b_zp = (b.out_scale, b.out_zp) if b is not None else (in_scale, in_zp)
-            mult, shift = add_multipliers(scale, b_scale, out_scale)
-            layer = QuantLayer("add", step.op, step.index, step.covers, scale, zp, out_scale,
-                               out_zp, multiplier=mult, shift=shift, skip=step.skip,
-                               skip_scale=b_scale, skip_zp=b_zp)
-            scale, zp = out_scale, out_zp
-        else:
-            layer = QuantLayer(step.kind, step.op, step.index, step.covers, scale, zp, scale, zp)
+        grid = StepGrid(scale, zp, lo, hi, moment, samples, rounding, tuple(layers),
+                        in_scale, in_zp)
+        layer = step_kind(step.kind).quantize(step, grid)
+        scale, zp = layer.out_scale, layer.out_zp
         layers.append(layer)
     return QuantizedNetwork(arch, n_classes, tuple(input_shape), table, in_scale, in_zp,
                             tuple(layers), n_calib=int(calib_images.shape[0]),

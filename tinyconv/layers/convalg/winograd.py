@@ -2,8 +2,8 @@
 
 :class:`tinyconv.layers.conv.Conv` calls :func:`forward` and :func:`backward`
 when its algorithm is one of the two :data:`VARIANTS`; the kernels and the
-algebra are in :mod:`tinyconv.layers.kernels_wino` (2 x 2 outputs per tile,
-hand-unrolled) and :mod:`tinyconv.layers.kernels_wino4` (4 x 4 outputs).
+algebra are in :mod:`tinyconv.layers.convalg.winograd_f2` (2 x 2 outputs per tile,
+hand-unrolled) and :mod:`tinyconv.layers.convalg.winograd_f4` (4 x 4 outputs).
 
 The batch is processed in chunks of whole images, so that the transformed
 tiles and products of one chunk (about :data:`CHUNK_BYTES`) stay in cache
@@ -19,11 +19,11 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from tinyconv.layers import kernels_wino as kw
-from tinyconv.layers import kernels_wino4_unrolled as kw4u
-from tinyconv.layers import kernels_wino4 as kw4
+from tinyconv.layers.convalg import winograd_f2 as kw
+from tinyconv.layers.convalg import winograd_f4_unrolled as kw4u
+from tinyconv.layers.convalg import winograd_f4 as kw4
 from tinyconv.layers.kernels_act import column_sum
-from tinyconv.layers.kernels_conv import crop_nhwc, pad_nhwc
+from tinyconv.layers.convalg.im2col import crop_nhwc, pad_nhwc
 
 #: Target size of one chunk's largest transform buffer, in bytes.
 CHUNK_BYTES = 1 << 20
@@ -183,7 +183,7 @@ def backward(saved: Saved, g: np.ndarray, input_grad: bool,
     """Input, weight and bias gradients from the output gradient ``g (n, oh, ow, f)``.
 
     The input gradient is None when ``input_grad`` is False. Every product is
-    the exact adjoint of the forward's (see :mod:`tinyconv.layers.kernels_wino`).
+    the exact adjoint of the forward's (see :mod:`tinyconv.layers.convalg.winograd_f2`).
     """
     var, v, u, th, tw = saved.variant, saved.v, saved.u, saved.th, saved.tw
     count, c, f = u.shape

@@ -1,6 +1,6 @@
 """Winograd F(4x4, 3x3) kernels: 4 x 4 outputs from 6 x 6 tiles, 36 products.
 
-The same algorithm as :mod:`tinyconv.layers.kernels_wino`, with larger tiles:
+The same algorithm as :mod:`tinyconv.layers.convalg.winograd_f2`, with larger tiles:
 36 multiplications per 4 x 4 block of outputs and channel pair instead of 144
 (4x fewer multiply-adds than the direct convolution, against 2.25x for
 F(2x2, 3x3)), at the price of larger transform coefficients and so of about
@@ -13,13 +13,13 @@ infinity). ``Y = A^T [(G g G^T) * (B^T d B)] A``.
 The transforms are written once, for any matrix: a kernel applies ``P x P^T``
 to every tile, rows then columns, visiting only the non-zero coefficients
 (given as index and value arrays by :func:`nonzeros`) with the channel axis
-innermost. Layouts as in kernels_wino: planes ``(36, n * th * tw, c)``,
+innermost. Layouts as in winograd_f2: planes ``(36, n * th * tw, c)``,
 element ``e = 6 * i + j``, tile ``t = (b * th + ty) * tw + tx``; tiles step
 by 4 over an input of ``4 * tiles + 2``.
 
 Training runs the straight-line versions of these kernels in
-:mod:`tinyconv.layers.kernels_wino4_unrolled` (printed by
-:mod:`tinyconv.layers.gen_wino4`); the loop kernels here are their reference
+:mod:`tinyconv.layers.convalg.winograd_f4_unrolled` (printed by
+``devtools/gen_winograd_f4.py``); the loop kernels here are their reference
 in the tests and take the tiles that reach past the output edge.
 """
 
@@ -28,7 +28,7 @@ from __future__ import annotations
 import numpy as np
 from numba import njit
 
-from tinyconv.layers.kernels_wino import filter_product, filter_product_adjoint
+from tinyconv.layers.convalg.winograd_f2 import filter_product, filter_product_adjoint
 
 BT = np.array([[4, 0, -5, 0, 1, 0],
                [0, -4, -4, 1, 1, 0],

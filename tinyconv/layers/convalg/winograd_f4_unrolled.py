@@ -1,13 +1,13 @@
 """Unrolled F(4x4, 3x3) transform kernels. GENERATED: do not edit.
 
-Written by ``python -m tinyconv.layers.gen_wino4``; the matrices and the
-loop versions (used for edge tiles) are in :mod:`tinyconv.layers.kernels_wino4`.
+Written by ``python devtools/gen_winograd_f4.py``; the matrices and the
+loop versions (used for edge tiles) are in :mod:`tinyconv.layers.convalg.winograd_f4`.
 ``k`` holds the coefficients 2, 4, 5 and 8 in the data's dtype.
 """
 
 from numba import njit
 
-from tinyconv.layers import kernels_wino4 as kw4
+from tinyconv.layers.convalg import winograd_f4 as kw4
 
 CONSTANTS = (2, 4, 5, 8)
 

@@ -1,6 +1,6 @@
-"""Write the unrolled F(4x4, 3x3) transform kernels (tinyconv/layers/kernels_wino4_unrolled.py).
+"""Write the unrolled F(4x4, 3x3) transform kernels (tinyconv/layers/convalg/winograd_f4_unrolled.py).
 
-The transforms of :mod:`tinyconv.layers.kernels_wino4` visit the non-zero
+The transforms of :mod:`tinyconv.layers.convalg.winograd_f4` visit the non-zero
 coefficients of any matrix in loops, which keeps them short but 2-3x slower
 than straight-line code. This script prints that straight-line code: for each
 row of a tile, the row pass as a handful of scalar expressions (the
@@ -8,7 +8,7 @@ coefficients written in), then the column pass, with the channel loop
 innermost so that it vectorises. Tiles that reach past the output edge take
 the loop kernels.
 
-Run ``python -m tinyconv.layers.gen_wino4 > tinyconv/layers/kernels_wino4_unrolled.py``
+Run ``python devtools/gen_winograd_f4.py > tinyconv/layers/convalg/winograd_f4_unrolled.py``
 after changing the matrices; ``tests/test_layers_winograd.py`` checks that the
 file is what this script prints.
 """
@@ -17,18 +17,18 @@ from __future__ import annotations
 
 import numpy as np
 
-from tinyconv.layers.kernels_wino4 import AT, BT
+from tinyconv.layers.convalg.winograd_f4 import AT, BT
 
 HEADER = '''"""Unrolled F(4x4, 3x3) transform kernels. GENERATED: do not edit.
 
-Written by ``python -m tinyconv.layers.gen_wino4``; the matrices and the
-loop versions (used for edge tiles) are in :mod:`tinyconv.layers.kernels_wino4`.
+Written by ``python devtools/gen_winograd_f4.py``; the matrices and the
+loop versions (used for edge tiles) are in :mod:`tinyconv.layers.convalg.winograd_f4`.
 ``k`` holds the coefficients 2, 4, 5 and 8 in the data's dtype.
 """
 
 from numba import njit
 
-from tinyconv.layers import kernels_wino4 as kw4
+from tinyconv.layers.convalg import winograd_f4 as kw4
 
 CONSTANTS = {CONSTANTS!r}
 '''

@@ -1,0 +1,151 @@
+"""The device stage's table: the time model's variables of each step kind, :data:`STEP_MODELS`.
+
+Each :class:`StepModel` gives the loop counts of one step kind's fast kernels
+(:mod:`tinyconv.export.c_fast`), the variables :mod:`tinyconv.device.model`
+multiplies by the fitted per-core coefficients, and the kernels (templates)
+the kind needs, whose code size is fitted per kernel. A new step kind adds one
+entry here and is refitted (``python -m tinyconv.device.refit``; DEVELOPERS.md,
+"Where a change goes").
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from math import prod
+from typing import Callable
+
+from tinyconv.ops import Op
+
+
+@dataclass(frozen=True)
+class StepModel:
+    """The time model of one step kind.
+
+    Attributes
+    ----------
+    features : callable(op, in_shape) -> dict of str to float
+        The counts of the step's loop nest (``op`` is None for the input step).
+    kernels : tuple of str
+        The C kernels (templates) the kind needs.
+    """
+
+    features: Callable[[Op | None, tuple[int, ...]], dict[str, float]]
+    kernels: tuple[str, ...]
+
+
+def _visited(size: int, out: int, kernel: int, stride: int, pad: int) -> int:
+    """Sum over output positions of the kernel offsets that land inside ``size``."""
+    total = 0
+    for o in range(out):
+        start = o * stride - pad
+        total += min(start + kernel, size) - max(start, 0)
+    return total
+
+
+def _edge_positions(size: int, out: int, kernel: int, stride: int, pad: int) -> int:
+    """Output positions whose kernel window reaches outside ``size`` (into the padding)."""
+    return sum(1 for o in range(out) if o * stride - pad < 0 or o * stride - pad + kernel > size)
+
+
+def input_features(op: Op | None, in_shape: tuple[int, ...]) -> dict[str, float]:
+    # the loop indexes the table by ``i % c``: free for one channel, a mask for a
+    # power of two, a multiply for the others
+    n, c = float(prod(in_shape)), in_shape[-1]
+    return {"one": 1.0, "values": n, "channel_index": n if c & (c - 1) else 0.0}
+
+
+def dense_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    """dense and head: pairs of outputs, steps of four inputs, single ones."""
+    n_in, n_out = prod(op.in_shape), prod(op.out_shape)
+    pairs = -(-n_out // 2)
+    return {"one": 1.0, "outputs": float(n_out), "pairs": float(pairs),
+            "steps4": float(pairs * (n_in // 4)), "singles": float(pairs * (n_in % 4))}
+
+
+def gap_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    h, w, c = op.in_shape
+    return {"one": 1.0, "outputs": float(c), "reads": float(h * w * c)}
+
+
+def add_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    # one pass over the values, three fixed-point rescalings each
+    return {"one": 1.0, "values": float(prod(op.out_shape))}
+
+
+def pool_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    """maxpool and avgpool (a 2 x 2 max pooling has a kernel of its own)."""
+    oh, ow, c = op.out_shape
+    size = op.size
+    feats = {"one": 1.0, "pixels": float(oh * ow), "outputs": float(oh * ow * c)}
+    if op.kind == "maxpool" and size == 2:
+        feats["outputs_by_2"] = float(oh * ow * c)
+    else:
+        feats["reads"] = float(oh * ow * c * size * size)
+        feats["rows"] = float(oh * ow * c * size)
+    return feats
+
+
+def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    h, w, c = op.in_shape
+    oh, ow, f = op.out_shape
+    k, s = op.kernel, op.stride
+    top, _, left, _ = op.pads
+    vy = _visited(h, oh, k, s, top)
+    vx = _visited(w, ow, k, s, left)
+    n = oh * ow
+    kk = k * k * c
+    pixel_pairs, filter_pairs = -(-n // 2), f // 2
+    odd = f % 2
+    return {"one": 1.0, "pixel_pairs": float(pixel_pairs), "patch_rows": float(n * k),
+            "patch_values": float(vy * vx * c),
+            "blocks": float(pixel_pairs * filter_pairs),
+            "steps4": float(pixel_pairs * filter_pairs * (kk // 4)),
+            "singles": float(pixel_pairs * filter_pairs * (kk % 4)),
+            "odd_steps4": float(pixel_pairs * odd * (kk // 4)),
+            "odd_singles": float(pixel_pairs * odd * (kk % 4)),
+            "outputs": float(n * f)}
+
+
+def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    h, w, c = op.in_shape
+    oh, ow, _ = op.out_shape
+    k, s = op.kernel, op.stride
+    top, _, left, _ = op.pads
+    vy = _visited(h, oh, k, s, top)
+    vx = _visited(w, ow, k, s, left)
+    n = oh * ow
+    # dwconv: blocks of four channels, the channel loop innermost
+    blocks = -(-c // 4)
+    full = c // 4
+    edge = (_edge_positions(h, oh, k, s, top) * ow + _edge_positions(w, ow, k, s, left) * oh
+            - _edge_positions(h, oh, k, s, top) * _edge_positions(w, ow, k, s, left))
+    return {"one": 1.0, "pixels": float(n), "blocks": float(n * blocks),
+            "rows": float(vy * ow * blocks), "taps4": float(vy * vx * full),
+            "taps_rest": float(vy * vx * (c - 4 * full)),
+            "edge_taps": float(edge * k * k * blocks), "outputs": float(n * c)}
+
+
+#: the device stage's entry of every step kind, the input step and the head (this
+#: order is the order of the fitted constants)
+STEP_MODELS: dict[str, StepModel] = {
+    "input": StepModel(input_features, ()),
+    "conv": StepModel(conv_features, ("scale", "conv")),
+    "dwconv": StepModel(dwconv_features, ("scale", "dwconv")),
+    "dense": StepModel(dense_features, ("scale", "dot", "dense")),
+    "head": StepModel(dense_features, ("scale", "dot", "head")),
+    "maxpool": StepModel(pool_features, ("maxpool",)),
+    "avgpool": StepModel(pool_features, ("rdiv", "avgpool")),
+    "gap": StepModel(gap_features, ("rdiv", "gap")),
+    "add": StepModel(add_features, ("scale", "add")),
+}
+
+
+def step_model(kind: str) -> StepModel:
+    """The :class:`StepModel` of a step kind (or ``input``, ``head``)."""
+    model = STEP_MODELS.get(kind)
+    if model is None:
+        raise ValueError(f"step kind {kind!r} has no device time model; known kinds: "
+                         f"{', '.join(STEP_MODELS)}; add its StepModel to "
+                         "tinyconv.device.features.STEP_MODELS and refit the constants "
+                         "(python -m tinyconv.device.refit)")
+    return model
