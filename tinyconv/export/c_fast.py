@@ -163,16 +163,12 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
     }
 }
 
-/* Requantise one accumulator and clamp (the one-product form where it applies). */
-@U@_INLINE int8_t @P@_out1(int32_t acc, int32_t mult, int32_t shift, int32_t zp,
-                           int32_t lo, int32_t hi)
+/* Requantise one accumulator and clamp to [lo, 127] (the one-product form
+   where it applies). */
+@U@_INLINE int8_t @P@_out1(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
 {
-    int32_t v;
-    if ((uint32_t)(shift - 2) > 21u) return @P@_rq(acc, mult, shift, zp, lo, hi);
-    v = @P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1);
-    if (v > hi) v = hi;
-    if (v < lo) v = lo;
-    return (int8_t)v;
+    if ((uint32_t)(shift - 2) > 21u) return @P@_rq(acc, mult, shift, zp, lo, 127);
+    return (int8_t)@P@_clamp(@P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1), lo);
 }
 """
 
@@ -223,8 +219,8 @@ DENSE = r"""
         int32_t a0 = bias[o], a1 = 0;
         if (o + 1 < n_out) a1 = bias[o + 1];
         @P@_dot2(x, w0, o + 1 < n_out ? w0 + n_in : w0, n_in, &a0, &a1);
-        y[o] = @P@_rq(a0, mult[o], shift[o], yz, lo, hi);
-        if (o + 1 < n_out) y[o + 1] = @P@_rq(a1, mult[o + 1], shift[o + 1], yz, lo, hi);
+        y[o] = @P@_out1(a0, mult[o], shift[o], yz, lo);
+        if (o + 1 < n_out) y[o + 1] = @P@_out1(a1, mult[o + 1], shift[o + 1], yz, lo);
     }
 }
 """
@@ -265,7 +261,37 @@ DWCONV = r"""
    the channel loop innermost (four accumulators in registers), then one at a
    time for the last c % 4. The bias holds b - zp * sum(w) over the whole
    window, so taps inside the image multiply raw values and the taps in the
-   padding (which hold zp) add zp * w back. */
+   padding (which hold zp) add zp * w back. On the DSP path a tap is two word
+   loads: SXTB16 splits channels (0, 2) and (1, 3) of the input and of the
+   weights, and SMLABB / SMLATT multiply the matching halves. */
+/* One tap of four channels: the input at px + dx, the weights at pw + dw. */
+#if @U@_USE_DSP
+#define @U@_DWTAP(dx, dw)                                                      \
+    do {                                                                      \
+        uint32_t xv, wv;                                                      \
+        int32_t xe, we;                                                       \
+        memcpy(&xv, px + (dx), 4);                                            \
+        memcpy(&wv, pw + (dw), 4);                                            \
+        xe = __sxtb16((int32_t)xv);                                           \
+        we = __sxtb16((int32_t)wv);                                           \
+        a0 = __smlabb(xe, we, a0);                                            \
+        a2 = __smlatt(xe, we, a2);                                            \
+        xe = @P@_sxtb16_ror8(xv);                                             \
+        we = @P@_sxtb16_ror8(wv);                                             \
+        a1 = __smlabb(xe, we, a1);                                            \
+        a3 = __smlatt(xe, we, a3);                                            \
+    } while (0)
+#else
+#define @U@_DWTAP(dx, dw)                                                      \
+    do {                                                                      \
+        const int8_t *xq = px + (dx), *wq = pw + (dw);                        \
+        a0 += xq[0] * wq[0];                                                  \
+        a1 += xq[1] * wq[1];                                                  \
+        a2 += xq[2] * wq[2];                                                  \
+        a3 += xq[3] * wq[3];                                                  \
+    } while (0)
+#endif
+
 @U@_KERNEL void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
                            int32_t oh, int32_t ow, int32_t k, int32_t s, int32_t pt,
                            int32_t pl, int32_t xz, const int8_t *wt, const int32_t *bias,
@@ -273,6 +299,7 @@ DWCONV = r"""
                            int32_t lo, int32_t hi)
 {
     int32_t oy, ox, ch, ky, kx;
+    (void)hi;  /* 127: see @P@_clamp */
     for (oy = 0; oy < oh; ++oy) {
         int32_t iy0 = oy * s - pt;
         int32_t ky0 = iy0 < 0 ? -iy0 : 0, ky1 = h - iy0 < k ? h - iy0 : k;
@@ -288,17 +315,27 @@ DWCONV = r"""
             for (ch = 0; ch + 4 <= c; ch += 4) {
                 int32_t a0 = bias[ch], a1 = bias[ch + 1], a2 = bias[ch + 2], a3 = bias[ch + 3];
                 const int8_t *px = base + ch, *pw = wbase + ch;
-                for (ky = ky0; ky < ky1; ++ky) {
-                    for (kx = kx0; kx < kx1; ++kx) {
-                        a0 += px[0] * pw[0];
-                        a1 += px[1] * pw[1];
-                        a2 += px[2] * pw[2];
-                        a3 += px[3] * pw[3];
-                        px += c;
-                        pw += c;
+                if (k == 3 && !edge) {  /* the common 3 x 3 window, inside: written out */
+                    int32_t wc = w * c;
+                    @U@_DWTAP(0, 0);
+                    @U@_DWTAP(c, c);
+                    @U@_DWTAP(2 * c, 2 * c);
+                    @U@_DWTAP(wc, 3 * c);
+                    @U@_DWTAP(wc + c, 4 * c);
+                    @U@_DWTAP(wc + 2 * c, 5 * c);
+                    @U@_DWTAP(2 * wc, 6 * c);
+                    @U@_DWTAP(2 * wc + c, 7 * c);
+                    @U@_DWTAP(2 * wc + 2 * c, 8 * c);
+                } else {
+                    for (ky = ky0; ky < ky1; ++ky) {
+                        for (kx = kx0; kx < kx1; ++kx) {
+                            @U@_DWTAP(0, 0);
+                            px += c;
+                            pw += c;
+                        }
+                        px += step;
+                        pw += wstep;
                     }
-                    px += step;
-                    pw += wstep;
                 }
                 if (edge) {  /* the padding's taps hold the zero point */
                     for (ky = 0; ky < k; ++ky) {
@@ -312,10 +349,10 @@ DWCONV = r"""
                         }
                     }
                 }
-                out[ch] = @P@_rq(a0, mult[ch], shift[ch], yz, lo, hi);
-                out[ch + 1] = @P@_rq(a1, mult[ch + 1], shift[ch + 1], yz, lo, hi);
-                out[ch + 2] = @P@_rq(a2, mult[ch + 2], shift[ch + 2], yz, lo, hi);
-                out[ch + 3] = @P@_rq(a3, mult[ch + 3], shift[ch + 3], yz, lo, hi);
+                out[ch] = @P@_out1(a0, mult[ch], shift[ch], yz, lo);
+                out[ch + 1] = @P@_out1(a1, mult[ch + 1], shift[ch + 1], yz, lo);
+                out[ch + 2] = @P@_out1(a2, mult[ch + 2], shift[ch + 2], yz, lo);
+                out[ch + 3] = @P@_out1(a3, mult[ch + 3], shift[ch + 3], yz, lo);
             }
             for (; ch < c; ++ch) {
                 int32_t a0 = bias[ch];
@@ -337,7 +374,7 @@ DWCONV = r"""
                         }
                     }
                 }
-                out[ch] = @P@_rq(a0, mult[ch], shift[ch], yz, lo, hi);
+                out[ch] = @P@_out1(a0, mult[ch], shift[ch], yz, lo);
             }
         }
     }
