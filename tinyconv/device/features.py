@@ -48,10 +48,9 @@ def _edge_positions(size: int, out: int, kernel: int, stride: int, pad: int) -> 
 
 
 def input_features(op: Op | None, in_shape: tuple[int, ...]) -> dict[str, float]:
-    # the loop indexes the table by ``i % c``: free for one channel, a mask for a
-    # power of two, a multiply for the others
+    # a loop over pixels, each pixel's channels through the table
     n, c = float(prod(in_shape)), in_shape[-1]
-    return {"one": 1.0, "values": n, "channel_index": n if c & (c - 1) else 0.0}
+    return {"one": 1.0, "values": n, "pixels": n / c}
 
 
 def dense_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
@@ -72,20 +71,34 @@ def add_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     return {"one": 1.0, "values": float(prod(op.out_shape))}
 
 
+def _inside(size: int, out: int, kernel: int, stride: int, pad: int) -> int:
+    """Output positions whose kernel window lies wholly inside ``size``."""
+    return out - _edge_positions(size, out, kernel, stride, pad)
+
+
 def pool_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
-    """maxpool and avgpool (a 2 x 2 max pooling has a kernel of its own)."""
+    """maxpool and avgpool (a 2 x 2 max pooling has a kernel of its own, four channels a
+    word on the DSP path)."""
     oh, ow, c = op.out_shape
     size = op.size
     feats = {"one": 1.0, "pixels": float(oh * ow), "outputs": float(oh * ow * c)}
     if op.kind == "maxpool" and size == 2:
-        feats["outputs_by_2"] = float(oh * ow * c)
+        feats["words_by_2"] = float(oh * ow * (c // 4))
+        feats["rest_by_2"] = float(oh * ow * (c % 4))
     else:
         feats["reads"] = float(oh * ow * c * size * size)
         feats["rows"] = float(oh * ow * c * size)
     return feats
 
 
+#: the longest K whose patch is copied by table (``{PREFIX}_TABLE`` in the C)
+PATCH_TABLE = 32
+
+
 def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    """conv (:mod:`tinyconv.export.c_fast_conv`): pairs of pixels, their patches, and per
+    pair of pixels and pair of filters two groups of four a turn, one left-over
+    group, the single values of ``K % 4``, and the requantisation."""
     h, w, c = op.in_shape
     oh, ow, f = op.out_shape
     k, s = op.kernel, op.stride
@@ -96,17 +109,33 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     kk = k * k * c
     pixel_pairs, filter_pairs = -(-n // 2), f // 2
     odd = f % 2
-    return {"one": 1.0, "pixel_pairs": float(pixel_pairs), "patch_rows": float(n * k),
-            "patch_values": float(vy * vx * c),
+    slots = 2 * pixel_pairs  # a last odd pixel's patch is built twice
+    groups = kk // 4
+    # the patch: by table for a short K whose kernel rows do not fill whole groups
+    # (inside pixels), else row by row, four values a step where rows fill groups
+    visited = vy * vx * c
+    table = kk <= PATCH_TABLE and (k * c) % 4 != 0
+    inside = (_inside(h, oh, k, s, top) * _inside(w, ow, k, s, left)) if table else 0
+    by_table = inside * kk
+    by_rows = visited - by_table
+    aligned = (k * c) % 4 == 0
+    return {"one": 1.0, "pixel_pairs": float(pixel_pairs),
+            "patch_table": float(by_table),
+            "patch_rows": float(n * k - inside * k),
+            "patch_groups": float(by_rows // 4 if aligned else 0),
+            "patch_values": float(0 if aligned else by_rows),
             "blocks": float(pixel_pairs * filter_pairs),
-            "steps4": float(pixel_pairs * filter_pairs * (kk // 4)),
+            "group_pairs": float(pixel_pairs * filter_pairs * (groups // 2)),
+            "group_last": float(pixel_pairs * filter_pairs * (groups % 2)),
             "singles": float(pixel_pairs * filter_pairs * (kk % 4)),
-            "odd_steps4": float(pixel_pairs * odd * (kk // 4)),
+            "odd_steps4": float(pixel_pairs * odd * groups),
             "odd_singles": float(pixel_pairs * odd * (kk % 4)),
-            "outputs": float(n * f)}
+            "outputs": float(slots * f)}
 
 
 def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
+    """dwconv: blocks of four channels per pixel, the channel loop innermost; an inside
+    3 x 3 window written out, other windows by rows and taps."""
     h, w, c = op.in_shape
     oh, ow, _ = op.out_shape
     k, s = op.kernel, op.stride
@@ -114,13 +143,17 @@ def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     vy = _visited(h, oh, k, s, top)
     vx = _visited(w, ow, k, s, left)
     n = oh * ow
-    # dwconv: blocks of four channels, the channel loop innermost
     blocks = -(-c // 4)
     full = c // 4
-    edge = (_edge_positions(h, oh, k, s, top) * ow + _edge_positions(w, ow, k, s, left) * oh
-            - _edge_positions(h, oh, k, s, top) * _edge_positions(w, ow, k, s, left))
+    edge_y, edge_x = _edge_positions(h, oh, k, s, top), _edge_positions(w, ow, k, s, left)
+    edge = edge_y * ow + edge_x * oh - edge_y * edge_x
+    inside3 = (n - edge) if k == 3 else 0
+    looped_taps = vy * vx - inside3 * 9
+    looped_rows = vy * ow - inside3 * 3
     return {"one": 1.0, "pixels": float(n), "blocks": float(n * blocks),
-            "rows": float(vy * ow * blocks), "taps4": float(vy * vx * full),
+            "inside3_blocks": float(inside3 * full),
+            "rows": float(looped_rows * full + vy * ow * (blocks - full)),
+            "taps4": float(looped_taps * full),
             "taps_rest": float(vy * vx * (c - 4 * full)),
             "edge_taps": float(edge * k * k * blocks), "outputs": float(n * c)}
 

@@ -47,14 +47,16 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
 
     Notes
     -----
-    Convolution (:mod:`tinyconv.export.c_fast`): ``n = oh ow`` output pixels in
-    ``ceil(n / 2)`` pairs; per pixel a patch of ``k`` kernel rows whose values
-    inside the image are copied (``vy vx c`` in all, with ``vy = sum_oy (rows
-    of the kernel inside)``, likewise ``vx``); per pair of pixels and pair of
-    filters ``K // 4`` steps of four values and ``K % 4`` single ones, ``K = k k
-    c``; one requantisation per output. Dense: pairs of outputs, steps of four
-    inputs, single ones. Depthwise: blocks of four channels per pixel, kernel
-    rows inside, products inside, and the padding's taps of edge pixels.
+    Convolution (:mod:`tinyconv.export.c_fast_conv`): ``n = oh ow`` output
+    pixels in ``ceil(n / 2)`` pairs; per pixel a patch whose values inside the
+    image are copied (``vy vx c`` in all, with ``vy = sum_oy (rows of the
+    kernel inside)``, likewise ``vx``): by table for a short ``K = k k c``
+    whose kernel rows do not fill groups of four, else row by row; per pair of
+    pixels and pair of filters ``K // 4`` groups of four values, two a turn,
+    and ``K % 4`` single ones; one requantisation per output. Dense: pairs of
+    outputs, steps of four inputs, single ones. Depthwise: blocks of four
+    channels per pixel, an inside 3 x 3 window written out, other windows by
+    kernel rows and taps, and the padding's taps of edge pixels.
     Residual addition: the values of its output.
     """
     return step_model(kind).features(op, in_shape)

@@ -3,30 +3,31 @@
 Same results as the plain loop nests of :mod:`tinyconv.export.c_kernels` and
 the NumPy reference, bit for bit, but arranged for a small core:
 
-* **convolution** (any kernel and stride): two output pixels at a time, their
-  receptive fields copied into an int16 scratch buffer as ``x - zp`` (taps in
-  the padding are 0, so the inner loop has no branches), then a
-  register-blocked product of two filters x two pixels (four accumulators),
-  four products per step; weights are reordered at export in groups of four as
-  (0, 2, 1, 3) so that the DSP path's dual multiply-accumulate pairs line up;
-* **dense and the head**: the int8 input read directly, two outputs at a time;
-  the input zero point is folded into the bias at export
-  (``b' = b - zp * sum(w)``), so the loop multiplies raw values;
-* **depthwise**: four channels at a time with the channel loop innermost,
-  the kernel window clipped to the image once per pixel, the zero point folded
-  into the bias and added back for the taps in the padding;
-* **requantisation** on the magnitude with one 32 x 32 -> 64-bit product,
-  hoisted out of every inner loop; the general slow form handles the rare
-  multipliers outside its range;
-* **pooling** with the channel loop innermost;
+* **convolution** (:mod:`tinyconv.export.c_fast_conv`): two output pixels at
+  a time through an interleaved pair of int16 patches, a register-blocked
+  product of two filters x two pixels, four values a step;
+* **dense and the head** (here): the int8 input read directly, two outputs at
+  a time, the input zero point folded into the bias at export
+  (``b' = b - zp * sum(w)``);
+* **depthwise** (:mod:`tinyconv.export.c_fast_dw`) and **pooling**
+  (:mod:`tinyconv.export.c_fast_pool`): the channel loop innermost, four
+  channels a step;
+* **requantisation** (:data:`REQUANT`, here): the reference's two roundings in
+  one signed 64-bit multiply-add, the output zero point folded into its
+  rounding constant, the clamp through ``SSAT`` where the core has it;
+  multipliers whose shift lies outside 2..23 take the general form;
 * the **residual addition** (:mod:`tinyconv.export.c_add`): one pass over the
   values, three rescalings each, on the magnitude like the requantisation.
 
 With ``@U@_USE_DSP`` (on by default when the compiler targets a core with the
 DSP extension: Cortex-M4, M7, M33) the products use the Arm C Language
-Extensions' ``__sxtb16`` and ``__smlad`` (two 16 x 16 multiply-accumulates in
-one instruction). Unaligned words and halfwords are read and written with
-``memcpy``, which compilers turn into single loads and stores on these cores.
+Extensions' ``__sxtb16``, ``__smlad``, ``__smlabb``/``__smlatt`` and max
+pooling ``__ssub8``/``__sel``; compilers that take GCC's inline assembly
+(GCC, Clang) get a few written-out instructions where GCC's scheduler would
+otherwise spill (``SXTB16`` with a rotation, the convolution's inner step).
+Without it, the kernels are plain C99. Unaligned words and halfwords are read
+and written with ``memcpy``, which compilers turn into single loads and
+stores on these cores.
 """
 
 DSP = r"""
@@ -214,6 +215,7 @@ DENSE = r"""
                           const int32_t *shift, int32_t yz, int32_t lo, int32_t hi)
 {
     int32_t o;
+    (void)hi;  /* 127: see @P@_clamp */
     for (o = 0; o < n_out; o += 2) {
         const int8_t *w0 = wt + o * n_in;
         int32_t a0 = bias[o], a1 = 0;
@@ -256,229 +258,6 @@ HEAD = r"""
 }
 """
 
-DWCONV = r"""
-/* Depthwise convolution, NHWC, weights [k][k][c], four channels at a time with
-   the channel loop innermost (four accumulators in registers), then one at a
-   time for the last c % 4. The bias holds b - zp * sum(w) over the whole
-   window, so taps inside the image multiply raw values and the taps in the
-   padding (which hold zp) add zp * w back. On the DSP path a tap is two word
-   loads: SXTB16 splits channels (0, 2) and (1, 3) of the input and of the
-   weights, and SMLABB / SMLATT multiply the matching halves. */
-/* One tap of four channels: the input at px + dx, the weights at pw + dw. */
-#if @U@_USE_DSP
-#define @U@_DWTAP(dx, dw)                                                      \
-    do {                                                                      \
-        uint32_t xv, wv;                                                      \
-        int32_t xe, we;                                                       \
-        memcpy(&xv, px + (dx), 4);                                            \
-        memcpy(&wv, pw + (dw), 4);                                            \
-        xe = __sxtb16((int32_t)xv);                                           \
-        we = __sxtb16((int32_t)wv);                                           \
-        a0 = __smlabb(xe, we, a0);                                            \
-        a2 = __smlatt(xe, we, a2);                                            \
-        xe = @P@_sxtb16_ror8(xv);                                             \
-        we = @P@_sxtb16_ror8(wv);                                             \
-        a1 = __smlabb(xe, we, a1);                                            \
-        a3 = __smlatt(xe, we, a3);                                            \
-    } while (0)
-#else
-#define @U@_DWTAP(dx, dw)                                                      \
-    do {                                                                      \
-        const int8_t *xq = px + (dx), *wq = pw + (dw);                        \
-        a0 += xq[0] * wq[0];                                                  \
-        a1 += xq[1] * wq[1];                                                  \
-        a2 += xq[2] * wq[2];                                                  \
-        a3 += xq[3] * wq[3];                                                  \
-    } while (0)
-#endif
-
-@U@_KERNEL void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
-                           int32_t oh, int32_t ow, int32_t k, int32_t s, int32_t pt,
-                           int32_t pl, int32_t xz, const int8_t *wt, const int32_t *bias,
-                           const int32_t *mult, const int32_t *shift, int32_t yz,
-                           int32_t lo, int32_t hi)
-{
-    int32_t oy, ox, ch, ky, kx;
-    (void)hi;  /* 127: see @P@_clamp */
-    for (oy = 0; oy < oh; ++oy) {
-        int32_t iy0 = oy * s - pt;
-        int32_t ky0 = iy0 < 0 ? -iy0 : 0, ky1 = h - iy0 < k ? h - iy0 : k;
-        for (ox = 0; ox < ow; ++ox) {
-            int32_t ix0 = ox * s - pl;
-            int32_t kx0 = ix0 < 0 ? -ix0 : 0, kx1 = w - ix0 < k ? w - ix0 : k;
-            int32_t edge = ky0 > 0 || ky1 < k || kx0 > 0 || kx1 < k;
-            int32_t step = (w - (kx1 - kx0)) * c;  /* from a row's end to the next row */
-            const int8_t *base = x + ((iy0 + ky0) * w + ix0 + kx0) * c;
-            const int8_t *wbase = wt + (ky0 * k + kx0) * c;
-            int32_t wstep = (k - (kx1 - kx0)) * c;
-            int8_t *out = y + (oy * ow + ox) * c;
-            for (ch = 0; ch + 4 <= c; ch += 4) {
-                int32_t a0 = bias[ch], a1 = bias[ch + 1], a2 = bias[ch + 2], a3 = bias[ch + 3];
-                const int8_t *px = base + ch, *pw = wbase + ch;
-                if (k == 3 && !edge) {  /* the common 3 x 3 window, inside: written out */
-                    int32_t wc = w * c;
-                    @U@_DWTAP(0, 0);
-                    @U@_DWTAP(c, c);
-                    @U@_DWTAP(2 * c, 2 * c);
-                    @U@_DWTAP(wc, 3 * c);
-                    @U@_DWTAP(wc + c, 4 * c);
-                    @U@_DWTAP(wc + 2 * c, 5 * c);
-                    @U@_DWTAP(2 * wc, 6 * c);
-                    @U@_DWTAP(2 * wc + c, 7 * c);
-                    @U@_DWTAP(2 * wc + 2 * c, 8 * c);
-                } else {
-                    for (ky = ky0; ky < ky1; ++ky) {
-                        for (kx = kx0; kx < kx1; ++kx) {
-                            @U@_DWTAP(0, 0);
-                            px += c;
-                            pw += c;
-                        }
-                        px += step;
-                        pw += wstep;
-                    }
-                }
-                if (edge) {  /* the padding's taps hold the zero point */
-                    for (ky = 0; ky < k; ++ky) {
-                        for (kx = 0; kx < k; ++kx) {
-                            const int8_t *q = wt + (ky * k + kx) * c + ch;
-                            if (ky >= ky0 && ky < ky1 && kx >= kx0 && kx < kx1) continue;
-                            a0 += xz * q[0];
-                            a1 += xz * q[1];
-                            a2 += xz * q[2];
-                            a3 += xz * q[3];
-                        }
-                    }
-                }
-                out[ch] = @P@_out1(a0, mult[ch], shift[ch], yz, lo);
-                out[ch + 1] = @P@_out1(a1, mult[ch + 1], shift[ch + 1], yz, lo);
-                out[ch + 2] = @P@_out1(a2, mult[ch + 2], shift[ch + 2], yz, lo);
-                out[ch + 3] = @P@_out1(a3, mult[ch + 3], shift[ch + 3], yz, lo);
-            }
-            for (; ch < c; ++ch) {
-                int32_t a0 = bias[ch];
-                const int8_t *px = base + ch, *pw = wbase + ch;
-                for (ky = ky0; ky < ky1; ++ky) {
-                    for (kx = kx0; kx < kx1; ++kx) {
-                        a0 += px[0] * pw[0];
-                        px += c;
-                        pw += c;
-                    }
-                    px += step;
-                    pw += wstep;
-                }
-                if (edge) {
-                    for (ky = 0; ky < k; ++ky) {
-                        for (kx = 0; kx < k; ++kx) {
-                            if (ky >= ky0 && ky < ky1 && kx >= kx0 && kx < kx1) continue;
-                            a0 += xz * wt[(ky * k + kx) * c + ch];
-                        }
-                    }
-                }
-                out[ch] = @P@_out1(a0, mult[ch], shift[ch], yz, lo);
-            }
-        }
-    }
-}
-"""
-
-MAXPOOL = r"""
-/* Max pooling, size = stride = s, ragged edge dropped; channel loop innermost.
-   For s = 2 on the DSP path, four channels a word: SSUB8 sets each byte's
-   greater-or-equal flag and SEL picks the larger (Arm C Language Extensions). */
-@U@_KERNEL void @P@_maxpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
-                            int32_t oh, int32_t ow, int32_t s)
-{
-    int32_t oy, ox, ch, dy, dx;
-    for (oy = 0; oy < oh; ++oy) {
-        for (ox = 0; ox < ow; ++ox) {
-            const int8_t *p = x + ((oy * s) * w + ox * s) * c;
-            int8_t *out = y + (oy * ow + ox) * c;
-            if (s == 2) {
-                const int8_t *q = p + w * c;
-                ch = 0;
-#if @U@_USE_DSP
-                for (; ch + 4 <= c; ch += 4) {
-                    int32_t a, b, m;
-                    memcpy(&a, p + ch, 4);
-                    memcpy(&b, p + ch + c, 4);
-                    (void)__ssub8(a, b);
-                    m = __sel(a, b);
-                    memcpy(&a, q + ch, 4);
-                    (void)__ssub8(m, a);
-                    m = __sel(m, a);
-                    memcpy(&b, q + ch + c, 4);
-                    (void)__ssub8(m, b);
-                    m = __sel(m, b);
-                    memcpy(out + ch, &m, 4);
-                }
-#endif
-                for (; ch < c; ++ch) {
-                    int32_t m = p[ch], v = p[ch + c];
-                    m = v > m ? v : m;
-                    v = q[ch];
-                    m = v > m ? v : m;
-                    v = q[ch + c];
-                    m = v > m ? v : m;
-                    out[ch] = (int8_t)m;
-                }
-                continue;
-            }
-            for (ch = 0; ch < c; ++ch) out[ch] = p[ch];
-            for (dy = 0; dy < s; ++dy) {
-                for (dx = 0; dx < s; ++dx) {
-                    const int8_t *r = p + (dy * w + dx) * c;
-                    if (dy == 0 && dx == 0) continue;
-                    for (ch = 0; ch < c; ++ch) {
-                        if (r[ch] > out[ch]) out[ch] = r[ch];
-                    }
-                }
-            }
-        }
-    }
-}
-"""
-
-AVGPOOL = r"""
-/* Average pooling, size = stride = s; same scale and zero point in and out. */
-@U@_KERNEL void @P@_avgpool(const int8_t *x, int8_t *y, int32_t w, int32_t c,
-                            int32_t oh, int32_t ow, int32_t s)
-{
-    int32_t oy, ox, ch, dy, dx, ss = s * s;
-    for (oy = 0; oy < oh; ++oy) {
-        for (ox = 0; ox < ow; ++ox) {
-            const int8_t *p = x + ((oy * s) * w + ox * s) * c;
-            int8_t *out = y + (oy * ow + ox) * c;
-            for (ch = 0; ch < c; ++ch) {
-                int32_t total = 0;
-                const int8_t *r = p + ch;
-                for (dy = 0; dy < s; ++dy) {
-                    for (dx = 0; dx < s; ++dx) total += r[dx * c];
-                    r += w * c;
-                }
-                out[ch] = @P@_rdiv(total, ss);
-            }
-        }
-    }
-}
-"""
-
-GAP = r"""
-/* Global average pooling: (h, w, c) -> (c); same scale and zero point. */
-@U@_KERNEL void @P@_gap(const int8_t *x, int8_t *y, int32_t hw, int32_t c)
-{
-    int32_t ch, i;
-    for (ch = 0; ch < c; ++ch) {
-        int32_t total = 0;
-        const int8_t *p = x + ch;
-        for (i = 0; i < hw; ++i) {
-            total += *p;
-            p += c;
-        }
-        y[ch] = @P@_rdiv(total, hw);
-    }
-}
-"""
-
 #: which templates each step kind needs, in emission order
 NEEDS = {
     "conv": ("SCALE", "DSP", "LD16", "REQUANT", "PATCH", "CONV"),
@@ -496,13 +275,14 @@ ORDER = ("KERNEL", "SCALE", "RDIV", "DSP", "LD16", "REQUANT", "PATCH", "CONV", "
 
 def templates() -> dict[str, str]:
     """Name -> text of every template of this style (shared ones from the plain style)."""
-    from tinyconv.export import c_add, c_fast_conv, c_kernels
+    from tinyconv.export import c_add, c_fast_conv, c_fast_dw, c_fast_pool, c_kernels
     return {"KERNEL": c_kernels.KERNEL, "SCALE": c_kernels.SCALE, "RDIV": c_kernels.RDIV,
             "ADD": c_add.ADD_FAST,
             "DSP": DSP, "LD16": LD16, "REQUANT": REQUANT,
             "PATCH": c_fast_conv.PATCH, "CONV": c_fast_conv.CONV,
-            "DOT_DIRECT": DOT_DIRECT, "DENSE": DENSE, "HEAD": HEAD, "DWCONV": DWCONV,
-            "MAXPOOL": MAXPOOL, "AVGPOOL": AVGPOOL, "GAP": GAP}
+            "DOT_DIRECT": DOT_DIRECT, "DENSE": DENSE, "HEAD": HEAD, "DWCONV": c_fast_dw.DWCONV,
+            "MAXPOOL": c_fast_pool.MAXPOOL, "AVGPOOL": c_fast_pool.AVGPOOL,
+            "GAP": c_fast_pool.GAP}
 
 
 def kernels_for(kinds, prefix: str) -> str:

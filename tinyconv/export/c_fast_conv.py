@@ -85,7 +85,7 @@ static void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n, int32_
    whole groups: first layers of 1 or 3 channels): value j from px + so[j]
    into col + at[j] (slot 0; slot q adds 8 q in the groups, 2 q in the tail). */
 static void @P@_patch_table(const int8_t *px, int8_t *col, int32_t q, const int16_t *so,
-                            const int16_t *at, int32_t K, int32_t full, int32_t xz)
+                            const uint8_t *at, int32_t K, int32_t full, int32_t xz)
 {
     int32_t j;
     int8_t *dst = col + 8 * q;
@@ -124,22 +124,22 @@ static void @P@_patch(const int8_t *x, int8_t *col, int32_t q, int32_t h, int32_
 
 CONV = r"""
 /* The longest K patched by table (its two int16 tables live on the stack). */
-#define @U@_TABLE 64
+#define @U@_TABLE 32
 
 /* One group of four values of K for filters a, b (weights at wp + 8 j) and
    pixels 0, 1 (the pair at pp + 16 j). */
 #if @U@_USE_DSP && defined(__GNUC__)
 /* GCC's scheduler hoists the loads of an unrolled C version and spills an
    accumulator; written out, a group is six loads that step the pointers, four
-   SXTB16 and eight SMLAD. wp and pp move on by 8 and 16 bytes. */
-#define @U@_GROUP(j)                                                          \
+   SXTB16 and eight SMLAD (wp and pp move on by 8 and 16 bytes). When the
+   weights and the patch pair are on word boundaries (the K of the layer a
+   multiple of 4, the arrays aligned), LDRD loads two words at once:
+   @U@_GROUPD, three loads. */
+#define @U@_GROUP_ASM(LOADS, SECOND)                                                 \
     do {                                                                      \
         uint32_t ua, ub, wa, wb, x0, x1;                                      \
         __asm__ volatile(                                                     \
-            "ldr %[ua], [%[wp]], #4\n\t"                                      \
-            "ldr %[ub], [%[wp]], #4\n\t"                                      \
-            "ldr %[x0], [%[pp]], #4\n\t"                                      \
-            "ldr %[x1], [%[pp]], #4\n\t"                                      \
+            LOADS                                                             \
             "sxtb16 %[wa], %[ua]\n\t"                                         \
             "sxtb16 %[wb], %[ub]\n\t"                                         \
             "smlad %[a00], %[wa], %[x0], %[a00]\n\t"                          \
@@ -148,8 +148,7 @@ CONV = r"""
             "sxtb16 %[ub], %[ub], ror #8\n\t"                                 \
             "smlad %[a00], %[ua], %[x1], %[a00]\n\t"                          \
             "smlad %[a10], %[ub], %[x1], %[a10]\n\t"                          \
-            "ldr %[x0], [%[pp]], #4\n\t"                                      \
-            "ldr %[x1], [%[pp]], #4\n\t"                                      \
+            SECOND                                                            \
             "smlad %[a01], %[wa], %[x0], %[a01]\n\t"                          \
             "smlad %[a11], %[wb], %[x0], %[a11]\n\t"                          \
             "smlad %[a01], %[ua], %[x1], %[a01]\n\t"                          \
@@ -160,8 +159,20 @@ CONV = r"""
             :                                                                 \
             : "memory");                                                      \
     } while (0)
+#define @U@_GROUP(j)                                                          \
+    @U@_GROUP_ASM("ldr %[ua], [%[wp]], #4\n\t"                                 \
+                  "ldr %[ub], [%[wp]], #4\n\t"                                 \
+                  "ldr %[x0], [%[pp]], #4\n\t"                                 \
+                  "ldr %[x1], [%[pp]], #4\n\t",                                \
+                  "ldr %[x0], [%[pp]], #4\n\t"                                 \
+                  "ldr %[x1], [%[pp]], #4\n\t")
+#define @U@_GROUPD(j)                                                         \
+    @U@_GROUP_ASM("ldrd %[ua], %[ub], [%[wp]], #8\n\t"                         \
+                  "ldrd %[x0], %[x1], [%[pp]], #8\n\t",                        \
+                  "ldrd %[x0], %[x1], [%[pp]], #8\n\t")
 #define @U@_STEP_W 0
 #define @U@_STEP_P 0
+#define @U@_HAS_GROUPD 1
 #elif @U@_USE_DSP
 #define @U@_GROUP(j)                                                          \
     do {                                                                      \
@@ -188,6 +199,7 @@ CONV = r"""
     } while (0)
 #define @U@_STEP_W 8
 #define @U@_STEP_P 16
+#define @U@_HAS_GROUPD 0
 #else
 #define @U@_TAP(wi, at)                                                       \
     do {                                                                      \
@@ -208,6 +220,7 @@ CONV = r"""
     } while (0)
 #define @U@_STEP_W 8
 #define @U@_STEP_P 16
+#define @U@_HAS_GROUPD 0
 #endif
 
 /* Every filter x the two pixels of the interleaved patch pair at col (the
@@ -224,20 +237,35 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
 {
     int32_t i, o, t = K & 3, g = K >> 2, d = (int32_t)(y1 - y0);
     const int8_t *stop = col + 16 * g, *stop2 = col + 32 * (g >> 1), *wp = wt;
+#if @U@_HAS_GROUPD
+    /* every pair of filters' weights and the patch pair on a word boundary */
+    int32_t aligned = (((uintptr_t)col | (uintptr_t)wt | (uintptr_t)K) & 3u) == 0;
+#endif
     for (o = 0; o < (f & ~1); o += 2) {
         const int8_t *pp = col;  /* wp runs on from one pair of filters to the next */
         int32_t a00 = bias[o], a01 = bias[o], a10 = bias[o + 1], a11 = bias[o + 1];
-        while (pp != stop2) {  /* two groups a turn (the written-out groups step
-                                  the pointers themselves: STEP_W = STEP_P = 0) */
-            @U@_GROUP(0);
-            @U@_GROUP(@U@_STEP_W ? 1 : 0);
-            wp += 2 * @U@_STEP_W;
-            pp += 2 * @U@_STEP_P;
-        }
-        if (pp != stop) {
-            @U@_GROUP(0);
-            wp += @U@_STEP_W;
-            pp += @U@_STEP_P;
+#if @U@_HAS_GROUPD
+        if (aligned) {
+            while (pp != stop2) {  /* two groups a turn, two words a load */
+                @U@_GROUPD(0);
+                @U@_GROUPD(0);
+            }
+            if (pp != stop) @U@_GROUPD(0);
+        } else
+#endif
+        {
+            while (pp != stop2) {  /* two groups a turn (the written-out groups step
+                                      the pointers themselves: STEP_W = STEP_P = 0) */
+                @U@_GROUP(0);
+                @U@_GROUP(@U@_STEP_W ? 1 : 0);
+                wp += 2 * @U@_STEP_W;
+                pp += 2 * @U@_STEP_P;
+            }
+            if (pp != stop) {
+                @U@_GROUP(0);
+                wp += @U@_STEP_W;
+                pp += @U@_STEP_P;
+            }
         }
         for (i = 0; i < t; ++i) {
             int32_t x0 = @P@_ld16(pp + 4 * i), x1 = @P@_ld16(pp + 4 * i + 2);
@@ -279,12 +307,13 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
 {
     int32_t K = k * k * c, n = oh * ow, p, j;
     int32_t full = K & ~3, table = K <= @U@_TABLE && ((k * c) & 3) != 0;
-    int16_t so[@U@_TABLE], at[@U@_TABLE];  /* the patch by table (see @P@_patch_table) */
+    int16_t so[@U@_TABLE];  /* the patch by table (see @P@_patch_table) */
+    uint8_t at[@U@_TABLE];
     (void)hi;  /* 127: see @P@_clamp */
     for (j = 0; table && j < K; ++j) {
         int32_t ky = j / (k * c), r = j - ky * k * c;
         so[j] = (int16_t)(ky * w * c + r);
-        at[j] = (int16_t)(j < full ? 16 * (j >> 2) + 4 * (j & 1) + 2 * ((j >> 1) & 1) : 4 * j);
+        at[j] = (uint8_t)(j < full ? 16 * (j >> 2) + 4 * (j & 1) + 2 * ((j >> 1) & 1) : 4 * j);
     }
     for (p = 0; p < n; p += 2) {
         int32_t oy = p / ow, ox = p - oy * ow, q = p + 1 < n ? p + 1 : p, i;

@@ -18,7 +18,8 @@ plus the step's scratch: the cost model's int8 peak
   the alternation goes on after the block;
 * a step's scratch (the fast convolution's patch buffer) takes the free run
   between the tensors alive at that step, whose length is the buffer size
-  less their sum, so at least the scratch.
+  less their sum, so at least the scratch; it starts on a word boundary when
+  the run has room for that.
 
 Since at every step the alive tensors are packed against the ends, the one
 free run is exactly what the size leaves, and nothing alive overlaps:
@@ -134,11 +135,14 @@ def plan_buffer(qnet: QuantizedNetwork, style: str = "fast") -> BufferPlan:
 
 
 def _free_run(spans: list[tuple[int, int]], size: int, need: int) -> int:
-    """Start of the first free run of ``need`` bytes between sorted ``spans`` in ``size``."""
+    """Start of the first free run of ``need`` bytes between sorted ``spans`` in ``size``,
+    on a word boundary where the run leaves room for it (the fast convolution then
+    loads its patches two words at a time)."""
     at = 0
     for lo, hi in spans + [(size, size)]:
         if lo - at >= need:
-            return at
+            word = (at + 3) // 4 * 4
+            return word if lo - word >= need else at
         at = max(at, hi)
     raise ValueError(f"no free run of {need} bytes in a buffer of {size} holding {spans}")
 
