@@ -134,8 +134,8 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
 
 
 def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
-    """dwconv: blocks of four channels per pixel, the channel loop innermost; an inside
-    3 x 3 window written out, other windows by rows and taps."""
+    """dwconv: blocks of four channels per pixel, the channel loop innermost, kernel rows
+    and taps inside the image, and the padding's taps of edge pixels."""
     h, w, c = op.in_shape
     oh, ow, _ = op.out_shape
     k, s = op.kernel, op.stride
@@ -147,13 +147,8 @@ def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     full = c // 4
     edge_y, edge_x = _edge_positions(h, oh, k, s, top), _edge_positions(w, ow, k, s, left)
     edge = edge_y * ow + edge_x * oh - edge_y * edge_x
-    inside3 = (n - edge) if k == 3 else 0
-    looped_taps = vy * vx - inside3 * 9
-    looped_rows = vy * ow - inside3 * 3
     return {"one": 1.0, "pixels": float(n), "blocks": float(n * blocks),
-            "inside3_blocks": float(inside3 * full),
-            "rows": float(looped_rows * full + vy * ow * (blocks - full)),
-            "taps4": float(looped_taps * full),
+            "rows": float(vy * ow * blocks), "taps4": float(vy * vx * full),
             "taps_rest": float(vy * vx * (c - 4 * full)),
             "edge_taps": float(edge * k * k * blocks), "outputs": float(n * c)}
 

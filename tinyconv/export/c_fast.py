@@ -135,6 +135,16 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
     return (uint32_t)(2 * zp + 1) << (shift - 2);
 }
 
+/* The general form for the rare channels outside the one-product range, kept out
+   of line so that every kernel's hot path stays short. */
+#if defined(__GNUC__)
+__attribute__((noinline))
+#endif
+static int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
+{
+    return @P@_rq(acc, mult, shift, zp, lo, 127);
+}
+
 /* Clamp to [lo, 127] (lo >= -128; every layer's upper clamp is 127, which
    the exporter checks): the saturation instruction where the core has one
    (Arm C Language Extensions, __ssat; Cortex-M3 and up), then lo. */
@@ -159,8 +169,8 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
         *y0 = (int8_t)@P@_clamp(@P@_rq1(a0, mult, nh, shift - 1), lo);
         *y1 = (int8_t)@P@_clamp(@P@_rq1(a1, mult, nh, shift - 1), lo);
     } else {
-        *y0 = @P@_rq(a0, mult, shift, zp, lo, 127);
-        *y1 = @P@_rq(a1, mult, shift, zp, lo, 127);
+        *y0 = @P@_rq_rare(a0, mult, shift, zp, lo);
+        *y1 = @P@_rq_rare(a1, mult, shift, zp, lo);
     }
 }
 
@@ -168,7 +178,7 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
    where it applies). */
 @U@_INLINE int8_t @P@_out1(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
 {
-    if ((uint32_t)(shift - 2) > 21u) return @P@_rq(acc, mult, shift, zp, lo, 127);
+    if ((uint32_t)(shift - 2) > 21u) return @P@_rq_rare(acc, mult, shift, zp, lo);
     return (int8_t)@P@_clamp(@P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1), lo);
 }
 """

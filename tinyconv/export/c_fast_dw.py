@@ -1,10 +1,11 @@
 """The C99 text of the fast depthwise convolution (:data:`DWCONV`).
 
 Four channels at a time with the channel loop innermost, the zero point folded
-into the bias (and added back for the taps in the padding), an inside 3 x 3
-window written out; on the DSP path a tap is two word loads split by
-``SXTB16`` into channels (0, 2) and (1, 3) and multiplied by ``SMLABB`` /
-``SMLATT`` (Arm C Language Extensions). Requantised with ``_out1`` of
+into the bias (and added back for the taps in the padding); on the DSP path a
+tap is two word loads split by ``SXTB16`` into channels (0, 2) and (1, 3) and
+multiplied by ``SMLABB`` / ``SMLATT`` (Arm C Language Extensions). (Writing
+out the inside 3 x 3 window saved a tenth of the step's instructions but cost
+600 bytes of code, so it is not done.) Requantised with ``_out1`` of
 :data:`tinyconv.export.c_fast.REQUANT`.
 """
 
@@ -67,27 +68,14 @@ DWCONV = r"""
             for (ch = 0; ch + 4 <= c; ch += 4) {
                 int32_t a0 = bias[ch], a1 = bias[ch + 1], a2 = bias[ch + 2], a3 = bias[ch + 3];
                 const int8_t *px = base + ch, *pw = wbase + ch;
-                if (k == 3 && !edge) {  /* the common 3 x 3 window, inside: written out */
-                    int32_t wc = w * c;
-                    @U@_DWTAP(0, 0);
-                    @U@_DWTAP(c, c);
-                    @U@_DWTAP(2 * c, 2 * c);
-                    @U@_DWTAP(wc, 3 * c);
-                    @U@_DWTAP(wc + c, 4 * c);
-                    @U@_DWTAP(wc + 2 * c, 5 * c);
-                    @U@_DWTAP(2 * wc, 6 * c);
-                    @U@_DWTAP(2 * wc + c, 7 * c);
-                    @U@_DWTAP(2 * wc + 2 * c, 8 * c);
-                } else {
-                    for (ky = ky0; ky < ky1; ++ky) {
-                        for (kx = kx0; kx < kx1; ++kx) {
-                            @U@_DWTAP(0, 0);
-                            px += c;
-                            pw += c;
-                        }
-                        px += step;
-                        pw += wstep;
+                for (ky = ky0; ky < ky1; ++ky) {
+                    for (kx = kx0; kx < kx1; ++kx) {
+                        @U@_DWTAP(0, 0);
+                        px += c;
+                        pw += c;
                     }
+                    px += step;
+                    pw += wstep;
                 }
                 if (edge) {  /* the padding's taps hold the zero point */
                     for (ky = 0; ky < k; ++ky) {
@@ -101,10 +89,15 @@ DWCONV = r"""
                         }
                     }
                 }
-                out[ch] = @P@_out1(a0, mult[ch], shift[ch], yz, lo);
-                out[ch + 1] = @P@_out1(a1, mult[ch + 1], shift[ch + 1], yz, lo);
-                out[ch + 2] = @P@_out1(a2, mult[ch + 2], shift[ch + 2], yz, lo);
-                out[ch + 3] = @P@_out1(a3, mult[ch + 3], shift[ch + 3], yz, lo);
+                {  /* one copy of the requantisation for the four (code size) */
+                    int32_t acc[4], i;
+                    acc[0] = a0;
+                    acc[1] = a1;
+                    acc[2] = a2;
+                    acc[3] = a3;
+                    for (i = 0; i < 4; ++i)
+                        out[ch + i] = @P@_out1(acc[i], mult[ch + i], shift[ch + i], yz, lo);
+                }
             }
             for (; ch < c; ++ch) {
                 int32_t a0 = bias[ch];
