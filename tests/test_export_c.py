@@ -211,3 +211,40 @@ def test_plain_kernels_match_too(tmp_path, text, k):
     np.testing.assert_array_equal(best, classes)
     with pytest.raises(InputError, match="kernel style 'quick' is not one of fast, plain"):
         generate_c(qnet, "tcp", style="quick")
+
+
+def _altered(qnet, lo=None, shifts=()):
+    """``qnet`` with ReLU layers' lower clamp set to ``lo`` and the first channels of every
+    weighted layer given the per-channel ``shifts``."""
+    from dataclasses import replace
+    layers = []
+    for layer in qnet.layers:
+        if layer.kind in ("conv", "dwconv", "dense"):
+            shift = np.array(layer.shift, copy=True)
+            n = min(len(shift), len(shifts))
+            shift[:n] = shifts[:n]
+            layer = replace(layer, shift=shift,
+                            lo=lo if (lo is not None and layer.relu) else layer.lo)
+        layers.append(layer)
+    return replace(qnet, layers=tuple(layers))
+
+
+@pytest.mark.parametrize("style", ["fast", "plain"])
+@pytest.mark.parametrize("lo, shifts", [(-100, ()), (None, (0, 1, 24, 31, -1))],
+                         ids=["raised-lower-clamp", "rare-shifts"])
+def test_less_common_requantisations_match_the_reference(tmp_path, style, lo, shifts):
+    """The kernels' less common paths give the integer reference's outputs bit for bit: a
+    lower clamp above -128 (a ReLU whose output zero point is above -128), and
+    per-channel shifts outside the one-product form's 2..23 (0, 1, 24, 31 and a left
+    shift), which take the general form."""
+    text, k = "16x16rgb/c8k3-p2-dw3-c12k1-c6k3s2-gap-d16-d5", 5
+    net, mean, std, images = random_setup(text, k, seed=7)
+    base = quantize_network(net, mean, std, images[:64])
+    qnet = _altered(base, lo, shifts)
+    want, classes = int8_outputs(qnet, images[:120])
+    # the alteration changes the reference's outputs, so a kernel ignoring it would fail
+    assert (want != int8_outputs(base, images[:120])[0]).any()
+    run, _ = build(tmp_path, generate_c(qnet, "tcr", style=style))
+    logits, best = run(images[:120], k)
+    np.testing.assert_array_equal(logits, want)
+    np.testing.assert_array_equal(best, classes)

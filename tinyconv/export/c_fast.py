@@ -145,16 +145,24 @@ static int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, 
     return @P@_rq(acc, mult, shift, zp, lo, 127);
 }
 
-/* Clamp to [lo, 127] (lo >= -128; every layer's upper clamp is 127, which
-   the exporter checks): the saturation instruction where the core has one
-   (Arm C Language Extensions, __ssat; Cortex-M3 and up), then lo. */
-@U@_INLINE int32_t @P@_clamp(int32_t v, int32_t lo)
+/* Saturate to int8 (the upper clamp of every layer is 127, which the exporter
+   checks): the saturation instruction where the core has one (Arm C Language
+   Extensions, __ssat; Cortex-M3 and up). The lower clamp lo (above -128 only
+   after a ReLU whose output zero point is above -128) is applied by the
+   callers, once per channel pair and only where it matters. */
+@U@_INLINE int32_t @P@_sat8(int32_t v)
 {
 #if defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT
-    v = __ssat(v, 8);
+    return __ssat(v, 8);
 #else
-    v = v > 127 ? 127 : (v < -128 ? -128 : v);
+    return v > 127 ? 127 : (v < -128 ? -128 : v);
 #endif
+}
+
+/* Clamp to [lo, 127]. */
+@U@_INLINE int32_t @P@_clamp(int32_t v, int32_t lo)
+{
+    v = @P@_sat8(v);
     return v < lo ? lo : v;
 }
 
@@ -166,8 +174,14 @@ static int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, 
 {
     if ((uint32_t)(shift - 2) <= 21u) {
         uint32_t nh = @P@_rq_nh(shift, zp);
-        *y0 = (int8_t)@P@_clamp(@P@_rq1(a0, mult, nh, shift - 1), lo);
-        *y1 = (int8_t)@P@_clamp(@P@_rq1(a1, mult, nh, shift - 1), lo);
+        int32_t v0 = @P@_sat8(@P@_rq1(a0, mult, nh, shift - 1));
+        int32_t v1 = @P@_sat8(@P@_rq1(a1, mult, nh, shift - 1));
+        if (lo > -128) {
+            v0 = v0 < lo ? lo : v0;
+            v1 = v1 < lo ? lo : v1;
+        }
+        *y0 = (int8_t)v0;
+        *y1 = (int8_t)v1;
     } else {
         *y0 = @P@_rq_rare(a0, mult, shift, zp, lo);
         *y1 = @P@_rq_rare(a1, mult, shift, zp, lo);
