@@ -112,16 +112,20 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     slots = 2 * pixel_pairs  # a last odd pixel's patch is built twice
     groups = kk // 4
     # the patch: by table for a short K whose kernel rows do not fill whole groups
-    # (inside pixels), else row by row, four values a step where rows fill groups
+    # (inside pixels), a window whose rows fill groups in one call (inside pixels),
+    # else row by row, four values a step where rows fill groups
     visited = vy * vx * c
     table = kk <= PATCH_TABLE and (k * c) % 4 != 0
-    inside = (_inside(h, oh, k, s, top) * _inside(w, ow, k, s, left)) if table else 0
-    by_table = inside * kk
-    by_rows = visited - by_table
     aligned = (k * c) % 4 == 0
+    inside = _inside(h, oh, k, s, top) * _inside(w, ow, k, s, left)
+    by_table = inside * kk if table else 0
+    windows = inside if aligned else 0
+    row_pixels = n - inside if (table or aligned) else n
+    by_rows = visited - by_table
     return {"one": 1.0, "pixel_pairs": float(pixel_pairs),
             "patch_table": float(by_table),
-            "patch_rows": float(n * k - inside * k),
+            "patch_windows": float(windows),
+            "patch_rows": float(row_pixels * k),
             "patch_groups": float(by_rows // 4 if aligned else 0),
             "patch_values": float(0 if aligned else by_rows),
             "blocks": float(pixel_pairs * filter_pairs),

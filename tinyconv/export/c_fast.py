@@ -34,8 +34,10 @@ DSP = r"""
 /* Small helpers inlined into the kernels (where the compiler allows it). */
 #if defined(__GNUC__)
 #define @U@_INLINE static inline __attribute__((always_inline))
+#define @U@_OUTLINE static __attribute__((noinline))
 #else
 #define @U@_INLINE static
+#define @U@_OUTLINE static
 #endif
 
 /* The DSP extension's dual 16-bit multiply-accumulate and the saturation
@@ -137,10 +139,7 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
 
 /* The general form for the rare channels outside the one-product range, kept out
    of line so that every kernel's hot path stays short. */
-#if defined(__GNUC__)
-__attribute__((noinline))
-#endif
-static int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
+@U@_OUTLINE int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
 {
     return @P@_rq(acc, mult, shift, zp, lo, 127);
 }
@@ -180,8 +179,8 @@ static int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, 
             v0 = v0 < lo ? lo : v0;
             v1 = v1 < lo ? lo : v1;
         }
-        *y0 = (int8_t)v0;
-        *y1 = (int8_t)v1;
+        *(uint8_t *)y0 = (uint8_t)v0;
+        *(uint8_t *)y1 = (uint8_t)v1;
     } else {
         *y0 = @P@_rq_rare(a0, mult, shift, zp, lo);
         *y1 = @P@_rq_rare(a1, mult, shift, zp, lo);

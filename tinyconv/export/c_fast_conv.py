@@ -31,6 +31,41 @@ def patch_offset(j: int, pixel: int, k_total: int) -> int:
 
 
 PATCH = r"""
+/* rows x n4 whole groups of four values as int16 x - zp: row r read from
+   src + r * stride, written 16 bytes a group (one slot of the interleaved pair,
+   each group as values 0, 2, 1, 3) and on from row to row. */
+@U@_OUTLINE void @P@_groups(const int8_t *src, int32_t stride, int8_t *dst, int32_t rows,
+                       int32_t n4, int32_t xz)
+{
+    int32_t r, g;
+#if @U@_USE_DSP
+    uint32_t nz2 = ((0u - (uint32_t)xz) & 0xFFFFu) * 0x10001u;  /* -zp in both halves */
+#endif
+    for (r = 0; r < rows; ++r, src += stride) {
+        const int8_t *sp = src;
+        for (g = n4; g > 0; --g, sp += 4, dst += 16) {
+            uint32_t u;
+#if @U@_USE_DSP
+            int32_t a, b;
+            memcpy(&u, sp, 4);
+            a = __sxtab16((int32_t)nz2, (int32_t)u);  /* values 0, 2 */
+            b = @P@_sxtab16_ror8((int32_t)nz2, u);    /* values 1, 3 */
+            memcpy(dst, &a, 4);
+            memcpy(dst + 4, &b, 4);
+#else
+            uint32_t lo, hi;  /* one load, the four values by sign extension */
+            memcpy(&u, sp, 4);
+            lo = (uint32_t)((int8_t)u - xz) & 0xFFFFu;
+            lo |= (uint32_t)((int8_t)(u >> 16) - xz) << 16;
+            hi = (uint32_t)((int8_t)(u >> 8) - xz) & 0xFFFFu;
+            hi |= (uint32_t)((int8_t)(u >> 24) - xz) << 16;
+            memcpy(dst, &lo, 4);
+            memcpy(dst + 4, &hi, 4);
+#endif
+        }
+    }
+}
+
 /* Byte offset of value j of pixel q in the interleaved pair: in a group
    (j < full) at 16 (j / 4) + 8 q + 2 r with r = 0, 2, 1, 3 for j % 4 = 0..3;
    in the tail at 4 j + 2 q. */
@@ -42,37 +77,21 @@ PATCH = r"""
 
 /* Values j .. j + n - 1 of pixel q's patch as int16 x - zp into the interleaved
    pair at col (zeros when src is 0: taps in the padding). */
-static void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n, int32_t xz,
+@U@_OUTLINE void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n, int32_t xz,
                     int32_t full, int32_t q)
 {
     int32_t e = j + n;
     int16_t v = 0;
-#if @U@_USE_DSP
-    uint32_t nz2 = ((0u - (uint32_t)xz) & 0xFFFFu) * 0x10001u;  /* -zp in both halves */
-#endif
     if (src) {
         for (; j < e && ((j & 3) || j >= full); ++j) {  /* up to a group's start, or the tail */
             v = (int16_t)(*src++ - xz);
             memcpy(col + @P@_at(j, full, q), &v, 2);
         }
-        for (; j + 4 <= e && j < full; j += 4, src += 4) {  /* whole groups */
-            int8_t *dst = col + 4 * j + 8 * q;
-#if @U@_USE_DSP
-            uint32_t u;
-            int32_t a, b;
-            memcpy(&u, src, 4);
-            a = __sxtab16((int32_t)nz2, (int32_t)u);  /* values 0, 2 */
-            b = @P@_sxtab16_ror8((int32_t)nz2, u);    /* values 1, 3 */
-            memcpy(dst, &a, 4);
-            memcpy(dst + 4, &b, 4);
-#else
-            int16_t g[4];
-            g[0] = (int16_t)(src[0] - xz);
-            g[1] = (int16_t)(src[2] - xz);
-            g[2] = (int16_t)(src[1] - xz);
-            g[3] = (int16_t)(src[3] - xz);
-            memcpy(dst, g, 8);
-#endif
+        if (j < full && e - j >= 4) {  /* whole groups */
+            int32_t n4 = ((e < full ? e : full) - j) >> 2;
+            @P@_groups(src, 0, col + 4 * j + 8 * q, 1, n4, xz);
+            j += 4 * n4;
+            src += 4 * n4;
         }
     }
     for (; j < e; ++j) {  /* the rest one by one (all of a padding run) */
@@ -81,31 +100,38 @@ static void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n, int32_
     }
 }
 
-/* An inside pixel's patch by table (a short K whose kernel rows do not fill
-   whole groups: first layers of 1 or 3 channels): value j from px + so[j]
-   into col + at[j] (slot 0; slot q adds 8 q in the groups, 2 q in the tail). */
-static void @P@_patch_table(const int8_t *px, int8_t *col, int32_t q, const int16_t *so,
-                            const uint8_t *at, int32_t K, int32_t full, int32_t xz)
+/* Two inside pixels' patches by table (a short K whose kernel rows do not fill
+   whole groups: first layers of 1 or 3 channels): value j from p0 + so[j] and
+   p1 + so[j] into col + at[j] (slot 0) and the same + 8 in the groups, + 2 in
+   the tail (slot 1). */
+@U@_OUTLINE void @P@_patch_table(const int8_t *p0, const int8_t *p1, int8_t *col,
+                                 const int16_t *so, const uint8_t *at, int32_t K,
+                                 int32_t full, int32_t xz)
 {
     int32_t j;
-    int8_t *dst = col + 8 * q;
     for (j = 0; j < full; ++j) {
-        int16_t v = (int16_t)(px[so[j]] - xz);
-        memcpy(dst + at[j], &v, 2);
+        int16_t v0 = (int16_t)(p0[so[j]] - xz), v1 = (int16_t)(p1[so[j]] - xz);
+        memcpy(col + at[j], &v0, 2);
+        memcpy(col + at[j] + 8, &v1, 2);
     }
-    dst = col + 2 * q;
     for (; j < K; ++j) {
-        int16_t v = (int16_t)(px[so[j]] - xz);
-        memcpy(dst + at[j], &v, 2);
+        int16_t v0 = (int16_t)(p0[so[j]] - xz), v1 = (int16_t)(p1[so[j]] - xz);
+        memcpy(col + at[j], &v0, 2);
+        memcpy(col + at[j] + 2, &v1, 2);
     }
 }
 
 /* One output pixel's receptive field (kernel rows, columns, channels: the
    weights' order) into slot q of the interleaved pair at col. */
-static void @P@_patch(const int8_t *x, int8_t *col, int32_t q, int32_t h, int32_t w,
+@U@_OUTLINE void @P@_patch(const int8_t *x, int8_t *col, int32_t q, int32_t h, int32_t w,
                       int32_t c, int32_t k, int32_t iy0, int32_t ix0, int32_t xz)
 {
     int32_t ky, kx, row = k * c, full = (k * row) & ~3;
+    if ((row & 3) == 0 && iy0 >= 0 && ix0 >= 0 && iy0 + k <= h && ix0 + k <= w) {
+        /* the whole window inside, its rows filling groups: one call */
+        @P@_groups(x + (iy0 * w + ix0) * c, w * c, col + 8 * q, k, row >> 2, xz);
+        return;
+    }
     for (ky = 0; ky < k; ++ky) {
         int32_t iy = iy0 + ky, j = ky * row;
         if (iy < 0 || iy >= h) {
@@ -223,6 +249,16 @@ CONV = r"""
 #define @U@_HAS_GROUPD 0
 #endif
 
+/* Value i of the pair's tails: filter a's at wp[i], b's at wp[t + i]. */
+#define @U@_TAIL(i)                                                           \
+    do {                                                                      \
+        int32_t x0 = @P@_ld16(pp + 4 * (i)), x1 = @P@_ld16(pp + 4 * (i) + 2);  \
+        a00 += wp[i] * x0;                                                    \
+        a01 += wp[i] * x1;                                                    \
+        a10 += wp[t + (i)] * x0;                                              \
+        a11 += wp[t + (i)] * x1;                                              \
+    } while (0)
+
 /* Every filter x the two pixels of the interleaved patch pair at col (the
    same pixel twice for a last odd pixel, whose outputs y1 = y0 are written
    twice). Pair layout: group by group (four values of K), the first pixel's
@@ -254,10 +290,12 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
         } else
 #endif
         {
-            while (pp != stop2) {  /* two groups a turn (the written-out groups step
-                                      the pointers themselves: STEP_W = STEP_P = 0) */
+#if @U@_HAS_GROUPD
+            while (pp != stop) @U@_GROUP(0);  /* unaligned layers (first ones): short */
+#else
+            while (pp != stop2) {  /* two groups a turn */
                 @U@_GROUP(0);
-                @U@_GROUP(@U@_STEP_W ? 1 : 0);
+                @U@_GROUP(1);
                 wp += 2 * @U@_STEP_W;
                 pp += 2 * @U@_STEP_P;
             }
@@ -266,15 +304,14 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
                 wp += @U@_STEP_W;
                 pp += @U@_STEP_P;
             }
+#endif
         }
-        for (i = 0; i < t; ++i) {
-            int32_t x0 = @P@_ld16(pp + 4 * i), x1 = @P@_ld16(pp + 4 * i + 2);
-            a00 += wp[i] * x0;
-            a01 += wp[i] * x1;
-            a10 += wp[t + i] * x0;
-            a11 += wp[t + i] * x1;
+        if (t) {  /* the last K % 4 values, written out (no loop for 1 to 3) */
+            @U@_TAIL(0);
+            if (t > 1) @U@_TAIL(1);
+            if (t > 2) @U@_TAIL(2);
+            wp += 2 * t;
         }
-        wp += 2 * t;
         @P@_out2(a00, a01, mult[o], shift[o], yz, lo, y0 + o, y0 + o + d);
         @P@_out2(a10, a11, mult[o + 1], shift[o + 1], yz, lo, y0 + o + 1, y0 + o + 1 + d);
     }
@@ -316,14 +353,16 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
         at[j] = (uint8_t)(j < full ? 16 * (j >> 2) + 4 * (j & 1) + 2 * ((j >> 1) & 1) : 4 * j);
     }
     for (p = 0; p < n; p += 2) {
-        int32_t oy = p / ow, ox = p - oy * ow, q = p + 1 < n ? p + 1 : p, i;
+        int32_t oy = p / ow, ox = p - oy * ow, q = p + 1 < n ? p + 1 : p;
         int32_t qy = q / ow, qx = q - qy * ow;
-        for (i = 0; i < 2; ++i) {
-            int32_t iy0 = (i ? qy : oy) * s - pt, ix0 = (i ? qx : ox) * s - pl;
-            if (table && iy0 >= 0 && ix0 >= 0 && iy0 + k <= h && ix0 + k <= w)
-                @P@_patch_table(x + (iy0 * w + ix0) * c, col, i, so, at, K, full, xz);
-            else
-                @P@_patch(x, col, i, h, w, c, k, iy0, ix0, xz);
+        int32_t iy0 = oy * s - pt, ix0 = ox * s - pl, iy1 = qy * s - pt, ix1 = qx * s - pl;
+        if (table && iy0 >= 0 && ix0 >= 0 && iy0 + k <= h && ix0 + k <= w && iy1 >= 0
+            && ix1 >= 0 && iy1 + k <= h && ix1 + k <= w) {  /* both inside: by table */
+            @P@_patch_table(x + (iy0 * w + ix0) * c, x + (iy1 * w + ix1) * c, col, so, at,
+                            K, full, xz);
+        } else {
+            @P@_patch(x, col, 0, h, w, c, k, iy0, ix0, xz);
+            @P@_patch(x, col, 1, h, w, c, k, iy1, ix1, xz);
         }
         @P@_mm(col, K, f, wt, bias, mult, shift, yz, lo, y + p * f, y + q * f);
     }
