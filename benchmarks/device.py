@@ -43,7 +43,7 @@ NETWORKS = (
     ("16x16rgb/c32k1-c32k1-gap", 4, "1x1 convs"),
     ("32x32rgb/c32k1-dw3-dw3-gap", 4, "depthwise"),
     ("16x16rgb/d64-d64", 8, "dense"),
-    ("16x16rgb/c8k3-[c16k1-dw3-c8k1]-p2-[c8k3-c8k3]-gap", 5, "residual blocks (most kernels)"),
+    ("16x16rgb/c8k3-[c16k1-dw3-c8k1]-p2-[c8k3-c8k3]-gap", 5, "residual blocks, most kernels"),
 )
 #: the issue's goal for the code the fast kernels add over the plain loops
 CODE_GROWTH_GOAL = 4096
