@@ -40,12 +40,9 @@ DSP = r"""
 #define @U@_OUTLINE static
 #endif
 
-/* The DSP extension's dual 16-bit multiply-accumulate and the saturation
-   instruction (Arm C Language Extensions). */
-#if @U@_USE_DSP || (defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT)
-#include <arm_acle.h>
-#endif
+/* The DSP extension's dual 16-bit multiply-accumulate (Arm C Language Extensions). */
 #if @U@_USE_DSP
+#include <arm_acle.h>
 /* SXTB16 of a word rotated right by 8 bits (its bytes 1 and 3): one instruction
    where the compiler takes GCC's inline assembly, a rotation and SXTB16 elsewhere. */
 @U@_INLINE int32_t @P@_sxtb16_ror8(uint32_t u)
@@ -145,14 +142,18 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
 }
 
 /* Saturate to int8 (the upper clamp of every layer is 127, which the exporter
-   checks): the saturation instruction where the core has one (Arm C Language
-   Extensions, __ssat; Cortex-M3 and up). The lower clamp lo (above -128 only
-   after a ReLU whose output zero point is above -128) is applied by the
-   callers, once per channel pair and only where it matters. */
+   checks): the saturation instruction SSAT (Cortex-M3 and up) where the
+   compiler takes GCC's inline assembly (written out because GCC turns the C
+   below into compares, and the Arm C Language Extensions' __ssat warns under
+   -Wsign-conversion with GCC 12), the C elsewhere. The lower clamp lo (above
+   -128 only after a ReLU whose output zero point is above -128) is applied by
+   the callers, once per channel pair and only where it matters. */
 @U@_INLINE int32_t @P@_sat8(int32_t v)
 {
-#if defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT
-    return __ssat(v, 8);
+#if defined(__GNUC__) && defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT
+    int32_t r;
+    __asm__("ssat %0, #8, %1" : "=r"(r) : "r"(v));
+    return r;
 #else
     return v > 127 ? 127 : (v < -128 ? -128 : v);
 #endif

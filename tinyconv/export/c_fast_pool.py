@@ -22,16 +22,16 @@ MAXPOOL = r"""
                 ch = 0;
 #if @U@_USE_DSP
                 for (; ch + 4 <= c; ch += 4) {
-                    int32_t a, b, m;
+                    uint32_t a, b, m;
                     memcpy(&a, p + ch, 4);
                     memcpy(&b, p + ch + c, 4);
-                    (void)__ssub8(a, b);
+                    (void)__ssub8((int32_t)a, (int32_t)b);
                     m = __sel(a, b);
                     memcpy(&a, q + ch, 4);
-                    (void)__ssub8(m, a);
+                    (void)__ssub8((int32_t)m, (int32_t)a);
                     m = __sel(m, a);
                     memcpy(&b, q + ch + c, 4);
-                    (void)__ssub8(m, b);
+                    (void)__ssub8((int32_t)m, (int32_t)b);
                     m = __sel(m, b);
                     memcpy(out + ch, &m, 4);
                 }
