@@ -13,9 +13,16 @@ the last ``K % 4`` values one by one, the first pixel's then the second's
 four values of the first then four of the second, in order. So on the DSP
 path one 32-bit load of four weights gives the pairs (0, 2) and (1, 3) through
 ``SXTB16`` of the word and of the word rotated by 8, which line up with the
-patch's two words, and ``SMLAD`` does two products each. The
-requantisation's per-channel constants are worked out once for both pixels
-(``_out2`` in :data:`tinyconv.export.c_fast.REQUANT`).
+patch's two words, and ``SMLAD`` does two products each.
+
+Patches: an inside window whose kernel rows fill groups of four is one call of
+the group copier; a short K whose rows do not (first layers of 1 or 3
+channels) goes by an offset table, two inside pixels at once; the rest row by
+row. Under GCC-compatible compilers the DSP path's group step is written out
+in assembly (GCC's scheduler spills the C), with LDRD where the weights and
+the patch pair are word-aligned. The requantisation's per-channel constants
+are worked out once for both pixels (``_out2`` in
+:data:`tinyconv.export.c_fast.REQUANT`).
 """
 
 #: order of a group's four values in the patch
@@ -34,8 +41,8 @@ PATCH = r"""
 /* rows x n4 whole groups of four values as int16 x - zp: row r read from
    src + r * stride, written 16 bytes a group (one slot of the interleaved pair,
    each group as values 0, 2, 1, 3) and on from row to row. */
-@U@_OUTLINE void @P@_groups(const int8_t *src, int32_t stride, int8_t *dst, int32_t rows,
-                       int32_t n4, int32_t xz)
+@U@_OUTLINE void @P@_groups(const int8_t *src, int32_t stride, int8_t *dst,
+                            int32_t rows, int32_t n4, int32_t xz)
 {
     int32_t r, g;
 #if @U@_USE_DSP
@@ -77,8 +84,8 @@ PATCH = r"""
 
 /* Values j .. j + n - 1 of pixel q's patch as int16 x - zp into the interleaved
    pair at col (zeros when src is 0: taps in the padding). */
-@U@_OUTLINE void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n, int32_t xz,
-                    int32_t full, int32_t q)
+@U@_OUTLINE void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n,
+                         int32_t xz, int32_t full, int32_t q)
 {
     int32_t e = j + n;
     int16_t v = 0;
@@ -123,8 +130,9 @@ PATCH = r"""
 
 /* One output pixel's receptive field (kernel rows, columns, channels: the
    weights' order) into slot q of the interleaved pair at col. */
-@U@_OUTLINE void @P@_patch(const int8_t *x, int8_t *col, int32_t q, int32_t h, int32_t w,
-                      int32_t c, int32_t k, int32_t iy0, int32_t ix0, int32_t xz)
+@U@_OUTLINE void @P@_patch(const int8_t *x, int8_t *col, int32_t q, int32_t h,
+                           int32_t w, int32_t c, int32_t k, int32_t iy0, int32_t ix0,
+                           int32_t xz)
 {
     int32_t ky, kx, row = k * c, full = (k * row) & ~3;
     if ((row & 3) == 0 && iy0 >= 0 && ix0 >= 0 && iy0 + k <= h && ix0 + k <= w) {
@@ -149,7 +157,7 @@ PATCH = r"""
 """
 
 CONV = r"""
-/* The longest K patched by table (its two int16 tables live on the stack). */
+/* The longest K patched by table (its two tables, 3 bytes a value, live on the stack). */
 #define @U@_TABLE 32
 
 /* One group of four values of K for filters a, b (weights at wp + 8 j) and
