@@ -199,7 +199,7 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
 
 DOT_DIRECT = r"""
 /* sum_i w[i] * x[i] over n int8 values, two rows of weights at once (a0: w0, a1: w1). */
-static void @P@_dot2(const int8_t *x, const int8_t *w0, const int8_t *w1, int32_t n,
+@U@_OUTLINE void @P@_dot2(const int8_t *x, const int8_t *w0, const int8_t *w1, int32_t n,
                      int32_t *a0, int32_t *a1)
 {
     int32_t i = 0, s0 = *a0, s1 = *a1;

@@ -88,22 +88,18 @@ PATCH = r"""
                          int32_t xz, int32_t full, int32_t q)
 {
     int32_t e = j + n;
-    int16_t v = 0;
-    if (src) {
-        for (; j < e && ((j & 3) || j >= full); ++j) {  /* up to a group's start, or the tail */
-            v = (int16_t)(*src++ - xz);
-            memcpy(col + @P@_at(j, full, q), &v, 2);
-        }
-        if (j < full && e - j >= 4) {  /* whole groups */
+    while (j < e) {
+        int16_t v = 0;
+        if (src && (j & 3) == 0 && j + 4 <= e && j + 4 <= full) {  /* whole groups */
             int32_t n4 = ((e < full ? e : full) - j) >> 2;
             @P@_groups(src, 0, col + 4 * j + 8 * q, 1, n4, xz);
             j += 4 * n4;
             src += 4 * n4;
+            continue;
         }
-    }
-    for (; j < e; ++j) {  /* the rest one by one (all of a padding run) */
-        if (src) v = (int16_t)(*src++ - xz);
+        if (src) v = (int16_t)(*src++ - xz);  /* one value (all of a padding run) */
         memcpy(col + @P@_at(j, full, q), &v, 2);
+        ++j;
     }
 }
 
