@@ -41,6 +41,8 @@ from pathlib import Path
 
 import numpy as np
 
+import _fixed_cost  # noqa: E402 (from this folder, before it leaves the path)
+
 # This file is named like the package it measures: keep its folder off the path.
 _HERE = Path(__file__).resolve().parent
 sys.path[:] = [p for p in sys.path if Path(p or ".").resolve() != _HERE]
@@ -119,7 +121,8 @@ def halving_vs_full(root: Path, data: str, epochs: int, base_epochs: int, sample
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small data, few candidates")
-    parser.add_argument("--part", choices=("all", "throughput", "sh"), default="all")
+    parser.add_argument("--part", choices=("all", "throughput", "sh", "fixed", "budget"),
+                        default="all")
     parser.add_argument("--keep", default=None, metavar="DIR",
                         help="keep the run folders in DIR (must be new or empty)")
     parser.add_argument("--candidates", type=int, default=None, metavar="N",
@@ -134,6 +137,12 @@ def main(argv=None) -> int:
                         help="epochs per unit in part 1 (default 27; 2 with --quick)")
     parser.add_argument("--repeats", type=int, default=2, metavar="R",
                         help="runs of each worker count in part 1, alternated (default 2)")
+    parser.add_argument("--fixed-candidates", type=int, default=None, metavar="N",
+                        help="candidates of the fixed-cost and budget parts (default 12; "
+                             "4 with --quick)")
+    parser.add_argument("--search-option", action="append", default=[], metavar="OPT",
+                        help="one more 'tinyconv search' option for the fixed-cost and "
+                             "budget parts (repeatable, e.g. --search-option=--report=later)")
     parser.add_argument("--lr", type=float, default=None,
                         help="learning rate of every unit (default: the demo's)")
     args = parser.parse_args(argv)
@@ -166,6 +175,14 @@ def main(argv=None) -> int:
             throughput(root, data, t_sample, t_epochs, 1 if args.quick else args.repeats)
         if args.part in ("all", "sh"):
             halving_vs_full(root, data, epochs, base_epochs, sample, workers=2)
+        f_sample = args.fixed_candidates or (4 if args.quick else 12)
+        extra = [*args.search_option, *(["--lr", str(args.lr)] if args.lr else [])]
+        if args.part in ("all", "fixed"):
+            _fixed_cost.fixed_cost(root, data, f_sample, 2 if args.quick else 3,
+                                   1 if args.quick else args.repeats, extra)
+        if args.part in ("all", "budget"):
+            _fixed_cost.budgeted_vs_exhaustive(root, data, f_sample, epochs, base_epochs, 2,
+                                               extra)
     finally:
         if not args.keep:
             shutil.rmtree(root, ignore_errors=True)
