@@ -249,7 +249,7 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     from tinyconv.data import fit_normalisation, normalise
     from tinyconv.network import Network
     from tinyconv.losses import log_softmax
-    from tinyconv.train import TrainConfig, evaluate, fit
+    from tinyconv.train import TrainConfig, eval_batch, evaluate, fit
 
     from search.recipes import arch_of
     from search.schedule import derive_seed
@@ -258,9 +258,10 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     x_all = data.prepared(arch.input)                       # (n, h, w, c) float32
     train = np.flatnonzero(data.folds != task.fold)
     held = np.flatnonzero(data.folds == task.fold)
-    mean, std = fit_normalisation(x_all[train])             # training part only
-    x_train, y_train = normalise(x_all[train], mean, std), data.labels[train]
-    x_held, y_held = normalise(x_all[held], mean, std), data.labels[held]
+    x_train, x_held = x_all[train], x_all[held]             # copies (fancy indexing)
+    mean, std = fit_normalisation(x_train)                   # training part only
+    x_train, y_train = normalise(x_train, mean, std, out=x_train), data.labels[train]
+    x_held, y_held = normalise(x_held, mean, std, out=x_held), data.labels[held]
 
     net = Network.from_arch(arch, task.n_classes, seed=derive_seed(task.seed, "weights"))
     config = TrainConfig(epochs=task.epochs, seed=derive_seed(task.seed, "batches"),
@@ -277,9 +278,9 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
                           wall_s=time.perf_counter() - wall0, history=history)
     train_loss, train_acc = evaluate(net, x_train, y_train)
     # One pass over the held-out fold gives the kept probabilities and its figures.
-    x_eval = x_held.astype(net.dtype, copy=False)
-    logp = np.concatenate([log_softmax(net.forward(x_eval[i:i + 256], training=False))
-                           for i in range(0, x_eval.shape[0], 256)])      # (m, K)
+    x_eval, step = x_held.astype(net.dtype, copy=False), eval_batch(net)
+    logp = np.concatenate([log_softmax(net.forward(x_eval[i:i + step], training=False))
+                           for i in range(0, x_eval.shape[0], step)])     # (m, K)
     pred = logp.argmax(axis=1).astype(np.int64)
     held_loss = float(-logp[np.arange(y_held.size), y_held].astype(np.float64).mean())
     held_acc = float(np.mean(pred == y_held))
