@@ -355,27 +355,46 @@ def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], o
     return loss_sum, correct, True
 
 
-def predict_proba(net, x: np.ndarray, batch: int = 256) -> np.ndarray:
+#: Bytes of the largest activation of one evaluation batch: about twice a core's
+#: L2 cache on the machines measured (1 MiB), where per-image evaluation time was
+#: lowest (benchmarks/sizes.py: batches of 8-16 at 64 x 64, 32-64 at 32 x 32).
+EVAL_BATCH_BYTES = 2 << 20
+EVAL_BATCH_LIMITS = (8, 256)
+
+
+def eval_batch(net) -> int:
+    """Images per evaluation batch for ``net``: a power of two, so that the batch's
+    largest activation takes about :data:`EVAL_BATCH_BYTES` (within the limits)."""
+    largest = max(int(np.prod(shape)) for op in net.ops for shape in (op.in_shape, op.out_shape))
+    fit = max(1, EVAL_BATCH_BYTES // (largest * np.dtype(net.dtype).itemsize))
+    low, high = EVAL_BATCH_LIMITS
+    return int(min(high, max(low, 1 << (int(fit).bit_length() - 1))))
+
+
+def predict_proba(net, x: np.ndarray, batch: int | None = None) -> np.ndarray:
     """Class probabilities in evaluation mode, ``batch`` images at a time.
 
     Parameters
     ----------
     net : Network
     x : ndarray, shape (n, h, w, c)
-    batch : int
+    batch : int, optional
+        :func:`eval_batch` when omitted.
 
     Returns
     -------
     ndarray, shape (n, K), rows summing to 1.
     """
     x = np.asarray(x, dtype=net.dtype)
+    batch = batch or eval_batch(net)
     out = np.empty((x.shape[0], net.n_classes), dtype=net.dtype)
     for i in range(0, x.shape[0], batch):
         out[i:i + batch] = softmax(net.forward(x[i:i + batch], training=False))
     return out
 
 
-def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int = 256) -> tuple[float, float]:
+def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int | None = None
+             ) -> tuple[float, float]:
     """Mean cross-entropy (no smoothing) and accuracy in evaluation mode.
 
     Parameters
@@ -383,7 +402,8 @@ def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int = 256) -> tuple[float
     net : Network
     x : ndarray, shape (n, h, w, c)
     y : ndarray, shape (n,), int
-    batch : int
+    batch : int, optional
+        :func:`eval_batch` when omitted.
 
     Returns
     -------
@@ -392,6 +412,7 @@ def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int = 256) -> tuple[float
     x = np.asarray(x, dtype=net.dtype)
     y = np.asarray(y)
     n = x.shape[0]
+    batch = batch or eval_batch(net)
     loss_sum, correct = 0.0, 0
     for i in range(0, n, batch):
         logits = net.forward(x[i:i + batch], training=False)
