@@ -121,9 +121,19 @@ def _im2col_kernel(xp, c, stride, out):
                     dst = out[b, y, x, i]
                     if span == 9:
                         _copy9(src, dst)
+                    elif span == 3:
+                        _copy3(src, dst)
                     else:
                         for q in range(span):
                             dst[q] = src[q]
+
+
+@njit(cache=True, inline="always")
+def _copy3(src, dst):
+    """``dst[:3] = src[:3]``, every load before the first store (a 3 x 3 kernel's row on
+    one grey channel)."""
+    a0, a1, a2 = src[0], src[1], src[2]
+    dst[0], dst[1], dst[2] = a0, a1, a2
 
 
 @njit(cache=True, inline="always")
