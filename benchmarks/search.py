@@ -6,8 +6,10 @@ Usage::
     python benchmarks/search.py --quick      # small data and few candidates (smoke run)
     python benchmarks/search.py --part sh    # only successive halving vs --full
     python benchmarks/search.py --part throughput --throughput-candidates 12 --throughput-epochs 3
+    python benchmarks/search.py --part fixed --search-option=--report-later
+    python benchmarks/search.py --part budget
 
-Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
+Four parts, each on fresh run folders (in a temporary folder unless ``--keep``):
 
 1. **Throughput**: the same units (``--full`` on a seeded sample of the demo
    space) with 1 and with 2 local worker processes, alternated (1, 2, 1, 2,
@@ -25,6 +27,10 @@ Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
    full run, a mean accuracy within one standard error of the full run's best.
    The full run's units at the final epochs use the same seeds as the halving
    run's, so the pick's full figures are those of an identical training.
+
+3. **Fixed cost per search** and 4. **budgeted vs exhaustive**: whole
+   ``tinyconv search`` processes, CPU with their workers minus the units'
+   training CPU (:mod:`_fixed_cost`).
 
 The machine is shared: compare the figures within one run only.
 """
