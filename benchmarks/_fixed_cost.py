@@ -60,27 +60,36 @@ def cli_search(out: Path, data: str, workers: int, extra: list[str]) -> Measured
     return Measured(cpu, float(training), wall, int(units))
 
 
+#: What the fixed-cost and budget parts compare in one run: the search as it
+#: comes, and with the report left for later.
+VARIANTS = (("report written", []), ("--report-later", ["--report-later"]))
+
+
 def fixed_cost(root: Path, data: str, sample: int, epochs: int, repeats: int,
                extra: list[str]) -> None:
-    """Whole-process CPU minus training CPU with 1 and 2 workers, alternated."""
+    """Whole-process CPU minus training CPU with 1 and 2 workers, each variant, alternated."""
     print(f"\nfixed cost per search: 'tinyconv search' processes, --full, {sample} sampled "
           f"candidates x 3 folds, {epochs} epochs, {data}"
           + (f", {' '.join(extra)}" if extra else "")
-          + f"; 1 and 2 workers alternated, {repeats} runs each, warm kernel cache")
+          + f"; 1 and 2 workers and {len(VARIANTS)} variants alternated, {repeats} runs each, "
+            "warm kernel cache; medians [min-max]")
     cli_search(root / "fixed_warm", data, 2, ["--full", "--top-epochs", "1",
                                                "--max-candidates", "2", *extra])
-    runs: dict[int, list[Measured]] = {1: [], 2: []}
+    runs: dict[tuple[str, int], list[Measured]] = {}
     for r in range(repeats):
-        for workers in (1, 2):
-            runs[workers].append(cli_search(
-                root / f"fixed_w{workers}_{r}", data, workers,
-                ["--full", "--top-epochs", str(epochs), "--max-candidates", str(sample),
-                 *extra]))
-    print(f"{'workers':>7}  {'units':>5}  {'whole CPU s':>11}  {'training CPU s':>14}  "
-          f"{'fixed CPU s':>18}  {'wall s':>6}")
-    for workers, ms in runs.items():
+        for name, options in VARIANTS:
+            for workers in (1, 2):
+                tag = f"{'later' if options else 'report'}_w{workers}_{r}"
+                runs.setdefault((name, workers), []).append(cli_search(
+                    root / f"fixed_{tag}", data, workers,
+                    ["--full", "--top-epochs", str(epochs), "--max-candidates", str(sample),
+                     *options, *extra]))
+    print(f"{'variant':>15}  {'workers':>7}  {'units':>5}  {'whole CPU s':>11}  "
+          f"{'training CPU s':>14}  {'fixed CPU s':>18}  {'wall s':>6}")
+    for (name, workers), ms in runs.items():
         fixed = [m.fixed for m in ms]
-        print(f"{workers:>7}  {ms[0].units:>5}  {np.median([m.whole_cpu for m in ms]):11.2f}  "
+        print(f"{name:>15}  {workers:>7}  {ms[0].units:>5}  "
+              f"{np.median([m.whole_cpu for m in ms]):11.2f}  "
               f"{np.median([m.training_cpu for m in ms]):14.2f}  "
               f"{np.median(fixed):6.2f} [{min(fixed):.2f}-{max(fixed):.2f}]  "
               f"{np.median([m.wall for m in ms]):6.1f}")
@@ -88,20 +97,24 @@ def fixed_cost(root: Path, data: str, sample: int, epochs: int, repeats: int,
 
 def budgeted_vs_exhaustive(root: Path, data: str, sample: int, epochs: int, base_epochs: int,
                            workers: int, extra: list[str]) -> None:
-    """A budgeted search at a third of the exhaustive run's training CPU, whole processes."""
+    """A budgeted search at a third of the exhaustive run's training CPU, whole processes,
+    for each variant."""
     common = ["--top-epochs", str(epochs), "--base-epochs", str(base_epochs),
               "--max-candidates", str(sample), *extra]
-    full = cli_search(root / "bud_full", data, workers, ["--full", *common])
-    budget = full.training_cpu / 3
-    cut = cli_search(root / "bud_third", data, workers,
-                     ["--budget-cpu", f"{budget:.1f}s", *common])
     print(f"\nbudgeted search vs exhaustive (whole 'tinyconv search' processes, {workers} "
           f"workers, {sample} candidates, R = {epochs}, rungs from {base_epochs}"
           + (f", {' '.join(extra)}" if extra else "") + ")")
-    print(f"{'run':>22}  {'units':>5}  {'whole CPU s':>11}  {'training CPU s':>14}  "
-          f"{'fixed CPU s':>11}")
-    for name, m in (("exhaustive (--full)", full), (f"--budget-cpu {budget:.1f}s", cut)):
-        print(f"{name:>22}  {m.units:>5}  {m.whole_cpu:11.2f}  {m.training_cpu:14.2f}  "
-              f"{m.fixed:11.2f}")
-    print(f"budgeted / exhaustive: training CPU {cut.training_cpu / full.training_cpu:.3f}, "
-          f"whole-process CPU {cut.whole_cpu / full.whole_cpu:.3f}")
+    print(f"{'variant':>15}  {'run':>22}  {'units':>5}  {'whole CPU s':>11}  "
+          f"{'training CPU s':>14}  {'fixed CPU s':>11}")
+    for name, options in VARIANTS:
+        tag = "later" if options else "report"
+        full = cli_search(root / f"bud_full_{tag}", data, workers, ["--full", *options, *common])
+        budget = full.training_cpu / 3
+        cut = cli_search(root / f"bud_third_{tag}", data, workers,
+                         ["--budget-cpu", f"{budget:.1f}s", *options, *common])
+        for run, m in (("exhaustive (--full)", full), (f"--budget-cpu {budget:.1f}s", cut)):
+            print(f"{name:>15}  {run:>22}  {m.units:>5}  {m.whole_cpu:11.2f}  "
+                  f"{m.training_cpu:14.2f}  {m.fixed:11.2f}")
+        print(f"{name:>15}  budgeted / exhaustive: training CPU "
+              f"{cut.training_cpu / full.training_cpu:.3f}, whole-process CPU "
+              f"{cut.whole_cpu / full.whole_cpu:.3f}")

@@ -6,7 +6,7 @@ Usage::
     python benchmarks/search.py --quick      # small data and few candidates (smoke run)
     python benchmarks/search.py --part sh    # only successive halving vs --full
     python benchmarks/search.py --part throughput --throughput-candidates 12 --throughput-epochs 3
-    python benchmarks/search.py --part fixed --search-option=--report-later
+    python benchmarks/search.py --part fixed
     python benchmarks/search.py --part budget
 
 Four parts, each on fresh run folders (in a temporary folder unless ``--keep``):
