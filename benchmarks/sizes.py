@@ -15,7 +15,7 @@ interleaved, CPU seconds of this process (``time.process_time``):
    image (``tracemalloc``: the unit's copies, not the shared prepared images).
 2. **Evaluation batches**: per-image microseconds of an evaluation-mode
    forward at batches of 32 and 256 and at the batch the engine picks
-   (``tinyconv.train.eval_batch``, when it exists).
+   (``tinyconv.eval_batches.eval_batch``, when it exists).
 3. **Normalisation statistics**: ``fit_normalisation`` on 2,000 prepared
    64 x 64 colour images against the whole-float64-copy formula it must
    equal bit for bit: CPU seconds, peak tracked memory, and whether the
@@ -84,11 +84,13 @@ def units(repeats: int, per_class: int) -> None:
 
 
 def eval_batches(repeats: int) -> None:
-    from tinyconv import train
     from tinyconv.network import Network
-    pick = getattr(train, "eval_batch", None)
+    try:
+        from tinyconv.eval_batches import eval_batch as pick
+    except ImportError:  # an engine from before evaluation batches were picked
+        pick = None
     print("\n2. evaluation forward, microseconds per image (512 images), median of "
-          f"{repeats}; 'picked' = tinyconv.train.eval_batch")
+          f"{repeats}; 'picked' = tinyconv.eval_batches.eval_batch")
     print(f"  {'network':<34}{'batch 32':>10}{'batch 256':>10}{'picked':>14}{'256/32':>8}")
     for layers in LAYERS:
         for size in (32, 64):

@@ -249,7 +249,8 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     from tinyconv.data import fit_normalisation, normalise
     from tinyconv.network import Network
     from tinyconv.losses import log_softmax
-    from tinyconv.train import TrainConfig, eval_batch, evaluate, fit
+    from tinyconv.eval_batches import eval_batch
+    from tinyconv.train import TrainConfig, evaluate, fit
 
     from search.recipes import arch_of
     from search.schedule import derive_seed

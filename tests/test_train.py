@@ -169,7 +169,7 @@ def test_bad_settings_and_data_are_refused():
 def test_eval_batch_follows_the_largest_activation():
     """Evaluation batches shrink as the largest activation grows, within the limits."""
     from tinyconv.network import Network
-    from tinyconv.train import EVAL_BATCH_LIMITS, eval_batch
+    from tinyconv.eval_batches import EVAL_BATCH_LIMITS, eval_batch
     sizes = [eval_batch(Network.from_arch(t, 4)) for t in
              ("8x8gray/c4k3-gap", "32x32rgb/c16k3-p2-gap", "64x64rgb/c16k3-p2-gap",
               "96x96rgb/c64k3-gap")]

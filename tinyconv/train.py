@@ -51,6 +51,7 @@ import numpy as np
 
 from tinyconv.augment import Augment, parse_augment
 from tinyconv.errors import DataError, InputError
+from tinyconv.eval_batches import eval_batch
 from tinyconv.losses import check_smoothing, log_softmax, softmax, softmax_cross_entropy
 from tinyconv.optim import DECAY_KINDS, SCHEDULES, SGD, Adam, learning_rate
 
@@ -353,22 +354,6 @@ def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], o
             loss_sum += loss * len(idx)
             correct += int((logits.argmax(axis=1) == y[idx]).sum())
     return loss_sum, correct, True
-
-
-#: Bytes of the largest activation of one evaluation batch: about twice a core's
-#: L2 cache on the machines measured (1 MiB), where per-image evaluation time was
-#: lowest (benchmarks/sizes.py: batches of 8-16 at 64 x 64, 32-64 at 32 x 32).
-EVAL_BATCH_BYTES = 2 << 20
-EVAL_BATCH_LIMITS = (8, 256)
-
-
-def eval_batch(net) -> int:
-    """Images per evaluation batch for ``net``: a power of two, so that the batch's
-    largest activation takes about :data:`EVAL_BATCH_BYTES` (within the limits)."""
-    largest = max(int(np.prod(shape)) for op in net.ops for shape in (op.in_shape, op.out_shape))
-    fit = max(1, EVAL_BATCH_BYTES // (largest * np.dtype(net.dtype).itemsize))
-    low, high = EVAL_BATCH_LIMITS
-    return int(min(high, max(low, 1 << (int(fit).bit_length() - 1))))
 
 
 def predict_proba(net, x: np.ndarray, batch: int | None = None) -> np.ndarray:
