@@ -2,7 +2,7 @@
 
 Usage::
 
-    python benchmarks/engine.py                      # N1-N4, train + infer, 1 and 2 threads
+    python benchmarks/engine.py                      # N1-N5, train + infer, 1 and 2 threads
     python benchmarks/engine.py --json out.json      # also write the records
     python benchmarks/engine.py --quick --no-startup # one repeat of two steps (smoke run)
     python benchmarks/engine.py --profile N2,N3      # time per layer of one training step
@@ -33,7 +33,7 @@ if str(HERE) not in sys.path:
 import _report  # noqa: E402  (after the path fix; imports no NumPy)
 import _timing  # noqa: E402
 
-NETS = ("N1", "N2", "N3", "N4")
+NETS = ("N1", "N2", "N3", "N4", "N5")
 MODES = ("train", "infer")
 
 
@@ -61,7 +61,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="benchmarks/engine.py", description=__doc__.split("\n")[0])
     p.add_argument("--threads", type=_threads, default=(1, 2), help="thread counts (1,2)")
     p.add_argument("--nets", type=lambda s: _names(s, NETS, "nets"), default=NETS,
-                   help="reference networks (N1,N2,N3,N4)")
+                   help="reference networks (N1,N2,N3,N4,N5)")
     p.add_argument("--modes", type=lambda s: _names(s, MODES, "modes"), default=MODES,
                    help="train, infer or both")
     p.add_argument("--repeats", type=int, default=5, help="timed repeats (>= 5 for figures)")

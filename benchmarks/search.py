@@ -6,8 +6,10 @@ Usage::
     python benchmarks/search.py --quick      # small data and few candidates (smoke run)
     python benchmarks/search.py --part sh    # only successive halving vs --full
     python benchmarks/search.py --part throughput --throughput-candidates 12 --throughput-epochs 3
+    python benchmarks/search.py --part fixed
+    python benchmarks/search.py --part budget
 
-Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
+Four parts, each on fresh run folders (in a temporary folder unless ``--keep``):
 
 1. **Throughput**: the same units (``--full`` on a seeded sample of the demo
    space) with 1 and with 2 local worker processes, alternated (1, 2, 1, 2,
@@ -26,6 +28,10 @@ Two parts, each on fresh run folders (in a temporary folder unless ``--keep``):
    The full run's units at the final epochs use the same seeds as the halving
    run's, so the pick's full figures are those of an identical training.
 
+3. **Fixed cost per search** and 4. **budgeted vs exhaustive**: whole
+   ``tinyconv search`` processes, CPU with their workers minus the units'
+   training CPU (:mod:`_fixed_cost`).
+
 The machine is shared: compare the figures within one run only.
 """
 
@@ -40,6 +46,8 @@ import time
 from pathlib import Path
 
 import numpy as np
+
+import _fixed_cost  # noqa: E402 (from this folder, before it leaves the path)
 
 # This file is named like the package it measures: keep its folder off the path.
 _HERE = Path(__file__).resolve().parent
@@ -119,7 +127,8 @@ def halving_vs_full(root: Path, data: str, epochs: int, base_epochs: int, sample
 def main(argv=None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--quick", action="store_true", help="small data, few candidates")
-    parser.add_argument("--part", choices=("all", "throughput", "sh"), default="all")
+    parser.add_argument("--part", choices=("all", "throughput", "sh", "fixed", "budget"),
+                        default="all")
     parser.add_argument("--keep", default=None, metavar="DIR",
                         help="keep the run folders in DIR (must be new or empty)")
     parser.add_argument("--candidates", type=int, default=None, metavar="N",
@@ -134,6 +143,12 @@ def main(argv=None) -> int:
                         help="epochs per unit in part 1 (default 27; 2 with --quick)")
     parser.add_argument("--repeats", type=int, default=2, metavar="R",
                         help="runs of each worker count in part 1, alternated (default 2)")
+    parser.add_argument("--fixed-candidates", type=int, default=None, metavar="N",
+                        help="candidates of the fixed-cost and budget parts (default 12; "
+                             "4 with --quick)")
+    parser.add_argument("--search-option", action="append", default=[], metavar="OPT",
+                        help="one more 'tinyconv search' option for the fixed-cost and "
+                             "budget parts (repeatable, e.g. --search-option=--report=later)")
     parser.add_argument("--lr", type=float, default=None,
                         help="learning rate of every unit (default: the demo's)")
     args = parser.parse_args(argv)
@@ -166,6 +181,14 @@ def main(argv=None) -> int:
             throughput(root, data, t_sample, t_epochs, 1 if args.quick else args.repeats)
         if args.part in ("all", "sh"):
             halving_vs_full(root, data, epochs, base_epochs, sample, workers=2)
+        f_sample = args.fixed_candidates or (4 if args.quick else 12)
+        extra = [*args.search_option, *(["--lr", str(args.lr)] if args.lr else [])]
+        if args.part in ("all", "fixed"):
+            _fixed_cost.fixed_cost(root, data, f_sample, 2 if args.quick else 3,
+                                   1 if args.quick else args.repeats, extra)
+        if args.part in ("all", "budget"):
+            _fixed_cost.budgeted_vs_exhaustive(root, data, f_sample, epochs, base_epochs, 2,
+                                               extra)
     finally:
         if not args.keep:
             shutil.rmtree(root, ignore_errors=True)

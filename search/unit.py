@@ -249,6 +249,7 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     from tinyconv.data import normalise_fold
     from tinyconv.network import Network
     from tinyconv.losses import log_softmax
+    from tinyconv.eval_batches import eval_batch
     from tinyconv.train import TrainConfig, evaluate, fit
 
     from search.folds import fold_split
@@ -277,9 +278,9 @@ def _run(task: UnitTask, data: UnitData, cpu0: float, wall0: float) -> UnitResul
     train_loss, train_acc = evaluate(net, x_train, y_train)
     # One pass over the held-out fold gives the kept probabilities and its figures
     # (evaluate() keeps no probabilities, and sums its loss in float32 batch by batch).
-    x_eval = x_held.astype(net.dtype, copy=False)
-    logp = np.concatenate([log_softmax(net.forward(x_eval[i:i + 256], training=False))
-                           for i in range(0, x_eval.shape[0], 256)])      # (m, K)
+    x_eval, step = x_held.astype(net.dtype, copy=False), eval_batch(net)
+    logp = np.concatenate([log_softmax(net.forward(x_eval[i:i + step], training=False))
+                           for i in range(0, x_eval.shape[0], step)])     # (m, K)
     pred = logp.argmax(axis=1).astype(np.int64)
     held_loss = float(-logp[np.arange(y_held.size), y_held].astype(np.float64).mean())
     held_acc = float(np.mean(pred == y_held))

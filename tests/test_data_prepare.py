@@ -153,3 +153,30 @@ def test_fold_statistics_ignore_held_out_images():
     np.testing.assert_array_equal(std_a, std_b)
     np.testing.assert_allclose(mean_a, x[train].reshape(-1, 3).mean(axis=0), rtol=1e-6)
     assert not np.allclose(held_a, held_b)   # the held-out part itself did change
+
+
+@pytest.mark.parametrize("seed", range(12))
+def test_chunked_statistics_equal_whole_float64_ones_bit_for_bit(seed):
+    """Chunked float64 sums, mean and std equal those of a whole float64 copy exactly."""
+    from tinyconv.data.normalise import exact_sum
+    rng = np.random.default_rng(seed)
+    n, h, c = int(rng.integers(1, 90)), int(rng.integers(1, 30)), int(rng.choice([1, 2, 3, 4]))
+    x = (rng.random((n, h, h, c)) * rng.choice([1.0, 255.0])).astype(np.float32)
+    flat = x.reshape(-1, c).astype(np.float64)                 # the copy the chunks avoid
+    for chunk in (int(rng.integers(1, 700)), 4096, 1 << 16):
+        got = exact_sum(x.reshape(-1, c), lambda v: v.astype(np.float64), chunk)
+        np.testing.assert_array_equal(got, flat.sum(axis=0))
+    mean, std = fit_normalisation(x)
+    np.testing.assert_array_equal(mean, flat.mean(axis=0).astype(np.float32))
+    np.testing.assert_array_equal(std, np.maximum(flat.std(axis=0), 1e-3).astype(np.float32))
+
+
+def test_normalise_into_given_array_equals_new_array():
+    """normalise(..., out=x) writes into x exactly what normalise returns as a new array."""
+    x = np.random.default_rng(9).random((5, 3, 3, 3)).astype(np.float32)
+    mean, std = fit_normalisation(x)
+    fresh = normalise(x, mean, std)
+    kept = x.copy()
+    got = normalise(kept, mean, std, out=kept)
+    assert got is kept
+    np.testing.assert_array_equal(got, fresh)

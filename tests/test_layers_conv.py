@@ -25,6 +25,8 @@ SHAPES = [
     (4, 4, 2, 2, 3, 1, True),
     (6, 5, 2, 3, 2, 1, True),
     (9, 8, 2, 2, 4, 2, True),
+    (9, 8, 1, 3, 3, 2, False),
+    (7, 6, 1, 2, 3, 1, False),
 ]
 
 
@@ -173,3 +175,32 @@ def test_returned_gradients_are_not_overwritten_later(shape):
     layer.forward(randn((2,) + op.in_shape, 3), training=True)
     layer.backward(randn((2,) + op.out_shape, 4))
     np.testing.assert_array_equal(gx1, gx1_copy)
+
+
+@pytest.mark.parametrize("shape", SHAPES)
+@pytest.mark.parametrize("training", [True, False])
+def test_chunked_columns_match_the_loop_reference(shape, training, monkeypatch):
+    """With column matrices of a few images at a time, forward and gradients equal the loops."""
+    op, layer = _layer(shape, seed=3)
+    layer.input_grad = True
+    x = randn((7,) + op.in_shape, 4)
+    h, w, c, f, k, s, _ = shape
+    # Room for about two images' columns: chunks of 2, 2, 2 and 1 images.
+    rows = kc.conv_out_size(x.shape[1] + op.pads[0] + op.pads[1], k, s) * \
+        kc.conv_out_size(x.shape[2] + op.pads[2] + op.pads[3], k, s)
+    monkeypatch.setattr(kc, "COLS_CHUNK_BYTES", 2 * rows * k * k * c * x.itemsize)
+    assert kc.chunk_rows(rows, k * k * c, x.itemsize, 7) == 2
+    y = layer.forward(x, training=training)
+    want = reference.conv_forward(x, layer.params["w"], layer.params["b"], s, op.pads)
+    np.testing.assert_allclose(y, want, rtol=1e-10, atol=1e-12)
+    if not training:
+        return
+    g = randn(y.shape, 5)
+    gx = layer.backward(g)
+    gx_want, gw_want, gb_want = reference.conv_backward(g, x, layer.params["w"], s, op.pads)
+    np.testing.assert_allclose(gx, gx_want, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["w"], gw_want, rtol=1e-10, atol=1e-12)
+    np.testing.assert_allclose(layer.grads["b"], gb_want, rtol=1e-10, atol=1e-12)
+    again = layer.forward(x, training=True)            # the kept buffers are reused
+    np.testing.assert_array_equal(again, y)
+    np.testing.assert_array_equal(layer.backward(g), gx)

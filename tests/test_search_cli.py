@@ -155,3 +155,18 @@ def test_a_narrow_terminal_drops_columns_and_says_so():
     assert "accuracy" in narrow[1] and "parameters" in narrow[1] and "epochs" in narrow[1]
     assert narrow[-2].startswith("(left out to fit the terminal: MACs per image, training")
     assert narrow[-1].endswith("ranking.csv has every column)")
+
+
+def test_report_later_writes_no_report(space, tmp_path, capsys, monkeypatch):
+    """--report-later ends the search without drawing the report and says how to write it."""
+    import tinyconv.commands.search as cmd
+
+    def refuse(run_dir):
+        raise AssertionError("the report was drawn despite --report-later")
+
+    monkeypatch.setattr(cmd, "write_report_if_available", refuse)
+    out = tmp_path / "run"
+    assert main(_args(space, out, "--report-later")) == 0
+    text = capsys.readouterr().out
+    assert f"report: not written (--report-later); 'tinyconv report {out}' writes it" in text
+    assert (out / "ranking.csv").exists() and not (out / "report.html").exists()

@@ -164,3 +164,28 @@ def test_bad_settings_and_data_are_refused():
     with pytest.raises(DataError, match=r"training labels must be in 0\.\.3 for a network of "
                                         r"4 classes, got values 0\.\.4"):
         fit(net, x, np.minimum(y + 1, 4) * (y > 0), TrainConfig(epochs=1))
+
+
+def test_eval_batch_follows_the_largest_activation():
+    """Evaluation batches shrink as the largest activation grows, within the limits."""
+    from tinyconv.network import Network
+    from tinyconv.eval_batches import EVAL_BATCH_LIMITS, eval_batch
+    sizes = [eval_batch(Network.from_arch(t, 4)) for t in
+             ("8x8gray/c4k3-gap", "32x32rgb/c16k3-p2-gap", "64x64rgb/c16k3-p2-gap",
+              "96x96rgb/c64k3-gap")]
+    assert sizes == [256, 32, 8, 8]
+    assert all(EVAL_BATCH_LIMITS[0] <= s <= EVAL_BATCH_LIMITS[1] for s in sizes)
+
+
+def test_evaluation_does_not_depend_on_the_batch():
+    """Predictions and accuracy are the same at the chosen batch and at 256 images."""
+    from tinyconv.network import Network
+    from tinyconv.train import eval_batch, evaluate, predict_proba
+    net = Network.from_arch("32x32rgb/c16k3-p2-c16k3-gap", 3, seed=1)
+    rng = np.random.default_rng(2)
+    x = rng.standard_normal((300, 32, 32, 3)).astype(np.float32)
+    y = rng.integers(0, 3, 300)
+    assert eval_batch(net) < 256
+    np.testing.assert_array_equal(predict_proba(net, x).argmax(1),
+                                  predict_proba(net, x, batch=256).argmax(1))
+    np.testing.assert_allclose(evaluate(net, x, y), evaluate(net, x, y, batch=256), rtol=1e-6)

@@ -50,6 +50,7 @@ import numpy as np
 
 from tinyconv.augment import Augment, parse_augment
 from tinyconv.errors import DataError, InputError
+from tinyconv.eval_batches import eval_batch
 from tinyconv.losses import log_softmax, softmax, softmax_cross_entropy
 from tinyconv.optim import SGD, Adam, learning_rate
 from tinyconv.train_config import (AUGMENT_STREAM, MAX_COPIES, OPTIMISERS,  # noqa: F401
@@ -254,27 +255,30 @@ def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], o
     return loss_sum, correct, True
 
 
-def predict_proba(net, x: np.ndarray, batch: int = 256) -> np.ndarray:
+def predict_proba(net, x: np.ndarray, batch: int | None = None) -> np.ndarray:
     """Class probabilities in evaluation mode, ``batch`` images at a time.
 
     Parameters
     ----------
     net : Network
     x : ndarray, shape (n, h, w, c)
-    batch : int
+    batch : int, optional
+        :func:`eval_batch` when omitted.
 
     Returns
     -------
     ndarray, shape (n, K), rows summing to 1.
     """
     x = np.asarray(x, dtype=net.dtype)
+    batch = batch or eval_batch(net)
     out = np.empty((x.shape[0], net.n_classes), dtype=net.dtype)
     for i in range(0, x.shape[0], batch):
         out[i:i + batch] = softmax(net.forward(x[i:i + batch], training=False))
     return out
 
 
-def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int = 256) -> tuple[float, float]:
+def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int | None = None
+             ) -> tuple[float, float]:
     """Mean cross-entropy (no smoothing) and accuracy in evaluation mode.
 
     Parameters
@@ -282,7 +286,8 @@ def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int = 256) -> tuple[float
     net : Network
     x : ndarray, shape (n, h, w, c)
     y : ndarray, shape (n,), int
-    batch : int
+    batch : int, optional
+        :func:`eval_batch` when omitted.
 
     Returns
     -------
@@ -291,6 +296,7 @@ def evaluate(net, x: np.ndarray, y: np.ndarray, batch: int = 256) -> tuple[float
     x = np.asarray(x, dtype=net.dtype)
     y = np.asarray(y)
     n = x.shape[0]
+    batch = batch or eval_batch(net)
     loss_sum, correct = 0.0, 0
     for i in range(0, n, batch):
         logits = net.forward(x[i:i + batch], training=False)

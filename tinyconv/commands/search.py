@@ -125,6 +125,9 @@ def configure(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--skip-bad", action="store_true",
                         help="leave out unreadable images (they are counted) instead of "
                              "stopping with the list of them")
+    parser.add_argument("--report-later", action="store_true",
+                        help="end without writing the report (it costs a few CPU seconds: "
+                             "figures and page); 'tinyconv report DIR' writes it when wanted")
     add_search_options(parser)
 
 
@@ -159,6 +162,10 @@ def run(args: argparse.Namespace) -> int:
     progress = SearchProgress(request.budget_cpu_s, request.budget_epochs)
     summary = run_search(request, progress)
     print("\n".join(summary_lines(summary, width=terminal_width(sys.stdout) or None)))
+    if getattr(args, "report_later", False):
+        print(f"report: not written (--report-later); 'tinyconv report {summary.run_dir}' "
+              "writes it")
+        return 0
     state, text = write_report_if_available(summary.run_dir)
     if state == "written":
         print(f"report: {text}")

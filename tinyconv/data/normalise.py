@@ -10,6 +10,8 @@ from __future__ import annotations
 import numpy as np
 
 STD_FLOOR = 1e-3  # a constant channel (e.g. saturation of grey images) divides by this
+#: Values (pixels x channels) converted to float64 at a time by ``fit_normalisation``.
+CHUNK_VALUES = 1 << 16
 
 
 def fit_normalisation(x_train: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
@@ -28,19 +30,68 @@ def fit_normalisation(x_train: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     x = np.asarray(x_train)
     if x.ndim != 4 or x.shape[0] == 0:
         raise ValueError(f"x_train must have shape (n, h, w, c) with n >= 1, got {x.shape}")
-    flat = x.reshape(-1, x.shape[-1]).astype(np.float64)   # (n*h*w, c)
-    mean = flat.mean(axis=0)
-    std = np.maximum(flat.std(axis=0), STD_FLOOR)
+    flat = x.reshape(-1, x.shape[-1])                        # (n*h*w, c), no copy if contiguous
+    count = flat.shape[0]
+    mean = exact_sum(flat, lambda v: v.astype(np.float64)) / count
+    var = exact_sum(flat, lambda v: np.square(v.astype(np.float64) - mean)) / count
+    std = np.maximum(np.sqrt(var), STD_FLOOR)
     return mean.astype(np.float32), std.astype(np.float32)
 
 
-def normalise(x: np.ndarray, mean: np.ndarray, std: np.ndarray) -> np.ndarray:
-    """``(x - mean) / std`` per channel, float32, shape as ``x`` (..., c)."""
+def exact_sum(flat: np.ndarray, f, chunk: int | None = None) -> np.ndarray:
+    """``f(flat).sum(axis=0)`` bit for bit, with ``f`` applied to a few rows at a time.
+
+    NumPy sums a (rows, c) float64 array over axis 0 row after row when ``c > 1``
+    and pairwise (halves split on multiples of 8) when ``c == 1``; this follows
+    the same order, so that ``f``'s float64 values never exist for the whole
+    array at once (at most ``chunk`` values, default :data:`CHUNK_VALUES`).
+
+    Parameters
+    ----------
+    flat : ndarray, shape (rows, c)
+    f : callable mapping a block of rows (float32) to float64 values of its shape
+
+    Returns
+    -------
+    ndarray, shape (c,), float64
+    """
+    chunk = CHUNK_VALUES if chunk is None else chunk
+    rows, c = flat.shape
+    if c == 1:
+        return np.array([_pairwise(flat[:, 0], f, chunk)])
+    step = max(1, chunk // c)
+    total = np.add.reduce(f(flat[:step]), axis=0)
+    for start in range(step, rows, step):  # the running sum continues row by row
+        total = np.add.reduce(np.concatenate([total[None], f(flat[start:start + step])]),
+                              axis=0)
+    return total
+
+
+def _pairwise(v: np.ndarray, f, chunk: int) -> float:
+    """NumPy's pairwise sum of ``f(v)`` (1-D): its own halving above ``chunk`` values."""
+    n = v.shape[0]
+    if n <= max(chunk, 128):
+        return np.add.reduce(f(v))
+    half = n // 2
+    half -= half % 8
+    return _pairwise(v[:half], f, chunk) + _pairwise(v[half:], f, chunk)
+
+
+def normalise(x: np.ndarray, mean: np.ndarray, std: np.ndarray,
+              out: np.ndarray | None = None) -> np.ndarray:
+    """``(x - mean) / std`` per channel, float32, shape as ``x`` (..., c).
+
+    ``out`` (float32, shape as ``x``; may be ``x`` itself) receives the result,
+    bit for bit the same, without a new array.
+    """
     mean = np.asarray(mean, dtype=np.float32)
     std = np.asarray(std, dtype=np.float32)
     if mean.shape != (x.shape[-1],) or std.shape != mean.shape:
         raise ValueError(f"mean and std must have shape ({x.shape[-1]},) for images with "
                          f"{x.shape[-1]} channels, got {mean.shape} and {std.shape}")
+    if out is not None:
+        np.subtract(x, mean, out=out)
+        return np.divide(out, std, out=out)
     return ((x.astype(np.float32, copy=False) - mean) / std).astype(np.float32, copy=False)
 
 
@@ -62,6 +113,10 @@ def normalise_fold(x: np.ndarray, train: np.ndarray, held_out: np.ndarray
     mean, std : ndarray, shape (c,), float32
         Those statistics (store them with the network).
     """
-    x_train = x[train]
+    x_train, x_held = x[train], x[held_out]  # copies (index arrays), normalised in place
     mean, std = fit_normalisation(x_train)
-    return normalise(x_train, mean, std), normalise(x[held_out], mean, std), mean, std
+
+    def apply(part: np.ndarray) -> np.ndarray:
+        return normalise(part, mean, std, out=part if part.dtype == np.float32 else None)
+
+    return apply(x_train), apply(x_held), mean, std

@@ -7,7 +7,8 @@ import numpy as np
 from tinyconv.layers.base import Layer
 from tinyconv.layers.init import he_normal
 from tinyconv.layers.kernels_act import add_bias_, bias_relu_, column_sum, relu_backward
-from tinyconv.layers.convalg.im2col import col2im, conv_out_size, crop_nhwc, im2col, pad_nhwc
+from tinyconv.layers.convalg.im2col import (chunk_rows, col2im, conv_out_size, crop_nhwc,
+                                           im2col, pad_nhwc)
 from tinyconv.layers.convalg import winograd
 
 #: the values of ``Conv.algorithm``: "winograd" is Winograd F(2x2, 3x3) and "winograd4"
@@ -112,23 +113,50 @@ class Conv(Layer):
         buf = self._buffers if training else {}
         xp = pad_nhwc(x, self.pads, buf.get("xp"))
         oh, ow = conv_out_size(xp.shape[1], k, s), conv_out_size(xp.shape[2], k, s)
-        cols = im2col(xp, k, k, s, buf.get("cols"))  # (n*oh*ow, k*k*c_in)
+        w2 = w.reshape(k * k * self.c_in, f)
+        step = chunk_rows(oh * ow, k * k * self.c_in, x.itemsize, n)
+        if (k == 1 and s == 1) or step >= n:
+            cols = im2col(xp, k, k, s, buf.get("cols"))  # (n*oh*ow, k*k*c_in)
+            y = cols @ w2  # (n*oh*ow, f)
+            (bias_relu_ if relu else add_bias_)(y, b)
+        else:
+            cols, y = self._product_in_chunks(xp, w2, b, relu, step, buf, training)
         if training:
             if xp is not x:
                 buf["xp"] = xp
             if not (k == 1 and s == 1):  # else cols is a view of xp, not a buffer
                 buf["cols"] = cols.base
-        y = cols @ w.reshape(k * k * self.c_in, f)  # (n*oh*ow, f)
-        if relu:
-            bias_relu_(y, b)
-        else:
-            add_bias_(y, b)
         y = y.reshape(n, oh, ow, f)
         if training:
             self._cols, self._x_shape, self._xp_shape = cols, x.shape, xp.shape
             self._y = y if relu else None
             self._wino = None
         return y
+
+    def _product_in_chunks(self, xp: np.ndarray, w2: np.ndarray, b: np.ndarray, relu: bool,
+                           step: int, buf: dict, training: bool):
+        """im2col, product and bias ``step`` images at a time, each chunk's columns
+        still in cache when the product reads them; returns (cols, y (n*oh*ow, f)).
+
+        Training fills the whole batch's column matrix (the weight gradient reads
+        it); inference reuses one chunk's.
+        """
+        n, k, s = xp.shape[0], self.kernel, self.stride
+        oh, ow = conv_out_size(xp.shape[1], k, s), conv_out_size(xp.shape[2], k, s)
+        rows = oh * ow
+        shape = (n if training else step, oh, ow, k, k, self.c_in)
+        kept = buf.get("cols")
+        whole = kept if kept is not None and kept.shape == shape and kept.dtype == xp.dtype \
+            else np.empty(shape, dtype=xp.dtype)
+        y = np.empty((n * rows, w2.shape[1]), dtype=np.result_type(xp, w2))
+        for i in range(0, n, step):
+            m = min(step, n - i)
+            part = whole[i:i + m] if training else whole[:m]
+            cols = im2col(xp[i:i + m], k, k, s, part)    # (m*oh*ow, k*k*c_in), in ``part``
+            out = y[i * rows:(i + m) * rows]
+            np.matmul(cols, w2, out=out)
+            (bias_relu_ if relu else add_bias_)(out, b)
+        return whole.reshape(-1, k * k * self.c_in), y
 
     def resolve_algorithm(self, h: int, w: int, training: bool) -> str:
         """The algorithm a forward on ``h x w`` inputs runs: ``self.algorithm``, or for
@@ -180,16 +208,29 @@ class Conv(Layer):
         # A 1 x 1, stride-1 kernel returns the column gradient itself as grad_x,
         # so it gets a fresh array; otherwise col2im copies it and it is scratch.
         reuse = not (k == 1 and s == 1)
-        gcols = buf.get("gcols") if reuse else None
-        if gcols is None or gcols.shape != (g.shape[0], k * k * c) or gcols.dtype != g.dtype:
-            gcols = np.empty((g.shape[0], k * k * c), dtype=g.dtype)
-            if reuse:
-                buf["gcols"] = gcols
-        np.matmul(g, w.reshape(k * k * c, f).T, out=gcols)  # (n*oh*ow, k*k*c_in)
         n, h, wd, _ = self._x_shape
         padded = any(self.pads)
-        # The padded gradient is scratch only when it is cropped (a copy) before return.
-        gxp = col2im(gcols, self._xp_shape, k, k, s, buf.get("gxp") if padded else None)
+        rows = g.shape[0] // n                                   # oh * ow
+        step = chunk_rows(rows, k * k * c, g.itemsize, n) if reuse else n
+        gcols = buf.get("gcols") if reuse else None
+        if gcols is None or gcols.shape != (step * rows, k * k * c) or gcols.dtype != g.dtype:
+            gcols = np.empty((step * rows, k * k * c), dtype=g.dtype)
+            if reuse:
+                buf["gcols"] = gcols
+        w2t = w.reshape(k * k * c, f).T                          # (f, k*k*c_in)
+        if step >= n:
+            np.matmul(g, w2t, out=gcols)  # (n*oh*ow, k*k*c_in)
+            # The padded gradient is scratch only when it is cropped (a copy) before return.
+            gxp = col2im(gcols, self._xp_shape, k, k, s, buf.get("gxp") if padded else None)
+        else:  # the column gradient of ``step`` images at a time, scattered while in cache
+            gxp = buf.get("gxp") if padded else None
+            if gxp is None or gxp.shape != self._xp_shape or gxp.dtype != g.dtype:
+                gxp = np.empty(self._xp_shape, dtype=g.dtype)
+            for i in range(0, n, step):
+                m = min(step, n - i)
+                part = gcols[:m * rows]                          # (m*oh*ow, k*k*c_in)
+                np.matmul(g[i * rows:(i + m) * rows], w2t, out=part)
+                col2im(part, (m, *self._xp_shape[1:]), k, k, s, gxp[i:i + m])
         if padded:
             buf["gxp"] = gxp
         return crop_nhwc(gxp, self.pads, h, wd)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from dataclasses import dataclass, field
+from typing import Callable
 
 import numpy as np
 import pandas as pd
@@ -39,9 +40,15 @@ class Assembled:
     curve_candidates: list[str] = field(default_factory=list)
     boxes_left_out: int = 0
     notices: list[str] = field(default_factory=list)
+    reused: dict[str, bytes] = field(default_factory=dict)
 
 
-def _keep(out: Assembled, name: str, fig: Figure) -> None:
+def _keep(out: Assembled, name: str, draw: Callable[[], Figure]) -> None:
+    """The figure ``name``: its PNG drawn from the same data before, else ``draw()`` rendered."""
+    if name in out.reused:
+        out.figures[name] = out.reused[name]
+        return
+    fig = draw()
     out.figures[name] = png_bytes(fig)
     fig.clear()
 
@@ -87,15 +94,16 @@ def box_candidates(data: RunData) -> list[str]:
     return shown
 
 
-def assemble(data: RunData) -> Assembled:
+def assemble(data: RunData, reused: dict[str, bytes] | None = None) -> Assembled:
     """Render every figure and build every table of the report.
 
     Figures (names are the PNG file names): ``folds.png``, ``pareto_params.png``,
     ``pareto_macs.png``, ``curves.png``, and for the pick, when its held-out
     predictions are stored, ``confusion.png``; with the data set's images also
-    ``confusions_gallery.png`` and ``mistakes.png``.
+    ``confusions_gallery.png`` and ``mistakes.png``. ``reused`` holds PNGs drawn
+    from the same data before (:mod:`tinyconv.report.reuse`), taken as they are.
     """
-    out = Assembled(notices=list(data.notices))
+    out = Assembled(notices=list(data.notices), reused=dict(reused or {}))
     ranking = data.ranking
     pick = data.pick
     budgets = data.config.get("budget") or {}
@@ -106,22 +114,22 @@ def assemble(data: RunData) -> Assembled:
     out.tables["folds.csv"] = folds
     shown = box_candidates(data)
     out.boxes_left_out = len(ranking) - len(shown)
-    _keep(out, "folds.png", fold_boxes(folds[folds["candidate"].isin(shown)], chance=chance,
-                                       pick=pick["candidate"]))
+    _keep(out, "folds.png", lambda: fold_boxes(folds[folds["candidate"].isin(shown)],
+                                               chance=chance, pick=pick["candidate"]))
 
     fin = data.finalists
     order = {c: str(i) for i, c in enumerate(ranking["candidate"], 1)}   # as the table shows
     for axis in ("params", "macs"):
         _keep(out, f"pareto_{axis}.png",
-              pareto_plot(fin, axis, budget=axis_budget(budgets, axis), chance=chance,
-                          names=order))
+              lambda axis=axis: pareto_plot(fin, axis, budget=axis_budget(budgets, axis),
+                                            chance=chance, names=order))
 
     out.curve_candidates = curve_finalists(data)
     done = data.units[data.units["status"] == "done"]
-    _keep(out, "curves.png", learning_curves(done, out.curve_candidates, chance=chance,
-                                             pick=pick["candidate"],
-                                             labels=recipe_titles(data.ranking),
-                                             best=data.best["candidate"]))
+    _keep(out, "curves.png", lambda: learning_curves(done, out.curve_candidates, chance=chance,
+                                                     pick=pick["candidate"],
+                                                     labels=recipe_titles(data.ranking),
+                                                     best=data.best["candidate"]))
 
     out.tables["budgets.csv"] = budget_rows(budgets, pick, data.removed)
     arch = str(pick["arch"]) if "arch" in pick else str(pick["candidate"])
@@ -156,19 +164,26 @@ def assemble(data: RunData) -> Assembled:
         "confidence": conf[wrong],
         "path": [data.paths[i] if data.paths else "" for i in p.index[wrong]],
     })
-    _keep(out, "confusion.png", confusion_figure(counts, classes))
+    _keep(out, "confusion.png", lambda: confusion_figure(counts, classes))
     if data.images is None:
         return out
     examples = confusion_examples(p.label, p.pred, conf, pairs, PER_CONFUSION)
     shown = sorted({int(p.index[q]) for *_, pos in examples for q in pos}
                    | {int(p.index[q]) for q in wrong})
     spec = parse(str(pick["arch"]) if "arch" in pick else str(pick["candidate"])).input
-    seen = dict(zip(shown, network_view(data.images[shown], spec))) if shown else None
     seen_as = f"{spec.h}x{spec.w} {spec.mode}"
+    views: dict = {}
+
+    def seen():  # the pick's view of the images shown, made once if any gallery is drawn
+        if "seen" not in views:
+            views["seen"] = dict(zip(shown, network_view(data.images[shown], spec))) \
+                if shown else None
+        return views["seen"]
+
     _keep(out, "confusions_gallery.png",
-          confusion_gallery(data.images, examples, classes, confidence=conf, source=p.index,
-                            seen=seen, seen_as=seen_as))
-    _keep(out, "mistakes.png", mistakes_gallery(data.images, wrong, p.label, p.pred, conf,
-                                                classes, source=p.index, seen=seen,
-                                                seen_as=seen_as))
+          lambda: confusion_gallery(data.images, examples, classes, confidence=conf,
+                                    source=p.index, seen=seen(), seen_as=seen_as))
+    _keep(out, "mistakes.png", lambda: mistakes_gallery(data.images, wrong, p.label, p.pred,
+                                                        conf, classes, source=p.index,
+                                                        seen=seen(), seen_as=seen_as))
     return out

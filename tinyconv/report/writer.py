@@ -10,6 +10,7 @@ from tinyconv.errors import WriteError
 from tinyconv.files import why_not_written, writable_folder, write_bytes_whole
 from tinyconv.report.assemble import assemble
 from tinyconv.report.html import page
+from tinyconv.report.reuse import KEY_NAME, figure_key, record, reusable
 from tinyconv.report.rundata import RunData
 from tinyconv.report.decision import decision_panel
 from tinyconv.report.sections import all_sections
@@ -35,9 +36,12 @@ def render_report(data: RunData, out_dir: Path | None = None, *,
     """
     out = Path(out_dir) if out_dir is not None else Path(data.run_dir)
     _ready(out, given=out_dir is not None)
-    parts = assemble(data)
+    key = figure_key(data)
+    parts = assemble(data, reusable(out, key))
     for name, png in parts.figures.items():
-        write_bytes_whole(out / name, png, then=REPORT_AGAIN)
+        if parts.reused.get(name) != png:  # a reused figure's file already holds it
+            write_bytes_whole(out / name, png, then=REPORT_AGAIN)
+    write_bytes_whole(out / KEY_NAME, record(parts.figures, key), then=REPORT_AGAIN)
     write_tables(out, parts.tables)
     cfg = data.config
     when = (stamp or datetime.now(timezone.utc)).strftime("%Y-%m-%d %H:%M UTC")

@@ -50,6 +50,17 @@ def pad_nhwc(x: np.ndarray, pads: tuple[int, int, int, int],
     return out
 
 
+#: Target bytes of one chunk's column matrix (about a core's L2 cache): im2col and its
+#: product, and the column gradient and col2im, run over chunks of whole images of
+#: about this size, so that the product reads columns still in cache.
+COLS_CHUNK_BYTES = 1 << 20
+
+
+def chunk_rows(rows_per_image: int, width: int, itemsize: int, n: int) -> int:
+    """Images per chunk whose ``(rows, width)`` column matrix is near :data:`COLS_CHUNK_BYTES`."""
+    return int(min(n, max(1, COLS_CHUNK_BYTES // max(1, rows_per_image * width * itemsize))))
+
+
 def conv_out_size(size: int, kernel: int, stride: int) -> int:
     """Output size of a padded axis: ``(size - k) // s + 1`` (common practice)."""
     return (size - kernel) // stride + 1
@@ -110,9 +121,19 @@ def _im2col_kernel(xp, c, stride, out):
                     dst = out[b, y, x, i]
                     if span == 9:
                         _copy9(src, dst)
+                    elif span == 3:
+                        _copy3(src, dst)
                     else:
                         for q in range(span):
                             dst[q] = src[q]
+
+
+@njit(cache=True, inline="always")
+def _copy3(src, dst):
+    """``dst[:3] = src[:3]``, every load before the first store (a 3 x 3 kernel's row on
+    one grey channel)."""
+    a0, a1, a2 = src[0], src[1], src[2]
+    dst[0], dst[1], dst[2] = a0, a1, a2
 
 
 @njit(cache=True, inline="always")
