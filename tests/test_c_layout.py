@@ -52,3 +52,20 @@ def test_group_order_pairs_with_sign_extension_of_a_word():
     first, second = patch[:2], patch[2:]                  # the patch's two words
     total = int(word[0] @ first + word[1] @ second)
     assert total == int(weights @ x)
+
+
+def test_channel_records_hold_bias_multiplier_and_shift_per_channel():
+    """One record a channel, [folded bias, multiplier, shift], in channel order: the same
+    values as the three arrays the plain kernels read (the dense bias folded as the
+    fast kernels need)."""
+    from tinyconv.device.measure import random_network
+    from tinyconv.export.c_layout import bias, channel_records
+    qnet, _ = random_network("12x12rgb/c6k3-p2-dw3-c5k1-gap-d7", 4, seed=2)
+    for layer in qnet.layers:
+        if layer.weights is None:
+            continue
+        rec = channel_records(layer).reshape(-1, 3)
+        b = bias(layer, "fast")
+        for ch in range(len(b)):
+            assert rec[ch].tolist() == [int(b[ch]), int(layer.multiplier[ch]),
+                                        int(layer.shift[ch])]

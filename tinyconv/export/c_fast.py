@@ -235,18 +235,19 @@ DOT_DIRECT = r"""
 DENSE = r"""
 /* Dense layer, weights [n_out][n_in], bias with the input zero point folded in. */
 @U@_KERNEL void @P@_dense(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
-                          const int8_t *wt, const int32_t *bias, const int32_t *mult,
-                          const int32_t *shift, int32_t yz, int32_t lo, int32_t hi)
+                          const int8_t *wt, const int32_t *rec, int32_t yz, int32_t lo,
+                          int32_t hi)
 {
     int32_t o;
     (void)hi;  /* 127: see @P@_clamp */
     for (o = 0; o < n_out; o += 2) {
         const int8_t *w0 = wt + o * n_in;
-        int32_t a0 = bias[o], a1 = 0;
-        if (o + 1 < n_out) a1 = bias[o + 1];
+        const int32_t *r = rec + 3 * o;  /* bias, multiplier, shift an output */
+        int32_t a0 = r[0], a1 = 0;
+        if (o + 1 < n_out) a1 = r[3];
         @P@_dot2(x, w0, o + 1 < n_out ? w0 + n_in : w0, n_in, &a0, &a1);
-        y[o] = @P@_out1(a0, mult[o], shift[o], yz, lo);
-        if (o + 1 < n_out) y[o + 1] = @P@_out1(a1, mult[o + 1], shift[o + 1], yz, lo);
+        y[o] = @P@_out1(a0, r[1], r[2], yz, lo);
+        if (o + 1 < n_out) y[o + 1] = @P@_out1(a1, r[4], r[5], yz, lo);
     }
 }
 """
@@ -256,21 +257,21 @@ HEAD = r"""
    the int8 logits, returning the arg-max of the same outputs requantised with
    8 more fractional bits (the first of equal values wins). */
 @U@_KERNEL int32_t @P@_head(const int8_t *x, int8_t *y, int32_t n_in, int32_t n_out,
-                            const int8_t *wt, const int32_t *bias, const int32_t *mult,
-                            const int32_t *shift, int32_t yz)
+                            const int8_t *wt, const int32_t *rec, int32_t yz)
 {
     int32_t o, j, best = 0;
     int64_t best_value = 0;
     for (o = 0; o < n_out; o += 2) {
         const int8_t *w0 = wt + o * n_in;
         int32_t acc[2];
-        acc[0] = bias[o];
-        acc[1] = o + 1 < n_out ? bias[o + 1] : 0;
+        acc[0] = rec[3 * o];
+        acc[1] = o + 1 < n_out ? rec[3 * o + 3] : 0;
         @P@_dot2(x, w0, o + 1 < n_out ? w0 + n_in : w0, n_in, &acc[0], &acc[1]);
         for (j = 0; j < 2 && o + j < n_out; ++j) {
             int64_t value;
-            y[o + j] = @P@_rq(acc[j], mult[o + j], shift[o + j], yz, INT8_MIN, INT8_MAX);
-            value = (int64_t)@P@_scale(acc[j], mult[o + j], shift[o + j] - 8)
+            const int32_t *r = rec + 3 * (o + j);  /* bias, multiplier, shift */
+            y[o + j] = @P@_rq(acc[j], r[1], r[2], yz, INT8_MIN, INT8_MAX);
+            value = (int64_t)@P@_scale(acc[j], r[1], r[2] - 8)
                     + (int64_t)yz * 256;
             if (o + j == 0 || value > best_value) {
                 best = o + j;

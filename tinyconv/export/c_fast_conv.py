@@ -272,8 +272,7 @@ CONV = r"""
    the second, then the pair's tails (K % 4 values each); a last odd filter
    alone the same way. */
 static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
-                   const int32_t *bias, const int32_t *mult, const int32_t *shift,
-                   int32_t yz, int32_t lo, int8_t *y0, int8_t *y1)
+                   const int32_t *rec, int32_t yz, int32_t lo, int8_t *y0, int8_t *y1)
 {
     int32_t i, o, t = K & 3, g = K >> 2, d = (int32_t)(y1 - y0);
     const int8_t *stop = col + 16 * g, *stop2 = col + 32 * (g >> 1), *wp = wt;
@@ -283,7 +282,8 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
 #endif
     for (o = 0; o < (f & ~1); o += 2) {
         const int8_t *pp = col;  /* wp runs on from one pair of filters to the next */
-        int32_t a00 = bias[o], a01 = bias[o], a10 = bias[o + 1], a11 = bias[o + 1];
+        const int32_t *r = rec + 3 * o;  /* the pair's records: bias, multiplier, shift */
+        int32_t a00 = r[0], a01 = r[0], a10 = r[3], a11 = r[3];
 #if @U@_HAS_GROUPD
         if (aligned) {
             while (pp != stop2) {  /* two groups a turn, two words a load */
@@ -316,12 +316,13 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
             if (t > 2) @U@_TAIL(2);
             wp += 2 * t;
         }
-        @P@_out2(a00, a01, mult[o], shift[o], yz, lo, y0 + o, y0 + o + d);
-        @P@_out2(a10, a11, mult[o + 1], shift[o + 1], yz, lo, y0 + o + 1, y0 + o + 1 + d);
+        @P@_out2(a00, a01, r[1], r[2], yz, lo, y0 + o, y0 + o + d);
+        @P@_out2(a10, a11, r[4], r[5], yz, lo, y0 + o + 1, y0 + o + 1 + d);
     }
     if (f & 1) {  /* a last odd filter */
         const int8_t *pp = col;
-        int32_t a00 = bias[o], a01 = bias[o];
+        const int32_t *r = rec + 3 * o;
+        int32_t a00 = r[0], a01 = r[0];
         for (i = 0; i < g; ++i) {
             a00 += wp[0] * @P@_ld16(pp) + wp[1] * @P@_ld16(pp + 4)
                    + wp[2] * @P@_ld16(pp + 2) + wp[3] * @P@_ld16(pp + 6);
@@ -334,7 +335,7 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
             a00 += wp[i] * @P@_ld16(pp + 4 * i);
             a01 += wp[i] * @P@_ld16(pp + 4 * i + 2);
         }
-        @P@_out2(a00, a01, mult[o], shift[o], yz, lo, y0 + o, y0 + o + d);
+        @P@_out2(a00, a01, r[1], r[2], yz, lo, y0 + o, y0 + o + d);
     }
 }
 
@@ -343,8 +344,7 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
 @U@_KERNEL void @P@_conv(const int8_t *x, int8_t *y, int8_t *col, int32_t h, int32_t w,
                          int32_t c, int32_t oh, int32_t ow, int32_t f, int32_t k,
                          int32_t s, int32_t pt, int32_t pl, int32_t xz, const int8_t *wt,
-                         const int32_t *bias, const int32_t *mult, const int32_t *shift,
-                         int32_t yz, int32_t lo, int32_t hi)
+                         const int32_t *rec, int32_t yz, int32_t lo, int32_t hi)
 {
     int32_t K = k * k * c, n = oh * ow, p, j;
     int32_t full = K & ~3, table = K <= @U@_TABLE && ((k * c) & 3) != 0;
@@ -368,7 +368,7 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
             @P@_patch(x, col, 0, h, w, c, k, iy0, ix0, xz);
             @P@_patch(x, col, 1, h, w, c, k, iy1, ix1, xz);
         }
-        @P@_mm(col, K, f, wt, bias, mult, shift, yz, lo, y + p * f, y + q * f);
+        @P@_mm(col, K, f, wt, rec, yz, lo, y + p * f, y + q * f);
     }
 }
 """

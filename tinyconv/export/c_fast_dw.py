@@ -47,8 +47,8 @@ DWCONV = r"""
 
 @U@_KERNEL void @P@_dwconv(const int8_t *x, int8_t *y, int32_t h, int32_t w, int32_t c,
                            int32_t oh, int32_t ow, int32_t k, int32_t s, int32_t pt,
-                           int32_t pl, int32_t xz, const int8_t *wt, const int32_t *bias,
-                           const int32_t *mult, const int32_t *shift, int32_t yz,
+                           int32_t pl, int32_t xz, const int8_t *wt, const int32_t *rec,
+                           int32_t yz,
                            int32_t lo, int32_t hi)
 {
     int32_t oy, ox, ch, ky, kx;
@@ -66,7 +66,8 @@ DWCONV = r"""
             int32_t wstep = (k - (kx1 - kx0)) * c;
             int8_t *out = y + (oy * ow + ox) * c;
             for (ch = 0; ch + 4 <= c; ch += 4) {
-                int32_t a0 = bias[ch], a1 = bias[ch + 1], a2 = bias[ch + 2], a3 = bias[ch + 3];
+                const int32_t *r = rec + 3 * ch;  /* bias, multiplier, shift a channel */
+                int32_t a0 = r[0], a1 = r[3], a2 = r[6], a3 = r[9];
                 const int8_t *px = base + ch, *pw = wbase + ch;
                 for (ky = ky0; ky < ky1; ++ky) {
                     for (kx = kx0; kx < kx1; ++kx) {
@@ -96,11 +97,12 @@ DWCONV = r"""
                     acc[2] = a2;
                     acc[3] = a3;
                     for (i = 0; i < 4; ++i)
-                        out[ch + i] = @P@_out1(acc[i], mult[ch + i], shift[ch + i], yz, lo);
+                        out[ch + i] = @P@_out1(acc[i], r[3 * i + 1], r[3 * i + 2], yz, lo);
                 }
             }
             for (; ch < c; ++ch) {
-                int32_t a0 = bias[ch];
+                const int32_t *r = rec + 3 * ch;
+                int32_t a0 = r[0];
                 const int8_t *px = base + ch, *pw = wbase + ch;
                 for (ky = ky0; ky < ky1; ++ky) {
                     for (kx = kx0; kx < kx1; ++kx) {
@@ -119,7 +121,7 @@ DWCONV = r"""
                         }
                     }
                 }
-                out[ch] = @P@_out1(a0, mult[ch], shift[ch], yz, lo);
+                out[ch] = @P@_out1(a0, r[1], r[2], yz, lo);
             }
         }
     }

@@ -9,6 +9,7 @@ folded in, and the scratch each step needs. Pure functions of a quantised layer.
   (:mod:`tinyconv.export.c_fast_conv`); the patch holds ``x - zp``, so the
   conv bias is unchanged;
 * dense and head weights ``[n_out][n_in]`` in order, bias ``b - zp * sum_i w``;
+* per output channel one record ``[bias, multiplier, shift]`` (:func:`channel_records`);
 * depthwise weights ``[k][k][c]``, bias ``b - zp * sum over the window of w``;
 * conv scratch: two patches of ``k k c`` int16 values, ``4 k k c`` bytes,
   inside the one activation buffer (see :func:`tinyconv.cost.scratch_bytes`).
@@ -84,6 +85,21 @@ def bias(layer: QuantLayer, style: str) -> np.ndarray:
                          "for int32 sums with the zero point folded in; use fewer inputs "
                          "per output (a global pooling before the dense layer)")
     return folded
+
+
+def channel_records(layer: QuantLayer) -> np.ndarray:
+    """The fast kernels' per-channel records: ``[bias, multiplier, shift]`` per output
+    channel, flat (the same 12 bytes a channel as three separate arrays), so that
+    one pointer walks all three.
+
+    Returns
+    -------
+    ndarray of int64, shape (3 f,)
+    """
+    b = bias(layer, "fast")
+    m = np.asarray(layer.multiplier, np.int64).reshape(-1)
+    n = np.asarray(layer.shift, np.int64).reshape(-1)
+    return np.stack([b, m, n], axis=1).reshape(-1)
 
 
 def check_multipliers(layer: QuantLayer) -> None:

@@ -37,9 +37,12 @@ class CEmitter:
     kernels: Callable[[str, str], str] | None = None
 
 
-def _arrays(layer: QuantLayer, p: str) -> str:
-    return (f"{p}_l{layer.index}_w, {p}_l{layer.index}_bias, {p}_l{layer.index}_mult, "
-            f"{p}_l{layer.index}_shift")
+def _arrays(layer: QuantLayer, p: str, style: str) -> str:
+    # the fast kernels read one record a channel (bias, multiplier, shift)
+    base = f"{p}_l{layer.index}"
+    if style == "fast":
+        return f"{base}_w, {base}_rec"
+    return f"{base}_w, {base}_bias, {base}_mult, {base}_shift"
 
 
 def _zero_point(layer: QuantLayer, style: str) -> str:
@@ -47,8 +50,8 @@ def _zero_point(layer: QuantLayer, style: str) -> str:
     return "" if style == "fast" else f"{layer.in_zp}, "
 
 
-def _tail(layer: QuantLayer, p: str) -> str:
-    return f"{_arrays(layer, p)}, {layer.out_zp}, {layer.lo}, {layer.hi}"
+def _tail(layer: QuantLayer, p: str, style: str) -> str:
+    return f"{_arrays(layer, p, style)}, {layer.out_zp}, {layer.lo}, {layer.hi}"
 
 
 def add_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, style: str,
@@ -64,14 +67,14 @@ def head_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, style
               skip: str) -> str:
     op = layer.op
     return (f"    best = {p}_head({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
-            f"{_zero_point(layer, style)}\n        {_arrays(layer, p)}, {layer.out_zp});\n")
+            f"{_zero_point(layer, style)}\n        {_arrays(layer, p, style)}, {layer.out_zp});\n")
 
 
 def dense_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, style: str,
                skip: str) -> str:
     op = layer.op
     return (f"    {p}_dense({src}, {dst}, {prod(op.in_shape)}, {op.out_shape[0]}, "
-            f"{_zero_point(layer, style)}\n        {_tail(layer, p)});\n")
+            f"{_zero_point(layer, style)}\n        {_tail(layer, p, style)});\n")
 
 
 def conv_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, style: str,
@@ -83,7 +86,7 @@ def conv_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, style
     col = f"{scratch}, " if style == "fast" else ""
     return (f"    {p}_conv({src}, {dst}, {col}{h}, {w}, {c}, {oh}, {ow}, {f}, "
             f"{op.kernel}, {op.stride}, {top}, {left}, {layer.in_zp},\n        "
-            f"{_tail(layer, p)});\n")
+            f"{_tail(layer, p, style)});\n")
 
 
 def dwconv_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, style: str,
@@ -93,7 +96,7 @@ def dwconv_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, sty
     oh, ow, _ = op.out_shape
     top, _, left, _ = op.pads
     return (f"    {p}_dwconv({src}, {dst}, {h}, {w}, {c}, {oh}, {ow}, {op.kernel}, "
-            f"{op.stride}, {top}, {left}, {layer.in_zp},\n        {_tail(layer, p)});\n")
+            f"{op.stride}, {top}, {left}, {layer.in_zp},\n        {_tail(layer, p, style)});\n")
 
 
 def gap_call(layer: QuantLayer, p: str, src: str, dst: str, scratch: str, style: str,

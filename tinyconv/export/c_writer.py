@@ -6,7 +6,9 @@ C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
 * every constant as a ``static const`` array: the ``256 x c`` input table,
   and per conv/dwconv/dense layer the int8 weights and the int32 bias,
   multiplier and shift per output channel (the deployment layout of
-  DEVELOPERS.md, so flash = the sum of their ``sizeof``);
+  DEVELOPERS.md, so flash = the sum of their ``sizeof``): three arrays in the
+  plain style, one array of ``[bias, multiplier, shift]`` records in the fast
+  style (``{prefix}_l{i}_rec``, the same bytes; one pointer walks it);
 * one ``static int8_t`` activation buffer of exactly the cost model's int8
   peak, each tensor and scratch at an offset planned from the live ranges
   (:mod:`tinyconv.export.placement`): tensors alive at one step never overlap, a
@@ -219,9 +221,12 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
         base = f"{p}_l{layer.index}"
         c_layout.check_multipliers(layer)
         add(f"{base}_w", "int8_t", c_layout.weights(layer, style))
-        add(f"{base}_bias", "int32_t", c_layout.bias(layer, style))
-        add(f"{base}_mult", "int32_t", layer.multiplier)
-        add(f"{base}_shift", "int32_t", layer.shift)
+        if style == "fast":  # one record a channel: bias, multiplier, shift
+            add(f"{base}_rec", "int32_t", c_layout.channel_records(layer))
+        else:
+            add(f"{base}_bias", "int32_t", c_layout.bias(layer, style))
+            add(f"{base}_mult", "int32_t", layer.multiplier)
+            add(f"{base}_shift", "int32_t", layer.shift)
     flash = sum(a.nbytes for a in arrays)
     plan = plan_buffer(qnet, style)
 
