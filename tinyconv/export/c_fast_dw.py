@@ -70,10 +70,18 @@ DWCONV = r"""
                 int32_t a0 = r[0], a1 = r[3], a2 = r[6], a3 = r[9];
                 const int8_t *px = base + ch, *pw = wbase + ch;
                 for (ky = ky0; ky < ky1; ++ky) {
-                    for (kx = kx0; kx < kx1; ++kx) {
+                    if (kx1 - kx0 == 3) {  /* a whole row of a 3-wide window, written out */
                         @U@_DWTAP(0, 0);
-                        px += c;
-                        pw += c;
+                        @U@_DWTAP(c, c);
+                        @U@_DWTAP(2 * c, 2 * c);
+                        px += 3 * c;
+                        pw += 3 * c;
+                    } else {
+                        for (kx = kx0; kx < kx1; ++kx) {
+                            @U@_DWTAP(0, 0);
+                            px += c;
+                            pw += c;
+                        }
                     }
                     px += step;
                     pw += wstep;
