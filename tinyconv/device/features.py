@@ -137,9 +137,16 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
             "outputs": float(slots * f)}
 
 
+def _visible_rows(size: int, out: int, kernel: int, stride: int, pad: int,
+                  inside_cols: int) -> int:
+    """Kernel rows inside ``size`` summed over output rows, times ``inside_cols``."""
+    return _visited(size, out, kernel, stride, pad) * inside_cols
+
+
 def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     """dwconv: blocks of four channels per pixel, the channel loop innermost, kernel rows
-    and taps inside the image, and the padding's taps of edge pixels."""
+    and taps inside the image (a whole row of a 3-wide window written out), and the
+    padding's taps of edge pixels."""
     h, w, c = op.in_shape
     oh, ow, _ = op.out_shape
     k, s = op.kernel, op.stride
@@ -151,8 +158,11 @@ def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     full = c // 4
     edge_y, edge_x = _edge_positions(h, oh, k, s, top), _edge_positions(w, ow, k, s, left)
     edge = edge_y * ow + edge_x * oh - edge_y * edge_x
+    # rows of four-channel blocks whose window is 3 wide and inside across: written out
+    rows3 = _visible_rows(h, oh, k, s, top, _inside(w, ow, k, s, left)) if k == 3 else 0
     return {"one": 1.0, "pixels": float(n), "blocks": float(n * blocks),
-            "rows": float(vy * ow * blocks), "taps4": float(vy * vx * full),
+            "rows": float(vy * ow * blocks), "rows3": float(rows3 * full),
+            "taps4": float((vy * vx - 3 * rows3) * full),
             "taps_rest": float(vy * vx * (c - 4 * full)),
             "edge_taps": float(edge * k * k * blocks), "outputs": float(n * c)}
 

@@ -55,8 +55,8 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
     pixels and pair of filters ``K // 4`` groups of four values, two a turn,
     and ``K % 4`` single ones; one requantisation per output. Dense: pairs of
     outputs, steps of four inputs, single ones. Depthwise: blocks of four
-    channels per pixel, kernel rows and taps inside, and the padding's taps of
-    edge pixels.
+    channels per pixel, kernel rows and taps inside (a whole row of a 3-wide
+    window written out), and the padding's taps of edge pixels.
     Residual addition: the values of its output.
     """
     return step_model(kind).features(op, in_shape)
