@@ -122,12 +122,16 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     windows = inside if aligned else 0
     row_pixels = n - inside if (table or aligned) else n
     by_rows = visited - by_table
+    padded = n * kk - visited
     return {"one": 1.0, "pixel_pairs": float(pixel_pairs),
             "patch_table": float(by_table),
             "patch_windows": float(windows),
             "patch_rows": float(row_pixels * k),
             "patch_groups": float(by_rows // 4 if aligned else 0),
             "patch_values": float(0 if aligned else by_rows),
+            # taps in the padding: zero groups where rows fill groups, else one by one
+            "pad_groups": float(padded // 4 if aligned else 0),
+            "pad_values": float(0 if aligned else padded),
             "blocks": float(pixel_pairs * filter_pairs),
             "group_pairs": float(pixel_pairs * filter_pairs * (groups // 2)),
             "group_last": float(pixel_pairs * filter_pairs * (groups % 2)),

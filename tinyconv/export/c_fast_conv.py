@@ -90,11 +90,17 @@ PATCH = r"""
     int32_t e = j + n;
     while (j < e) {
         int16_t v = 0;
-        if (src && (j & 3) == 0 && j + 4 <= e && j + 4 <= full) {  /* whole groups */
+        if ((j & 3) == 0 && j + 4 <= e && j + 4 <= full) {  /* whole groups */
             int32_t n4 = ((e < full ? e : full) - j) >> 2;
-            @P@_groups(src, 0, col + 4 * j + 8 * q, 1, n4, xz);
+            if (src) {
+                @P@_groups(src, 0, col + 4 * j + 8 * q, 1, n4, xz);
+                src += 4 * n4;
+            } else {  /* padding: eight zero bytes a group in this slot */
+                int8_t *dst = col + 4 * j + 8 * q;
+                int32_t g;
+                for (g = 0; g < n4; ++g, dst += 16) memset(dst, 0, 8);
+            }
             j += 4 * n4;
-            src += 4 * n4;
             continue;
         }
         if (src) v = (int16_t)(*src++ - xz);  /* one value (all of a padding run) */
