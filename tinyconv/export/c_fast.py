@@ -15,7 +15,9 @@ the NumPy reference, bit for bit, but arranged for a small core:
 * **requantisation** (:data:`REQUANT`, here): the reference's two roundings in
   one signed 64-bit multiply-add, the output zero point folded into its
   rounding constant, the clamp through ``SSAT`` where the core has it;
-  multipliers whose shift lies outside 2..23 take the general form;
+  multipliers whose shift lies outside 2..23 take the general form; every
+  weighted kernel reads one ``[bias, multiplier, shift]`` record a channel
+  (:func:`tinyconv.export.c_layout.channel_records`);
 * the **residual addition** (:mod:`tinyconv.export.c_add`): one pass over the
   values, three rescalings each, on the magnitude like the requantisation.
 
