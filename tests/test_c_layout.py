@@ -57,7 +57,10 @@ def test_group_order_pairs_with_sign_extension_of_a_word():
 def test_channel_records_hold_bias_multiplier_and_shift_per_channel():
     """One record a channel, [folded bias, multiplier, shift], in channel order: the same
     values as the three arrays the plain kernels read (the dense bias folded as the
-    fast kernels need)."""
+    fast kernels need); a layer with a lower clamp above -128 stores its shifts 64
+    higher, so that the general form takes it."""
+    from dataclasses import replace
+
     from tinyconv.device.measure import random_network
     from tinyconv.export.c_layout import bias, channel_records
     qnet, _ = random_network("12x12rgb/c6k3-p2-dw3-c5k1-gap-d7", 4, seed=2)
@@ -69,3 +72,6 @@ def test_channel_records_hold_bias_multiplier_and_shift_per_channel():
         for ch in range(len(b)):
             assert rec[ch].tolist() == [int(b[ch]), int(layer.multiplier[ch]),
                                         int(layer.shift[ch])]
+        # a raised lower clamp moves every shift out of the fast form's range, by 64
+        raised = channel_records(replace(layer, lo=-100)).reshape(-1, 3)
+        assert (raised[:, 2] == rec[:, 2] + 64).all() and (raised[:, 2] > 23).all()

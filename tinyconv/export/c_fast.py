@@ -140,6 +140,7 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
    of line so that every kernel's hot path stays short. */
 @U@_OUTLINE int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
 {
+    if (shift >= 48) shift -= 64;  /* a layer whose lower clamp is above -128 */
     return @P@_rq(acc, mult, shift, zp, lo, 127);
 }
 
@@ -147,9 +148,10 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
    checks): the saturation instruction SSAT (Cortex-M3 and up) where the
    compiler takes GCC's inline assembly (written out because GCC turns the C
    below into compares, and the Arm C Language Extensions' __ssat warns under
-   -Wsign-conversion with GCC 12), the C elsewhere. The lower clamp lo (above
-   -128 only after a ReLU whose output zero point is above -128) is applied by
-   the callers, once per channel pair and only where it matters. */
+   -Wsign-conversion with GCC 12), the C elsewhere. A lower clamp above -128
+   (after a ReLU whose output zero point is above -128) is the general form's:
+   such a layer's shifts are stored 64 higher (c_layout.channel_records), so
+   none of its channels takes the one-product form, which saturates only. */
 @U@_INLINE int32_t @P@_sat8(int32_t v)
 {
 #if defined(__GNUC__) && defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT
@@ -161,29 +163,17 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
 #endif
 }
 
-/* Clamp to [lo, 127]. */
-@U@_INLINE int32_t @P@_clamp(int32_t v, int32_t lo)
-{
-    v = @P@_sat8(v);
-    return v < lo ? lo : v;
-}
-
 /* Requantise two accumulators of one channel (two pixels) and clamp to
-   [lo, 127]; the channel's constants are worked out once; shifts outside
-   2..23 (rare) take the general form. */
+   [lo, 127]; the channel's constants are worked out once; stored shifts outside
+   2..23 (rare shifts, and every channel of a layer whose lower clamp is above
+   -128) take the general form. */
 @U@_INLINE void @P@_out2(int32_t a0, int32_t a1, int32_t mult, int32_t shift, int32_t zp,
                          int32_t lo, int8_t *y0, int8_t *y1)
 {
     if ((uint32_t)(shift - 2) <= 21u) {
         uint32_t nh = @P@_rq_nh(shift, zp);
-        int32_t v0 = @P@_sat8(@P@_rq1(a0, mult, nh, shift - 1));
-        int32_t v1 = @P@_sat8(@P@_rq1(a1, mult, nh, shift - 1));
-        if (lo > -128) {
-            v0 = v0 < lo ? lo : v0;
-            v1 = v1 < lo ? lo : v1;
-        }
-        *(uint8_t *)y0 = (uint8_t)v0;
-        *(uint8_t *)y1 = (uint8_t)v1;
+        *(uint8_t *)y0 = (uint8_t)@P@_sat8(@P@_rq1(a0, mult, nh, shift - 1));
+        *(uint8_t *)y1 = (uint8_t)@P@_sat8(@P@_rq1(a1, mult, nh, shift - 1));
     } else {
         *y0 = @P@_rq_rare(a0, mult, shift, zp, lo);
         *y1 = @P@_rq_rare(a1, mult, shift, zp, lo);
@@ -191,11 +181,11 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
 }
 
 /* Requantise one accumulator and clamp to [lo, 127] (the one-product form
-   where it applies). */
+   where the stored shift is in 2..23, as above). */
 @U@_INLINE int8_t @P@_out1(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
 {
     if ((uint32_t)(shift - 2) > 21u) return @P@_rq_rare(acc, mult, shift, zp, lo);
-    return (int8_t)@P@_clamp(@P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1), lo);
+    return (int8_t)@P@_sat8(@P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1));
 }
 """
 
@@ -241,7 +231,7 @@ DENSE = r"""
                           int32_t hi)
 {
     int32_t o;
-    (void)hi;  /* 127: see @P@_clamp */
+    (void)hi;  /* 127: see @P@_sat8 */
     for (o = 0; o < n_out; o += 2) {
         const int8_t *w0 = wt + o * n_in;
         const int32_t *r = rec + 3 * o;  /* bias, multiplier, shift an output */

@@ -356,7 +356,7 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
     int32_t full = K & ~3, table = K <= @U@_TABLE && ((k * c) & 3) != 0;
     int16_t so[@U@_TABLE];  /* the patch by table (see @P@_patch_table) */
     uint8_t at[@U@_TABLE];
-    (void)hi;  /* 127: see @P@_clamp */
+    (void)hi;  /* 127: see @P@_sat8 */
     for (j = 0; table && j < K; ++j) {
         int32_t ky = j / (k * c), r = j - ky * k * c;
         so[j] = (int16_t)(ky * w * c + r);

@@ -52,7 +52,7 @@ DWCONV = r"""
                            int32_t lo, int32_t hi)
 {
     int32_t oy, ox, ch, ky, kx;
-    (void)hi;  /* 127: see @P@_clamp */
+    (void)hi;  /* 127: see @P@_sat8 */
     for (oy = 0; oy < oh; ++oy) {
         int32_t iy0 = oy * s - pt;
         int32_t ky0 = iy0 < 0 ? -iy0 : 0, ky1 = h - iy0 < k ? h - iy0 : k;

@@ -87,10 +87,20 @@ def bias(layer: QuantLayer, style: str) -> np.ndarray:
     return folded
 
 
+#: added to a stored shift when the layer's lower clamp is above -128
+RAISED_CLAMP_SHIFT = 64
+
+
 def channel_records(layer: QuantLayer) -> np.ndarray:
     """The fast kernels' per-channel records: ``[bias, multiplier, shift]`` per output
     channel, flat (the same 12 bytes a channel as three separate arrays), so that
     one pointer walks all three.
+
+    The fast requantisation saturates at [-128, 127] and leaves any other lower
+    clamp to the general form; a layer whose lower clamp is above -128 (a ReLU
+    whose output zero point is above -128) therefore has its shifts stored
+    :data:`RAISED_CLAMP_SHIFT` higher, outside the fast form's 2..23, and the
+    general form takes them back (``_rq_rare``).
 
     Returns
     -------
@@ -99,6 +109,8 @@ def channel_records(layer: QuantLayer) -> np.ndarray:
     b = bias(layer, "fast")
     m = np.asarray(layer.multiplier, np.int64).reshape(-1)
     n = np.asarray(layer.shift, np.int64).reshape(-1)
+    if layer.lo > -128:
+        n = n + RAISED_CLAMP_SHIFT
     return np.stack([b, m, n], axis=1).reshape(-1)
 
 
