@@ -309,3 +309,17 @@ def test_galleries_show_the_network_view_beside_each_image():
                            seen=dict(enumerate(view)), seen_as="16x16 gray")
     assert any("as the network saw it (16x16 gray)" in t.get_text() for t in fig.texts)
     _valid_png(fig)
+
+
+def test_png_bytes_are_opaque_rgb_and_lay_see_through_pixels_over_white():
+    """Figures are written as 8-bit RGB; a see-through background comes out white."""
+    from matplotlib.patches import Rectangle
+
+    fig = Figure(figsize=(1, 1), dpi=50)
+    fig.patch.set_alpha(0.0)                              # a see-through background
+    fig.add_artist(Rectangle((0, 0), 0.5, 1, color="black", transform=fig.transFigure))
+    with Image.open(io.BytesIO(png_bytes(fig))) as im:
+        assert im.mode == "RGB" and im.size == (50, 50)
+        px = np.asarray(im)
+    assert (px[2:-2, 2:20] == 0).all()                    # the black left half (inside its edge)
+    assert (px[:, 30:] == 255).all()                      # the rest white, not black
