@@ -14,6 +14,7 @@ from dataclasses import dataclass
 from math import prod
 from typing import Callable
 
+from tinyconv.export.c_fast_conv import PATCH_TABLE
 from tinyconv.ops import Op
 
 
@@ -91,21 +92,39 @@ def pool_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     return feats
 
 
-#: the longest K whose patch is copied by table (``{PREFIX}_TABLE`` in the C)
-PATCH_TABLE = 32
+@dataclass(frozen=True)
+class _Window:
+    """A sliding window's counts over one layer: sizes, kernel rows and columns inside
+    the image summed over output rows and columns (``vy``, ``vx``), output positions
+    whose window lies inside (``inside_y``, ``inside_x``)."""
+
+    h: int
+    w: int
+    c: int
+    oh: int
+    ow: int
+    k: int
+    vy: int
+    vx: int
+    inside_y: int
+    inside_x: int
+
+
+def _window(op: Op) -> _Window:
+    h, w, c = op.in_shape
+    oh, ow = op.out_shape[:2]
+    k, s = op.kernel, op.stride
+    top, _, left, _ = op.pads
+    return _Window(h, w, c, oh, ow, k, _visited(h, oh, k, s, top), _visited(w, ow, k, s, left),
+                   _inside(h, oh, k, s, top), _inside(w, ow, k, s, left))
 
 
 def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     """conv (:mod:`tinyconv.export.c_fast_conv`): pairs of pixels, their patches, and per
     pair of pixels and pair of filters two groups of four a turn, one left-over
     group, the single values of ``K % 4``, and the requantisation."""
-    h, w, c = op.in_shape
-    oh, ow, f = op.out_shape
-    k, s = op.kernel, op.stride
-    top, _, left, _ = op.pads
-    vy = _visited(h, oh, k, s, top)
-    vx = _visited(w, ow, k, s, left)
-    n = oh * ow
+    win, f = _window(op), op.out_shape[2]
+    c, k, vy, vx, n = win.c, win.k, win.vy, win.vx, win.oh * win.ow
     kk = k * k * c
     pixel_pairs, filter_pairs = -(-n // 2), f // 2
     odd = f % 2
@@ -117,7 +136,7 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     visited = vy * vx * c
     table = kk <= PATCH_TABLE and (k * c) % 4 != 0
     aligned = (k * c) % 4 == 0
-    inside = _inside(h, oh, k, s, top) * _inside(w, ow, k, s, left)
+    inside = win.inside_y * win.inside_x
     by_table = inside * kk if table else 0
     windows = inside if aligned else 0
     row_pixels = n - inside if (table or aligned) else n
@@ -141,31 +160,20 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
             "outputs": float(slots * f)}
 
 
-def _visible_rows(size: int, out: int, kernel: int, stride: int, pad: int,
-                  inside_cols: int) -> int:
-    """Kernel rows inside ``size`` summed over output rows, times ``inside_cols``."""
-    return _visited(size, out, kernel, stride, pad) * inside_cols
-
-
 def dwconv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     """dwconv: blocks of four channels per pixel, the channel loop innermost, kernel rows
     and taps inside the image (a whole row of a 3-wide window written out), and the
     padding's taps of edge pixels."""
-    h, w, c = op.in_shape
-    oh, ow, _ = op.out_shape
-    k, s = op.kernel, op.stride
-    top, _, left, _ = op.pads
-    vy = _visited(h, oh, k, s, top)
-    vx = _visited(w, ow, k, s, left)
-    n = oh * ow
+    win = _window(op)
+    c, k, vy, vx, n = win.c, win.k, win.vy, win.vx, win.oh * win.ow
     blocks = -(-c // 4)
     full = c // 4
-    edge_y, edge_x = _edge_positions(h, oh, k, s, top), _edge_positions(w, ow, k, s, left)
-    edge = edge_y * ow + edge_x * oh - edge_y * edge_x
+    edge_y, edge_x = win.oh - win.inside_y, win.ow - win.inside_x
+    edge = edge_y * win.ow + edge_x * win.oh - edge_y * edge_x
     # rows of four-channel blocks whose window is 3 wide and inside across: written out
-    rows3 = _visible_rows(h, oh, k, s, top, _inside(w, ow, k, s, left)) if k == 3 else 0
+    rows3 = vy * win.inside_x if k == 3 else 0
     return {"one": 1.0, "pixels": float(n), "blocks": float(n * blocks),
-            "rows": float(vy * ow * blocks), "rows3": float(rows3 * full),
+            "rows": float(vy * win.ow * blocks), "rows3": float(rows3 * full),
             "taps4": float((vy * vx - 3 * rows3) * full),
             "taps_rest": float(vy * vx * (c - 4 * full)),
             "edge_taps": float(edge * k * k * blocks), "outputs": float(n * c)}

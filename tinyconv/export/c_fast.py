@@ -32,6 +32,8 @@ and written with ``memcpy``, which compilers turn into single loads and
 stores on these cores.
 """
 
+from tinyconv.export.c_layout import RAISED_CLAMP_SHIFT
+
 DSP = r"""
 /* Small helpers inlined into the kernels (where the compiler allows it). */
 #if defined(__GNUC__)
@@ -140,7 +142,7 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
    of line so that every kernel's hot path stays short. */
 @U@_OUTLINE int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
 {
-    if (shift >= 48) shift -= 64;  /* a layer whose lower clamp is above -128 */
+    if (shift >= @RAISED@ - 16) shift -= @RAISED@;  /* a lower clamp above -128 */
     return @P@_rq(acc, mult, shift, zp, lo, 127);
 }
 
@@ -150,7 +152,7 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
    below into compares, and the Arm C Language Extensions' __ssat warns under
    -Wsign-conversion with GCC 12), the C elsewhere. A lower clamp above -128
    (after a ReLU whose output zero point is above -128) is the general form's:
-   such a layer's shifts are stored 64 higher (c_layout.channel_records), so
+   such a layer's shifts are stored @RAISED@ higher (c_layout.channel_records), so
    none of its channels takes the one-product form, which saturates only. */
 @U@_INLINE int32_t @P@_sat8(int32_t v)
 {
@@ -187,7 +189,7 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
     if ((uint32_t)(shift - 2) > 21u) return @P@_rq_rare(acc, mult, shift, zp, lo);
     return (int8_t)@P@_sat8(@P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1));
 }
-"""
+""".replace("@RAISED@", str(RAISED_CLAMP_SHIFT))
 
 DOT_DIRECT = r"""
 /* sum_i w[i] * x[i] over n int8 values, two rows of weights at once (a0: w0, a1: w1). */

@@ -27,6 +27,9 @@ are worked out once for both pixels (``_out2`` in
 
 #: order of a group's four values in the patch
 PATCH_GROUP_ORDER = (0, 2, 1, 3)
+#: the longest K whose patch is copied by table (the C's ``{PREFIX}_TABLE``; its two
+#: tables, 3 bytes a value, live on the stack)
+PATCH_TABLE = 32
 
 
 def patch_offset(j: int, pixel: int, k_total: int) -> int:
@@ -160,7 +163,7 @@ PATCH = r"""
 
 CONV = r"""
 /* The longest K patched by table (its two tables, 3 bytes a value, live on the stack). */
-#define @U@_TABLE 32
+#define @U@_TABLE @TABLE@
 
 /* One group of four values of K for filters a, b (weights at wp + 8 j) and
    pixels 0, 1 (the pair at pp + 16 j). */
@@ -206,8 +209,6 @@ CONV = r"""
     @U@_GROUP_ASM("ldrd %[ua], %[ub], [%[wp]], #8\n\t"                         \
                   "ldrd %[x0], %[x1], [%[pp]], #8\n\t",                        \
                   "ldrd %[x0], %[x1], [%[pp]], #8\n\t")
-#define @U@_STEP_W 0
-#define @U@_STEP_P 0
 #define @U@_HAS_GROUPD 1
 #elif @U@_USE_DSP
 #define @U@_GROUP(j)                                                          \
@@ -233,8 +234,6 @@ CONV = r"""
         a01 = __smlad((int32_t)ua, x1, a01);                                  \
         a11 = __smlad((int32_t)ub, x1, a11);                                  \
     } while (0)
-#define @U@_STEP_W 8
-#define @U@_STEP_P 16
 #define @U@_HAS_GROUPD 0
 #else
 #define @U@_TAP(wi, at)                                                       \
@@ -254,8 +253,6 @@ CONV = r"""
         @U@_TAP(2, 2);                                                        \
         @U@_TAP(3, 6);                                                        \
     } while (0)
-#define @U@_STEP_W 8
-#define @U@_STEP_P 16
 #define @U@_HAS_GROUPD 0
 #endif
 
@@ -306,13 +303,13 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
             while (pp != stop2) {  /* two groups a turn */
                 @U@_GROUP(0);
                 @U@_GROUP(1);
-                wp += 2 * @U@_STEP_W;
-                pp += 2 * @U@_STEP_P;
+                wp += 16;
+                pp += 32;
             }
             if (pp != stop) {
                 @U@_GROUP(0);
-                wp += @U@_STEP_W;
-                pp += @U@_STEP_P;
+                wp += 8;
+                pp += 16;
             }
 #endif
         }
@@ -377,4 +374,4 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
         @P@_mm(col, K, f, wt, rec, yz, lo, y + p * f, y + q * f);
     }
 }
-"""
+""".replace("@TABLE@", str(PATCH_TABLE))
