@@ -4,40 +4,42 @@ import numpy as np
 import pytest
 
 from tinyconv.export.c_fast_conv import PATCH_GROUP_ORDER, patch_offset
-from tinyconv.export.c_layout import pair_filters
+from tinyconv.export.c_layout import padded_k, pair_filters
 
 
 @pytest.mark.parametrize("f, k", [(1, 1), (2, 4), (3, 9), (4, 27), (5, 8), (2, 3)])
 def test_pairs_match_plain_loops(f, k):
-    """Filters paired group by group of four values, then the pair's tails, as loops do."""
+    """Each filter padded with zeros to a multiple of 4 values, then filters paired group
+    by group of four values, as loops over the padded rows do."""
     rng = np.random.default_rng(f * 100 + k)
     rows = rng.integers(-127, 128, (f, k), dtype=np.int64)
     flat = pair_filters(rows)
-    assert flat.size == f * k and sorted(flat.tolist()) == sorted(rows.reshape(-1).tolist())
-    full = (k // 4) * 4
+    kp = padded_k(k)
+    assert kp % 4 == 0 and k <= kp < k + 4
+    assert flat.size == f * kp
+    assert sorted(flat.tolist()) == sorted(rows.reshape(-1).tolist() + [0] * (f * (kp - k)))
+    padded = np.zeros((f, kp), np.int64)
+    padded[:, :k] = rows
     want = []
     for o in range(0, f - 1, 2):
-        for g in range(k // 4):
-            want += list(rows[o, 4 * g:4 * g + 4]) + list(rows[o + 1, 4 * g:4 * g + 4])
-        want += list(rows[o, full:]) + list(rows[o + 1, full:])
+        for g in range(kp // 4):
+            want += list(padded[o, 4 * g:4 * g + 4]) + list(padded[o + 1, 4 * g:4 * g + 4])
     if f % 2:
-        want += list(rows[-1])
+        want += list(padded[-1])
     np.testing.assert_array_equal(flat, want)
-    # each pair starts at o * K, as the kernel computes it
-    for o in range(0, f - 1, 2):
-        assert flat[o * k:(o + 2) * k].size == 2 * k
 
 
 @pytest.mark.parametrize("k_total", [1, 3, 4, 9, 16, 27, 30])
 def test_patch_offsets_tile_the_pair(k_total):
-    """The two patches' int16 values fill the 4 K bytes of the pair once each, and each
-    group of four sits in 8 bytes of its own pixel."""
-    offsets = [patch_offset(j, q, k_total) for q in (0, 1) for j in range(k_total)]
-    assert sorted(offsets) == list(range(0, 4 * k_total, 2))
-    for j in range(k_total // 4 * 4):
+    """The two patches' int16 values (K padded to Kp) fill the 4 Kp bytes of the pair once
+    each, and each group of four sits in 8 bytes of its own pixel."""
+    kp = padded_k(k_total)
+    offsets = [patch_offset(j, q) for q in (0, 1) for j in range(kp)]
+    assert sorted(offsets) == list(range(0, 4 * kp, 2))
+    for j in range(kp):
         for q in (0, 1):
             base = 16 * (j // 4) + 8 * q
-            assert base <= patch_offset(j, q, k_total) < base + 8
+            assert base <= patch_offset(j, q) < base + 8
 
 
 def test_group_order_pairs_with_sign_extension_of_a_word():
@@ -54,24 +56,51 @@ def test_group_order_pairs_with_sign_extension_of_a_word():
     assert total == int(weights @ x)
 
 
-def test_channel_records_hold_bias_multiplier_and_shift_per_channel():
-    """One record a channel, [folded bias, multiplier, shift], in channel order: the same
-    values as the three arrays the plain kernels read (the dense bias folded as the
-    fast kernels need); a layer with a lower clamp above -128 stores its shifts 64
-    higher, so that the general form takes it."""
+def _one_product(acc: np.ndarray, mult: int, nh: int, code: int) -> np.ndarray:
+    """The C's one-product requantisation (``_rq1`` then ``_sat8``) in Python integers."""
+    wrap = (nh + 2 ** 31) % 2 ** 32 - 2 ** 31           # the int32 the C reads
+    out = []
+    for a in acc.tolist():
+        m = -1 if a < 0 else 0
+        n = ((wrap + m) << 32) + (0x40000000 | ((m & 1) << 31))
+        out.append(min(127, max(-128, (n + a * mult) >> 32 >> code)))
+    return np.array(out)
+
+
+def test_channel_records_give_the_reference_requantisation():
+    """One record a channel, [folded bias, multiplier, nh, code], in channel order. Where
+    the code is 1..22, the one-product form with the record's nh and code gives, for
+    random accumulators and the extremes, exactly the integer reference's requantisation
+    (tinyconv.quant.integer.requantize: the two roundings done one after the other);
+    other codes hold the shift + 64 for the general form. A layer with a lower clamp
+    above -128 has only general-form codes."""
     from dataclasses import replace
 
     from tinyconv.device.measure import random_network
-    from tinyconv.export.c_layout import bias, channel_records
+    from tinyconv.export.c_layout import RARE_CODE_OFFSET, bias, channel_records
+    from tinyconv.quant.integer import requantize
+    rng = np.random.default_rng(5)
     qnet, _ = random_network("12x12rgb/c6k3-p2-dw3-c5k1-gap-d7", 4, seed=2)
+    fast_seen = 0
     for layer in qnet.layers:
         if layer.weights is None:
             continue
-        rec = channel_records(layer).reshape(-1, 3)
+        rec = channel_records(layer).reshape(-1, 4)
         b = bias(layer, "fast")
-        for ch in range(len(b)):
-            assert rec[ch].tolist() == [int(b[ch]), int(layer.multiplier[ch]),
-                                        int(layer.shift[ch])]
-        # a raised lower clamp moves every shift out of the fast form's range, by 64
-        raised = channel_records(replace(layer, lo=-100)).reshape(-1, 3)
-        assert (raised[:, 2] == rec[:, 2] + 64).all() and (raised[:, 2] > 23).all()
+        assert rec[:, 0].tolist() == b.tolist()
+        assert rec[:, 1].tolist() == np.asarray(layer.multiplier).reshape(-1).tolist()
+        acc = np.concatenate([rng.integers(-2 ** 20, 2 ** 20, 400), [0, -1, 1, -2 ** 31,
+                                                                     2 ** 31 - 1]])
+        want = requantize(np.repeat(acc[:, None], len(b), axis=1), layer)
+        for ch, (_, mult, nh, code) in enumerate(rec.tolist()):
+            shift = int(np.asarray(layer.shift).reshape(-1)[ch])
+            if 1 <= code <= 22:
+                fast_seen += 1
+                assert layer.lo == -128 and code == shift - 1
+                np.testing.assert_array_equal(_one_product(acc, mult, nh, code), want[:, ch])
+            else:
+                assert code == shift + RARE_CODE_OFFSET and nh == 0
+        raised = channel_records(replace(layer, lo=-100)).reshape(-1, 4)
+        assert (raised[:, 3] > 22).all()
+        assert (raised[:, 3] - RARE_CODE_OFFSET == np.asarray(layer.shift).reshape(-1)).all()
+    assert fast_seen > 0

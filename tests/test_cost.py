@@ -96,14 +96,15 @@ def test_reference_networks(text, params, macs):
 def test_peak_memory_worked_example():
     """CHECKS.md: 32x32x1 int8, conv3x3->8 needs 9,216 B, pool2 10,240 B (peak), conv->16 6,144 B,
     each convolution plus its im2col scratch (Liberis & Lane 2019 [mem]: input + output +
-    scratch): here two int16 patches of 3*3*c_in values, 36 B and 288 B."""
+    scratch): here two int16 patches of 3*3*c_in values rounded up to a multiple of 4 (the
+    fast kernel's groups of four), 48 B and 288 B."""
     cost = cost_of("32x32gray/c8k3-p2-c16k3", 10)
     live = {(r.name, r.kind): r.live_elements for r in cost.rows}
     scratch = {(r.name, r.kind): r.scratch_bytes for r in cost.rows}
     assert live["1:c8k3", "conv"] == 1_024 + 8_192 == 9_216
     assert live["2:p2", "maxpool"] == 8_192 + 2_048 == 10_240
     assert live["3:c16k3", "conv"] == 2_048 + 4_096 == 6_144
-    assert scratch["1:c8k3", "conv"] == 2 * 2 * 9 * 1 and scratch["3:c16k3", "conv"] == 2 * 2 * 9 * 8
+    assert scratch["1:c8k3", "conv"] == 2 * 2 * 12 and scratch["3:c16k3", "conv"] == 2 * 2 * 9 * 8
     assert scratch["2:p2", "maxpool"] == 0
     assert live["1:c8k3", "relu"] == 0  # in place
     assert cost.peak_int8_bytes == 10_240 and cost.peak_op == "2:p2"
@@ -119,14 +120,15 @@ def test_in_place_ops_add_nothing_and_input_counts_once():
 
 
 def test_flash_follows_the_int8_layout():
-    """Flash = 256*c input table + 1 B per weight + 12 B per output channel; bn after conv folds."""
+    """Flash = 256*c input table + 1 B per weight (a convolution's filters padded to a
+    multiple of 4 values: 27 -> 28) + 16 B per output channel; bn after conv folds."""
     cost = cost_of("16x16rgb/c8k3-bn-p2-dw3-bn-gap-d10", 4)
     table = 256 * 3
-    conv = 3 * 3 * 3 * 8 + 12 * 8
-    dw = 3 * 3 * 8 + 12 * 8
-    hidden = 8 * 10 + 12 * 10
-    head = 10 * 4 + 12 * 4
-    assert cost.flash_bytes == table + conv + dw + hidden + head == 1_536
+    conv = 28 * 8 + 16 * 8
+    dw = 3 * 3 * 8 + 16 * 8
+    hidden = 8 * 10 + 16 * 10
+    head = 10 * 4 + 16 * 4
+    assert cost.flash_bytes == table + conv + dw + hidden + head == 1_664
     assert all(r.flash_bytes == 0 and r.folded for r in cost.rows if r.kind == "bn")
     assert cost.exportable
 
@@ -245,10 +247,11 @@ def test_command_totals_equal_hand_computed_formulas(capsys):
     # c8k3 on 32x32x3 -> p2 -> c16k3 on 16x16x8 -> p2 -> gap (16) -> dense 16->8
     params = conv_params(3, 3, 8) + conv_params(3, 8, 16) + dense_params(16, 8)
     macs = conv_macs(32, 32, 3, 3, 8) + conv_macs(16, 16, 3, 8, 16) + 16 * 8
-    flash = 256 * 3 + (3 * 3 * 3 * 8 + 12 * 8) + (3 * 3 * 8 * 16 + 12 * 16) + (16 * 8 + 12 * 8)
-    # first conv: input + output + two int16 patches of 3*3*3 values
-    peak = 32 * 32 * 3 + 32 * 32 * 8 + 2 * 2 * 27
-    assert (params, macs, flash, peak) == (1_528, 516_224, 2_648, 11_372)
+    # filters of 27 values padded to 28; 16 B a channel
+    flash = 256 * 3 + (28 * 8 + 16 * 8) + (3 * 3 * 8 * 16 + 16 * 16) + (16 * 8 + 16 * 8)
+    # first conv: input + output + two int16 patches of 3*3*3 values padded to 28
+    peak = 32 * 32 * 3 + 32 * 32 * 8 + 2 * 2 * 28
+    assert (params, macs, flash, peak) == (1_528, 516_224, 2_784, 11_376)
     lines = {line.split("  ")[0]: line for line in out.splitlines()}
     assert lines["parameters"].split()[-1] == f"{params:,}"
     assert lines["MACs per image"].split()[-1] == f"{macs:,}"
@@ -284,11 +287,11 @@ def test_command_bad_text_exits_2(capsys):
 
 def test_peak_is_never_below_any_buffer_pair():
     """Peak = max over buffer-writing ops of in + out (+ a conv's two int16 patches of
-    k*k*c_in values in int8), checked with math on a text."""
+    k*k*c_in values rounded up to a multiple of 4, in int8), checked with math on a text."""
     text = "20x20rgb/c10k3s2-a2-dw3-c12k1-p5"
     cost = cost_of(text, 4)
     pairs = [math.prod(op.in_shape) + math.prod(op.out_shape)
-             + (4 * op.kernel ** 2 * op.in_shape[2] if op.kind == "conv" else 0)
+             + (4 * -(-op.kernel ** 2 * op.in_shape[2] // 4) * 4 if op.kind == "conv" else 0)
              for op in expand(parse(text), 4)
              if op.kind in ("conv", "dwconv", "maxpool", "avgpool", "gap", "dense")]
     assert cost.peak_int8_bytes == max(pairs + [20 * 20 * 3])

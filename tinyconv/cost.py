@@ -15,8 +15,9 @@ Counting rules (the contract in DEVELOPERS.md, "Cost"):
   in the int8 kernels.
 * **flash** (int8 deployment layout, byte for byte what ``export/`` writes):
   the input table of ``256*c`` int8; per conv/dwconv/dense one byte per weight
-  plus 12 bytes per output channel (int32 bias, int32 multiplier, int32
-  shift); a batch norm directly after conv/dwconv/dense is folded into it and
+  (a convolution's filters padded with zeros to a multiple of 4 values) plus 16
+  bytes per output channel (one record of int32 bias, multiplier, rounding
+  constant and shift); a batch norm directly after conv/dwconv/dense is folded into it and
   costs nothing. A batch norm anywhere else has no int8 form: the exporter
   refuses it, and :attr:`Cost.exportable` is False (its flash counts 0).
 * **peak activation memory**: tensors live from the step that writes them
@@ -24,9 +25,9 @@ Counting rules (the contract in DEVELOPERS.md, "Cost"):
   the input quantisation and the ops that write a new buffer: conv, dwconv,
   maxpool, avgpool, gap, dense, add). At each step the tensors alive together
   are summed, plus in int8 the scratch its kernel needs (a convolution's two
-  int16 patches, ``4 k k c_in`` bytes; see :func:`scratch_bytes`); the peak
-  is the largest such sum. In a chain that is the step's input + output;
-  inside a residual block the block's input is alive too, until the addition
+  int16 patches, ``4 Kp`` bytes, ``Kp`` = ``k k c_in`` rounded up to a multiple
+  of 4; see :func:`scratch_bytes`); the peak is the largest such sum. In a
+  chain that is the step's input + output; inside a residual block the block's input is alive too, until the addition
   that closes the block reads it. ReLU, batch norm, dropout and flatten work
   in place and add nothing. The C places every tensor and scratch at an
   offset planned from these live ranges, in one buffer of exactly the int8

@@ -19,8 +19,9 @@ from typing import Callable
 
 from tinyconv.ops import Op
 
-#: flash bytes per output channel of a weighted op: int32 bias, multiplier, shift
-CHANNEL_BYTES = 12
+#: flash bytes per output channel of a weighted op: one record of int32 bias,
+#: multiplier, rounding constant and shift (tinyconv.export.c_layout.channel_records)
+CHANNEL_BYTES = 16
 #: rows of the input lookup table (one per raw 8-bit pixel value)
 INPUT_TABLE_ROWS = 256
 KB = 1024
@@ -60,8 +61,10 @@ class OpRule:
 
 def _conv_numbers(op: Op) -> tuple[int, int, int, int]:
     f, shape_out = op.filters, op.out_shape
-    weights = op.kernel * op.kernel * op.in_shape[2] * f
-    return weights + f, 0, shape_out[0] * shape_out[1] * weights, weights + CHANNEL_BYTES * f
+    k_total = op.kernel * op.kernel * op.in_shape[2]
+    weights = k_total * f
+    stored = -(-k_total // 4) * 4 * f  # each filter padded to whole groups of four values
+    return weights + f, 0, shape_out[0] * shape_out[1] * weights, stored + CHANNEL_BYTES * f
 
 
 def _dwconv_numbers(op: Op) -> tuple[int, int, int, int]:
@@ -87,8 +90,10 @@ def _free(op: Op) -> tuple[int, int, int, int]:
 
 def conv_scratch(op: Op) -> int:
     """A convolution copies the receptive fields of two output pixels into an
-    int16 buffer (``x - zp``, padding 0) before multiplying: ``4 k k c_in`` bytes."""
-    return 4 * op.kernel * op.kernel * op.in_shape[2]
+    int16 buffer (``x - zp``, padding 0, each rounded up to whole groups of four
+    values with zeros) before multiplying: ``4 Kp`` bytes, ``Kp`` = ``k k c_in``
+    rounded up to a multiple of 4."""
+    return 4 * (-(-op.kernel * op.kernel * op.in_shape[2] // 4) * 4)
 
 
 def _input(op: Op) -> int:
@@ -144,8 +149,8 @@ def scratch_bytes(op: Op) -> int:
     """Bytes of scratch the int8 kernel of ``op`` needs in the activation buffer.
 
     A convolution copies the receptive fields of two output pixels into an
-    int16 buffer (``x - zp``, padding 0) before multiplying: ``4 k k c_in``
-    bytes. The other kernels loop directly.
+    int16 buffer (``x - zp``, padding 0) before multiplying: ``4 Kp`` bytes
+    (``k k c_in`` rounded up to a multiple of 4). The other kernels loop directly.
     """
     return rule_of(op.kind).scratch(op)
 

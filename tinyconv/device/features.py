@@ -122,14 +122,14 @@ def _window(op: Op) -> _Window:
 def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     """conv (:mod:`tinyconv.export.c_fast_conv`): pairs of pixels, their patches, and per
     pair of pixels and pair of filters two groups of four a turn, one left-over
-    group, the single values of ``K % 4``, and the requantisation."""
+    group (``K`` rounded up to whole groups), and the requantisation."""
     win, f = _window(op), op.out_shape[2]
     c, k, vy, vx, n = win.c, win.k, win.vy, win.vx, win.oh * win.ow
     kk = k * k * c
     pixel_pairs, filter_pairs = -(-n // 2), f // 2
     odd = f % 2
     slots = 2 * pixel_pairs  # a last odd pixel's patch is built twice
-    groups = kk // 4
+    groups = -(-kk // 4)  # the exporter pads K with zeros to whole groups
     # the patch: by table for a short K whose kernel rows do not fill whole groups
     # (inside pixels), a window whose rows fill groups in one call (inside pixels),
     # else row by row, four values a step where rows fill groups
@@ -154,9 +154,7 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
             "blocks": float(pixel_pairs * filter_pairs),
             "group_pairs": float(pixel_pairs * filter_pairs * (groups // 2)),
             "group_last": float(pixel_pairs * filter_pairs * (groups % 2)),
-            "singles": float(pixel_pairs * filter_pairs * (kk % 4)),
             "odd_steps4": float(pixel_pairs * odd * groups),
-            "odd_singles": float(pixel_pairs * odd * (kk % 4)),
             "outputs": float(slots * f)}
 
 

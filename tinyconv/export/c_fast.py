@@ -16,7 +16,7 @@ the NumPy reference, bit for bit, but arranged for a small core:
   one signed 64-bit multiply-add, the output zero point folded into its
   rounding constant, the clamp through ``SSAT`` where the core has it;
   multipliers whose shift lies outside 2..23 take the general form; every
-  weighted kernel reads one ``[bias, multiplier, shift]`` record a channel
+  weighted kernel reads one ``[bias, multiplier, nh, code]`` record a channel
   (:func:`tinyconv.export.c_layout.channel_records`);
 * the **residual addition** (:mod:`tinyconv.export.c_add`): one pass over the
   values, three rescalings each, on the magnitude like the requantisation.
@@ -32,7 +32,7 @@ and written with ``memcpy``, which compilers turn into single loads and
 stores on these cores.
 """
 
-from tinyconv.export.c_layout import RAISED_CLAMP_SHIFT
+from tinyconv.export.c_layout import RARE_CODE_OFFSET
 
 DSP = r"""
 /* Small helpers inlined into the kernels (where the compiler allows it). */
@@ -122,7 +122,8 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
    up; then of that / 2^shift, halves away from zero) nest into one,
    (acc * mult + N) >> (31 + shift) with N = 2^(30 + shift) + 2^30 for acc >= 0
    and 2^(30 + shift) - 2^30 below, plus zp * 2^(31 + shift). nh is the high
-   word of N for acc >= 0, s1 = shift - 1 (see @P@_rq_nh). */
+   word of N for acc >= 0, (2 zp + 1) 2^(shift - 2), and s1 = shift - 1: both
+   stored in the channel's record (c_layout.channel_records). */
 @U@_INLINE int32_t @P@_rq1(int32_t acc, int32_t mult, uint32_t nh, int32_t s1)
 {
     uint32_t m = 0u - (uint32_t)(acc < 0);  /* all ones below zero */
@@ -131,19 +132,19 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
     return (int32_t)(uint32_t)(p >> 32) >> s1;
 }
 
-/* The high word of @P@_rq1's constant, 2^(shift - 2) + zp * 2^(shift - 1),
-   as zq * 2^(shift - 2) with zq = 2 zp + 1 (one shift a channel). */
-@U@_INLINE uint32_t @P@_rq_nh(int32_t shift, int32_t zp)
+/* A record's code: shift - 1 for the one-product form (1..22), the shift + @RARE@
+   for the general form (23 and up; c_layout.channel_records). */
+#define @U@_ONE_PRODUCT(code) ((uint32_t)(code) <= 22u)
+@U@_INLINE int32_t @P@_shift_of(int32_t code)
 {
-    return (uint32_t)(2 * zp + 1) << (shift - 2);
+    return @U@_ONE_PRODUCT(code) ? code + 1 : code - @RARE@;
 }
 
 /* The general form for the rare channels outside the one-product range, kept out
    of line so that every kernel's hot path stays short. */
-@U@_OUTLINE int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
+@U@_OUTLINE int8_t @P@_rq_rare(int32_t acc, int32_t mult, int32_t code, int32_t zp, int32_t lo)
 {
-    if (shift >= @RAISED@ - 16) shift -= @RAISED@;  /* a lower clamp above -128 */
-    return @P@_rq(acc, mult, shift, zp, lo, 127);
+    return @P@_rq(acc, mult, code - @RARE@, zp, lo, 127);
 }
 
 /* Saturate to int8 (the upper clamp of every layer is 127, which the exporter
@@ -152,8 +153,8 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
    below into compares, and the Arm C Language Extensions' __ssat warns under
    -Wsign-conversion with GCC 12), the C elsewhere. A lower clamp above -128
    (after a ReLU whose output zero point is above -128) is the general form's:
-   such a layer's shifts are stored @RAISED@ higher (c_layout.channel_records), so
-   none of its channels takes the one-product form, which saturates only. */
+   every channel of such a layer has a general-form code in its record
+   (c_layout.channel_records), as the one-product form saturates only. */
 @U@_INLINE int32_t @P@_sat8(int32_t v)
 {
 #if defined(__GNUC__) && defined(__ARM_FEATURE_SAT) && __ARM_FEATURE_SAT
@@ -165,31 +166,36 @@ typedef char @P@_needs_arithmetic_shift[(-8 >> 1 == -4 && (int32_t)0xFFFFFFF8u =
 #endif
 }
 
-/* Requantise two accumulators of one channel (two pixels) and clamp to
-   [lo, 127]; the channel's constants are worked out once; stored shifts outside
-   2..23 (rare shifts, and every channel of a layer whose lower clamp is above
-   -128) take the general form. */
-@U@_INLINE void @P@_out2(int32_t a0, int32_t a1, int32_t mult, int32_t shift, int32_t zp,
-                         int32_t lo, int8_t *y0, int8_t *y1)
+/* Requantise two accumulators of one channel (two pixels) with its record r
+   (bias, multiplier, nh, code) and clamp to [lo, 127]; codes of the general
+   form (rare shifts, and every channel of a layer whose lower clamp is above
+   -128) take it. */
+@U@_INLINE void @P@_out2(int32_t a0, int32_t a1, const int32_t *r, int32_t zp, int32_t lo,
+                         int8_t *y0, int8_t *y1)
 {
-    if ((uint32_t)(shift - 2) <= 21u) {
-        uint32_t nh = @P@_rq_nh(shift, zp);
-        *(uint8_t *)y0 = (uint8_t)@P@_sat8(@P@_rq1(a0, mult, nh, shift - 1));
-        *(uint8_t *)y1 = (uint8_t)@P@_sat8(@P@_rq1(a1, mult, nh, shift - 1));
+    /* the record read before either store: a byte store may alias it */
+    int32_t mult = r[1], code = r[3];
+    uint32_t nh = (uint32_t)r[2];
+    if (@U@_ONE_PRODUCT(code)) {
+        int32_t v0 = @P@_sat8(@P@_rq1(a0, mult, nh, code));
+        int32_t v1 = @P@_sat8(@P@_rq1(a1, mult, nh, code));
+        *(uint8_t *)y0 = (uint8_t)v0;
+        *(uint8_t *)y1 = (uint8_t)v1;
     } else {
-        *y0 = @P@_rq_rare(a0, mult, shift, zp, lo);
-        *y1 = @P@_rq_rare(a1, mult, shift, zp, lo);
+        int8_t v0 = @P@_rq_rare(a0, mult, code, zp, lo);
+        *y1 = @P@_rq_rare(a1, mult, code, zp, lo);
+        *y0 = v0;
     }
 }
 
-/* Requantise one accumulator and clamp to [lo, 127] (the one-product form
-   where the stored shift is in 2..23, as above). */
-@U@_INLINE int8_t @P@_out1(int32_t acc, int32_t mult, int32_t shift, int32_t zp, int32_t lo)
+/* Requantise one accumulator with its record r and clamp to [lo, 127] (as above). */
+@U@_INLINE int8_t @P@_out1(int32_t acc, const int32_t *r, int32_t zp, int32_t lo)
 {
-    if ((uint32_t)(shift - 2) > 21u) return @P@_rq_rare(acc, mult, shift, zp, lo);
-    return (int8_t)@P@_sat8(@P@_rq1(acc, mult, @P@_rq_nh(shift, zp), shift - 1));
+    int32_t code = r[3];
+    if (!@U@_ONE_PRODUCT(code)) return @P@_rq_rare(acc, r[1], code, zp, lo);
+    return (int8_t)@P@_sat8(@P@_rq1(acc, r[1], (uint32_t)r[2], code));
 }
-""".replace("@RAISED@", str(RAISED_CLAMP_SHIFT))
+""".replace("@RARE@", str(RARE_CODE_OFFSET))
 
 DOT_DIRECT = r"""
 /* sum_i w[i] * x[i] over n int8 values, two rows of weights at once (a0: w0, a1: w1). */
@@ -236,12 +242,12 @@ DENSE = r"""
     (void)hi;  /* 127: see @P@_sat8 */
     for (o = 0; o < n_out; o += 2) {
         const int8_t *w0 = wt + o * n_in;
-        const int32_t *r = rec + 3 * o;  /* bias, multiplier, shift an output */
+        const int32_t *r = rec + 4 * o;  /* bias, multiplier, nh, code an output */
         int32_t a0 = r[0], a1 = 0;
-        if (o + 1 < n_out) a1 = r[3];
+        if (o + 1 < n_out) a1 = r[4];
         @P@_dot2(x, w0, o + 1 < n_out ? w0 + n_in : w0, n_in, &a0, &a1);
-        y[o] = @P@_out1(a0, r[1], r[2], yz, lo);
-        if (o + 1 < n_out) y[o + 1] = @P@_out1(a1, r[4], r[5], yz, lo);
+        y[o] = @P@_out1(a0, r, yz, lo);
+        if (o + 1 < n_out) y[o + 1] = @P@_out1(a1, r + 4, yz, lo);
     }
 }
 """
@@ -258,14 +264,15 @@ HEAD = r"""
     for (o = 0; o < n_out; o += 2) {
         const int8_t *w0 = wt + o * n_in;
         int32_t acc[2];
-        acc[0] = rec[3 * o];
-        acc[1] = o + 1 < n_out ? rec[3 * o + 3] : 0;
+        acc[0] = rec[4 * o];
+        acc[1] = o + 1 < n_out ? rec[4 * o + 4] : 0;
         @P@_dot2(x, w0, o + 1 < n_out ? w0 + n_in : w0, n_in, &acc[0], &acc[1]);
         for (j = 0; j < 2 && o + j < n_out; ++j) {
             int64_t value;
-            const int32_t *r = rec + 3 * (o + j);  /* bias, multiplier, shift */
-            y[o + j] = @P@_rq(acc[j], r[1], r[2], yz, INT8_MIN, INT8_MAX);
-            value = (int64_t)@P@_scale(acc[j], r[1], r[2] - 8)
+            const int32_t *r = rec + 4 * (o + j);  /* bias, multiplier, nh, code */
+            int32_t shift = @P@_shift_of(r[3]);
+            y[o + j] = @P@_rq(acc[j], r[1], shift, yz, INT8_MIN, INT8_MAX);
+            value = (int64_t)@P@_scale(acc[j], r[1], shift - 8)
                     + (int64_t)yz * 256;
             if (o + j == 0 || value > best_value) {
                 best = o + j;

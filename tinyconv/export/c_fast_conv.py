@@ -4,11 +4,12 @@ Two output pixels at a time: their receptive fields are copied into the
 scratch as int16 ``x - zp`` (:data:`PATCH`; taps in the padding are 0, so the
 product has no branches), then every pair of filters is multiplied with both
 patches at once (:data:`CONV`: four accumulators, two filters x two pixels),
-four values of ``K = k k c`` a step. The two patches are interleaved so that
-one pointer walks both: group by group (four values), the first pixel's four
-then the second's, each group's values stored in the order (0, 2, 1, 3); then
-the last ``K % 4`` values one by one, the first pixel's then the second's
-(:func:`patch_offset` says the same in Python). The weights come from
+four values of ``K = k k c`` a step, ``K`` rounded up to whole groups of four
+(``Kp``: the weights carry zeros there, the patches 0, so no step is left
+over). The two patches are interleaved so that one pointer walks both: group
+by group (four values), the first pixel's four then the second's, each
+group's values stored in the order (0, 2, 1, 3) (:func:`patch_offset` says the
+same in Python). The weights come from
 :func:`tinyconv.export.c_layout.weights`: per pair of filters, group by group,
 four values of the first then four of the second, in order. So on the DSP
 path one 32-bit load of four weights gives the pairs (0, 2) and (1, 3) through
@@ -32,12 +33,9 @@ PATCH_GROUP_ORDER = (0, 2, 1, 3)
 PATCH_TABLE = 32
 
 
-def patch_offset(j: int, pixel: int, k_total: int) -> int:
+def patch_offset(j: int, pixel: int) -> int:
     """Byte offset of value ``j`` of ``pixel`` (0 or 1) in the interleaved patch pair."""
-    full = k_total // 4 * 4
-    if j < full:
-        return 16 * (j // 4) + 8 * pixel + 2 * PATCH_GROUP_ORDER.index(j % 4)
-    return 4 * j + 2 * pixel
+    return 16 * (j // 4) + 8 * pixel + 2 * PATCH_GROUP_ORDER.index(j % 4)
 
 
 PATCH = r"""
@@ -76,25 +74,23 @@ PATCH = r"""
     }
 }
 
-/* Byte offset of value j of pixel q in the interleaved pair: in a group
-   (j < full) at 16 (j / 4) + 8 q + 2 r with r = 0, 2, 1, 3 for j % 4 = 0..3;
-   in the tail at 4 j + 2 q. */
-@U@_INLINE int32_t @P@_at(int32_t j, int32_t full, int32_t q)
+/* Byte offset of value j of pixel q in the interleaved pair: 16 (j / 4) + 8 q
+   + 2 r with r = 0, 2, 1, 3 for j % 4 = 0..3. */
+@U@_INLINE int32_t @P@_at(int32_t j, int32_t q)
 {
-    if (j >= full) return 4 * j + 2 * q;
     return 16 * (j >> 2) + 8 * q + 4 * (j & 1) + 2 * ((j >> 1) & 1);
 }
 
 /* Values j .. j + n - 1 of pixel q's patch as int16 x - zp into the interleaved
    pair at col (zeros when src is 0: taps in the padding). */
 @U@_OUTLINE void @P@_put(const int8_t *src, int8_t *col, int32_t j, int32_t n,
-                         int32_t xz, int32_t full, int32_t q)
+                         int32_t xz, int32_t q)
 {
     int32_t e = j + n;
     while (j < e) {
         int16_t v = 0;
-        if ((j & 3) == 0 && j + 4 <= e && j + 4 <= full) {  /* whole groups */
-            int32_t n4 = ((e < full ? e : full) - j) >> 2;
+        if ((j & 3) == 0 && j + 4 <= e) {  /* whole groups */
+            int32_t n4 = (e - j) >> 2;
             if (src) {
                 @P@_groups(src, 0, col + 4 * j + 8 * q, 1, n4, xz);
                 src += 4 * n4;
@@ -107,29 +103,23 @@ PATCH = r"""
             continue;
         }
         if (src) v = (int16_t)(*src++ - xz);  /* one value (all of a padding run) */
-        memcpy(col + @P@_at(j, full, q), &v, 2);
+        memcpy(col + @P@_at(j, q), &v, 2);
         ++j;
     }
 }
 
 /* Two inside pixels' patches by table (a short K whose kernel rows do not fill
    whole groups: first layers of 1 or 3 channels): value j from p0 + so[j] and
-   p1 + so[j] into col + at[j] (slot 0) and the same + 8 in the groups, + 2 in
-   the tail (slot 1). */
+   p1 + so[j] into col + at[j] (slot 0) and col + at[j] + 8 (slot 1). */
 @U@_OUTLINE void @P@_patch_table(const int8_t *p0, const int8_t *p1, int8_t *col,
                                  const int16_t *so, const uint8_t *at, int32_t K,
-                                 int32_t full, int32_t xz)
+                                 int32_t xz)
 {
     int32_t j;
-    for (j = 0; j < full; ++j) {
+    for (j = 0; j < K; ++j) {
         int16_t v0 = (int16_t)(p0[so[j]] - xz), v1 = (int16_t)(p1[so[j]] - xz);
         memcpy(col + at[j], &v0, 2);
         memcpy(col + at[j] + 8, &v1, 2);
-    }
-    for (; j < K; ++j) {
-        int16_t v0 = (int16_t)(p0[so[j]] - xz), v1 = (int16_t)(p1[so[j]] - xz);
-        memcpy(col + at[j], &v0, 2);
-        memcpy(col + at[j] + 2, &v1, 2);
     }
 }
 
@@ -139,7 +129,7 @@ PATCH = r"""
                            int32_t w, int32_t c, int32_t k, int32_t iy0, int32_t ix0,
                            int32_t xz)
 {
-    int32_t ky, kx, row = k * c, full = (k * row) & ~3;
+    int32_t ky, kx, row = k * c;
     if ((row & 3) == 0 && iy0 >= 0 && ix0 >= 0 && iy0 + k <= h && ix0 + k <= w) {
         /* the whole window inside, its rows filling groups: one call */
         @P@_groups(x + (iy0 * w + ix0) * c, w * c, col + 8 * q, k, row >> 2, xz);
@@ -148,13 +138,13 @@ PATCH = r"""
     for (ky = 0; ky < k; ++ky) {
         int32_t iy = iy0 + ky, j = ky * row;
         if (iy < 0 || iy >= h) {
-            @P@_put(0, col, j, row, 0, full, q);
+            @P@_put(0, col, j, row, 0, q);
         } else if (ix0 >= 0 && ix0 + k <= w) {  /* the whole kernel row inside */
-            @P@_put(x + (iy * w + ix0) * c, col, j, row, xz, full, q);
+            @P@_put(x + (iy * w + ix0) * c, col, j, row, xz, q);
         } else {
             for (kx = 0; kx < k; ++kx, j += c) {
                 int32_t ix = ix0 + kx;
-                @P@_put(ix < 0 || ix >= w ? 0 : x + (iy * w + ix) * c, col, j, c, xz, full, q);
+                @P@_put(ix < 0 || ix >= w ? 0 : x + (iy * w + ix) * c, col, j, c, xz, q);
             }
         }
     }
@@ -256,50 +246,49 @@ CONV = r"""
 #define @U@_HAS_GROUPD 0
 #endif
 
-/* Value i of the pair's tails: filter a's at wp[i], b's at wp[t + i]. */
-#define @U@_TAIL(i)                                                           \
-    do {                                                                      \
-        int32_t x0 = @P@_ld16(pp + 4 * (i)), x1 = @P@_ld16(pp + 4 * (i) + 2);  \
-        a00 += wp[i] * x0;                                                    \
-        a01 += wp[i] * x1;                                                    \
-        a10 += wp[t + (i)] * x0;                                              \
-        a11 += wp[t + (i)] * x1;                                              \
-    } while (0)
-
 /* Every filter x the two pixels of the interleaved patch pair at col (the
    same pixel twice for a last odd pixel, whose outputs y1 = y0 are written
-   twice). Pair layout: group by group (four values of K), the first pixel's
-   four int16 then the second's, each as values (0, 2, 1, 3); then the last
-   K % 4 values, value by value, the first pixel's then the second's. Weights:
-   per pair of filters, group by group, four values of the first then four of
-   the second, then the pair's tails (K % 4 values each); a last odd filter
-   alone the same way. */
+   twice). K is a multiple of 4 (the exporter pads the weights, the patches
+   hold zeros there). Pair layout: group by group (four values of K), the
+   first pixel's four int16 then the second's, each as values (0, 2, 1, 3).
+   Weights: per pair of filters, group by group, four values of the first then
+   four of the second; a last odd filter alone, in order. */
+/* One pair of filters (o, o + 1) by both pixels: the accumulators from the
+   records, STEPS over the groups, the four outputs. */
+#define @U@_PAIR(STEPS)                                                       \
+    do {                                                                      \
+        const int8_t *pp = col;  /* wp runs on from one pair to the next */   \
+        const int32_t *r = rec + 4 * o;  /* bias, multiplier, nh, code a filter */ \
+        int32_t a00 = r[0], a01 = r[0], a10 = r[4], a11 = r[4];               \
+        STEPS;                                                                \
+        @P@_out2(a00, a01, r, yz, lo, y0 + o, y0 + o + d);                    \
+        @P@_out2(a10, a11, r + 4, yz, lo, y0 + o + 1, y0 + o + 1 + d);        \
+    } while (0)
+
 static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
                    const int32_t *rec, int32_t yz, int32_t lo, int8_t *y0, int8_t *y1)
 {
-    int32_t i, o, t = K & 3, g = K >> 2, d = (int32_t)(y1 - y0);
+    int32_t i, o, g = K >> 2, d = (int32_t)(y1 - y0);
     const int8_t *stop = col + 16 * g, *stop2 = col + 32 * (g >> 1), *wp = wt;
 #if @U@_HAS_GROUPD
-    /* every pair of filters' weights and the patch pair on a word boundary */
-    int32_t aligned = (((uintptr_t)col | (uintptr_t)wt | (uintptr_t)K) & 3u) == 0;
-#endif
-    for (o = 0; o < (f & ~1); o += 2) {
-        const int8_t *pp = col;  /* wp runs on from one pair of filters to the next */
-        const int32_t *r = rec + 3 * o;  /* the pair's records: bias, multiplier, shift */
-        int32_t a00 = r[0], a01 = r[0], a10 = r[3], a11 = r[3];
-#if @U@_HAS_GROUPD
-        if (aligned) {
-            while (pp != stop2) {  /* two groups a turn, two words a load */
-                @U@_GROUPD(0);
-                @U@_GROUPD(0);
-            }
-            if (pp != stop) @U@_GROUPD(0);
-        } else
-#endif
-        {
-#if @U@_HAS_GROUPD
-            while (pp != stop) @U@_GROUP(0);  /* unaligned layers (first ones): short */
+    /* every pair of filters' weights and the patch pair on a word boundary (the
+       test outside the loop over filters: one copy of the loop each way) */
+    if ((((uintptr_t)col | (uintptr_t)wt) & 3u) == 0) {
+        for (o = 0; o < (f & ~1); o += 2)  /* two groups a turn, two words a load */
+            @U@_PAIR({
+                while (pp != stop2) {
+                    @U@_GROUPD(0);
+                    @U@_GROUPD(0);
+                }
+                if (pp != stop) @U@_GROUPD(0);
+            });
+    } else {
+        for (o = 0; o < (f & ~1); o += 2)
+            @U@_PAIR(while (pp != stop) @U@_GROUP(0));
+    }
 #else
+    for (o = 0; o < (f & ~1); o += 2)
+        @U@_PAIR({
             while (pp != stop2) {  /* two groups a turn */
                 @U@_GROUP(0);
                 @U@_GROUP(1);
@@ -311,20 +300,11 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
                 wp += 8;
                 pp += 16;
             }
+        });
 #endif
-        }
-        if (t) {  /* the last K % 4 values, written out (no loop for 1 to 3) */
-            @U@_TAIL(0);
-            if (t > 1) @U@_TAIL(1);
-            if (t > 2) @U@_TAIL(2);
-            wp += 2 * t;
-        }
-        @P@_out2(a00, a01, r[1], r[2], yz, lo, y0 + o, y0 + o + d);
-        @P@_out2(a10, a11, r[4], r[5], yz, lo, y0 + o + 1, y0 + o + 1 + d);
-    }
     if (f & 1) {  /* a last odd filter */
         const int8_t *pp = col;
-        const int32_t *r = rec + 3 * o;
+        const int32_t *r = rec + 4 * o;
         int32_t a00 = r[0], a01 = r[0];
         for (i = 0; i < g; ++i) {
             a00 += wp[0] * @P@_ld16(pp) + wp[1] * @P@_ld16(pp + 4)
@@ -334,30 +314,32 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
             wp += 4;
             pp += 16;
         }
-        for (i = 0; i < t; ++i) {
-            a00 += wp[i] * @P@_ld16(pp + 4 * i);
-            a01 += wp[i] * @P@_ld16(pp + 4 * i + 2);
-        }
-        @P@_out2(a00, a01, r[1], r[2], yz, lo, y0 + o, y0 + o + d);
+        @P@_out2(a00, a01, r, yz, lo, y0 + o, y0 + o + d);
     }
 }
 
 /* Convolution, NHWC, two output pixels at a time through the interleaved
-   int16 patch pair in `col` (2 k k c values). */
+   int16 patch pair in `col` (2 Kp values: k k c rounded up to a multiple of 4,
+   the values past k k c zero). */
 @U@_KERNEL void @P@_conv(const int8_t *x, int8_t *y, int8_t *col, int32_t h, int32_t w,
                          int32_t c, int32_t oh, int32_t ow, int32_t f, int32_t k,
                          int32_t s, int32_t pt, int32_t pl, int32_t xz, const int8_t *wt,
                          const int32_t *rec, int32_t yz, int32_t lo, int32_t hi)
 {
-    int32_t K = k * k * c, n = oh * ow, p, j;
-    int32_t full = K & ~3, table = K <= @U@_TABLE && ((k * c) & 3) != 0;
+    int32_t K = k * k * c, Kp = (K + 3) & ~3, n = oh * ow, p, j;
+    int32_t table = K <= @U@_TABLE && ((k * c) & 3) != 0;
     int16_t so[@U@_TABLE];  /* the patch by table (see @P@_patch_table) */
     uint8_t at[@U@_TABLE];
     (void)hi;  /* 127: see @P@_sat8 */
     for (j = 0; table && j < K; ++j) {
         int32_t ky = j / (k * c), r = j - ky * k * c;
         so[j] = (int16_t)(ky * w * c + r);
-        at[j] = (uint8_t)(j < full ? 16 * (j >> 2) + 4 * (j & 1) + 2 * ((j >> 1) & 1) : 4 * j);
+        at[j] = (uint8_t)@P@_at(j, 0);
+    }
+    for (j = K; j < Kp; ++j) {  /* the padding of the last group: zero, never written again */
+        int16_t zero = 0;
+        memcpy(col + @P@_at(j, 0), &zero, 2);
+        memcpy(col + @P@_at(j, 1), &zero, 2);
     }
     for (p = 0; p < n; p += 2) {
         int32_t oy = p / ow, ox = p - oy * ow, q = p + 1 < n ? p + 1 : p;
@@ -366,12 +348,12 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
         if (table && iy0 >= 0 && ix0 >= 0 && iy0 + k <= h && ix0 + k <= w && iy1 >= 0
             && ix1 >= 0 && iy1 + k <= h && ix1 + k <= w) {  /* both inside: by table */
             @P@_patch_table(x + (iy0 * w + ix0) * c, x + (iy1 * w + ix1) * c, col, so, at,
-                            K, full, xz);
+                            K, xz);
         } else {
             @P@_patch(x, col, 0, h, w, c, k, iy0, ix0, xz);
             @P@_patch(x, col, 1, h, w, c, k, iy1, ix1, xz);
         }
-        @P@_mm(col, K, f, wt, rec, yz, lo, y + p * f, y + q * f);
+        @P@_mm(col, Kp, f, wt, rec, yz, lo, y + p * f, y + q * f);
     }
 }
 """.replace("@TABLE@", str(PATCH_TABLE))

@@ -66,8 +66,8 @@ DWCONV = r"""
             int32_t wstep = (k - (kx1 - kx0)) * c;
             int8_t *out = y + (oy * ow + ox) * c;
             for (ch = 0; ch + 4 <= c; ch += 4) {
-                const int32_t *r = rec + 3 * ch;  /* bias, multiplier, shift a channel */
-                int32_t a0 = r[0], a1 = r[3], a2 = r[6], a3 = r[9];
+                const int32_t *r = rec + 4 * ch;  /* bias, multiplier, nh, code a channel */
+                int32_t a0 = r[0], a1 = r[4], a2 = r[8], a3 = r[12];
                 const int8_t *px = base + ch, *pw = wbase + ch;
                 for (ky = ky0; ky < ky1; ++ky) {
                     if (kx1 - kx0 == 3) {  /* a whole row of a 3-wide window, written out */
@@ -105,11 +105,11 @@ DWCONV = r"""
                     acc[2] = a2;
                     acc[3] = a3;
                     for (i = 0; i < 4; ++i)
-                        out[ch + i] = @P@_out1(acc[i], r[3 * i + 1], r[3 * i + 2], yz, lo);
+                        out[ch + i] = @P@_out1(acc[i], r + 4 * i, yz, lo);
                 }
             }
             for (; ch < c; ++ch) {
-                const int32_t *r = rec + 3 * ch;
+                const int32_t *r = rec + 4 * ch;
                 int32_t a0 = r[0];
                 const int8_t *px = base + ch, *pw = wbase + ch;
                 for (ky = ky0; ky < ky1; ++ky) {
@@ -129,7 +129,7 @@ DWCONV = r"""
                         }
                     }
                 }
-                out[ch] = @P@_out1(a0, r[1], r[2], yz, lo);
+                out[ch] = @P@_out1(a0, r, yz, lo);
             }
         }
     }

@@ -7,8 +7,9 @@ C library beyond ``<stdint.h>`` and ``<string.h>``. Its parts:
   and per conv/dwconv/dense layer the int8 weights and the int32 bias,
   multiplier and shift per output channel (the deployment layout of
   DEVELOPERS.md, so flash = the sum of their ``sizeof``): three arrays in the
-  plain style, one array of ``[bias, multiplier, shift]`` records in the fast
-  style (``{prefix}_l{i}_rec``, the same bytes; one pointer walks it);
+  plain style, one array of ``[bias, multiplier, nh, code]`` records in the
+  fast style (``{prefix}_l{i}_rec``, with the rounding constant; one pointer
+  walks it; conv weights padded to whole groups of four values);
 * one ``static int8_t`` activation buffer of exactly the cost model's int8
   peak, each tensor and scratch at an offset planned from the live ranges
   (:mod:`tinyconv.export.placement`): tensors alive at one step never overlap, a
