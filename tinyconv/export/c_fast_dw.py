@@ -88,25 +88,24 @@ DWCONV = r"""
                 }
                 if (edge) {  /* the padding's taps hold the zero point */
                     for (ky = 0; ky < k; ++ky) {
+                        int32_t row = ky < ky0 || ky >= ky1;  /* a whole row in the padding */
                         for (kx = 0; kx < k; ++kx) {
                             const int8_t *q = wt + (ky * k + kx) * c + ch;
-                            if (ky >= ky0 && ky < ky1 && kx >= kx0 && kx < kx1) continue;
-                            a0 += xz * q[0];
-                            a1 += xz * q[1];
-                            a2 += xz * q[2];
-                            a3 += xz * q[3];
+                            if (!row && kx == kx0) kx = kx1 - 1;  /* skip the inside taps */
+                            else {
+                                a0 += xz * q[0];
+                                a1 += xz * q[1];
+                                a2 += xz * q[2];
+                                a3 += xz * q[3];
+                            }
                         }
                     }
                 }
-                {  /* one copy of the requantisation for the four (code size) */
-                    int32_t acc[4], i;
-                    acc[0] = a0;
-                    acc[1] = a1;
-                    acc[2] = a2;
-                    acc[3] = a3;
-                    for (i = 0; i < 4; ++i)
-                        out[ch + i] = @P@_out1(acc[i], r + 4 * i, yz, lo);
-                }
+                /* the record of each channel is read before its output is stored */
+                out[ch] = @P@_out1(a0, r, yz, lo);
+                out[ch + 1] = @P@_out1(a1, r + 4, yz, lo);
+                out[ch + 2] = @P@_out1(a2, r + 8, yz, lo);
+                out[ch + 3] = @P@_out1(a3, r + 12, yz, lo);
             }
             for (; ch < c; ++ch) {
                 const int32_t *r = rec + 4 * ch;
