@@ -131,19 +131,23 @@ def conv_features(op: Op, in_shape: tuple[int, ...]) -> dict[str, float]:
     slots = 2 * pixel_pairs  # a last odd pixel's patch is built twice
     groups = -(-kk // 4)  # the exporter pads K with zeros to whole groups
     # the patch: by table for a short K whose kernel rows do not fill whole groups
-    # (inside pixels), a window whose rows fill groups in one call (inside pixels),
-    # else row by row, four values a step where rows fill groups
+    # (inside pixels; the others by the same table, testing each tap), a window
+    # whose rows fill groups in one call (inside pixels), else row by row, four
+    # values a step where rows fill groups
     visited = vy * vx * c
     table = kk <= PATCH_TABLE and (k * c) % 4 != 0
     aligned = (k * c) % 4 == 0
     inside = win.inside_y * win.inside_x
     by_table = inside * kk if table else 0
+    edge_table = (n - inside) * kk if table else 0
     windows = inside if aligned else 0
-    row_pixels = n - inside if (table or aligned) else n
-    by_rows = visited - by_table
-    padded = n * kk - visited
+    row_pixels = 0 if table else (n - inside if aligned else n)
+    by_rows = 0 if table else visited - by_table
+    padded = 0 if table else n * kk - visited
     return {"one": 1.0, "pixel_pairs": float(pixel_pairs),
             "patch_table": float(by_table),
+            "patch_edge_values": float(edge_table),
+            "patch_edge_pixels": float(n - inside if table else 0),
             "patch_windows": float(windows),
             "patch_rows": float(row_pixels * k),
             "patch_groups": float(by_rows // 4 if aligned else 0),

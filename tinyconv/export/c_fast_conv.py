@@ -18,8 +18,8 @@ patch's two words, and ``SMLAD`` does two products each.
 
 Patches: an inside window whose kernel rows fill groups of four is one call of
 the group copier; a short K whose rows do not (first layers of 1 or 3
-channels) goes by an offset table, two inside pixels at once; the rest row by
-row. Under GCC-compatible compilers the DSP path's group step is written out
+channels) goes by an offset table, two inside pixels at once (a window in
+the padding by the same table, testing each tap); the rest row by row. Under GCC-compatible compilers the DSP path's group step is written out
 in assembly (GCC's scheduler spills the C), with LDRD where the weights and
 the patch pair are word-aligned. The requantisation's per-channel constants
 are worked out once for both pixels (``_out2`` in
@@ -28,8 +28,8 @@ are worked out once for both pixels (``_out2`` in
 
 #: order of a group's four values in the patch
 PATCH_GROUP_ORDER = (0, 2, 1, 3)
-#: the longest K whose patch is copied by table (the C's ``{PREFIX}_TABLE``; its two
-#: tables, 3 bytes a value, live on the stack)
+#: the longest K whose patch is copied by table (the C's ``{PREFIX}_TABLE``; its three
+#: tables, 4 bytes a value, live on the stack)
 PATCH_TABLE = 32
 
 
@@ -116,10 +116,29 @@ PATCH = r"""
                                  int32_t xz)
 {
     int32_t j;
+    int8_t *col8 = col + 8;
+    for (j = 0; j < K; ++j) {  /* the tables read before the stores (which may alias them) */
+        int32_t s = so[j], a = at[j];
+        int16_t v0 = (int16_t)(p0[s] - xz), v1 = (int16_t)(p1[s] - xz);
+        memcpy(col + a, &v0, 2);
+        memcpy(col8 + a, &v1, 2);
+    }
+}
+
+/* One pixel's patch by table (as @P@_patch_table) where its window reaches
+   into the padding: the taps outside the image are 0 (tk[j] = 8 ky + kx of
+   value j); into col + at[j], col being the pair's slot. */
+@U@_OUTLINE void @P@_patch_edge(const int8_t *x, int8_t *col, const int16_t *so,
+                                const uint8_t *at, const uint8_t *tk, int32_t K, int32_t h,
+                                int32_t w, int32_t c, int32_t iy0, int32_t ix0, int32_t xz)
+{
+    int32_t j, base = (iy0 * w + ix0) * c;
     for (j = 0; j < K; ++j) {
-        int16_t v0 = (int16_t)(p0[so[j]] - xz), v1 = (int16_t)(p1[so[j]] - xz);
-        memcpy(col + at[j], &v0, 2);
-        memcpy(col + at[j] + 8, &v1, 2);
+        int32_t t = tk[j], a = at[j];
+        int16_t v = 0;
+        if ((uint32_t)(iy0 + (t >> 3)) < (uint32_t)h && (uint32_t)(ix0 + (t & 7)) < (uint32_t)w)
+            v = (int16_t)(x[base + so[j]] - xz);
+        memcpy(col + a, &v, 2);
     }
 }
 
@@ -152,7 +171,7 @@ PATCH = r"""
 """
 
 CONV = r"""
-/* The longest K patched by table (its two tables, 3 bytes a value, live on the stack). */
+/* The longest K patched by table (its three tables, 4 bytes a value, live on the stack). */
 #define @U@_TABLE @TABLE@
 
 /* One group of four values of K for filters a, b (weights at wp + 8 j) and
@@ -253,6 +272,37 @@ CONV = r"""
    first pixel's four int16 then the second's, each as values (0, 2, 1, 3).
    Weights: per pair of filters, group by group, four values of the first then
    four of the second; a last odd filter alone, in order. */
+/* The groups of one pair of filters by both pixels, from pp and wp. */
+#if @U@_HAS_GROUPD
+#define @U@_STEPS()                                                           \
+    do {                                                                      \
+        if (aligned) {                                                        \
+            while (pp != stop2) {  /* two groups a turn, two words a load */  \
+                @U@_GROUPD(0);                                                \
+                @U@_GROUPD(0);                                                \
+            }                                                                 \
+            if (pp != stop) @U@_GROUPD(0);                                    \
+        } else {                                                              \
+            while (pp != stop) @U@_GROUP(0);  /* unaligned layers: short */   \
+        }                                                                     \
+    } while (0)
+#else
+#define @U@_STEPS()                                                           \
+    do {                                                                      \
+        while (pp != stop2) {  /* two groups a turn */                        \
+            @U@_GROUP(0);                                                     \
+            @U@_GROUP(1);                                                     \
+            wp += 16;                                                         \
+            pp += 32;                                                         \
+        }                                                                     \
+        if (pp != stop) {                                                     \
+            @U@_GROUP(0);                                                     \
+            wp += 8;                                                          \
+            pp += 16;                                                         \
+        }                                                                     \
+    } while (0)
+#endif
+
 /* One pair of filters (o, o + 1) by both pixels: the accumulators from the
    records, STEPS over the groups, the four outputs. */
 #define @U@_PAIR(STEPS)                                                       \
@@ -271,37 +321,10 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
     int32_t i, o, g = K >> 2, d = (int32_t)(y1 - y0);
     const int8_t *stop = col + 16 * g, *stop2 = col + 32 * (g >> 1), *wp = wt;
 #if @U@_HAS_GROUPD
-    /* every pair of filters' weights and the patch pair on a word boundary (the
-       test outside the loop over filters: one copy of the loop each way) */
-    if ((((uintptr_t)col | (uintptr_t)wt) & 3u) == 0) {
-        for (o = 0; o < (f & ~1); o += 2)  /* two groups a turn, two words a load */
-            @U@_PAIR({
-                while (pp != stop2) {
-                    @U@_GROUPD(0);
-                    @U@_GROUPD(0);
-                }
-                if (pp != stop) @U@_GROUPD(0);
-            });
-    } else {
-        for (o = 0; o < (f & ~1); o += 2)
-            @U@_PAIR(while (pp != stop) @U@_GROUP(0));
-    }
-#else
-    for (o = 0; o < (f & ~1); o += 2)
-        @U@_PAIR({
-            while (pp != stop2) {  /* two groups a turn */
-                @U@_GROUP(0);
-                @U@_GROUP(1);
-                wp += 16;
-                pp += 32;
-            }
-            if (pp != stop) {
-                @U@_GROUP(0);
-                wp += 8;
-                pp += 16;
-            }
-        });
+    /* every pair of filters' weights and the patch pair on a word boundary */
+    int32_t aligned = (((uintptr_t)col | (uintptr_t)wt) & 3u) == 0;
 #endif
+    for (o = 0; o < (f & ~1); o += 2) @U@_PAIR(@U@_STEPS());
     if (f & 1) {  /* a last odd filter */
         const int8_t *pp = col;
         const int32_t *r = rec + 4 * o;
@@ -328,13 +351,14 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
 {
     int32_t K = k * k * c, Kp = (K + 3) & ~3, n = oh * ow, p, j;
     int32_t table = K <= @U@_TABLE && ((k * c) & 3) != 0;
-    int16_t so[@U@_TABLE];  /* the patch by table (see @P@_patch_table) */
-    uint8_t at[@U@_TABLE];
+    int16_t so[@U@_TABLE];  /* the patch by table (see @P@_patch_table, @P@_patch_edge) */
+    uint8_t at[@U@_TABLE], tk[@U@_TABLE];
     (void)hi;  /* 127: see @P@_sat8 */
     for (j = 0; table && j < K; ++j) {
         int32_t ky = j / (k * c), r = j - ky * k * c;
         so[j] = (int16_t)(ky * w * c + r);
         at[j] = (uint8_t)@P@_at(j, 0);
+        tk[j] = (uint8_t)(8 * ky + r / c);  /* k <= 5 here: K <= 32 and k c not a multiple of 4 */
     }
     for (j = K; j < Kp; ++j) {  /* the padding of the last group: zero, never written again */
         int16_t zero = 0;
@@ -349,6 +373,9 @@ static void @P@_mm(const int8_t *col, int32_t K, int32_t f, const int8_t *wt,
             && ix1 >= 0 && iy1 + k <= h && ix1 + k <= w) {  /* both inside: by table */
             @P@_patch_table(x + (iy0 * w + ix0) * c, x + (iy1 * w + ix1) * c, col, so, at,
                             K, xz);
+        } else if (table) {  /* a window in the padding: by table, testing each tap */
+            @P@_patch_edge(x, col, so, at, tk, K, h, w, c, iy0, ix0, xz);
+            @P@_patch_edge(x, col + 8, so, at, tk, K, h, w, c, iy1, ix1, xz);
         } else {
             @P@_patch(x, col, 0, h, w, c, k, iy0, ix0, xz);
             @P@_patch(x, col, 1, h, w, c, k, iy1, ix1, xz);
