@@ -10,12 +10,12 @@ search loop (:mod:`search.runner`) drives either.
   the server) start with (read by OpenBLAS, MKL and Numba when they load), and
   once more at run time with ``threadpoolctl`` when it is installed. The data
   reach each worker once: the first unit memory-maps the ``.npy`` files the
-  search wrote in the run folder. :meth:`LocalWorkers.start` starts the workers
-  at once, and with the default work each warms the engine (one training step
-  of a small network: Numba's first kernel loads; a few milliseconds in a
-  worker forked from the warm server, about 0.6 CPU-s in a spawned one), while
-  the search process is still loading the data and the space; the data files
-  need only exist by the first unit. A crashed worker breaks the whole pool
+  search wrote in the run folder. :meth:`LocalWorkers.start` starts the fork
+  server (or spawns the workers) at once, and with the default work the engine
+  is warmed (one training step of a small network: Numba's first kernel loads;
+  once in the server, or about 0.6 CPU-s in each spawned worker) while the
+  search process is still loading the data and the space; the data files need
+  only exist by the first unit. A crashed worker breaks the whole pool
   (``BrokenProcessPool``); the search loop then calls
   :meth:`LocalWorkers.restart` and finds the culprit.
 * :class:`InlineWorkers`: units run one at a time in the calling process
@@ -145,13 +145,21 @@ class LocalWorkers:
         return self._pool
 
     def start(self) -> None:
-        """Start every worker now (they warm up meanwhile); returns at once.
+        """Start the workers now (they warm up meanwhile); returns at once.
 
-        The pool otherwise spawns a worker per submitted unit. Nothing here
-        reads the data folder, which need only hold the data by the first unit.
+        With a fork server, this starts the server, which warms the engine while
+        this process reads the data; the workers are forked from it at the first
+        units, in milliseconds each (asking for a worker earlier would wait for
+        the warm-up). Otherwise every worker is spawned now, since the pool would
+        spawn one per submitted unit. Nothing here reads the data folder, which
+        need only hold the data by the first unit.
         """
         with single_threaded_env():
             pool = self._ensure()
+            if self._holds_server:
+                from multiprocessing import forkserver
+                forkserver.ensure_running()
+                return
             for _ in range(self.workers):
                 pool.submit(_nothing)
 

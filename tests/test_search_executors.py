@@ -53,7 +53,9 @@ def _sleep_long(task, data):
 
 
 def test_started_workers_spawn_at_once_and_cancel_stops_them(tmp_path):
-    """start() spawns every worker before any unit; cancel terminates a running unit promptly."""
+    """start() starts every worker (or, forking, the fork server) before any unit; cancel
+    terminates a running unit promptly, and the fork server with it."""
+    import multiprocessing.forkserver as forkserver
     import time
 
     import numpy as np
@@ -63,18 +65,32 @@ def test_started_workers_spawn_at_once_and_cancel_stops_them(tmp_path):
     workers = LocalWorkers(tmp_path, 2, work=_sleep_long)
     workers.start()
     pool = workers._pool
-    deadline = time.monotonic() + 30
-    while len(pool._processes) < 2 and time.monotonic() < deadline:
-        time.sleep(0.05)
-    assert len(pool._processes) == 2
-    processes = list(pool._processes.values())
+    server = forkserver._forkserver._forkserver_pid if workers._holds_server else None
+    if server is None:  # spawned workers
+        deadline = time.monotonic() + 30
+        while len(pool._processes) < 2 and time.monotonic() < deadline:
+            time.sleep(0.05)
+        assert len(pool._processes) == 2
+    else:
+        assert not pool._processes and _alive(server)
     future = workers.submit("a unit that would sleep for a minute")
     time.sleep(0.5)
     assert future.running()
+    processes = list(pool._processes.values())
     t0 = time.monotonic()
     workers.shutdown(cancel=True)
     assert time.monotonic() - t0 < 10
     assert all(_gone(p) for p in processes)
+    assert server is None or not _alive(server)
+
+
+def _alive(pid: int) -> bool:
+    """Whether process ``pid`` exists (POSIX kill with signal 0)."""
+    try:
+        os.kill(pid, 0)
+    except ProcessLookupError:
+        return False
+    return True
 
 
 def _gone(process) -> bool:
