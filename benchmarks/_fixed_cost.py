@@ -2,7 +2,9 @@
 
 Each search runs as its own ``python -m tinyconv search`` process; its CPU
 seconds are that process's and its workers' (``resource.getrusage`` of the
-children, user + system, taken before and after), so imports, worker start-up,
+children, user + system, taken before and after; on Linux the workers' fork
+server is a child that the search waits for before it ends, and the server
+waits for the workers it forked, so they count too), so imports, worker start-up,
 the data preparation, the ranking and the report all count. The training CPU
 is the sum of the units' own CPU seconds as the run store holds them. The
 fixed cost is the difference: what a search costs beyond training its units.

@@ -3,18 +3,21 @@
 Both give ``concurrent.futures.Future`` objects from ``submit(task)``, so one
 search loop (:mod:`search.runner`) drives either.
 
-* :class:`LocalWorkers`: a ``ProcessPoolExecutor`` with the *spawn* start
-  method. Each worker runs one single-threaded engine: the BLAS and Numba
-  thread counts are set to 1 in the environment the workers start with (read
-  by OpenBLAS, MKL and Numba when they load), and once more at run time with
-  ``threadpoolctl`` when it is installed. The data reach each worker once: the
-  first unit memory-maps the ``.npy`` files the search wrote in the run folder.
-  :meth:`LocalWorkers.start` spawns the workers at once, and with the default
-  work each warms the engine (one training step of a small network: Numba's
-  first kernel loads, about 1 s), while the search process is still loading
-  the data and the space; the data files need only exist by the first unit.
-  A crashed worker breaks the whole pool (``BrokenProcessPool``); the search
-  loop then calls :meth:`LocalWorkers.restart` and finds the culprit.
+* :class:`LocalWorkers`: a ``ProcessPoolExecutor`` whose workers are forked
+  from a fork server that warmed the engine once (Linux), or spawned (elsewhere;
+  :mod:`search.worker_start`). Each worker runs one single-threaded engine: the
+  BLAS and Numba thread counts are set to 1 in the environment the workers (and
+  the server) start with (read by OpenBLAS, MKL and Numba when they load), and
+  once more at run time with ``threadpoolctl`` when it is installed. The data
+  reach each worker once: the first unit memory-maps the ``.npy`` files the
+  search wrote in the run folder. :meth:`LocalWorkers.start` starts the fork
+  server (or spawns the workers) at once, and with the default work the engine
+  is warmed (one training step of a small network: Numba's first kernel loads;
+  once in the server, or about 0.6 CPU-s in each spawned worker) while the
+  search process is still loading the data and the space; the data files need
+  only exist by the first unit. A crashed worker breaks the whole pool
+  (``BrokenProcessPool``); the search loop then calls
+  :meth:`LocalWorkers.restart` and finds the culprit.
 * :class:`InlineWorkers`: units run one at a time in the calling process
   (``--workers 0``), with BLAS limited to one thread while they run; no
   start-up cost, for debugging and small tests.
@@ -26,8 +29,9 @@ search loop (:mod:`search.runner`) drives either.
   (``--nthreads 1``), or their CPU-time figures include each other's work.
 
 Local workers end with the search process, however it ends (even
-``kill -9``): each watches its parent (:func:`end_with_parent`), so no
-worker is left running, or blocked on a pipe, after its search died.
+``kill -9``): each watches its parent
+(:func:`search.worker_start.end_with_parent`), so no worker is left running,
+or blocked on a pipe, after its search died.
 
 This module imports nothing heavy at the top, so that a spawned worker sets
 its thread limits before NumPy is loaded.
@@ -36,13 +40,7 @@ its thread limits before NumPy is loaded.
 from __future__ import annotations
 
 import contextlib
-import ctypes
-import multiprocessing
 import os
-import signal
-import sys
-import threading
-import time
 from concurrent.futures import Future, ProcessPoolExecutor
 from pathlib import Path
 from typing import Callable, Iterator
@@ -79,48 +77,16 @@ def limit_threads() -> None:
     threadpoolctl.threadpool_limits(1)
 
 
-#: How often a worker looks whether its search process is still there (seconds).
-PARENT_POLL_S = 0.5
-
-
-def end_with_parent(parent: int) -> None:
-    """Make this process end soon after process ``parent`` ends, however it ends.
-
-    Two guards, since a killed search (``kill -9``) runs no clean-up: on Linux
-    the kernel sends this process SIGKILL when its parent ends (``prctl`` with
-    ``PR_SET_PDEATHSIG``, value 1 in ``linux/prctl.h``; prctl(2) notes it fires
-    when the parent *thread* that started the process ends, which here is the
-    thread running the whole search); and everywhere a daemon thread that sees
-    the parent id change (an orphan is adopted by another process; POSIX
-    ``getppid``) and ends the process within :data:`PARENT_POLL_S` seconds.
-    """
-    if sys.platform.startswith("linux"):
-        try:
-            libc = ctypes.CDLL(None, use_errno=True)
-            libc.prctl(1, int(signal.SIGKILL), 0, 0, 0)
-        except (OSError, AttributeError):  # no prctl here: the thread below suffices
-            pass
-    if os.getppid() != parent:  # the parent ended before the guard was set
-        os._exit(1)
-    threading.Thread(target=_watch_parent, args=(parent,), daemon=True,
-                     name="tinyconv-parent-watch").start()
-
-
-def _watch_parent(parent: int) -> None:
-    while os.getppid() == parent:
-        time.sleep(PARENT_POLL_S)
-    os._exit(1)  # no clean-up: the search that would read our results is gone
-
-
-def _init_worker(data_dir: str, work: Callable, warm: bool, parent: int) -> None:
-    end_with_parent(parent)  # first: the warm-up below takes a second or more
+def _init_worker(data_dir: str, work: Callable, warm: bool, search: int) -> None:
+    from search.worker_start import end_with_parent
+    end_with_parent(search)  # first: a warm-up below may take a second or more
     import warnings
 
     from tinyconv.notices import show_warning
     warnings.showwarning = show_warning  # the worker shares the search's stderr
     limit_threads()
     _WORKER.update(data_dir=data_dir, work=work, data=None)
-    if warm:
+    if warm:  # a few milliseconds in a worker forked from the warm server
         from search.unit import warm_up
         warm_up()
 
@@ -163,24 +129,37 @@ class LocalWorkers:
         self.warm = work is None  # warm the engine only for the real unit work
         self.work = work or default_work()
         self._pool: ProcessPoolExecutor | None = None
+        self._holds_server = False
         self.description = f"{workers} local worker process{'es' if workers > 1 else ''}"
 
     def _ensure(self) -> ProcessPoolExecutor:
         if self._pool is None:
+            from search.worker_start import hold_server, worker_context
+            context = worker_context(self.warm)
+            if context.get_start_method() == "forkserver" and not self._holds_server:
+                hold_server()
+                self._holds_server = True
             self._pool = ProcessPoolExecutor(
-                self.workers, mp_context=multiprocessing.get_context("spawn"),
-                initializer=_init_worker,
+                self.workers, mp_context=context, initializer=_init_worker,
                 initargs=(self.data_dir, self.work, self.warm, os.getpid()))
         return self._pool
 
     def start(self) -> None:
-        """Spawn every worker now (they warm up meanwhile); returns at once.
+        """Start the workers now (they warm up meanwhile); returns at once.
 
-        The pool otherwise spawns a worker per submitted unit. Nothing here
-        reads the data folder, which need only hold the data by the first unit.
+        With a fork server, this starts the server, which warms the engine while
+        this process reads the data; the workers are forked from it at the first
+        units, in milliseconds each (asking for a worker earlier would wait for
+        the warm-up). Otherwise every worker is spawned now, since the pool would
+        spawn one per submitted unit. Nothing here reads the data folder, which
+        need only hold the data by the first unit.
         """
         with single_threaded_env():
             pool = self._ensure()
+            if self._holds_server:
+                from multiprocessing import forkserver
+                forkserver.ensure_running()
+                return
             for _ in range(self.workers):
                 pool.submit(_nothing)
 
@@ -189,7 +168,8 @@ class LocalWorkers:
             return self._ensure().submit(_work_local, task)
 
     def restart(self) -> None:
-        """Drop a broken pool; the next submit starts fresh processes."""
+        """Drop a broken pool; the next submit starts fresh processes (from the same
+        fork server, which a crashed worker leaves running)."""
         if self._pool is not None:
             self._pool.shutdown(wait=False, cancel_futures=True)
         self._pool = None
@@ -218,6 +198,10 @@ class LocalWorkers:
             for process in processes:
                 process.join(timeout=5)
         self._pool = None
+        if self._holds_server:
+            from search.worker_start import release_server
+            self._holds_server = False
+            release_server(kill=cancel)
 
 
 class InlineWorkers:

@@ -185,8 +185,11 @@ WARM_UP_ARCH = "8x8gray/c16k3-c16k3-p2-c16k3-dw3-c16k1-bn-gap-d8"
 
 
 def warm_up() -> None:
-    """Train and evaluate a small network once, so that a new worker process loads
-    Numba's kernels (and its own first-use machinery, about 1 s) before its first unit."""
+    """Train and evaluate a small network once, so that Numba's kernels and its first-use
+    machinery are loaded before the first unit: in the local workers' fork server
+    (:mod:`search.warm_server`), whose workers share them, or in a spawned worker
+    (about 0.5 CPU-s each); a worker forked from the warm server repeats it in a few
+    milliseconds."""
     from tinyconv.network import Network
     from tinyconv.train import TrainConfig, evaluate, fit
     net = Network.from_arch(WARM_UP_ARCH, 2, seed=0)

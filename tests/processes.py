@@ -97,14 +97,18 @@ def wait_for(condition, what: str, patience: float = 120.0, proc=None) -> None:
 
 
 def pool_workers(pid: int) -> list[int]:
-    """Living worker processes a ``multiprocessing`` spawn pool of ``pid`` started
-    (their command line runs ``spawn_main``; the resource tracker's does not)."""
+    """Living worker processes of the local pools of ``pid``: spawned ones (their command
+    line runs ``spawn_main``) and those forked by its fork server (a process whose
+    command line runs ``forkserver``, forked by the server below ``pid``); neither the
+    resource tracker nor the server itself."""
     found = []
     for child in descendants(pid):
         try:
             cmdline = Path(f"/proc/{child}/cmdline").read_bytes()
         except OSError:
             continue
-        if b"spawn_main" in cmdline:
+        stat = _stat(child)
+        forked = b"forkserver" in cmdline and stat is not None and stat[1] != pid
+        if b"spawn_main" in cmdline or forked:
             found.append(child)
     return found

@@ -7,6 +7,8 @@ import subprocess
 import sys
 import warnings
 
+import pytest
+
 from tinyconv.cli import OUTPUT_CLOSED, main
 from tinyconv.notices import warning_line
 from tinyconv.data.dataset import DataNote, DataWarning, LeakageWarning
@@ -108,3 +110,23 @@ if __name__ == "__main__":
     workers.submit("unit").result()
     workers.shutdown()
 """
+
+
+_RUN = """
+import gc, sys
+from tinyconv.cli import run
+sys.argv = ["tinyconv", *sys.argv[1:]]
+try:
+    run()
+except SystemExit as end:
+    print(end.code, gc.get_freeze_count() > 0)
+"""
+
+
+@pytest.mark.parametrize("argv, code", [(["--version"], 0), (["cost", "8x8gray/c4k3z"], 2)])
+def test_the_program_ends_with_main_s_code_and_a_frozen_collector(argv, code):
+    """run() ends the process with main()'s exit code, after freezing the collector (gc)."""
+    done = subprocess.run([sys.executable, "-c", _RUN, *argv], capture_output=True, text=True,
+                          cwd=os.getcwd(), env={**os.environ, "PYTHONPATH": os.getcwd()},
+                          timeout=120)
+    assert done.stdout.split()[-2:] == [str(code), "True"], done.stdout + done.stderr

@@ -1,3 +1,3 @@
-from tinyconv.cli import main
+from tinyconv.cli import run
 
-raise SystemExit(main())
+run()

@@ -26,6 +26,7 @@ with a file path and a line of source.
 from __future__ import annotations
 
 import argparse
+import gc
 import importlib
 import os
 import sys
@@ -116,6 +117,24 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 130
     finally:
         warnings.showwarning = shown
+
+
+def run() -> None:
+    """The program (``tinyconv`` and ``python -m tinyconv``): :func:`main` on the
+    command line's arguments, then the process ends with its exit code.
+
+    Before the end, every object left is moved out of the cyclic collector's
+    reach (``gc.freeze``, standard library): the interpreter's last collection
+    at exit would otherwise walk every object of NumPy, pandas, Numba and
+    matplotlib once more, only to free memory that the ending process gives
+    back whole (about 0.15 CPU-seconds after a search, of about 0.2 that the
+    end took). Objects are still freed by reference counting, the standard
+    streams are still flushed, and exit handlers still run; only garbage in
+    reference cycles is left to the end of the process.
+    """
+    code = main()
+    gc.freeze()
+    raise SystemExit(code)
 
 
 def _silence_stdout() -> None:
