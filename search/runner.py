@@ -9,8 +9,10 @@ interruptions (re-running replays the same decisions from the store).
 
 Budgets: before each submission the loop checks the epoch budget (planned
 epochs of finished and in-flight units plus the new one; deterministic) and
-the CPU budget (CPU seconds of the finished units; stops the first time it is
-reached). Once a budget stops the loop, units in flight finish and are kept,
+the CPU budget (CPU seconds of the finished units, plus the forecast of the
+units in flight and the new one, :mod:`search.cpu_forecast`; stops when that
+would pass it, or when the finished units alone reach it). Once a budget
+stops the loop, units in flight finish and are kept,
 nothing new starts, and the outcome says which budget ended the run.
 
 Only a unit's own failure is final (:mod:`search.failures`): a unit that comes
@@ -37,6 +39,7 @@ import numpy as np
 
 from search import schedule
 from search.config import SearchSettings
+from search.cpu_forecast import CpuForecast
 from search.executor import Executor
 from search.failures import ATTEMPTS, describe
 from search.recipes import arch_of, training_for
@@ -154,6 +157,7 @@ class SearchLoop:
         self.candidates = list(candidates)
         self.params = dict(params)
         self.costs = dict(costs or {})
+        self.forecast = CpuForecast(self.costs)
         self.s = settings
         self.k = settings.folds
         self.progress = progress or Progress()
@@ -262,6 +266,11 @@ class SearchLoop:
         limit_c = self.s.budget_cpu_s
         if limit_c is not None and self.cpu_s >= limit_c:
             raise _BudgetStop("budget_cpu")
+        if limit_c is not None:  # forecast: what is in flight and this unit (cpu_forecast)
+            ahead = self.forecast.total([(t.candidate, t.epochs)
+                                         for t in (*self._inflight.values(), task)])
+            if ahead is not None and self.cpu_s + ahead > limit_c:
+                raise _BudgetStop("budget_cpu")
 
     def _submit(self, task: UnitTask) -> None:
         try:
@@ -372,6 +381,9 @@ class SearchLoop:
         self.finished[key] = (result.status, result.held_acc)
         self.cpu_s += float(result.cpu_s)
         self.epochs += int(result.task.epochs)
+        if result.status == "done":  # a diverged unit stopped early: no rate to learn
+            self.forecast.add(result.task.candidate, int(result.task.epochs),
+                              float(result.cpu_s))
         self.outcome.units_run += 1
         self.outcome.failed += result.status == "failed"
         self.outcome.diverged += result.status == "diverged"

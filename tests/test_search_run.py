@@ -131,6 +131,25 @@ def test_cpu_budget_stops(tmp_path):
     assert RunStore(tmp_path).outcome()["state"] == "budget_cpu"
 
 
+def one_second_an_epoch(task, data):
+    """Train the unit, and report one CPU second an epoch (a fixed clock for the budget)."""
+    return dataclasses.replace(run_unit(task, data), cpu_s=float(task.epochs))
+
+
+def test_cpu_budget_is_not_passed_by_units_in_flight(tmp_path, monkeypatch):
+    """Two units in flight at a time, one CPU second an epoch each, a budget of 4.5 s: the
+    loop stops before a unit whose forecast (from the units that finished) would pass the
+    budget, so the units it ran spent at most the budget. Counting only finished units, it
+    would have started units while the ones in flight were already spending the rest."""
+    from search.executors import InlineWorkers
+    monkeypatch.setattr(InlineWorkers, "workers", 2)  # its futures come back finished
+    summary = run_search(request(tmp_path, budget_cpu_s=4.5), work=one_second_an_epoch)
+    units = RunStore(tmp_path).units()
+    assert summary.outcome.state == "budget_cpu"
+    assert units["cpu_s"].sum() <= 4.5
+    assert units["cpu_s"].sum() >= 4.5 - units["cpu_s"].max()  # and stops no earlier than that
+
+
 def test_full_mode_shares_final_units(tmp_path, finished):
     """--full trains every candidate R epochs on all folds, with the final rung's seeds."""
     summary = run_search(request(tmp_path, full=True))
