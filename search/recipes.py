@@ -79,7 +79,7 @@ class Recipe:
     schedule: str
 
     def __post_init__(self) -> None:
-        from tinyconv.train import TrainConfig
+        from tinyconv.train_config import TrainConfig
         checked = TrainConfig(epochs=1, **{f.name: getattr(self, f.name) for f in fields(self)})
         for f in fields(self):
             object.__setattr__(self, f.name, getattr(checked, f.name))
@@ -145,8 +145,7 @@ def read_training(table: dict, reader) -> TrainingChoices:
     errors name the file, the key, the value and the rule like the other tables'.
     """
     from tinyconv.augment import parse_augment
-    from tinyconv.optim import SCHEDULES
-    from tinyconv.train import MAX_COPIES
+    from tinyconv.train_config import MAX_COPIES, SCHEDULES
 
     def augment_ok(a: Any) -> bool:
         try:
@@ -243,7 +242,7 @@ def run_recipes(settings) -> tuple[str, ...]:
     listed, training = _stored(settings)
     if listed:
         return tuple(listed)
-    from tinyconv.train import TrainConfig
+    from tinyconv.train_config import TrainConfig
     t = {**TrainConfig(epochs=1).__dict__, **training}
     return (str(Recipe(**{k: t[k] for k in RECIPE_KEYS})),)
 

@@ -251,7 +251,7 @@ def _settings(request: SearchRequest, space, data, budget: dict, training: dict,
 
 def _check_training(training: dict) -> None:
     """Fail early (before any worker starts) on unusable training settings."""
-    from tinyconv.train import TrainConfig
+    from tinyconv.train_config import TrainConfig
     TrainConfig(epochs=1, **training)
 
 
@@ -290,7 +290,7 @@ def _local_workers(request: SearchRequest, work):
     if request.cluster is not None or count == 0:
         return None
     if count > 1 and work is None:
-        from tinyconv.layers.kernel_cache import cold
+        from tinyconv.kernel_stamp import cold
         if cold():  # compile once here rather than in every worker at the same time
             from search.unit import prime_kernels
             prime_kernels()

@@ -62,7 +62,7 @@ def test_a_search_primes_before_starting_workers_only_when_the_cache_is_cold(mon
     starts them at once; with one worker (nothing to duplicate) it never primes."""
     import search.session as session
     import search.unit as unit
-    import tinyconv.layers.kernel_cache as kernel_cache
+    import tinyconv.kernel_stamp as kernel_stamp
     from search.executors import LocalWorkers
     from helpers import tiny_request
 
@@ -72,7 +72,7 @@ def test_a_search_primes_before_starting_workers_only_when_the_cache_is_cold(mon
     for cold, workers, want in ((True, 2, ["prime", "start"]), (False, 2, ["start"]),
                                 (True, 1, ["start"])):
         calls.clear()
-        monkeypatch.setattr(kernel_cache, "cold", lambda cold=cold: cold)
+        monkeypatch.setattr(kernel_stamp, "cold", lambda cold=cold: cold)
         request = tiny_request(tmp_path / f"run{len(want)}{workers}", workers=workers)
         assert session._local_workers(request, None) is not None
         assert calls == want, (cold, workers)

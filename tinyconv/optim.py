@@ -30,9 +30,7 @@ import numpy as np
 from numba import njit
 
 from tinyconv.errors import InputError
-
-DECAY_KINDS = ("decoupled", "l2")
-SCHEDULES = ("constant", "step", "cosine")
+from tinyconv.train_config import DECAY_KINDS, SCHEDULES
 
 
 def _decayed(names: Sequence[str]) -> list[bool]:

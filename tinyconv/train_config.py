@@ -14,9 +14,13 @@ from tinyconv.augment import parse_augment
 from tinyconv.checks import whole_number
 from tinyconv.errors import InputError
 from tinyconv.losses import check_smoothing
-from tinyconv.optim import DECAY_KINDS, SCHEDULES
 
 OPTIMISERS = ("adam", "sgd")
+#: How weight decay enters (:mod:`tinyconv.optim`; kept here so that checking a
+#: configuration does not import the optimisers' compiled kernels)
+DECAY_KINDS = ("decoupled", "l2")
+#: Learning-rate schedules (:func:`tinyconv.optim.learning_rate`)
+SCHEDULES = ("constant", "step", "cosine")
 #: The second word of the augmentation generator's seed (the first is ``config.seed``).
 AUGMENT_STREAM = 1
 #: The most copies of each image an epoch may pass over.

@@ -9,5 +9,5 @@ COLD_KERNELS = ("note: the engine's kernels are not compiled on this machine yet
 
 def kernels_note() -> str | None:
     """:data:`COLD_KERNELS` when the kernel cache is cold, else None."""
-    from tinyconv.layers.kernel_cache import cold
+    from tinyconv.kernel_stamp import cold
     return COLD_KERNELS if cold() else None

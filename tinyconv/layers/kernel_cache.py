@@ -49,6 +49,16 @@ def cached_share() -> float | None:
     return cached / len(found) if found else None
 
 
+def index_files() -> list[str]:
+    """The cache index files of the kernels whose index Numba would accept ([] when
+    that cannot be told)."""
+    try:
+        return [str(k._cache._cache_file._index_path) for k in kernels()  # type: ignore[attr-defined]
+                if k._cache._cache_file._load_index()]  # type: ignore[attr-defined]
+    except Exception:  # a layout this module does not know
+        return []
+
+
 def cold() -> bool:
     """True when a run is about to compile most of the engine's kernels."""
     share = cached_share()
