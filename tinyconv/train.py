@@ -180,13 +180,15 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
     status, diverged_epoch = "done", None
     best_loss, best_epoch, best_weights, waited = math.inf, None, None, 0
 
+    micro = micro_batch(net, config.batch_size)
     for epoch in range(config.epochs):
         lr = learning_rate(config.lr, epoch, config.epochs, config.schedule)
         start = _snapshot(net)
         # item i is a copy of image i % n (with one copy, the plain permutation)
         batches = np.array_split(rng.permutation(items) % n, n_batches)
         loss_sum, correct, finite = _train_epoch(net, x, y, batches, opt, lr,
-                                                 config.label_smoothing, augment, aug_rng)
+                                                 config.label_smoothing, augment, aug_rng,
+                                                 micro)
         if not finite:
             _restore(net, start)
             status, diverged_epoch = "diverged", epoch + 1
@@ -228,13 +230,69 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
                    diverged_epoch, best_epoch)
 
 
+#: Activations a training step keeps for its backward pass (float32, summed over the
+#: network's tensors), above which a batch is passed in parts: a part's tensors then
+#: stay in the processor's cache between its forward and backward passes.
+PART_BYTES = 24 << 20
+
+
+def micro_batch(net, batch_size: int) -> int:
+    """Images a training forward and backward pass take at once (``batch_size`` unless
+    the batch's activations pass :data:`PART_BYTES`; never with batch norm, whose
+    statistics are the whole batch's). The parts' gradients add up to the batch's."""
+    if any(getattr(layer, "kind", "") == "bn" for layer in net.layers):
+        return batch_size
+    from tinyconv.cost import cost_of
+    per_image = 4 * sum(r.live_elements for r in cost_of(net.arch, net.n_classes).rows)
+    if per_image * batch_size <= PART_BYTES:
+        return batch_size
+    parts = -(-per_image * batch_size // PART_BYTES)
+    return max(1, -(-batch_size // parts))
+
+
+def train_step(net, batch: np.ndarray, labels: np.ndarray, opt, lr: float,
+               smoothing: float = 0.0, micro: int | None = None) -> tuple[float, int]:
+    """One optimiser step on ``batch``; returns (mean loss, images classified right).
+
+    A batch of more than ``micro`` images goes forward and backward in parts of
+    at most ``micro`` (:func:`micro_batch`), each part's gradient of its mean
+    loss weighted by its share of the batch, and one update follows with their
+    sum: the batch's gradient. A non-finite loss returns at once, before any
+    update.
+    """
+    n, total, loss_sum, correct = len(batch), None, 0.0, 0
+    for at in range(0, n, micro or n):
+        part = slice(at, min(at + (micro or n), n))
+        logits = net.forward(batch[part], training=True)        # (m, K)
+        loss, grad = softmax_cross_entropy(logits, labels[part], smoothing)
+        if not math.isfinite(loss):
+            return loss, correct
+        m = len(logits)
+        if m < n:
+            grad *= m / n
+        net.backward(grad, input_grad=False)  # the images need no gradient
+        grads = [g for _, g in net.grad_list()]
+        if m == n:
+            total = grads
+        elif total is None:
+            total = [g.copy() for g in grads]
+        else:
+            for t, g in zip(total, grads):
+                t += g
+        loss_sum += loss * m
+        correct += int((logits.argmax(axis=1) == labels[part]).sum())
+    opt.update(total, lr)
+    return loss_sum / n, correct
+
+
 def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], opt,
                  lr: float, smoothing: float, augment: Augment | None = None,
-                 aug_rng: np.random.Generator | None = None) -> tuple[float, int, bool]:
+                 aug_rng: np.random.Generator | None = None,
+                 micro: int | None = None) -> tuple[float, int, bool]:
     """One pass over ``batches`` (index arrays); returns (loss sum, correct, finite).
 
     With ``augment``, each batch (a copy: ``x[idx]``) is augmented with draws from
-    ``aug_rng`` before the forward pass.
+    ``aug_rng`` before the forward pass; :func:`train_step` does the rest.
     """
     loss_sum, correct = 0.0, 0
     # Overflow on the way to a non-finite loss is detected here and reported as
@@ -244,14 +302,11 @@ def _train_epoch(net, x: np.ndarray, y: np.ndarray, batches: list[np.ndarray], o
             batch = x[idx]                                       # (b, h, w, c), a copy
             if augment:
                 batch = augment(batch, aug_rng)
-            logits = net.forward(batch, training=True)           # (b, K)
-            loss, grad = softmax_cross_entropy(logits, y[idx], smoothing)
+            loss, right = train_step(net, batch, y[idx], opt, lr, smoothing, micro)
             if not math.isfinite(loss):
                 return loss_sum, correct, False
-            net.backward(grad, input_grad=False)  # the images need no gradient
-            opt.update([g for _, g in net.grad_list()], lr)
             loss_sum += loss * len(idx)
-            correct += int((logits.argmax(axis=1) == y[idx]).sum())
+            correct += right
     return loss_sum, correct, True
 
 
