@@ -246,8 +246,11 @@ def micro_batch(net, batch_size: int) -> int:
     per_image = 4 * sum(r.live_elements for r in cost_of(net.arch, net.n_classes).rows)
     if per_image * batch_size <= PART_BYTES:
         return batch_size
-    parts = -(-per_image * batch_size // PART_BYTES)
-    return max(1, -(-batch_size // parts))
+    cap = max(1, PART_BYTES // per_image)
+    # a divisor of the batch, so that every part has one shape (the layers' scratch
+    # buffers are kept per shape); else parts as equal as they come
+    divisor = max(d for d in range(1, cap + 1) if batch_size % d == 0)
+    return divisor if 2 * divisor >= cap else -(-batch_size // -(-batch_size // cap))
 
 
 def train_step(net, batch: np.ndarray, labels: np.ndarray, opt, lr: float,
