@@ -13,7 +13,7 @@ more epochs); for a candidate with no finished unit, the search's CPU seconds
 per MAC-epoch over every finished unit, times the candidate's MACs per image
 and the unit's epochs. With nothing finished yet there is no forecast
 (``None``), and the loop runs the unit: the first wave of units tells the
-rest.
+rest. A resumed search starts from the units already in its store.
 """
 
 from __future__ import annotations

@@ -165,6 +165,8 @@ class SearchLoop:
         self.n_classes = settings.n_classes
         self.finished = store.finished()
         self.cpu_s, self.epochs = store.spent()
+        for cand, epochs, cpu_s in store.done_cpu():  # a resume forecasts from the store
+            self.forecast.add(cand, epochs, cpu_s)
         self.outcome = Outcome(retried=reopened)
         self._inflight: dict[Future, UnitTask] = {}
         self._inflight_epochs = 0

@@ -257,6 +257,12 @@ class RunStore:
             "SELECT COALESCE(SUM(cpu_s), 0), COALESCE(SUM(epochs), 0) FROM units")
         return float(cpu), int(epochs)
 
+    def done_cpu(self) -> list[tuple[str, int, float]]:
+        """(candidate, planned epochs, CPU seconds) of every unit that finished "done"
+        (what :class:`search.cpu_forecast.CpuForecast` learns from on a resume)."""
+        rows = self._rows("SELECT candidate, epochs, cpu_s FROM units WHERE status = 'done'")
+        return [(c, int(e), float(s)) for c, e, s in rows]
+
     def _prediction_rows(self, candidate: str, rung: int | None) -> list[tuple]:
         if rung is None:
             rung = self._default_rung(candidate)

@@ -104,3 +104,22 @@ def test_channel_records_give_the_reference_requantisation():
         assert (raised[:, 3] > 22).all()
         assert (raised[:, 3] - RARE_CODE_OFFSET == np.asarray(layer.shift).reshape(-1)).all()
     assert fast_seen > 0
+
+
+def test_channel_records_refuse_a_shift_whose_code_would_read_as_one_product():
+    """The lowest shift a record holds is 23 - RARE_CODE_OFFSET (its code 23, general
+    form); one lower would be a code of 22, read as the one-product form, so the records
+    refuse it, naming the shift and the plain style."""
+    from dataclasses import replace
+
+    from tinyconv.device.measure import random_network
+    from tinyconv.export.c_layout import RARE_CODE_OFFSET, channel_records
+    qnet, _ = random_network("8x8gray/c4k3-gap-d3", 3, seed=1)
+    layer = qnet.layers[0]
+    lowest = np.array(layer.shift, copy=True)
+    lowest[0] = 23 - RARE_CODE_OFFSET
+    assert channel_records(replace(layer, shift=lowest)).reshape(-1, 4)[0, 3] == 23
+    lowest[0] -= 1
+    with pytest.raises(ValueError, match=rf"shift {22 - RARE_CODE_OFFSET} is below "
+                                         rf"{23 - RARE_CODE_OFFSET}; export it with style='plain'"):
+        channel_records(replace(layer, shift=lowest))

@@ -47,3 +47,14 @@ def test_a_warm_cache_is_stamped_then_told_without_numba(tmp_path):
     stamp.write_text(json.dumps(table))
     assert _ask(tmp_path) == ("False", "True")
     assert _ask(tmp_path) == ("False", "False")
+
+
+def test_a_stamp_that_cannot_be_replaced_leaves_no_temporary_file(tmp_path):
+    """Where the stamp cannot be written (here a folder stands at its path) the check still
+    answers, and the temporary file it wrote first is removed, not left one a process."""
+    from search.unit import prime_kernels
+    prime_kernels()
+    (tmp_path / "tinyconv" / "kernel-cache.json").mkdir(parents=True)
+    assert _ask(tmp_path) == ("False", "True")
+    assert _ask(tmp_path) == ("False", "True")
+    assert sorted(p.name for p in (tmp_path / "tinyconv").iterdir()) == ["kernel-cache.json"]

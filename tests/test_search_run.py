@@ -150,6 +150,20 @@ def test_cpu_budget_is_not_passed_by_units_in_flight(tmp_path, monkeypatch):
     assert units["cpu_s"].sum() >= 4.5 - units["cpu_s"].max()  # and stops no earlier than that
 
 
+def test_resumed_cpu_budget_forecasts_from_the_stored_units(tmp_path, monkeypatch):
+    """A search stopped by a CPU budget and resumed with a larger one forecasts its first
+    units from the units already in the store: with two in flight, one CPU second an
+    epoch, 2 s spent and a budget of 3.5 s, it runs one more unit, not two (4 s)."""
+    from search.executors import InlineWorkers
+    monkeypatch.setattr(InlineWorkers, "workers", 2)
+    first = run_search(request(tmp_path, budget_cpu_s=2.5), work=one_second_an_epoch)
+    assert first.outcome.state == "budget_cpu"
+    assert RunStore(tmp_path).units()["cpu_s"].sum() == 2.0
+    again = run_search(request(tmp_path, budget_cpu_s=3.5), work=one_second_an_epoch)
+    assert again.outcome.state == "budget_cpu"
+    assert RunStore(tmp_path).units()["cpu_s"].sum() == 3.0
+
+
 def test_full_mode_shares_final_units(tmp_path, finished):
     """--full trains every candidate R epochs on all folds, with the final rung's seeds."""
     summary = run_search(request(tmp_path, full=True))

@@ -19,6 +19,7 @@ time.
 
 from __future__ import annotations
 
+import contextlib
 import json
 import os
 import sys
@@ -97,10 +98,14 @@ def write_stamp(index_files: list[str]) -> None:
         table[_key()] = {"versions": _versions(), "files": files}
         path.parent.mkdir(parents=True, exist_ok=True)
         tmp = path.with_suffix(f".{os.getpid()}.tmp")
+    except OSError:
+        return
+    try:
         tmp.write_text(json.dumps(table))
         os.replace(tmp, path)
-    except OSError:
-        pass
+    except OSError:  # not written: no temporary file left behind either
+        with contextlib.suppress(OSError):
+            tmp.unlink()
 
 
 def cold() -> bool:

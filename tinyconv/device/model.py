@@ -51,9 +51,10 @@ def step_features(kind: str, op: Op | None, in_shape: tuple[int, ...]) -> dict[s
     pixels in ``ceil(n / 2)`` pairs; per pixel a patch whose values inside the
     image are copied (``vy vx c`` in all, with ``vy = sum_oy (rows of the
     kernel inside)``, likewise ``vx``): by table for a short ``K = k k c``
-    whose kernel rows do not fill groups of four, else row by row; per pair of
-    pixels and pair of filters ``K // 4`` groups of four values, two a turn,
-    and ``K % 4`` single ones; one requantisation per output. Dense: pairs of
+    whose kernel rows do not fill groups of four (a window reaching into the
+    padding by the same table, testing each tap), else row by row; per pair of
+    pixels and pair of filters ``ceil(K / 4)`` groups of four values (``K``
+    padded with zeros), two a turn; one requantisation per output. Dense: pairs of
     outputs, steps of four inputs, single ones. Depthwise: blocks of four
     channels per pixel, kernel rows and taps inside (a whole row of a 3-wide
     window written out), and the padding's taps of edge pixels.

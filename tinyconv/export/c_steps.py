@@ -38,7 +38,7 @@ class CEmitter:
 
 
 def _arrays(layer: QuantLayer, p: str, style: str) -> str:
-    # the fast kernels read one record a channel (bias, multiplier, shift)
+    # the fast kernels read one record a channel (bias, multiplier, nh, code)
     base = f"{p}_l{layer.index}"
     if style == "fast":
         return f"{base}_w, {base}_rec"

@@ -222,7 +222,7 @@ def generate_c(qnet: QuantizedNetwork, prefix: str = "tc", classes=None,
         base = f"{p}_l{layer.index}"
         c_layout.check_multipliers(layer)
         add(f"{base}_w", "int8_t", c_layout.weights(layer, style))
-        if style == "fast":  # one record a channel: bias, multiplier, shift
+        if style == "fast":  # one record a channel: bias, multiplier, nh, code
             add(f"{base}_rec", "int32_t", c_layout.channel_records(layer))
         else:
             add(f"{base}_bias", "int32_t", c_layout.bias(layer, style))
