@@ -46,3 +46,48 @@ def test_parts_only_for_large_activations_and_never_with_batch_norm():
     assert micro_batch(Network.from_arch("32x32rgb/c16k3-p2-gap", 3, seed=0), 64) == 64
     with_bn = big.replace("c16k1", "c16k1-bn")
     assert micro_batch(Network.from_arch(with_bn, 3, seed=0), 64) == 64
+
+
+def test_the_parts_are_a_divisor_of_the_batch_when_one_is_near_the_cap(monkeypatch):
+    """With room for 22 images a part, a batch of 64 goes in parts of 16 (a divisor: one
+    shape for every part); a batch of 61 (prime) in parts of 21, as equal as they come."""
+    import tinyconv.train as train
+    from tinyconv.cost import cost_of
+    arch = "96x96gray/c8k3s2-dw3-c16k1-p2-dw3-c32k1-p2-dw3-c64k1-gap"
+    per_image = 4 * sum(r.live_elements for r in cost_of(arch, 3).rows)
+    monkeypatch.setattr(train, "PART_BYTES", 22 * per_image)
+    net = Network.from_arch(arch, 3, seed=0)
+    assert micro_batch(net, 64) == 16
+    assert micro_batch(net, 61) == 21
+
+
+def test_batch_norm_takes_the_whole_batch_even_when_asked_for_parts():
+    """train_step with parts on a network with batch norm takes the whole batch (its
+    statistics are the batch's): the same step as without parts, bit for bit."""
+    arch = "12x12rgb/c6k3-bn-p2-gap-d5"
+    loss, right, params = _step(arch, None)
+    loss_p, right_p, params_p = _step(arch, 3)
+    assert (loss_p, right_p) == (loss, right)
+    for a, b in zip(params, params_p):
+        np.testing.assert_array_equal(b, a)
+
+
+def test_fit_trains_in_the_parts_micro_batch_gives(monkeypatch):
+    """fit passes each batch to train_step with micro_batch's part size."""
+    import tinyconv.train as train
+    from tinyconv.train import TrainConfig, fit
+    seen = []
+    real = train.train_step
+
+    def spy(net, batch, labels, opt, lr, smoothing=0.0, micro=None):
+        seen.append(micro)
+        return real(net, batch, labels, opt, lr, smoothing, micro)
+
+    monkeypatch.setattr(train, "train_step", spy)
+    monkeypatch.setattr(train, "micro_batch", lambda net, batch_size: 3)
+    net = Network.from_arch("12x12rgb/c6k3-p2-gap-d5", 3, seed=1)
+    rng = np.random.default_rng(2)
+    x = rng.standard_normal((16, 12, 12, 3)).astype(np.float32)
+    y = np.arange(16) % 3
+    fit(net, x, y, TrainConfig(epochs=1, batch_size=8))
+    assert seen and set(seen) == {3}

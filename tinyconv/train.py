@@ -236,11 +236,15 @@ def fit(net, x: np.ndarray, y: np.ndarray, config: TrainConfig,
 PART_BYTES = 24 << 20
 
 
+def _has_batch_norm(net) -> bool:
+    return any(getattr(layer, "kind", "") == "bn" for layer in net.layers)
+
+
 def micro_batch(net, batch_size: int) -> int:
     """Images a training forward and backward pass take at once (``batch_size`` unless
     the batch's activations pass :data:`PART_BYTES`; never with batch norm, whose
     statistics are the whole batch's). The parts' gradients add up to the batch's."""
-    if any(getattr(layer, "kind", "") == "bn" for layer in net.layers):
+    if _has_batch_norm(net):
         return batch_size
     from tinyconv.cost import cost_of
     per_image = 4 * sum(r.live_elements for r in cost_of(net.arch, net.n_classes).rows)
@@ -261,9 +265,12 @@ def train_step(net, batch: np.ndarray, labels: np.ndarray, opt, lr: float,
     at most ``micro`` (:func:`micro_batch`), each part's gradient of its mean
     loss weighted by its share of the batch, and one update follows with their
     sum: the batch's gradient. A non-finite loss returns at once, before any
-    update.
+    update. A network with batch norm always takes the whole batch (its
+    statistics are the batch's), whatever ``micro`` says.
     """
     n, total, loss_sum, correct = len(batch), None, 0.0, 0
+    if micro is not None and micro < n and _has_batch_norm(net):
+        micro = None
     for at in range(0, n, micro or n):
         part = slice(at, min(at + (micro or n), n))
         logits = net.forward(batch[part], training=True)        # (m, K)
