@@ -266,13 +266,13 @@ class SearchLoop:
         if limit_e is not None and self.epochs + self._inflight_epochs + task.epochs > limit_e:
             raise _BudgetStop("budget_epochs")
         limit_c = self.s.budget_cpu_s
-        if limit_c is not None and self.cpu_s >= limit_c:
+        if limit_c is None:
+            return
+        # forecast: what is in flight and this unit (search.cpu_forecast)
+        ahead = self.forecast.total([(t.candidate, t.epochs)
+                                     for t in (*self._inflight.values(), task)])
+        if self.cpu_s >= limit_c or (ahead is not None and self.cpu_s + ahead > limit_c):
             raise _BudgetStop("budget_cpu")
-        if limit_c is not None:  # forecast: what is in flight and this unit (cpu_forecast)
-            ahead = self.forecast.total([(t.candidate, t.epochs)
-                                         for t in (*self._inflight.values(), task)])
-            if ahead is not None and self.cpu_s + ahead > limit_c:
-                raise _BudgetStop("budget_cpu")
 
     def _submit(self, task: UnitTask) -> None:
         try:

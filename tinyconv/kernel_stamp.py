@@ -63,8 +63,9 @@ def _module_sources() -> list[str]:
     return [str(root.joinpath(*name.split(".")).with_suffix(".py")) for name in MODULES]
 
 
-#: The kernel modules (as :data:`tinyconv.layers.kernel_cache.KERNEL_MODULES`, which
-#: a test keeps equal to this: importing that module would import Numba).
+#: The modules under ``tinyconv.layers`` holding the engine's Numba kernels (the one
+#: list: :data:`tinyconv.layers.kernel_cache.KERNEL_MODULES` is this, kept here so that
+#: the stamp finds their sources without importing them, or Numba).
 MODULES = ("kernels_act", "convalg.im2col", "kernels_pool", "kernels_dw",
            "convalg.winograd_f2", "convalg.winograd_f4", "convalg.winograd_f4_unrolled")
 

@@ -19,9 +19,10 @@ from __future__ import annotations
 
 import importlib
 
+from tinyconv.kernel_stamp import MODULES
+
 #: The modules holding the engine's Numba kernels.
-KERNEL_MODULES = ("kernels_act", "convalg.im2col", "kernels_pool", "kernels_dw",
-                  "convalg.winograd_f2", "convalg.winograd_f4", "convalg.winograd_f4_unrolled")
+KERNEL_MODULES = MODULES
 #: Below this share of cached kernels, a run compiles a good part of the engine.
 WARM_SHARE = 0.5
 
